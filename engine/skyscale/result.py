@@ -1,0 +1,105 @@
+"""The result of a deconvolution run: images, components, history and why it stopped."""
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+__all__ = ["COMPONENT_DTYPE", "STOP_REASONS", "CycleRecord", "DeconvolutionResult",
+           "empty_components"]
+
+#: Fields of the component table: pixel position, scale diameter (pixels), integrated flux (Jy).
+COMPONENT_DTYPE = np.dtype([("y", np.int32), ("x", np.int32),
+                            ("scale", np.float32), ("flux", np.float64)])
+
+#: Every reason a run can stop, with a one-line meaning.
+STOP_REASONS = {
+    "threshold": "peak residual in the mask reached the absolute threshold",
+    "noise": "peak residual in the mask reached the requested multiple of the robust noise",
+    "max_components": "the component budget was spent",
+    "max_major_cycles": "the major-cycle budget was spent",
+    "no_progress": "major cycles stopped lowering the peak residual",
+    "diverging": "a major cycle raised the peak residual; its components were rolled back",
+    "empty_mask": "the mask allows no pixel to be cleaned",
+    "interrupted": "the run was interrupted; the result holds what was done so far",
+}
+
+
+def empty_components(n=0):
+    """Return a zeroed component table with ``n`` rows."""
+    return np.zeros(n, dtype=COMPONENT_DTYPE)
+
+
+@dataclass
+class CycleRecord:
+    """State after one major cycle (the exact residual, recomputed)."""
+
+    cycle: int                 #: major-cycle number, 0 = the dirty image before cleaning
+    components: int            #: components found so far (cumulative)
+    peak: float                #: peak |residual| inside the mask, Jy/beam
+    rms: float                 #: rms of the residual inside the mask, Jy/beam
+    flux: float                #: total model flux, Jy
+    minor_iterations: int = 0  #: components added by this cycle's minor cycle
+    minor_stop: str = ""       #: why that minor cycle handed back
+
+    def as_dict(self):
+        return dict(self.__dict__)
+
+
+@dataclass
+class DeconvolutionResult:
+    """Everything a deconvolution produced.
+
+    Attributes
+    ----------
+    model : (ny, nx) ndarray
+        The CLEAN model, Jy/pixel.
+    residual : (ny, nx) ndarray
+        The exact residual after the last major cycle, Jy/beam.
+    components : structured ndarray
+        One row per component, fields ``y, x, scale, flux`` (see `COMPONENT_DTYPE`).
+    stop_reason : str
+        A key of `STOP_REASONS`.
+    history : list of CycleRecord
+        One record per major cycle, the first for the dirty image.
+    scales : tuple of float
+        Scale diameters in pixels.
+    restored : (ny, nx) ndarray or None
+        model (*) restoring beam + residual, Jy/beam of the restoring beam.
+    beam : Beam or None
+        The restoring beam (FWHM major and minor in pixels, position angle in degrees).
+    mask : (ny, nx) bool ndarray or None
+        The mask in use at the end of the run.
+    parameters : dict
+        Every parameter of the run, as used.
+    timings : dict
+        Seconds spent in ``precompute``, ``minor`` and ``major`` cycles.
+    warnings : list of str
+        Unusual but allowed conditions met during the run.
+    """
+
+    model: np.ndarray
+    residual: np.ndarray
+    components: np.ndarray
+    stop_reason: str
+    history: list = field(default_factory=list)
+    scales: tuple = ()
+    restored: np.ndarray = None
+    beam: object = None
+    mask: np.ndarray = None
+    parameters: dict = field(default_factory=dict)
+    timings: dict = field(default_factory=dict)
+    warnings: list = field(default_factory=list)
+
+    @property
+    def stop_description(self):
+        """One sentence saying why the run stopped."""
+        return STOP_REASONS.get(self.stop_reason, self.stop_reason)
+
+    def per_scale(self):
+        """Component count and total flux per scale, as a list of dicts."""
+        rows = []
+        for s in self.scales:
+            sel = self.components["scale"] == np.float32(s)
+            rows.append({"scale": float(s), "components": int(sel.sum()),
+                         "flux": float(self.components["flux"][sel].sum())})
+        return rows
