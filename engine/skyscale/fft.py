@@ -1,0 +1,191 @@
+"""FFT backend and linear-convolution helpers.
+
+pyfftw is used when it is installed (plans with threads, wisdom kept in a cache
+file); numpy.fft otherwise.  The backend is injectable so that tests can run both
+paths against each other.
+"""
+
+import logging
+import os
+import pickle
+import threading
+
+import numpy as np
+from scipy.fft import next_fast_len
+
+from ._validate import check_choice
+
+__all__ = ["FFT_BACKENDS", "NumpyFFT", "FFTWFFT", "get_backend", "fast_shape",
+           "convolve_centred", "Convolver"]
+
+logger = logging.getLogger(__name__)
+
+#: Backend names accepted by `get_backend`.
+FFT_BACKENDS = ("auto", "numpy", "pyfftw")
+
+
+class NumpyFFT:
+    """Real 2-D FFTs with numpy.fft (always available)."""
+
+    name = "numpy"
+
+    def __init__(self, threads=None):
+        self.threads = threads
+
+    def rfft2(self, a, s):
+        return np.fft.rfft2(a, s=s)
+
+    def irfft2(self, a, s):
+        return np.fft.irfft2(a, s=s)
+
+
+class FFTWFFT:
+    """Real 2-D FFTs with pyfftw's builders, threads and a wisdom cache.
+
+    Parameters
+    ----------
+    threads : int, optional
+        FFT threads; default the number of CPUs.
+    wisdom_path : str, optional
+        Wisdom file; default ``~/.cache/skyscale/fftw_wisdom.pkl``.  Set the
+        environment variable ``SKYSCALE_FFTW_WISDOM`` to override.
+    """
+
+    name = "pyfftw"
+    _lock = threading.Lock()
+    _wisdom_loaded = False
+
+    def __init__(self, threads=None, wisdom_path=None):
+        import pyfftw
+        import pyfftw.builders  # noqa: F401
+        self._pyfftw = pyfftw
+        self.threads = int(threads or os.cpu_count() or 1)
+        self.wisdom_path = wisdom_path or os.environ.get(
+            "SKYSCALE_FFTW_WISDOM",
+            os.path.join(os.path.expanduser("~"), ".cache", "skyscale", "fftw_wisdom.pkl"))
+        self._plans = {}
+        self._load_wisdom()
+
+    def _load_wisdom(self):
+        with FFTWFFT._lock:
+            if FFTWFFT._wisdom_loaded:
+                return
+            FFTWFFT._wisdom_loaded = True
+            try:
+                with open(self.wisdom_path, "rb") as fh:
+                    self._pyfftw.import_wisdom(pickle.load(fh))
+                logger.debug("loaded FFTW wisdom from %s", self.wisdom_path)
+            except (OSError, ValueError, pickle.UnpicklingError, EOFError):
+                pass
+
+    def _save_wisdom(self):
+        try:
+            os.makedirs(os.path.dirname(self.wisdom_path), exist_ok=True)
+            tmp = f"{self.wisdom_path}.{os.getpid()}.tmp"
+            with open(tmp, "wb") as fh:
+                pickle.dump(self._pyfftw.export_wisdom(), fh)
+            os.replace(tmp, self.wisdom_path)
+        except OSError:  # a read-only home is fine: wisdom is only a speed-up
+            pass
+
+    def _plan(self, kind, shape, dtype, s):
+        key = (kind, shape, np.dtype(dtype).str, s)
+        plan = self._plans.get(key)
+        if plan is None:
+            builders = self._pyfftw.builders
+            template = self._pyfftw.empty_aligned(shape, dtype=dtype)
+            build = builders.rfft2 if kind == "r" else builders.irfft2
+            plan = build(template, s=s, threads=self.threads,
+                         planner_effort="FFTW_ESTIMATE", avoid_copy=False)
+            self._plans[key] = plan
+            self._save_wisdom()
+        return plan
+
+    def rfft2(self, a, s):
+        a = np.asarray(a)
+        return self._plan("r", a.shape, a.dtype, tuple(s))(a).copy()
+
+    def irfft2(self, a, s):
+        a = np.asarray(a)
+        return self._plan("i", a.shape, a.dtype, tuple(s))(a).copy()
+
+
+def get_backend(name="auto", threads=None):
+    """Return an FFT backend by name.
+
+    Parameters
+    ----------
+    name : {'auto', 'numpy', 'pyfftw'} or backend object
+        ``'auto'`` picks pyfftw when it imports, numpy otherwise.  An object with
+        ``rfft2`` and ``irfft2`` methods is returned as it is.
+    threads : int, optional
+        Threads for pyfftw.
+    """
+    if hasattr(name, "rfft2") and hasattr(name, "irfft2"):
+        return name
+    check_choice(name, "fft", FFT_BACKENDS)
+    if name in ("auto", "pyfftw"):
+        try:
+            return FFTWFFT(threads=threads)
+        except ImportError:
+            if name == "pyfftw":
+                raise ImportError("fft='pyfftw' but pyfftw is not installed; "
+                                  "pip install skyscale[fftw] or pass fft='numpy'") from None
+    return NumpyFFT(threads=threads)
+
+
+def fast_shape(shape_a, shape_b):
+    """FFT shape for the linear convolution of two 2-D arrays (no wrap-around)."""
+    return tuple(next_fast_len(int(a + b - 1), real=True) for a, b in zip(shape_a, shape_b))
+
+
+def convolve_centred(image, kernel, *, backend=None, out_dtype=None):
+    """Linear convolution of ``image`` with a kernel centred at ``kernel.shape // 2``.
+
+    ``out[q] = sum_p image[p] * kernel[q - p + c]`` with ``c = (ky // 2, kx // 2)``,
+    cut to the image's shape.  For odd kernels this equals
+    ``scipy.signal.fftconvolve(image, kernel, mode='same')``.
+
+    Parameters
+    ----------
+    image : (ny, nx) ndarray
+    kernel : (ky, kx) ndarray
+    backend : FFT backend, optional
+        Default `get_backend('auto')`.
+    out_dtype : numpy dtype, optional
+        Default the image's dtype.
+    """
+    return Convolver(kernel, image.shape, backend=backend)(image, out_dtype=out_dtype)
+
+
+class Convolver:
+    """Repeated centred linear convolutions with one kernel (its FFT kept).
+
+    Parameters
+    ----------
+    kernel : (ky, kx) ndarray
+        Centred at ``(ky // 2, kx // 2)``.
+    image_shape : (int, int)
+        Shape of the images that will be convolved.
+    backend : FFT backend, optional
+    """
+
+    def __init__(self, kernel, image_shape, *, backend=None):
+        self.backend = get_backend(backend or "auto")
+        kernel = np.asarray(kernel, dtype=np.float64)
+        self.kernel_shape = kernel.shape
+        self.image_shape = tuple(image_shape)
+        self.fshape = fast_shape(self.image_shape, kernel.shape)
+        self.centre = (kernel.shape[0] // 2, kernel.shape[1] // 2)
+        self._kf = self.backend.rfft2(kernel, self.fshape)
+
+    def __call__(self, image, out_dtype=None):
+        image = np.asarray(image)
+        if image.shape != self.image_shape:
+            raise ValueError(f"image has shape {image.shape}, this convolver was built for "
+                             f"{self.image_shape}; build a new one")
+        full = self.backend.irfft2(self.backend.rfft2(image.astype(np.float64, copy=False),
+                                                      self.fshape) * self._kf, self.fshape)
+        cy, cx = self.centre
+        out = full[cy:cy + image.shape[0], cx:cx + image.shape[1]]
+        return np.ascontiguousarray(out, dtype=out_dtype or image.dtype)

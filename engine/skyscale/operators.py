@@ -1,0 +1,122 @@
+"""The residual-operator protocol and the built-in image-plane operator.
+
+A residual operator turns a model image into the residual image of the data: the
+major cycle.  skyscale's own is the image-plane one, ``dirty - PSF (*) model``;
+pipelines pass theirs (a degridder, the visibility residual, a gridder), as in the
+Cotton-Schwab major cycle.
+
+References
+----------
+.. [1] Schwab, F. R. 1984, AJ 89, 1076.
+.. [2] Clark, B. G. 1980, A&A 89, 377.
+"""
+
+import logging
+import warnings
+
+import numpy as np
+
+from ._validate import as_image, resolve_dtype
+from .fft import Convolver, get_backend
+from .psf import check_psf
+
+try:  # Python >= 3.8
+    from typing import Protocol, runtime_checkable
+except ImportError:  # pragma: no cover
+    Protocol = object
+
+    def runtime_checkable(c):
+        return c
+
+__all__ = ["ResidualOperator", "ImagePlaneOperator", "FunctionOperator", "as_operator"]
+
+logger = logging.getLogger(__name__)
+
+
+@runtime_checkable
+class ResidualOperator(Protocol):
+    """Anything that maps a model image (Jy/pixel) to a residual image (Jy/beam).
+
+    ``operator(model) -> residual`` with both of the image's shape.
+    """
+
+    def __call__(self, model):  # pragma: no cover - protocol
+        ...
+
+
+class ImagePlaneOperator:
+    """``residual = dirty - PSF (*) model`` by FFT, the PSF's transform kept.
+
+    Parameters
+    ----------
+    dirty : (ny, nx) ndarray
+        Dirty image, Jy/beam.
+    psf : (py, px) ndarray
+        PSF centred at ``(py // 2, px // 2)``, at least the image's size.
+    fft : backend name or object, optional
+    dtype : numpy dtype, optional
+        Default float32.
+
+    Notes
+    -----
+    With a PSF twice the image's size (``py >= 2 ny - 1``) every offset between two
+    image pixels is covered and the residual is exact.  With a smaller PSF, the PSF
+    is taken as zero beyond its edge: the residual at a pixel farther than
+    ``exact_offsets`` from a component misses those sidelobes; `approximation` says
+    by how much at most, per unit of model flux.
+    """
+
+    def __init__(self, dirty, psf, *, fft="auto", dtype=None, threads=None):
+        self.dtype = resolve_dtype(dtype)
+        self.dirty = as_image(dirty, "dirty", dtype=self.dtype)
+        self.psf = check_psf(psf, self.dirty.shape, dtype=self.dtype)
+        self._conv = Convolver(self.psf, self.dirty.shape, backend=get_backend(fft, threads))
+        ny, nx = self.dirty.shape
+        py, px = self.psf.shape
+        cy, cx = py // 2, px // 2
+        self.exact_offsets = (min(cy, py - 1 - cy), min(cx, px - 1 - cx))
+        self.exact = self.exact_offsets[0] >= ny - 1 and self.exact_offsets[1] >= nx - 1
+        edge = np.concatenate([self.psf[0], self.psf[-1], self.psf[:, 0], self.psf[:, -1]])
+        #: Largest |PSF| on the PSF's border: bounds the sidelobe omitted beyond it.
+        self.edge_level = float(np.abs(edge).max())
+        if not self.exact:
+            warnings.warn(
+                f"psf {self.psf.shape} is smaller than twice the image {self.dirty.shape}: "
+                f"residuals are exact only within {self.exact_offsets} pixels (dy, dx) of each "
+                f"component; farther away PSF sidelobes beyond the PSF's edge (|PSF| up to "
+                f"{self.edge_level:.3g} at its border) are taken as zero. Give a PSF of "
+                f"{2 * ny} x {2 * nx} for an exact residual", stacklevel=2)
+
+    @property
+    def approximation(self):
+        """None when exact; otherwise a dict describing the approximate region."""
+        if self.exact:
+            return None
+        return {"exact_offsets": self.exact_offsets, "psf_edge_level": self.edge_level}
+
+    def __call__(self, model):
+        model = np.asarray(model, dtype=self.dtype)
+        return self.dirty - self._conv(model, out_dtype=self.dtype)
+
+
+class FunctionOperator:
+    """Wrap a plain function ``f(model) -> residual`` and check what it returns."""
+
+    def __init__(self, function, shape, dtype=np.float32):
+        self.function = function
+        self.shape = tuple(shape)
+        self.dtype = dtype
+
+    def __call__(self, model):
+        out = self.function(model)
+        return as_image(out, "residual returned by the operator", dtype=self.dtype)
+
+
+def as_operator(operator, shape, dtype=np.float32):
+    """Return ``operator`` as a residual operator, wrapping a plain callable."""
+    if isinstance(operator, (ImagePlaneOperator, FunctionOperator)):
+        return operator
+    if not callable(operator):
+        raise TypeError(f"operator is {type(operator).__name__}, expected a callable "
+                        "model -> residual")
+    return FunctionOperator(operator, shape, dtype)
