@@ -1,0 +1,548 @@
+"""FITS images in and out: WCS, restoring-beam keywords, provenance and atomic writes.
+
+Restoring-beam keywords follow common practice: ``BMAJ`` and ``BMIN`` are FWHMs in
+degrees and ``BPA`` is the position angle in degrees east of north.  Inside skyscale
+a `~skyscale.beam.Beam` is in pixels with its angle measured on the pixel grid; the
+conversion uses the image's cell size and the orientation of its celestial axes, so
+rotated or flipped grids keep the beam pointing the same way on the sky.
+
+Every output is written to a temporary file in the target's directory and then
+renamed over the target, so a reader never sees half a file, and an existing file is
+only replaced when asked.
+
+References
+----------
+.. [1] FITS Standard 4.0 (IAU FITS Working Group 2018): keywords and data layout.
+.. [2] Greisen & Calabretta 2002, A&A 395, 1061; Calabretta & Greisen 2002, A&A 395,
+   1077: world coordinates.
+"""
+
+import contextlib
+import csv
+import datetime as _dt
+import importlib.metadata
+import math
+import os
+import secrets
+import textwrap
+import warnings
+from collections.abc import Mapping
+from dataclasses import dataclass
+
+import numpy as np
+from astropy import units as u
+from astropy.io import fits
+from astropy.wcs import WCS
+
+from ._validate import as_image
+from .beam import Beam, _wrap_pa
+
+__all__ = ["FitsImage", "HISTORY_WIDTH", "SQUARE_RTOL", "GRID_RTOL", "RESERVED_KEYWORDS",
+           "read_image", "cell_size_arcsec", "check_same_grid", "write_image",
+           "provenance_history", "write_table_csv"]
+
+#: Characters of text one HISTORY card holds.
+HISTORY_WIDTH = 72
+#: Largest relative difference between the x and y pixel steps of a "square" grid.
+SQUARE_RTOL = 1e-6
+#: Largest relative difference in cell size (and in the orientation matrix) between
+#: an image and its PSF.
+GRID_RTOL = 1e-5
+#: Keywords that ``extra`` may not set: structure, checksums, and what has its own argument.
+RESERVED_KEYWORDS = frozenset({"SIMPLE", "BITPIX", "NAXIS", "EXTEND", "BSCALE", "BZERO",
+                               "CHECKSUM", "DATASUM", "END", "HISTORY", "COMMENT",
+                               "BUNIT", "BMAJ", "BMIN", "BPA"})
+
+
+@dataclass
+class FitsImage:
+    """A 2-D image read from FITS.
+
+    Attributes
+    ----------
+    data : (ny, nx) ndarray of float32
+        The pixels, degenerate extra axes removed.
+    header : astropy.io.fits.Header
+        The primary header as read.
+    wcs : astropy.wcs.WCS or None
+        The 2-D celestial WCS, or None when the header has none.
+    path : str or None
+        Where it was read from.
+    beam : Beam or None
+        Restoring beam (pixels) from BMAJ/BMIN/BPA, if present.
+    bunit : str or None
+        The BUNIT keyword.
+    """
+
+    data: np.ndarray
+    header: fits.Header
+    wcs: object = None
+    path: str = None
+    beam: Beam = None
+    bunit: str = None
+
+
+def _celestial(wcs, name):
+    if isinstance(wcs, FitsImage):
+        wcs = wcs.wcs
+    if wcs is None or not getattr(wcs, "has_celestial", False):
+        raise ValueError(f"{name} has no celestial WCS; give an image whose header "
+                         "has RA/Dec-like CTYPE, CRPIX, CRVAL and CDELT or CD keywords")
+    return wcs.celestial
+
+
+def _sky_matrix(cel):
+    """Pixel (x, y) -> (east, north) intermediate offsets in arcsec, rows lng then lat."""
+    mat = np.array(cel.pixel_scale_matrix, dtype=np.float64)
+    for i, unit in enumerate(cel.wcs.cunit):
+        mat[i] *= (u.Unit(unit) if str(unit) else u.deg).to(u.arcsec)
+    return mat[[cel.wcs.lng, cel.wcs.lat]]
+
+
+def cell_size_arcsec(wcs):
+    """Return the pixel size in arcsec of a square celestial grid.
+
+    Parameters
+    ----------
+    wcs : astropy.wcs.WCS or FitsImage
+        Any WCS with celestial axes (CDELT, CD or PC with CDELT).
+
+    Returns
+    -------
+    float
+        The length of one pixel step, arcsec.
+
+    Raises
+    ------
+    ValueError
+        If there is no celestial WCS, or the x and y steps differ by more than
+        `SQUARE_RTOL` (relative), or the pixel axes are not perpendicular.
+
+    Examples
+    --------
+    >>> from astropy.wcs import WCS
+    >>> w = WCS(naxis=2); w.wcs.ctype = ["RA---SIN", "DEC--SIN"]
+    >>> w.wcs.cdelt = [-1.5 / 3600, 1.5 / 3600]
+    >>> round(cell_size_arcsec(w), 9)
+    1.5
+    """
+    mat = _sky_matrix(_celestial(wcs, "wcs"))
+    sx, sy = np.sqrt((mat ** 2).sum(axis=0))
+    if abs(sx - sy) > SQUARE_RTOL * max(sx, sy):
+        raise ValueError(f"wcs pixel grid is not square: the x step is {sx:.9g} arcsec and "
+                         f"the y step {sy:.9g} arcsec; regrid the images to square pixels")
+    skew = abs(float(mat[:, 0] @ mat[:, 1])) / (sx * sy)
+    if skew > SQUARE_RTOL:
+        raise ValueError(f"wcs pixel axes are not perpendicular (skew "
+                         f"{math.degrees(math.asin(min(skew, 1.0))):.6g} deg); regrid "
+                         "the images to a square, unskewed grid")
+    return float(0.5 * (sx + sy))
+
+
+def _orientation(cel):
+    """(east, north) per pixel step, normalised: a rotation, possibly with a flip."""
+    return _sky_matrix(cel) / cell_size_arcsec(cel)
+
+
+def _sky_pa(pa_pixel, cel):
+    t = math.radians(pa_pixel)
+    east, north = _orientation(cel) @ np.array([-math.sin(t), math.cos(t)])
+    return _wrap_pa(math.degrees(math.atan2(east, north)))
+
+
+def _pixel_pa(pa_sky, cel):
+    t = math.radians(pa_sky)
+    dx, dy = np.linalg.solve(_orientation(cel), np.array([math.sin(t), math.cos(t)]))
+    return _wrap_pa(math.degrees(math.atan2(-dx, dy)))
+
+
+def _header_beam(header, wcs, label):
+    if "BMAJ" not in header or "BMIN" not in header:
+        return None
+    if wcs is None:
+        warnings.warn(f"{label} has BMAJ/BMIN but no celestial WCS to turn degrees into "
+                      "pixels; its beam is ignored", stacklevel=3)
+        return None
+    if "BPA" not in header:
+        warnings.warn(f"{label} has BMAJ/BMIN but no BPA; taking BPA = 0", stacklevel=3)
+    try:
+        cell = cell_size_arcsec(wcs)
+        return Beam(float(header["BMAJ"]) * 3600.0 / cell, float(header["BMIN"]) * 3600.0 / cell,
+                    _pixel_pa(float(header.get("BPA", 0.0)), wcs))
+    except (ValueError, TypeError) as exc:
+        warnings.warn(f"{label} beam keywords are not usable ({exc}); its beam is ignored",
+                      stacklevel=3)
+        return None
+
+
+def read_image(path, *, name=None):
+    """Read a 2-D image (or one plane with degenerate extra axes) from a FITS file.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The FITS file; the image is the primary HDU.
+    name : str, optional
+        What the image is (for example ``'psf'``), used in messages.
+
+    Returns
+    -------
+    FitsImage
+
+    Raises
+    ------
+    FileNotFoundError
+        If ``path`` does not exist.
+    ValueError
+        If the primary HDU holds no image, has fewer than 2 axes, its celestial axes
+        are not the first two, or an extra axis has more than one plane.
+
+    Examples
+    --------
+    >>> import os, tempfile, numpy as np
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     p = write_image(os.path.join(d, "a.fits"), np.ones((3, 4)), bunit="Jy/beam")
+    ...     img = read_image(p)
+    >>> img.data.shape, img.data.dtype, img.bunit
+    ((3, 4), dtype('float32'), 'Jy/beam')
+    """
+    path = os.fspath(path)
+    label = f"{name} file {path}" if name else path
+    if not os.path.isfile(path):
+        raise FileNotFoundError(f"{label} does not exist; check the path")
+    with fits.open(path, memmap=False) as hdul:
+        header = hdul[0].header.copy()
+        data = hdul[0].data
+        data = None if data is None else np.array(data)
+    if data is None or data.ndim < 2:
+        raise ValueError(f"{label}: the primary HDU holds no 2-D image (NAXIS="
+                         f"{header.get('NAXIS', 0)}); write the image into the primary HDU")
+    full = WCS(header, fix=True) if any(k in header for k in ("CTYPE1", "CTYPE2")) else None
+    if full is not None and full.has_celestial:
+        if {full.wcs.lng, full.wcs.lat} != {0, 1}:
+            raise ValueError(f"{label}: the celestial axes are FITS axes {full.wcs.lng + 1} "
+                             f"and {full.wcs.lat + 1}; skyscale needs them as axes 1 and 2 "
+                             "(reorder the cube)")
+    extra = data.shape[:-2]
+    if any(n != 1 for n in extra):
+        axes = ", ".join(f"axis {data.ndim - i} ({header.get(f'CTYPE{data.ndim - i}', '?')}) "
+                         f"has {n} planes" for i, n in enumerate(extra) if n != 1)
+        raise ValueError(f"{label} has shape {data.shape}: {axes}; skyscale reads one 2-D "
+                         "plane, cut the plane out first (or deconvolve the cube plane by plane)")
+    data = np.ascontiguousarray(data.reshape(data.shape[-2:]), dtype=np.float32)
+    wcs = full.celestial if full is not None and full.has_celestial else None
+    bunit = header.get("BUNIT")
+    return FitsImage(data=data, header=header, wcs=wcs, path=path,
+                     beam=_header_beam(header, wcs, label),
+                     bunit=None if bunit is None else str(bunit).strip())
+
+
+def check_same_grid(image, psf):
+    """Check that the PSF was made on the image's grid: same cell size and orientation.
+
+    Parameters
+    ----------
+    image, psf : FitsImage, astropy.wcs.WCS or None
+        The PSF may be larger than the image.  When either has no celestial WCS the
+        check is skipped.
+
+    Raises
+    ------
+    ValueError
+        If the cell sizes differ by more than `GRID_RTOL` (relative) or one grid is
+        rotated or flipped relative to the other.
+
+    Examples
+    --------
+    >>> from astropy.wcs import WCS
+    >>> w = WCS(naxis=2); w.wcs.ctype = ["RA---SIN", "DEC--SIN"]
+    >>> w.wcs.cdelt = [-1 / 3600, 1 / 3600]
+    >>> check_same_grid(w, None) is None
+    True
+    """
+    wcs = [x.wcs if isinstance(x, FitsImage) else x for x in (image, psf)]
+    if any(w is None or not w.has_celestial for w in wcs):
+        return None
+    cel_i, cel_p = (w.celestial for w in wcs)
+    ci, cp = cell_size_arcsec(cel_i), cell_size_arcsec(cel_p)
+    if abs(ci - cp) > GRID_RTOL * ci:
+        raise ValueError(f"psf cell size is {cp:.9g} arcsec but the image's is {ci:.9g} "
+                         "arcsec; make the PSF on the image's grid (same cell size)")
+    oi, op = _orientation(cel_i), _orientation(cel_p)
+    if np.max(np.abs(oi - op)) > GRID_RTOL:
+        def describe(o):
+            dx, dy = np.linalg.solve(o, [0.0, 1.0])
+            side = "-x" if np.linalg.det(o) < 0 else "+x"
+            return f"north {math.degrees(math.atan2(-dx, dy)):.4f} deg from +y, east to {side}"
+        raise ValueError(f"psf grid orientation ({describe(op)}) differs from the image's "
+                         f"({describe(oi)}); make the PSF on the image's grid")
+    return None
+
+
+def _like_wcs(like):
+    """Return ``(celestial WCS or None, (ny, nx) or None)`` from ``like``."""
+    if like is None:
+        return None, None
+    if isinstance(like, FitsImage):
+        return like.wcs, like.data.shape
+    if isinstance(like, fits.Header):
+        w = WCS(like, fix=True)
+        shape = (like["NAXIS2"], like["NAXIS1"]) if "NAXIS2" in like else None
+        return (w.celestial if w.has_celestial else None), shape
+    if isinstance(like, WCS):
+        return (like.celestial if like.has_celestial else None), None
+    raise TypeError(f"like is {type(like).__name__}; pass a FitsImage, an astropy "
+                    "Header or an astropy WCS (or None)")
+
+
+def _skyscale_version():
+    try:
+        return importlib.metadata.version("skyscale")
+    except importlib.metadata.PackageNotFoundError:
+        return "unknown"
+
+
+def _timestamp(value):
+    if isinstance(value, _dt.datetime):
+        return value.isoformat(timespec="seconds")
+    if isinstance(value, (int, float)):
+        return _dt.datetime.fromtimestamp(value, _dt.timezone.utc).isoformat(timespec="seconds")
+    return str(value)
+
+
+def provenance_history(parameters, start=None, end=None):
+    """HISTORY lines recording the skyscale version, the parameters and the run times.
+
+    Parameters
+    ----------
+    parameters : dict
+        Parameter name -> value, in the order to record them.
+    start, end : datetime, float (Unix time), str or None
+        When the run started and ended; None leaves the line out.
+
+    Returns
+    -------
+    list of str
+        ASCII lines of at most `HISTORY_WIDTH` characters; a long entry continues on
+        lines indented by two spaces.
+
+    Examples
+    --------
+    >>> lines = provenance_history({"loop_gain": 0.1}, None, None)
+    >>> lines[0].startswith("skyscale version "), lines[1]
+    (True, 'skyscale parameter loop_gain = 0.1')
+    """
+    if parameters is None:
+        parameters = {}
+    if not isinstance(parameters, Mapping):
+        raise TypeError(f"parameters is {type(parameters).__name__}; pass a dict of "
+                        "parameter name -> value")
+    entries = [f"skyscale version {_skyscale_version()}"]
+    entries += [f"skyscale parameter {key} = {value}" for key, value in parameters.items()]
+    if start is not None:
+        entries.append(f"skyscale start {_timestamp(start)}")
+    if end is not None:
+        entries.append(f"skyscale end {_timestamp(end)}")
+    lines = []
+    for entry in entries:
+        entry = entry.encode("ascii", "backslashreplace").decode("ascii")
+        lines += textwrap.wrap(entry, width=HISTORY_WIDTH, subsequent_indent="  ",
+                               break_on_hyphens=False, drop_whitespace=True) or [""]
+    return lines
+
+
+def _reserve_temp(directory, base):
+    while True:
+        tmp = os.path.join(directory, f".{base}.{secrets.token_hex(6)}.tmp")
+        try:
+            return os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o666), tmp
+        except FileExistsError:
+            continue
+
+
+def _exists_error(path):
+    return FileExistsError(f"{path} already exists; pass overwrite=True (--overwrite on "
+                           "the command line) to replace it, or choose another path")
+
+
+@contextlib.contextmanager
+def _atomic_output(path, overwrite, *, text=False):
+    """Yield a file in ``path``'s directory that becomes ``path`` only on success."""
+    directory = os.path.dirname(os.path.abspath(path))
+    if not os.path.isdir(directory):
+        raise FileNotFoundError(f"output directory {directory} does not exist; create it first")
+    if os.path.isdir(path):
+        raise IsADirectoryError(f"{path} is a directory; pass a file name")
+    if os.path.lexists(path) and not overwrite:
+        raise _exists_error(path)
+    fd, tmp = _reserve_temp(directory, os.path.basename(path))
+    try:
+        mode = dict(mode="w", newline="", encoding="utf-8") if text else dict(mode="wb")
+        with os.fdopen(fd, **mode) as fh:
+            yield fh
+            fh.flush()
+            os.fsync(fh.fileno())
+        if overwrite:
+            os.replace(tmp, path)
+        else:
+            try:
+                os.link(tmp, path)            # fails if someone created path meanwhile
+            except FileExistsError:
+                raise _exists_error(path) from None
+            except OSError:                   # no hard links here: check, then rename
+                if os.path.lexists(path):
+                    raise _exists_error(path) from None
+                os.replace(tmp, path)
+    finally:
+        with contextlib.suppress(FileNotFoundError):
+            os.unlink(tmp)
+
+
+def write_image(path, data, *, like=None, bunit, beam=None, history=(), extra=None,
+                overwrite=False):
+    """Write a 2-D image to FITS atomically, with WCS, beam keywords and HISTORY.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        Output file.
+    data : (ny, nx) ndarray
+        Pixels; float64 is written as float64, anything else as float32.
+    like : FitsImage, astropy Header or astropy WCS, optional
+        Source of the celestial WCS copied into the output (same grid as ``data``).
+    bunit : str
+        The BUNIT keyword, for example ``'Jy/beam'`` or ``'Jy/pixel'``.
+    beam : Beam, optional
+        Restoring beam in pixels, written as BMAJ/BMIN (degrees, FWHM) and BPA (degrees
+        east of north); needs a celestial WCS from ``like``.
+    history : sequence of str, optional
+        HISTORY lines, for example from `provenance_history`.
+    extra : dict, optional
+        More keywords: ``{key: value}`` or ``{key: (value, comment)}``; not those in
+        `RESERVED_KEYWORDS`.
+    overwrite : bool, optional
+        Replace an existing file (default False).
+
+    Returns
+    -------
+    str
+        The path written.
+
+    Raises
+    ------
+    FileExistsError
+        If ``path`` exists and ``overwrite`` is False.
+    ValueError
+        If ``data``'s shape differs from ``like``'s, ``beam`` is given without a
+        celestial WCS, or ``extra`` sets a reserved keyword.
+
+    Notes
+    -----
+    The file gets CHECKSUM and DATASUM cards and a DATE card (UTC).  It is written
+    to a temporary file next to ``path`` and renamed over it, so a failure leaves
+    neither a partial output nor a temporary file.
+
+    Examples
+    --------
+    >>> import os, tempfile, numpy as np
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     p = write_image(os.path.join(d, "b.fits"), np.zeros((2, 2)), bunit="Jy/pixel",
+    ...                     history=["made in a doctest"])
+    ...     str(fits.getheader(p)["HISTORY"])
+    'made in a doctest'
+    """
+    path = os.fspath(path)
+    arr = np.asarray(data)
+    arr = as_image(arr, "data", dtype=np.float64 if arr.dtype == np.float64 else np.float32,
+                   allow_nan=True)
+    if not isinstance(bunit, str):
+        raise TypeError(f"bunit is {bunit!r}; pass a unit string such as 'Jy/beam'")
+    wcs, shape = _like_wcs(like)
+    if shape is not None and tuple(shape) != arr.shape:
+        raise ValueError(f"data has shape {arr.shape} but like has {tuple(shape)}; its WCS "
+                         "would not fit, pass like for an image on the same grid")
+    header = fits.Header()
+    if wcs is not None:
+        header.update(wcs.to_header())
+    header["BUNIT"] = (bunit, "pixel unit")
+    if beam is not None:
+        if not isinstance(beam, Beam):
+            raise TypeError(f"beam is {beam!r}; pass a skyscale Beam in pixels")
+        if wcs is None:
+            raise ValueError("beam is given but there is no celestial WCS to turn pixels "
+                             "into degrees; pass like= with the image's header or WCS")
+        cell = cell_size_arcsec(wcs)
+        header["BMAJ"] = (beam.major * cell / 3600.0, "[deg] restoring beam FWHM, major axis")
+        header["BMIN"] = (beam.minor * cell / 3600.0, "[deg] restoring beam FWHM, minor axis")
+        header["BPA"] = (_sky_pa(beam.pa, wcs), "[deg] restoring beam angle, east of north")
+    for key, value in (extra or {}).items():
+        if str(key).upper() in RESERVED_KEYWORDS or str(key).upper().startswith("NAXIS"):
+            raise ValueError(f"extra sets the reserved keyword {key!r}; use the bunit=, "
+                             "beam= or history= arguments, structural keywords are automatic")
+        header[key] = value
+    header["DATE"] = (_dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%S"),
+                      "file written (UTC)")
+    for line in [history] if isinstance(history, str) else history:
+        header.add_history(str(line))
+    hdul = fits.HDUList([fits.PrimaryHDU(data=arr, header=header)])
+    with _atomic_output(path, overwrite) as fh:
+        hdul.writeto(fh, checksum=True)
+    return path
+
+
+def write_table_csv(path, rows, fieldnames, *, overwrite=False):
+    """Write rows to a CSV file atomically, with a header line.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+    rows : iterable
+        Each row a dict keyed by ``fieldnames``, a sequence in ``fieldnames`` order,
+        or a record of a numpy structured array.
+    fieldnames : sequence of str
+        Column names, written as the first line.
+    overwrite : bool, optional
+        Replace an existing file (default False).
+
+    Returns
+    -------
+    str
+        The path written.
+
+    Raises
+    ------
+    FileExistsError
+        If ``path`` exists and ``overwrite`` is False.
+    ValueError
+        If a row lacks a field or has the wrong length; nothing is written then.
+
+    Examples
+    --------
+    >>> import os, tempfile
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     p = write_table_csv(os.path.join(d, "t.csv"), [{"x": 1, "flux": 0.5}], ["x", "flux"])
+    ...     with open(p) as fh:
+    ...         fh.read().splitlines()
+    ['x,flux', '1,0.5']
+    """
+    path = os.fspath(path)
+    fieldnames = [str(f) for f in fieldnames]
+    if not fieldnames:
+        raise ValueError("fieldnames is empty; pass the column names")
+    with _atomic_output(path, overwrite, text=True) as fh:
+        writer = csv.writer(fh, lineterminator="\n")
+        writer.writerow(fieldnames)
+        for i, row in enumerate(rows):
+            if isinstance(row, Mapping):
+                missing = [f for f in fieldnames if f not in row]
+                if missing:
+                    raise ValueError(f"rows[{i}] lacks the fields {missing}; give every "
+                                     "row all of fieldnames")
+                values = [row[f] for f in fieldnames]
+            else:
+                values = list(row.tolist() if isinstance(row, np.void) else row)
+                if len(values) != len(fieldnames):
+                    raise ValueError(f"rows[{i}] has {len(values)} values but there are "
+                                     f"{len(fieldnames)} fieldnames; make them match")
+            writer.writerow(values)
+    return path
