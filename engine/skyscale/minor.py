@@ -23,9 +23,15 @@ from .psf import PSF_PATCH_LEVEL, check_psf, describe_psf
 from .result import COMPONENT_DTYPE
 from .scales import ScaleSet
 
-__all__ = ["Engine", "MinorCycleResult", "MINOR_STOP_REASONS"]
+__all__ = ["Engine", "MinorCycleResult", "LoopState", "MINOR_STOP_REASONS"]
 
 logger = logging.getLogger(__name__)
+
+#: A minor cycle hands back early when its tracked peak rises above this multiple of
+#: the peak it started from.  Sidelobes of components nearby may raise a pixel a
+#: little before it is cleaned itself; a rise of this size means the cycle is fitting
+#: what is not there.
+PEAK_RISE_LIMIT = 1.1
 
 #: Why a minor cycle handed back to the major cycle.
 MINOR_STOP_REASONS = {
@@ -292,7 +298,7 @@ class Engine:
             comps, code, peak_end, fb = clean_loop(
                 planes, mbox, lim, self.response_scale, self.amp_scale, self.patches,
                 self.patch_offset, self.patch_half, self.tile, maxima, gain=self.loop_gain,
-                floor=floor, peak_limit=peak_start * (1.0 + 1e-4), ref=0,
+                floor=floor, peak_limit=peak_start * PEAK_RISE_LIMIT, ref=0,
                 delta=self.delta_index, max_iter=min(chunk, budget - added))
             pieces.append(comps)
             added += comps[0].size
@@ -321,3 +327,53 @@ class Engine:
                                 fallbacks, t1 - t0,
                                 {"smooth": t_smooth - t0, "loop": t_loop - t_smooth,
                                  "model": t1 - t_loop})
+
+
+class LoopState:
+    """The minor-cycle loop over a fixed sub-region, stepped by hand.
+
+    For benchmarks and the cost model: ``state = engine.loop_state(residual)`` then
+    ``state.iterate(n)`` adds ``n`` components (no floor, no stop but an empty
+    region) and returns them.  ``bytes_per_iteration`` is what one iteration reads
+    and writes in the planes (patch areas, tiles rescanned included) on average.
+    """
+
+    def __init__(self, engine, residual, mask=None, region=None):
+        self.engine = engine
+        planes_full = engine.smooth(as_image(residual, "residual", dtype=engine.dtype))
+        shape = planes_full.shape[1:]
+        self.region = region or (0, shape[0], 0, shape[1])
+        y0, y1, x0, x1 = self.region
+        self.planes = np.ascontiguousarray(planes_full[:, y0:y1, x0:x1])
+        self.mask = (np.ones(self.planes.shape[1:], dtype=np.uint8) if mask is None
+                     else np.ascontiguousarray(np.asarray(mask)[y0:y1, x0:x1], dtype=np.uint8))
+        self.lim = engine._limits(shape, self.region)
+        self.maxima = tile_maxima(self.planes, self.mask, self.lim, engine.response_scale,
+                                  engine.tile)
+
+    @property
+    def bytes_per_iteration(self):
+        """Plane bytes one iteration touches, averaged over the scale of the component."""
+        e = self.engine
+        t = e.tile
+        h, w = self.planes.shape[1:]
+        side = np.minimum(2 * e.patch_half + 1 + t, max(h, w))
+        per_k = (np.minimum(side, h) * np.minimum(side, w)).sum(axis=1)
+        return float(per_k.mean()) * 2 * e.dtype.itemsize
+
+    def iterate(self, n):
+        e = self.engine
+        with thread_limit(e.threads):
+            comps, code, peak, _ = clean_loop(
+                self.planes, self.mask, self.lim, e.response_scale, e.amp_scale, e.patches,
+                e.patch_offset, e.patch_half, e.tile, self.maxima, gain=e.loop_gain, floor=-1.0,
+                peak_limit=np.inf, ref=0, delta=e.delta_index, max_iter=n)
+        return comps
+
+
+def _loop_state(self, residual, mask=None, region=None):
+    """Return a `LoopState` over ``region`` (default the whole image)."""
+    return LoopState(self, residual, mask, region)
+
+
+Engine.loop_state = _loop_state

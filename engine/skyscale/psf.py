@@ -109,7 +109,8 @@ def describe_psf(psf, image_shape, *, patch_half=None, patch_level=PSF_PATCH_LEV
         Dirty image shape; patches need never be wider than the image.
     patch_half : int, optional
         Half-width of the minor-cycle PSF patch.  Default: the smallest half-width
-        beyond which ``|psf| <= patch_level``, at least the main lobe.
+        beyond which ``|psf| <= patch_level``, and at least twice the main-lobe
+        radius, so that the first sidelobes are inside it.
     patch_level : float
         See above; default `PSF_PATCH_LEVEL`.
 
@@ -145,7 +146,7 @@ def describe_psf(psf, image_shape, *, patch_half=None, patch_level=PSF_PATCH_LEV
     if patch_half is None:
         above = np.nonzero(levels > patch_level)[0]
         h = int(above[-1] + 1) if above.size else 0
-        h = max(h, main_lobe_radius + 1)
+        h = max(h, 2 * main_lobe_radius)   # main lobe and the first sidelobe ring
     else:
         h = int(patch_half)
         if h < 0:
