@@ -1,0 +1,413 @@
+"""The JSON run report: what was run, on what, with which software, and what happened.
+
+`build_report` turns a `~skyscale.result.DeconvolutionResult` into a dict of plain
+Python values (str, int, float, bool, None, list, dict) that `json` can write
+without help; `write_report` writes it atomically.  Non-finite floats (NaN, inf)
+become ``None`` so that the file is strict JSON that any reader accepts.
+
+The report holds summaries, not images: per-cycle history, per-scale counts and
+flux, final residual statistics and the restoring beam.  The component table and the
+images belong in their own files (FITS).
+"""
+
+import dataclasses
+import datetime
+import enum
+import hashlib
+import importlib.metadata
+import json
+import logging
+import math
+import os
+import pathlib
+import platform
+import sys
+import tempfile
+from collections.abc import Mapping
+
+import numpy as np
+
+__all__ = ["REPORT_SCHEMA_VERSION", "build_report", "file_sha256", "write_report"]
+
+log = logging.getLogger(__name__)
+
+#: Version of the report layout; raised whenever a key is renamed or removed.
+REPORT_SCHEMA_VERSION = 1
+
+#: Distributions whose versions the report records (looked up, never imported).
+_DEPENDENCIES = ("numpy", "numba", "scipy", "astropy", "pyfftw", "rich",
+                 "matplotlib", "dask")
+
+#: Read size for `file_sha256`.
+_CHUNK_BYTES = 1 << 20
+
+#: Area of a Gaussian of unit FWHMs: pi / (4 ln 2).
+_GAUSS_AREA = math.pi / (4.0 * math.log(2.0))
+
+
+def _plain(value):
+    """Return ``value`` as plain JSON-ready Python (recursively).
+
+    numpy scalars and arrays become Python numbers and lists, Quantities become
+    ``{"value", "unit"}``, paths and enums become strings or their values,
+    dataclasses and objects with ``as_dict()`` become dicts, and non-finite floats
+    become None.  Anything else is recorded by its type name (never its ``repr``,
+    which may hold a memory address).
+    """
+    if value is None or isinstance(value, (bool, str)):
+        return value
+    if isinstance(value, np.bool_):
+        return bool(value)
+    if isinstance(value, (int, np.integer)):
+        return int(value)
+    if isinstance(value, (float, np.floating)):
+        value = float(value)
+        return value if math.isfinite(value) else None
+    if isinstance(value, (complex, np.complexfloating)):
+        return {"real": _plain(value.real), "imag": _plain(value.imag)}
+    if hasattr(value, "unit") and hasattr(value, "value") and hasattr(value, "to"):
+        return {"value": _plain(np.asarray(value.value)), "unit": str(value.unit)}
+    if isinstance(value, np.ndarray):
+        if value.dtype.names:
+            return [{name: _plain(row[name]) for name in value.dtype.names}
+                    for row in value.ravel()]
+        return _plain(value.tolist())
+    if isinstance(value, np.generic):
+        return _plain(value.item())
+    if isinstance(value, Mapping):
+        return {str(k): _plain(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_plain(v) for v in value]
+    if isinstance(value, (set, frozenset)):
+        return sorted((_plain(v) for v in value), key=repr)
+    if isinstance(value, os.PathLike):
+        return os.fspath(value)
+    if isinstance(value, enum.Enum):
+        return _plain(value.value)
+    if isinstance(value, (datetime.datetime, datetime.date)):
+        return value.isoformat()
+    if callable(getattr(value, "as_dict", None)):
+        return _plain(value.as_dict())
+    if dataclasses.is_dataclass(value) and not isinstance(value, type):
+        return _plain(dataclasses.asdict(value))
+    kind = value if hasattr(value, "__qualname__") else type(value)
+    name = f"{getattr(kind, '__module__', '?')}.{kind.__qualname__}"
+    log.debug("report: %s recorded by its name only", name)
+    return f"<{name}>"
+
+
+def _version(distribution):
+    """Installed version of ``distribution``, or "not installed"."""
+    try:
+        return importlib.metadata.version(distribution)
+    except importlib.metadata.PackageNotFoundError:
+        return "not installed"
+
+
+def _software():
+    """Versions of Python, skyscale and its dependencies, without importing them."""
+    skyscale = _version("skyscale")
+    versions = {"skyscale": "unknown" if skyscale == "not installed" else skyscale,
+                "python": platform.python_version()}
+    versions.update({name: _version(name) for name in _DEPENDENCIES})
+    return versions
+
+
+def _machine(threads):
+    """Platform, CPU counts and the thread count in use."""
+    if threads is None and "numba" in sys.modules:      # only if already loaded
+        try:
+            threads = int(sys.modules["numba"].get_num_threads())
+        except Exception:                                # noqa: BLE001 - report, not engine
+            threads = None
+    usable = getattr(os, "process_cpu_count", None)
+    if usable is not None:
+        usable = usable()
+    elif hasattr(os, "sched_getaffinity"):
+        usable = len(os.sched_getaffinity(0))
+    return {"platform": platform.platform(), "machine": platform.machine(),
+            "python_implementation": platform.python_implementation(),
+            "cpu_count": os.cpu_count(), "cpu_count_usable": usable,
+            "threads": threads}
+
+
+def _check_result(result):
+    needed = ("model", "residual", "components", "stop_reason", "history", "scales")
+    missing = [name for name in needed if not hasattr(result, name)]
+    if missing:
+        raise TypeError(f"result is a {type(result).__name__} without "
+                        f"{', '.join(missing)}; pass the DeconvolutionResult of a run")
+
+
+def _check_cell(cell_arcsec):
+    if cell_arcsec is None:
+        return None
+    if hasattr(cell_arcsec, "to_value"):                 # an astropy Quantity
+        cell_arcsec = cell_arcsec.to_value("arcsec")
+    try:
+        cell = float(cell_arcsec)
+    except (TypeError, ValueError):
+        cell = float("nan")
+    if not (math.isfinite(cell) and cell > 0):
+        raise ValueError(f"cell_arcsec is {cell_arcsec!r}; pass the pixel size in "
+                         "arcseconds as a positive finite number (or None)")
+    return cell
+
+
+def _check_threads(threads):
+    if threads is None:
+        return None
+    if isinstance(threads, (bool, np.bool_)) or not isinstance(threads, (int, np.integer)) \
+            or threads < 1:
+        raise ValueError(f"threads is {threads!r}; pass the number of threads used "
+                         "as a positive integer (or None)")
+    return int(threads)
+
+
+def _check_inputs(inputs):
+    if inputs is None:
+        return {}
+    if not isinstance(inputs, Mapping):
+        raise TypeError(f"inputs is a {type(inputs).__name__}; pass a dict of name -> "
+                        '{"path": ..., "shape": ..., "sha256": ...}')
+    out = {}
+    for name, info in inputs.items():
+        if not isinstance(info, Mapping):
+            raise TypeError(f"inputs[{name!r}] is {info!r}; pass a dict with keys "
+                            '"path", "shape" and "sha256"')
+        out[str(name)] = _plain(dict(info))
+    return out
+
+
+def _per_scale(result, cell):
+    """Per-scale counts and flux, including any scale found only in the table."""
+    rows = [dict(row, listed=True) for row in result.per_scale()]
+    comps = result.components
+    listed = {np.float32(row["scale"]) for row in rows}
+    for s in np.unique(comps["scale"]) if len(comps) else ():
+        if np.float32(s) not in listed:                   # inconsistent, but report it
+            sel = comps["scale"] == s
+            rows.append({"scale": float(s), "components": int(sel.sum()),
+                         "flux": float(comps["flux"][sel].sum()), "listed": False})
+    total = float(np.sum(comps["flux"])) if len(comps) else 0.0
+    for row in rows:
+        row["flux_fraction"] = row["flux"] / total if total != 0.0 else None
+        if cell is not None:
+            row["scale_arcsec"] = row["scale"] * cell
+    return rows
+
+
+def _residual_stats(result):
+    """Peak |residual|, rms and robust noise of the final residual."""
+    from .noise import robust_noise
+
+    residual = np.asarray(result.residual, dtype=np.float64)
+    mask = getattr(result, "mask", None)
+    region = "image"
+    values = residual
+    if mask is not None:
+        mask = np.asarray(mask, dtype=bool)
+        if mask.shape == residual.shape and mask.any():
+            values, region = residual[mask], "mask"
+    values = values[np.isfinite(values)]
+    if values.size == 0:
+        peak = rms = None
+    else:
+        peak = float(np.max(np.abs(values)))
+        rms = float(np.sqrt(np.mean(values * values)))
+    noise = robust_noise(residual, mask if region == "mask" else None)
+    return {"peak_residual": peak, "rms_residual": rms, "region": region,
+            "robust_noise": noise, "unit": "Jy/beam"}
+
+
+def _beam(beam, cell):
+    if beam is None:
+        return None
+    major, minor, pa = float(beam.major), float(beam.minor), float(beam.pa)
+    out = {"major_px": major, "minor_px": minor, "pa_deg": pa,
+           "area_px": _GAUSS_AREA * major * minor}
+    if cell is not None:
+        out["major_arcsec"] = major * cell
+        out["minor_arcsec"] = minor * cell
+    return out
+
+
+def build_report(result, *, inputs=None, parameters=None, cell_arcsec=None,
+                 threads=None, extra=None):
+    """Summarise a run as a JSON-ready dict.
+
+    Parameters
+    ----------
+    result : DeconvolutionResult
+        The run's result.
+    inputs : dict, optional
+        ``name -> {"path": str, "shape": (ny, nx), "sha256": str}`` for each input
+        file (see `file_sha256`).
+    parameters : dict, optional
+        The merged run parameters; default ``result.parameters``.
+    cell_arcsec : float or Quantity, optional
+        Pixel size in arcseconds; adds angular scale sizes and beam widths.
+    threads : int, optional
+        Threads used; default the Numba thread count if Numba is already loaded.
+    extra : dict, optional
+        Anything else the caller wants kept; stored under ``"extra"``.
+
+    Returns
+    -------
+    report : dict
+        Plain Python values only.  Top-level keys: ``schema_version``, ``created_utc``,
+        ``software``, ``machine``, ``inputs``, ``image``, ``parameters``, ``timings_s``,
+        ``history``, ``per_scale``, ``final``, ``stop``, ``beam``, ``warnings``,
+        ``extra``.  ``final`` holds ``peak_residual`` and ``rms_residual`` (Jy/beam,
+        inside the mask when there is one), ``robust_noise``, ``model_flux`` (Jy),
+        ``components`` and ``major_cycles``.
+
+    Raises
+    ------
+    TypeError
+        If ``result``, ``inputs`` or ``extra`` is of the wrong kind.
+    ValueError
+        If ``cell_arcsec`` or ``threads`` is not positive.
+
+    Examples
+    --------
+    >>> report = build_report(result, cell_arcsec=1.5)      # doctest: +SKIP
+    >>> write_report("run/report.json", report)              # doctest: +SKIP
+    """
+    _check_result(result)
+    cell = _check_cell(cell_arcsec)
+    threads = _check_threads(threads)
+    inputs = _check_inputs(inputs)
+    if extra is not None and not isinstance(extra, Mapping):
+        raise TypeError(f"extra is a {type(extra).__name__}; pass a dict (or None)")
+    if parameters is None:
+        parameters = getattr(result, "parameters", None) or {}
+    if not isinstance(parameters, Mapping):
+        raise TypeError(f"parameters is a {type(parameters).__name__}; pass a dict "
+                        "of parameter name -> value (or None)")
+
+    model = np.asarray(result.model)
+    history = [_plain(rec) for rec in result.history]
+    final = _residual_stats(result)
+    final.update(model_flux=float(np.sum(model, dtype=np.float64)),
+                 model_flux_unit="Jy",
+                 components=int(len(result.components)),
+                 major_cycles=sum(1 for rec in history if rec.get("cycle", 0) > 0))
+    report = {
+        "schema_version": REPORT_SCHEMA_VERSION,
+        "created_utc": datetime.datetime.now(datetime.timezone.utc)
+                               .isoformat(timespec="seconds"),
+        "software": _software(),
+        "machine": _machine(threads),
+        "inputs": inputs,
+        "image": {"shape": list(model.shape), "dtype": str(model.dtype),
+                  "cell_arcsec": cell},
+        "parameters": _plain(dict(parameters)),
+        "timings_s": _plain(dict(getattr(result, "timings", None) or {})),
+        "history": history,
+        "per_scale": _per_scale(result, cell),
+        "final": final,
+        "stop": {"reason": str(result.stop_reason),
+                 "description": str(getattr(result, "stop_description",
+                                            result.stop_reason))},
+        "beam": _beam(getattr(result, "beam", None), cell),
+        "warnings": [str(w) for w in (getattr(result, "warnings", None) or [])],
+        "extra": _plain(dict(extra)) if extra is not None else {},
+    }
+    log.debug("report built: %d components, %d history records",
+              final["components"], len(history))
+    return report
+
+
+def file_sha256(path):
+    """SHA-256 of a file's bytes, read in 1 MiB chunks, as a hex string.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+
+    Returns
+    -------
+    str
+        64 lowercase hex digits.
+    """
+    path = pathlib.Path(path)
+    if not path.is_file():
+        raise FileNotFoundError(f"path {str(path)!r} is not a file; pass the path of "
+                                "an existing input file")
+    digest = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for chunk in iter(lambda: fh.read(_CHUNK_BYTES), b""):
+            digest.update(chunk)
+    return digest.hexdigest()
+
+
+def _atomic_write_bytes(path, data, *, overwrite=False):
+    """Write ``data`` to ``path`` through a temporary file in the same folder.
+
+    Without ``overwrite`` an existing file is refused, also one that appears while
+    writing (the final step links the temporary file, which cannot replace).
+    """
+    path = pathlib.Path(path)
+    if path.exists() and not overwrite:
+        raise FileExistsError(f"path {str(path)!r} already exists; choose another "
+                              "path or pass overwrite=True")
+    folder = path.parent
+    if not folder.is_dir():
+        raise FileNotFoundError(f"path {str(path)!r} is in a folder that does not "
+                                "exist; create the folder first")
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=folder)
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            fh.write(data)
+            fh.flush()
+            os.fsync(fh.fileno())
+        if overwrite:
+            os.replace(tmp, path)
+        else:
+            try:
+                os.link(tmp, path)                       # fails if path appeared
+            except FileExistsError:
+                raise FileExistsError(f"path {str(path)!r} already exists; choose "
+                                      "another path or pass overwrite=True") from None
+            except OSError:                              # no hard links here
+                if path.exists():
+                    raise FileExistsError(f"path {str(path)!r} already exists; "
+                                          "choose another path or pass "
+                                          "overwrite=True") from None
+                os.replace(tmp, path)
+    finally:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+    return path
+
+
+def write_report(path, report, *, overwrite=False):
+    """Write ``report`` as indented UTF-8 JSON, atomically.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        Destination file.
+    report : dict
+        Usually from `build_report`; numpy values are converted as there.
+    overwrite : bool
+        Replace an existing file.  Default False: an existing file is refused.
+
+    Returns
+    -------
+    pathlib.Path
+        The path written.
+
+    Raises
+    ------
+    FileExistsError
+        If ``path`` exists and ``overwrite`` is False.
+    """
+    if not isinstance(report, Mapping):
+        raise TypeError(f"report is a {type(report).__name__}; pass the dict from "
+                        "build_report")
+    text = json.dumps(_plain(dict(report)), indent=2, allow_nan=False) + "\n"
+    path = _atomic_write_bytes(path, text.encode("utf-8"), overwrite=overwrite)
+    log.info("report written to %s", path)
+    return path
