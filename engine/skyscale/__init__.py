@@ -6,9 +6,19 @@ The public API is re-exported here; see the README for worked examples.
 import logging as _logging
 from importlib.metadata import PackageNotFoundError, version as _version
 
+from .advisor import (EmissionExtent, ScaleChoiceWarning, ScaleSuggestion, check_scales,
+                      measure_emission_extent, suggest_scales)
+from .beam import (Beam, beam_area, beam_kernel, fit_beam, jy_per_beam_to_jy_per_pixel,
+                   jy_per_pixel_to_jy_per_beam, restore)
 from .cycles import deconvolve, run_cycles
+from .fitsio import (FitsImage, cell_size_arcsec, check_same_grid, read_image, write_image,
+                     write_table_csv)
+from .job import run_files
+from .masks import AutoMask, auto_mask, load_mask, regions_to_mask
 from .minor import Engine, MinorCycleResult
 from .noise import robust_noise
+from .plots import plot_convergence, plot_panels
+from .report import build_report, file_sha256, write_report
 from .operators import FunctionOperator, ImagePlaneOperator, ResidualOperator
 from .result import COMPONENT_DTYPE, STOP_REASONS, CycleRecord, DeconvolutionResult
 from .scales import SCALE_SHAPES, ScaleSet, scale_kernel, size_penalty_weights
@@ -18,7 +28,7 @@ _logging.getLogger(__name__).addHandler(_logging.NullHandler())
 try:
     __version__ = _version("skyscale")
 except PackageNotFoundError:  # running from a source tree
-    __version__ = "0.1.0+source"
+    __version__ = "unknown"
 
 __all__ = [
     "__version__",
@@ -27,4 +37,12 @@ __all__ = [
     "DeconvolutionResult", "CycleRecord", "COMPONENT_DTYPE", "STOP_REASONS",
     "ScaleSet", "SCALE_SHAPES", "scale_kernel", "size_penalty_weights",
     "robust_noise",
+    "suggest_scales", "check_scales", "measure_emission_extent", "ScaleSuggestion",
+    "EmissionExtent", "ScaleChoiceWarning",
+    "Beam", "fit_beam", "beam_area", "beam_kernel", "restore", "jy_per_pixel_to_jy_per_beam",
+    "jy_per_beam_to_jy_per_pixel",
+    "FitsImage", "read_image", "write_image", "cell_size_arcsec", "check_same_grid",
+    "write_table_csv", "run_files",
+    "AutoMask", "auto_mask", "load_mask", "regions_to_mask",
+    "build_report", "write_report", "file_sha256", "plot_convergence", "plot_panels",
 ]

@@ -73,7 +73,8 @@ def run_cycles(engine, operator, *, dirty=None, mask=None, threshold=0.0, noise_
     Robustness: after each major cycle the exact peak residual inside the mask is
     compared with the one before.  A cycle that raised it is rolled back and tried
     again with a shallower minor cycle (the depth moved halfway to 1), at most
-    twice; a third rise stops the run ('diverging').  The
+    twice; a third rise stops the run: 'diverging', or 'no_progress' when the rise
+    is within 1 % (cleaning has reached what the data allow).  The
     peak residual in the mask therefore never grows across a run.  Inside a minor
     cycle a finite-scale component whose sign disagrees with the unsmoothed residual
     at its centre is replaced by the best delta component, and a cycle whose tracked
@@ -144,7 +145,8 @@ def run_cycles(engine, operator, *, dirty=None, mask=None, threshold=0.0, noise_
                     retries += 1
                     depth = 0.5 * (1.0 + depth)
                     continue
-                stop = "diverging"
+                # A rise within 1 % is the noise floor of the method, not a runaway.
+                stop = "no_progress" if new_peak <= peak * 1.01 else "diverging"
                 break
             model, residual = mc.model, new_residual
             depth, retries = cycle_depth, 0

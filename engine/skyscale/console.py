@@ -1,0 +1,114 @@
+"""Terminal output of the command line (rich): progress bars, tables, messages.
+
+Only the command line uses this module; the engine reports through callbacks.
+"""
+
+import sys
+
+from rich.console import Console
+from rich.progress import BarColumn, Progress, SpinnerColumn, TextColumn, TimeElapsedColumn
+from rich.table import Table
+
+__all__ = ["RunProgress", "summary", "show_suggestion", "show_check", "say"]
+
+_out = Console(stderr=False, highlight=False)
+
+
+def say(text):
+    """Print one line to the terminal."""
+    _out.print(text)
+
+
+class RunProgress:
+    """Progress of a run: one line per major cycle with components and peak residual."""
+
+    def __init__(self, enabled=True):
+        self.enabled = enabled and sys.stdout.isatty()
+        self._progress = None
+        self._task = None
+        self._total = 0
+        self._cycle = 0
+
+    def __enter__(self):
+        if self.enabled:
+            self._progress = Progress(SpinnerColumn(), TextColumn("{task.description}"),
+                                      BarColumn(), TextColumn("{task.fields[info]}"),
+                                      TimeElapsedColumn(), console=_out, transient=False)
+            self._progress.__enter__()
+            self._task = self._progress.add_task("major cycle 0", total=None, info="")
+        return self
+
+    def __exit__(self, *exc):
+        if self._progress is not None:
+            self._progress.__exit__(*exc)
+        return False
+
+    def update(self, event):
+        """Callback for `skyscale.deconvolve`: take one progress event."""
+        if self._progress is None:
+            return
+        if event.get("stage") == "major":
+            self._cycle = event["cycle"]
+            self._total = event["components"]
+            info = (f"{self._total} components, peak {event['peak']:.4g} Jy/beam, "
+                    f"rms {event['rms']:.3g}")
+            self._progress.update(self._task, description=f"major cycle {self._cycle}", info=info)
+        else:
+            info = (f"{self._total + event['components']} components, "
+                    f"peak {event['peak']:.4g} Jy/beam (minor cycle)")
+            self._progress.update(self._task, description=f"major cycle {self._cycle + 1}",
+                                  info=info)
+
+
+def summary(result, written, report, elapsed):
+    """The end-of-run tables: per-scale components and flux, residual, timings, outputs."""
+    t = Table(title="components per scale")
+    t.add_column("scale (px)", justify="right")
+    t.add_column("components", justify="right")
+    t.add_column("flux (Jy)", justify="right")
+    for row in result.per_scale():
+        t.add_row(f"{row['scale']:g}", str(row["components"]), f"{row['flux']:.5g}")
+    t.add_row("all", str(result.components.size), f"{float(result.model.sum()):.5g}")
+    _out.print(t)
+    last = result.history[-1]
+    s = Table(title="run", show_header=False)
+    s.add_column("what")
+    s.add_column("value")
+    s.add_row("stop reason", f"{result.stop_reason}: {result.stop_description}")
+    s.add_row("major cycles", str(len(result.history) - 1))
+    s.add_row("peak residual", f"{last.peak:.4g} Jy/beam")
+    s.add_row("rms residual", f"{last.rms:.4g} Jy/beam")
+    if result.beam is not None:
+        b = result.beam
+        s.add_row("restoring beam", f"{b.major:.3g} x {b.minor:.3g} px, PA {b.pa:.1f} deg")
+    tm = result.timings
+    s.add_row("time", f"precompute {tm.get('precompute', 0):.2f} s, minor {tm.get('minor', 0):.2f} s,"
+              f" major {tm.get('major', 0):.2f} s, total {elapsed:.2f} s")
+    for w in result.warnings[:5]:
+        s.add_row("warning", w)
+    _out.print(s)
+    for kind, path in written.items():
+        _out.print(f"  {kind:12s} {path}")
+
+
+def show_suggestion(suggestion):
+    """Print a scale suggestion with its reasons."""
+    t = Table(title="suggested scales")
+    t.add_column("scale (px)", justify="right")
+    t.add_column("scale (arcsec)", justify="right")
+    arc = suggestion.arcsec or [None] * len(suggestion.pixels)
+    for p, a in zip(suggestion.pixels, arc):
+        t.add_row(f"{p:g}", "-" if a is None else f"{a:.3g}")
+    _out.print(t)
+    for r in suggestion.reasons:
+        _out.print(f"  - {r}")
+    _out.print("  use: --scales " + ",".join(f"{p:g}" for p in suggestion.pixels))
+
+
+def show_check(scales, problems):
+    """Print what is wrong with a user's scale set (or that nothing is)."""
+    _out.print("scales " + ",".join(f"{s:g}" for s in scales) + ":")
+    if not problems:
+        _out.print("  no rule of thumb broken")
+    for p in problems:
+        _out.print(f"  - {p}")
