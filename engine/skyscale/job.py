@@ -142,6 +142,12 @@ def run_files(dirty_path, psf_path, out_dir, params=None, *, callback=None, inpu
                                   "pass --overwrite (overwrite=True)")
     reasons = []
     scales_px = _scales_in_pixels(merged, cell, dirty.data, psf.data, reasons)
+    scale_warnings = []
+    if not reasons:   # the user's own set: check it against the rules of thumb
+        from .advisor import check_scales
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            scale_warnings = check_scales(scales_px, dirty.data, psf.data, cell_arcsec=cell)
     mask = _build_mask(merged, dirty, dirty.data.shape)
     auto = None
     if merged["auto_mask"]:
@@ -170,6 +176,7 @@ def run_files(dirty_path, psf_path, out_dir, params=None, *, callback=None, inpu
             scale_shape=merged["scale_shape"], psf_patch=merged["psf_patch"],
             threads=merged["threads"], cell_arcsec=cell, beam=beam, auto_mask=auto,
             callback=callback)
+    result.warnings.extend(scale_warnings)
     result.warnings.extend(str(w.message) for w in caught)
     end = _dt.datetime.now(_dt.timezone.utc)
     record = dict(merged, scales=scales_px, psf_patch=result.parameters.get("psf_patch"))

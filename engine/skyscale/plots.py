@@ -24,7 +24,7 @@ import textwrap
 import numpy as np
 
 from ._validate import as_image
-from .report import _atomic_write_bytes
+from ._atomic import atomic_write_bytes
 
 __all__ = ["CONVERGENCE_SIZE_PX", "DPI", "PANELS_SIZE_PX", "plot_convergence",
            "plot_panels"]
@@ -70,7 +70,7 @@ def _save(fig, path, overwrite):
     """Render ``fig`` to PNG bytes of the fixed size and write them atomically."""
     buffer = io.BytesIO()
     fig.savefig(buffer, format="png", dpi=DPI)
-    path = _atomic_write_bytes(path, buffer.getvalue(), overwrite=overwrite)
+    path = pathlib.Path(atomic_write_bytes(path, buffer.getvalue(), overwrite=overwrite))
     log.info("figure written to %s", path)
     return path
 

@@ -22,10 +22,11 @@ import os
 import pathlib
 import platform
 import sys
-import tempfile
 from collections.abc import Mapping
 
 import numpy as np
+
+from ._atomic import atomic_write_bytes
 
 __all__ = ["REPORT_SCHEMA_VERSION", "build_report", "file_sha256", "write_report"]
 
@@ -342,46 +343,6 @@ def file_sha256(path):
     return digest.hexdigest()
 
 
-def _atomic_write_bytes(path, data, *, overwrite=False):
-    """Write ``data`` to ``path`` through a temporary file in the same folder.
-
-    Without ``overwrite`` an existing file is refused, also one that appears while
-    writing (the final step links the temporary file, which cannot replace).
-    """
-    path = pathlib.Path(path)
-    if path.exists() and not overwrite:
-        raise FileExistsError(f"path {str(path)!r} already exists; choose another "
-                              "path or pass overwrite=True")
-    folder = path.parent
-    if not folder.is_dir():
-        raise FileNotFoundError(f"path {str(path)!r} is in a folder that does not "
-                                "exist; create the folder first")
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=folder)
-    try:
-        with os.fdopen(fd, "wb") as fh:
-            fh.write(data)
-            fh.flush()
-            os.fsync(fh.fileno())
-        if overwrite:
-            os.replace(tmp, path)
-        else:
-            try:
-                os.link(tmp, path)                       # fails if path appeared
-            except FileExistsError:
-                raise FileExistsError(f"path {str(path)!r} already exists; choose "
-                                      "another path or pass overwrite=True") from None
-            except OSError:                              # no hard links here
-                if path.exists():
-                    raise FileExistsError(f"path {str(path)!r} already exists; "
-                                          "choose another path or pass "
-                                          "overwrite=True") from None
-                os.replace(tmp, path)
-    finally:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-    return path
-
-
 def write_report(path, report, *, overwrite=False):
     """Write ``report`` as indented UTF-8 JSON, atomically.
 
@@ -408,6 +369,6 @@ def write_report(path, report, *, overwrite=False):
         raise TypeError(f"report is a {type(report).__name__}; pass the dict from "
                         "build_report")
     text = json.dumps(_plain(dict(report)), indent=2, allow_nan=False) + "\n"
-    path = _atomic_write_bytes(path, text.encode("utf-8"), overwrite=overwrite)
+    path = pathlib.Path(atomic_write_bytes(path, text.encode("utf-8"), overwrite=overwrite))
     log.info("report written to %s", path)
     return path
