@@ -191,3 +191,36 @@ def test_empty_mask_stops_with_its_reason(extended_case):
     r = deconvolve(dirty, psf, mask=np.zeros(dirty.shape, bool), restore=False)
     assert r.stop_reason == "empty_mask" and r.components.size == 0
     assert r.stop_reason in skyscale.STOP_REASONS
+
+
+def _textbook_hogbom(dirty, psf, gain, threshold, max_iter):
+    """Hogbom 1974 as printed: find the peak, subtract gain * peak * shifted PSF, repeat."""
+    res = dirty.astype(np.float64).copy()
+    n = res.shape[0]
+    c = psf.shape[0] // 2
+    comps = []
+    for _ in range(max_iter):
+        y, x = np.unravel_index(int(np.argmax(np.abs(res))), res.shape)
+        if abs(res[y, x]) <= threshold:
+            break
+        f = gain * res[y, x]
+        comps.append((y, x, f))
+        res -= f * psf[c - y:c - y + n, c - x:c - x + n]
+    return comps, res
+
+
+def test_delta_only_reproduces_textbook_hogbom():
+    # Hogbom 1974: with a PSF patch covering every offset, one minor cycle is the
+    # textbook algorithm, component for component.
+    psf = gaussian_psf(40, sigma=1.7)
+    sky = np.zeros((40, 40))
+    for (y, x), s in {(8, 9): 1.0, (20, 31): 0.63, (33, 12): 0.41, (25, 22): 0.27}.items():
+        sky[y, x] = s
+    dirty = observe(sky, psf)
+    comps, res = _textbook_hogbom(dirty, psf.astype(np.float64), 0.2, 1e-3, 500)
+    r = deconvolve(dirty, psf, scales=[0], loop_gain=0.2, threshold=1e-3, psf_patch=40,
+                   cycle_depth=0.0, max_major_cycles=1, restore=False)
+    assert r.components.size == len(comps)
+    assert [(int(c["y"]), int(c["x"])) for c in r.components] == [(y, x) for y, x, _ in comps]
+    np.testing.assert_allclose(r.components["flux"], [f for _, _, f in comps], rtol=1e-4)
+    np.testing.assert_allclose(r.residual, res, atol=1e-5)
