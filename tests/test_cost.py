@@ -196,7 +196,12 @@ def test_plan_totals_add_up():
                                             + first["first_minor"])
     assert p.major_total_seconds == pytest.approx(4 * p.major_seconds + first["first_major"])
     assert p.total_seconds == pytest.approx(p.precompute_seconds + p.setup_seconds
-                                            + p.minor_seconds + p.major_total_seconds)
+                                            + p.minor_seconds + p.major_total_seconds
+                                            + p.startup_seconds)
+    warm = cost.plan_run((256, 256), (512, 512), [0, 4, 8], max_components=1000,
+                         major_cycles=4, threads=1, fresh_process=False)
+    assert warm.startup_seconds == 0.0
+    assert warm.total_seconds == pytest.approx(p.total_seconds - p.startup_seconds)
     lo, hi = p.iteration_seconds_range
     assert lo <= p.iteration_seconds <= hi
     assert p["fits"] == p.fits

@@ -94,6 +94,8 @@ def register(subparsers):
     p.add_argument("--scale-mix", type=_mix, help="how components spread over the scales: "
                    "uniform, smallest, largest, or one fraction per scale [uniform]")
     p.add_argument("--calibration", help="calibration file [the default one, else built-in]")
+    p.add_argument("--warm-process", action="store_true", help="the run is not the first "
+                   "of its process (a pipeline's later fields): no start-up counted")
     p.add_argument("--json", action="store_true", help="print the plan as JSON")
     p.add_argument("--require-fit", action="store_true",
                    help="exit 1 when the run would not fit in memory")
@@ -129,7 +131,8 @@ def cmd_plan(args):
     plan = plan_run(shape, psf, args.scales, max_components=args.max_components,
                     threads=args.threads, psf_patch=args.psf_patch, dtype=args.dtype,
                     memory_available=memory, major_cycles=args.major_cycles,
-                    scale_mix=args.scale_mix, calibration=args.calibration)
+                    scale_mix=args.scale_mix, calibration=args.calibration,
+                    fresh_process=not args.warm_process)
     if args.json:
         print(json.dumps(plan.as_dict(), indent=2))
     elif not getattr(args, "quiet", False):
@@ -163,6 +166,8 @@ def show_plan(plan):
     t.add_row("scales (px)", ", ".join(f"{s:g}" for s in plan.scales))
     t.add_row("PSF patch", f"{plan.psf_patch} px ({plan.psf_patch_source})")
     t.add_row("threads, dtype", f"{plan.threads}, {plan.dtype}")
+    t.add_row("start-up", _t(plan.startup_seconds) + (" (first run of the process)"
+                                                      if plan.startup_seconds else ""))
     t.add_row("precompute", _t(plan.precompute_seconds))
     lo, hi = plan.iteration_seconds_range
     t.add_row("per iteration", f"{_t(plan.iteration_seconds)} ({_t(lo)} .. {_t(hi)})")

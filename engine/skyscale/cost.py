@@ -62,26 +62,33 @@ CALIBRATION_ENV = "SKYSCALE_COST_CALIBRATION"
 
 #: Coefficients measured on this machine (2 cores; the model at 1 thread, float32) on
 #: 2026-12-02 by ``PYTHONPATH=engine python -m skyscale.cli bench --sizes 512,1024,2048
-#: --out bench-out`` (the calibration it wrote, rounded).  Seconds; FFT work U in
+#: --out bench-out`` (the calibration it wrote, rounded; "startup" from its fresh-process
+#: runs of 256 and 1024 px against the warm model, run twice).  Seconds; FFT work U in
 #: points * log2(points); the first four families are linear, the rest power laws.
 DEFAULT_CALIBRATION = {
     "source": "built-in: skyscale bench --sizes 512,1024,2048 --max-scales 8, 2026-12-02",
-    "iteration": {"fixed": 0.0, "per_pixel": 2.67e-9, "per_row": 2.67e-8},
-    "precompute": {"fixed": 0.0297, "per_psf_pixel": 3.72e-8, "per_forward": 1.68e-9,
-                   "per_pair": 5.94e-10},
-    "minor_overhead": {"fixed": 1.81e-3, "per_fft": 1.45e-9, "per_plane_pixel": 1.0e-8},
-    "major": {"coefficient": 3.97e-11, "exponent": 1.193},
-    "first_major": {"coefficient": 2.17e-13, "exponent": 1.468},
-    "first_minor": {"coefficient": 1.33e-7, "exponent": 0.779},
-    "setup": {"coefficient": 5.78e-10, "exponent": 1.034},
-    "threads": {"iteration_parallel": 0.53, "fft_parallel": 0.72, "measured_with": 2},
+    "iteration": {"fixed": 0.0, "per_pixel": 2.62e-9, "per_row": 2.54e-8},
+    "precompute": {"fixed": 0.0266, "per_psf_pixel": 3.62e-8, "per_forward": 2.31e-9,
+                   "per_pair": 3.75e-10},
+    "minor_overhead": {"fixed": 8.9e-4, "per_fft": 1.32e-9, "per_plane_pixel": 1.0e-8},
+    "major": {"coefficient": 3.17e-11, "exponent": 1.204},
+    "first_major": {"coefficient": 2.88e-13, "exponent": 1.445},
+    "first_minor": {"coefficient": 7.16e-8, "exponent": 0.813},
+    "setup": {"coefficient": 4.49e-10, "exponent": 1.045},
+    "threads": {"iteration_parallel": 0.51, "fft_parallel": 0.71, "measured_with": 2},
     "memory": {"scale": 0.981},
     "range": {"max_image_pixels": 2048 * 2048},
+    "startup": {"fixed": 0.41, "per_byte": 7.0e-10},
 }
 
 
 class InsufficientMemoryError(ValueError, MemoryError):
     """A planned run would need more memory than is available."""
+
+
+def _radii(scales, shape="paraboloid"):
+    from .scales import ScaleSet
+    return ScaleSet(scales, shape=shape).support_radii
 
 
 def _fft_work(shape):
@@ -442,6 +449,8 @@ class Plan:
     major_cycles: int
     precompute_seconds: float
     setup_seconds: float           #: the residual operator (the PSF's transform)
+    startup_seconds: float         #: what the first run of a process pays more (imports,
+                                   #: fresh memory pages); 0 unless ``fresh_process``
     iteration_seconds: float       #: one minor-cycle iteration under the scale mix
     iteration_seconds_range: tuple  #: all components on the cheapest / dearest scale
     minor_overhead_seconds: float  #: per minor cycle, besides its iterations
@@ -475,6 +484,24 @@ def _shape2(value, name):
     return shape
 
 
+def _spinning_threads():
+    """True when Numba's kernels run on OpenMP threads that busy-wait when idle."""
+    import numba
+    if os.environ.get("OMP_WAIT_POLICY", "").lower() == "passive":
+        return False
+    try:
+        layer = numba.threading_layer()
+    except ValueError:                 # no parallel kernel has run yet: what it will pick
+        layer = numba.config.THREADING_LAYER
+        if layer in ("default", "safe", "threadsafe"):
+            try:
+                from numba.np.ufunc import tbbpool  # noqa: F401
+                layer = "tbb"
+            except ImportError:
+                layer = "omp"
+    return layer == "omp"
+
+
 def _psf_patch(psf_arr, image_shape, psf_shape, psf_patch, dtype, messages):
     hcap = min(max(image_shape) - 1, max(psf_shape[0] // 2, psf_shape[1] // 2))
     if psf_arr is not None:
@@ -493,7 +520,7 @@ def _psf_patch(psf_arr, image_shape, psf_shape, psf_patch, dtype, messages):
 
 def plan_run(image_shape, psf, scales, *, max_components=20000, threads=None, psf_patch=None,
              dtype=None, memory_available=None, major_cycles=None, scale_shape="paraboloid",
-             scale_mix=None, calibration=None, tile=16):
+             scale_mix=None, calibration=None, tile=16, fresh_process=True):
     """Predict the time and memory of a run before anything large is allocated.
 
     Parameters
@@ -522,6 +549,9 @@ def plan_run(image_shape, psf, scales, *, max_components=20000, threads=None, ps
         How components spread over the scales; default uniform.
     calibration : dict or str, optional
         Coefficients, or a calibration file; default `load_calibration`.
+    fresh_process : bool
+        The run is the first of its Python process (as with the command line): count
+        the one-off start-up.  Pipelines running many fields in one process pass False.
 
     Returns
     -------
@@ -553,6 +583,12 @@ def plan_run(image_shape, psf, scales, *, max_components=20000, threads=None, ps
         messages.append(f"threads {threads} is more than the {cores} this machine gives the "
                         f"engine; predicted for {cores}")
     threads = min(int(threads), cores)
+    if threads > 1 and _spinning_threads():
+        messages.append("with Numba's OpenMP threading layer, runs on more than one thread "
+                        "were measured several times slower than on one (idle OpenMP "
+                        "threads spin while the FFT library's threads work); set "
+                        "OMP_WAIT_POLICY=passive or NUMBA_THREADING_LAYER=workqueue, or use "
+                        "threads=1; the times here assume no such contention")
     if major_cycles is None:
         major_cycles = DEFAULT_MAJOR_CYCLES
         messages.append(f"counted {major_cycles} major cycles (the run's budget; most runs "
@@ -585,9 +621,11 @@ def plan_run(image_shape, psf, scales, *, max_components=20000, threads=None, ps
     elif not fits:
         messages.append(f"will not fit: needs about {_gib(mem['peak'])} (peak at "
                         f"{mem['peak_phase']}), {_gib(avail)} available")
-    total = t["precompute"] + t["setup"] + minor + major
+    st = cal.get("startup", {"fixed": 0.0, "per_byte": 0.0})
+    startup = (st["fixed"] + st["per_byte"] * mem["peak"]) if fresh_process else 0.0
+    total = t["precompute"] + t["setup"] + minor + major + startup
     return Plan(image_shape, tuple(psf_shape), sset.pixels, int(patch), source, threads,
-                dt.name, int(max_components), cycles, t["precompute"], t["setup"],
+                dt.name, int(max_components), cycles, t["precompute"], t["setup"], startup,
                 it, (float(per_k.min()), float(per_k.max())), t["minor_overhead"], minor,
                 t["major"], major, total, mem["peak"],
                 mem["peak_phase"], avail, bool(fits), messages, cal.get("source", ""),

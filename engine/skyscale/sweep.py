@@ -30,7 +30,7 @@ from .operators import ImagePlaneOperator
 
 __all__ = ["SCALE_LADDER", "FILL_LADDER", "DEFAULT_SIZES", "DEFAULT_MAX_SCALES", "QUICK_SETTINGS",
            "synthetic_field", "bandwidth_probe", "bandwidth_for", "PeakMemory",
-           "measure_iterations", "measure_point", "run_sweep", "calibrate", "summarize", "TARGETS"]
+           "measure_iterations", "measure_point", "measure_cold_start", "run_sweep", "calibrate", "summarize", "TARGETS"]
 
 logger = logging.getLogger(__name__)
 
@@ -293,6 +293,43 @@ def _ladder(n_scales, size, ladder=SCALE_LADDER):
     return scales if len(scales) == n_scales and scales[-1] <= size // 2 else None
 
 
+_COLD_RUN = """
+import json, sys, time
+from skyscale.cycles import deconvolve
+from skyscale.sweep import synthetic_field
+n, scales, comps, seed = json.loads(sys.argv[1])
+dirty, psf = synthetic_field(n, seed=seed)
+out = []
+for _ in range(2):
+    t0 = time.perf_counter()
+    r = deconvolve(dirty, psf, scales=scales, max_components=comps, threads=1, restore=False)
+    out.append({"seconds": time.perf_counter() - t0, "cycles": len(r.history) - 1,
+                "components": int(r.components.size), "timings": r.timings,
+                "psf_patch": r.parameters["psf_patch"]})
+print(json.dumps(out))
+"""
+
+
+def measure_cold_start(n, scales, components=500, seed=13):
+    """A run in a fresh Python process, twice: what the first run of a process pays more
+    (imports made on first use, FFT plans, fresh memory pages).  Returns a dict with
+    both runs' seconds and the predicted peak memory of the run."""
+    import json
+    import subprocess
+    import sys
+    pkg = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+    env = dict(os.environ, PYTHONPATH=os.pathsep.join(
+        [pkg] + [p for p in os.environ.get("PYTHONPATH", "").split(os.pathsep) if p]))
+    done = subprocess.run([sys.executable, "-c", _COLD_RUN,
+                           json.dumps([int(n), list(scales), int(components), int(seed)])],
+                          env=env, capture_output=True, text=True, timeout=1800, check=True)
+    first, second = json.loads(done.stdout.strip().splitlines()[-1])
+    g = cost.run_geometry((n, n), (2 * n, 2 * n), cost._radii(scales), first["psf_patch"])
+    return {"size": int(n), "scales": list(scales), "first": first, "second": second,
+            "extra_s": first["seconds"] - second["seconds"],
+            "memory": cost.predict_memory(g, {"memory": {"scale": 1.0}})["peak"]}
+
+
 def _validate_run(cal, dirty, psf, scales, components, seed_note, threads=1):
     """One real run against its plan: ratios predicted / measured."""
     from .cycles import deconvolve
@@ -314,7 +351,8 @@ def _validate_run(cal, dirty, psf, scales, components, seed_note, threads=1):
         p = cost.plan_run(dirty.shape, psf.shape, scales, max_components=n_comp,
                           threads=resolve_threads(threads),
                           psf_patch=res.parameters["psf_patch"], major_cycles=cycles,
-                          calibration=cal, scale_mix=mix, memory_available=1 << 62)
+                          calibration=cal, scale_mix=mix, memory_available=1 << 62,
+                          fresh_process=False)
         pred = {"precompute": p.precompute_seconds, "minor": p.minor_seconds,
                 "major": p.major_total_seconds, "total": p.total_seconds,
                 "memory": p.memory_bytes}
@@ -433,6 +471,11 @@ def run_sweep(sizes=DEFAULT_SIZES, max_scales=DEFAULT_MAX_SCALES, *, iterations=
         out["fft_threads"].append({"threads": t, "size": large, "major_s": best})
         del op
     del e
+    out["cold_start"] = []
+    for n in sorted({small} if quick else {max(small // 2, 64), min(large, 1024)}):
+        _notify(callback, what="fresh process", size=n)
+        out["cold_start"].append(measure_cold_start(n, [0, 4, 8],
+                                                    q.get("validate_components", 500)))
     out["calibration"] = calibrate(out)
     out["validation"] = []
     if validate:   # a size that was not swept, and another field at the smallest size
@@ -537,6 +580,24 @@ def calibrate(sweep):
     cal["memory"] = {"scale": float(np.median(ratios))}
     cal["range"] = {"max_image_pixels": max(r["image_shape"][0] * r["image_shape"][1]
                                             for r in pts)}
+    cold = sweep.get("cold_start", [])
+    if cold:   # a process's first run against the warm model: a constant plus fresh pages
+        extra = []
+        for c in cold:
+            run = c["first"]
+            warm = cost.plan_run((c["size"],) * 2, (2 * c["size"],) * 2, c["scales"],
+                                 max_components=run["components"], threads=1,
+                                 psf_patch=run["psf_patch"], major_cycles=run["cycles"],
+                                 calibration=cal, fresh_process=False,
+                                 memory_available=1 << 62).total_seconds
+            extra.append((c["memory"], max(run["seconds"] - warm, 0.0)))
+            c["extra_over_model_s"] = extra[-1][1]
+        extra.sort()
+        per_byte = 0.0
+        if len(extra) > 1 and extra[-1][0] > extra[0][0]:
+            per_byte = max((extra[-1][1] - extra[0][1]) / (extra[-1][0] - extra[0][0]), 0.0)
+        cal["startup"] = {"fixed": max(extra[0][1] - per_byte * extra[0][0], 0.0),
+                          "per_byte": per_byte}
     cal["fit"]["memory"] = misfit(np.median(ratios), ratios)
     return cal
 
