@@ -11,7 +11,8 @@ import os
 import re
 import sys
 
-__all__ = ["register", "cmd_bench", "cmd_plan", "plot_bench", "BENCH_FILES", "BENCH_SIZE_PX"]
+__all__ = ["register", "cmd_bench", "cmd_plan", "show_plan", "show_bench", "plot_bench",
+           "BENCH_FILES", "BENCH_SIZE_PX"]
 
 #: Files ``skyscale bench`` writes into ``--out``.
 BENCH_FILES = {"json": "bench.json", "figure": "bench.png"}
