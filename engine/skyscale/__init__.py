@@ -4,6 +4,13 @@ The public API is re-exported here; see the README for worked examples.
 """
 
 import logging as _logging
+import os as _os
+
+# OpenMP threads of the compiled kernels would otherwise spin for a long time after
+# each parallel region, competing with FFT threads on small machines; a short spin
+# keeps the minor cycle's back-to-back regions fast.  Set before Numba loads OpenMP;
+# a value the user has set wins.
+_os.environ.setdefault("GOMP_SPINCOUNT", "20000")
 from importlib.metadata import PackageNotFoundError, version as _version
 
 from .advisor import (EmissionExtent, ScaleChoiceWarning, ScaleSuggestion, check_scales,
@@ -11,6 +18,7 @@ from .advisor import (EmissionExtent, ScaleChoiceWarning, ScaleSuggestion, check
 from .beam import (Beam, beam_area, beam_kernel, fit_beam, jy_per_beam_to_jy_per_pixel,
                    jy_per_pixel_to_jy_per_beam, restore)
 from .cycles import deconvolve, run_cycles
+from .cost import InsufficientMemoryError, Plan, check_fits_memory, max_affordable_scales, plan_run
 from .fitsio import (FitsImage, cell_size_arcsec, check_same_grid, read_image, write_image,
                      write_table_csv)
 from .job import run_files
@@ -45,4 +53,5 @@ __all__ = [
     "write_table_csv", "run_files",
     "AutoMask", "auto_mask", "load_mask", "regions_to_mask",
     "build_report", "write_report", "file_sha256", "plot_convergence", "plot_panels",
+    "plan_run", "Plan", "check_fits_memory", "InsufficientMemoryError", "max_affordable_scales",
 ]

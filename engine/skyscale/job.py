@@ -162,7 +162,7 @@ def run_files(dirty_path, psf_path, out_dir, params=None, *, callback=None, inpu
             raise ValueError("beam is given in arcsec but the image has no celestial WCS")
         beam = Beam.from_sky(maj, mnr, pa, cell)
     from .cost import check_fits_memory, plan_run
-    plan = plan_run(dirty.data.shape, psf.data.shape, scales_px,
+    plan = plan_run(dirty.data.shape, psf.data, scales_px,
                     max_components=merged["max_components"], threads=merged["threads"],
                     psf_patch=merged["psf_patch"])
     check_fits_memory(plan)

@@ -143,6 +143,11 @@ class Engine:
             pk = cross_term_patches(self.psf, [k.astype(np.float64) for k in self.kernels],
                                     self.psf_info.patch_half, self.image_shape, self.fft)
         self.patches, self.patch_offset, self.patch_half, self.beam_peaks = pk
+        bad = [s for s, b in zip(self.scales.pixels, self.beam_peaks) if not b > 0]
+        if bad:
+            raise ValueError(f"scales {bad} px see a PSF whose doubly smoothed peak is <= 0 "
+                             "(the array does not recover structure that large); drop them "
+                             "or use smaller scales")
         self.patches = self.patches.astype(self.dtype)
         self.amp_scale = 1.0 / self.beam_peaks
         self.response_scale = self.weights / np.sqrt(self.beam_peaks)
