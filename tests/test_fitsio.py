@@ -269,10 +269,10 @@ def test_history_extra_and_date(tmp_path):
     lines = provenance_history({"loop_gain": 0.1, "scales": (0, 4, 8)}, "2001-02-03T04:05:06",
                                "2001-02-03T04:15:00")
     p = write_image(tmp_path / "h.fits", np.zeros((4, 4)), bunit="Jy/beam", history=lines,
-                    extra={"OBSERVER": "nobody", "NITER": (42, "components")})
+                    extra={"OBSERVER": "nobody", "NCOMP": (42, "components")})
     h = fits.getheader(p)
     assert list(h["HISTORY"]) == lines
-    assert h["OBSERVER"] == "nobody" and h["NITER"] == 42 and h.comments["NITER"] == "components"
+    assert h["OBSERVER"] == "nobody" and h["NCOMP"] == 42 and h.comments["NCOMP"] == "components"
     assert "DATE" in h and h["BUNIT"] == "Jy/beam"
 
 

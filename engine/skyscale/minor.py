@@ -8,6 +8,7 @@ References
 .. [3] Hogbom, J. A. 1974, A&AS 15, 417.
 """
 
+import copy as _copy
 import logging
 import time
 from dataclasses import dataclass, field
@@ -365,6 +366,13 @@ class LoopState:
         side = np.minimum(2 * e.patch_half + 1 + t, max(h, w))
         per_k = (np.minimum(side, h) * np.minimum(side, w)).sum(axis=1)
         return float(per_k.mean()) * 2 * e.dtype.itemsize
+
+    def copy(self):
+        """An independent copy (planes and peaks): every timed round can do the same work."""
+        twin = _copy.copy(self)
+        twin.planes = self.planes.copy()
+        twin.maxima = tuple(a.copy() for a in self.maxima)
+        return twin
 
     def iterate(self, n):
         e = self.engine

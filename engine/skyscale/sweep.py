@@ -10,7 +10,6 @@ coefficients of `skyscale.cost` to the measurements.  Nothing here prints: progr
 goes to ``callback(dict)`` and the log.
 """
 
-import copy
 import logging
 import os
 import platform
@@ -194,10 +193,7 @@ class PeakMemory:
 
 # ----------------------------------------------------------------------- iterations
 def _clone(state):
-    twin = copy.copy(state)
-    twin.planes = state.planes.copy()
-    twin.maxima = tuple(a.copy() for a in state.maxima)
-    return twin
+    return state.copy()
 
 
 def measure_iterations(engine, residual, *, iterations=200, repeats=3, region=None,
