@@ -114,8 +114,8 @@ def test_memory_model_within_15_percent_of_tracemalloc(n, psf_factor, dtype, sca
     dirty, psf = dirty.astype(dtype), psf.astype(dtype)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")       # the PSF the image's size is warned about
-        skyscale.deconvolve(*synthetic_field(32), scales=[0], max_components=5,
-                            restore=False)                       # imports, compiled kernels
+        skyscale.deconvolve(*synthetic_field(32), scales=[0, 4], max_components=5,
+                            restore=False, dtype=dtype)  # imports, kernels compiled for dtype
         tracemalloc.start()
         try:
             skyscale.deconvolve(dirty, psf, scales=scales, max_components=60,
