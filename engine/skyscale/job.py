@@ -147,7 +147,13 @@ def run_files(dirty_path, psf_path, out_dir, params=None, *, callback=None, inpu
         from .advisor import check_scales
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            scale_warnings = check_scales(scales_px, dirty.data, psf.data, cell_arcsec=cell)
+            from .cost import max_affordable_scales
+            afford = max_affordable_scales(dirty.data.shape, psf.data, scales_px,
+                                           max_components=merged["max_components"],
+                                           threads=merged["threads"],
+                                           psf_patch=merged["psf_patch"])
+            scale_warnings = check_scales(scales_px, dirty.data, psf.data, cell_arcsec=cell,
+                                          max_affordable_scales=len(afford.scales))
     mask = _build_mask(merged, dirty, dirty.data.shape)
     auto = None
     if merged["auto_mask"]:
