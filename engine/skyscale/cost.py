@@ -489,6 +489,9 @@ def _spinning_threads():
     import numba
     if os.environ.get("OMP_WAIT_POLICY", "").lower() == "passive":
         return False
+    spin = os.environ.get("GOMP_SPINCOUNT", "")   # skyscale sets 20000 unless told otherwise
+    if spin.isdigit() and int(spin) <= 1_000_000:
+        return False
     try:
         layer = numba.threading_layer()
     except ValueError:                 # no parallel kernel has run yet: what it will pick
@@ -587,7 +590,8 @@ def plan_run(image_shape, psf, scales, *, max_components=20000, threads=None, ps
         messages.append("with Numba's OpenMP threading layer, runs on more than one thread "
                         "were measured several times slower than on one (idle OpenMP "
                         "threads spin while the FFT library's threads work); set "
-                        "OMP_WAIT_POLICY=passive or NUMBA_THREADING_LAYER=workqueue, or use "
+                        "GOMP_SPINCOUNT=20000 (skyscale's default), OMP_WAIT_POLICY=passive or "
+                        "NUMBA_THREADING_LAYER=workqueue, or use "
                         "threads=1; the times here assume no such contention")
     if major_cycles is None:
         major_cycles = DEFAULT_MAJOR_CYCLES
