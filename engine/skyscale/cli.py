@@ -90,6 +90,15 @@ def _add_run_options(p):
                    help="skip convergence.png and panels.png")
     o.add_argument("--overwrite", action="store_true", default=None,
                    help="replace existing outputs [refuse]")
+    _add_global_flags(o)
+
+
+def _add_global_flags(group):
+    """--quiet and --debug are also accepted after the command."""
+    group.add_argument("--quiet", action="store_true", default=argparse.SUPPRESS,
+                       help="no progress bars or tables")
+    group.add_argument("--debug", action="store_true", default=argparse.SUPPRESS,
+                       help="full tracebacks and debug logs")
 
 
 def build_parser():
@@ -123,6 +132,7 @@ def build_parser():
                          help="shortest projected baseline, wavelengths [unknown]")
     suggest.add_argument("--max-count", type=int, default=6, help="most scales [6]")
     suggest.add_argument("--check", type=_scales, help="check this scale set (pixels) instead")
+    _add_global_flags(suggest)
     suggest.set_defaults(func=cmd_suggest)
 
     try:
