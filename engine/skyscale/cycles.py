@@ -38,6 +38,13 @@ def masked_stats(residual, mask):
     return float(np.abs(data).max()), float(np.sqrt(np.mean(data ** 2)))
 
 
+def _stop_level(residual, mask, threshold, noise_threshold):
+    """The level the run cleans to: the threshold, or the noise multiple if higher."""
+    if noise_threshold is None:
+        return threshold
+    return max(threshold, noise_threshold * robust_noise(residual, mask))
+
+
 def _notify(callback, **event):
     if callback is not None:
         callback(event)
@@ -114,8 +121,7 @@ def run_cycles(engine, operator, *, dirty=None, mask=None, threshold=0.0, noise_
             if mask is not None and not mask.any():
                 stop = "empty_mask"
                 break
-            noise = robust_noise(residual, mask) if noise_threshold is not None else 0.0
-            level = max(threshold, (noise_threshold or 0.0) * noise)
+            level = _stop_level(residual, mask, threshold, noise_threshold)
             if peak <= level:
                 stop = "threshold" if level == threshold else "noise"
                 break
@@ -168,8 +174,7 @@ def run_cycles(engine, operator, *, dirty=None, mask=None, threshold=0.0, noise_
         else:
             stop = "max_major_cycles"
         if stop == "max_major_cycles" or stop == "max_components":
-            noise = robust_noise(residual, mask) if noise_threshold is not None else 0.0
-            level = max(threshold, (noise_threshold or 0.0) * noise)
+            level = _stop_level(residual, mask, threshold, noise_threshold)
             if peak <= level:
                 stop = "threshold" if level == threshold else "noise"
             elif n_comp >= max_components:

@@ -54,6 +54,7 @@ class FFTWFFT:
     name = "pyfftw"
     _lock = threading.Lock()
     _wisdom_loaded = False
+    _planned = set()          # plan keys whose wisdom this process has saved
 
     def __init__(self, threads=None, wisdom_path=None):
         import pyfftw
@@ -98,7 +99,9 @@ class FFTWFFT:
             plan = build(template, s=s, threads=self.threads,
                          planner_effort="FFTW_ESTIMATE", avoid_copy=False)
             self._plans[key] = plan
-            self._save_wisdom()
+            if key not in FFTWFFT._planned:
+                FFTWFFT._planned.add(key)
+                self._save_wisdom()
         return plan
 
     def rfft2(self, a, s):

@@ -215,6 +215,10 @@ class Engine:
         return (max(ys[0] - m, 0), min(ys[-1] + m + 1, shape[0]),
                 max(xs[0] - m, 0), min(xs[-1] + m + 1, shape[1]))
 
+    def loop_state(self, residual, mask=None, region=None):
+        """Return a `LoopState` over ``region`` (default the whole image)."""
+        return LoopState(self, residual, mask, region)
+
     # --------------------------------------------------------------- the cycle
     def minor_cycle(self, residual, model=None, *, mask=None, threshold=0.0, cycle_depth=0.2,
                     max_components=100000, callback=None, chunk=2000):
@@ -382,11 +386,3 @@ class LoopState:
                 e.patch_offset, e.patch_half, e.tile, self.maxima, gain=e.loop_gain, floor=-1.0,
                 peak_limit=np.inf, ref=0, delta=e.delta_index, max_iter=n)
         return comps
-
-
-def _loop_state(self, residual, mask=None, region=None):
-    """Return a `LoopState` over ``region`` (default the whole image)."""
-    return LoopState(self, residual, mask, region)
-
-
-Engine.loop_state = _loop_state

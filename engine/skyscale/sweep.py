@@ -192,10 +192,6 @@ class PeakMemory:
 
 
 # ----------------------------------------------------------------------- iterations
-def _clone(state):
-    return state.copy()
-
-
 def measure_iterations(engine, residual, *, iterations=200, repeats=3, region=None,
                        thread_counts=None):
     """Time ``iterations`` minor-cycle iterations, best of ``repeats`` identical runs.
@@ -213,7 +209,7 @@ def measure_iterations(engine, residual, *, iterations=200, repeats=3, region=No
     try:
         for _ in range(repeats):
             for t in counts:
-                twin = _clone(state)
+                twin = state.copy()
                 engine.threads = t
                 t0 = time.perf_counter()
                 comps = twin.iterate(iterations)
