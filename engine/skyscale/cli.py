@@ -69,9 +69,12 @@ def _add_run_options(p):
     g.add_argument("--cycle-depth", type=float,
                    help="each minor cycle cleans to this fraction of its start peak [0.2]")
     g.add_argument("--size-penalty", type=float,
-                   help="bias toward small scales, weight 1 - p s/s_max [0.6]")
-    g.add_argument("--psf-patch", type=int, help="half-width of the minor-cycle PSF patch, "
-                   "pixels [automatic]")
+                   help="bias toward small scales, weight 1 - p s/s_max [0.3]")
+    g.add_argument("--extended-depth", type=float,
+                   help="inside a mask, finite scales stop at this fraction of the noise "
+                   "multiple [0.25]")
+    g.add_argument("--psf-patch", type=int, help="no longer used (minor cycles subtract "
+                   "whole scale beams); accepted with a warning")
     g.add_argument("--beam", type=_beam, help="restoring beam MAJOR,MINOR,PA in arcsec and "
                    "degrees [fitted to the PSF]")
     m = p.add_argument_group("masks")
