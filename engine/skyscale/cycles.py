@@ -16,7 +16,7 @@ import warnings
 import numpy as np
 
 from ._validate import as_image, resolve_dtype
-from .levels import DEFAULT_EXTENDED_DEPTH, scale_levels
+from .levels import DEFAULT_EXTENDED_DEPTH, allowed_peak, scale_levels
 from .minor import DEFAULT_SCALE_LOOP_DEPTH, DEFAULT_SIZE_PENALTY, Engine
 from .operators import ImagePlaneOperator, as_operator, exact_box, exact_region
 from .result import COMPONENT_DTYPE, CycleRecord, DeconvolutionResult
@@ -75,8 +75,10 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
     cycle_depth
         See `deconvolve`.
     mask_updater : callable, optional
-        ``mask_updater(residual, model, previous_mask) -> mask``, called after every
-        major cycle (the automatic mask).
+        ``mask_updater(residual, centres, previous_mask) -> mask``, called after every
+        major cycle (the automatic mask); ``centres`` is non-zero where components are
+        centred (the model's footprint would grow the mask by each kernel's radius
+        every cycle).
     callback : callable, optional
         Receives progress dicts (``stage`` 'major' or 'minor').
 
@@ -92,8 +94,9 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
     stops when every scale is below its level inside the mask.  Minor cycles subtract
     whole scale beams and update every scale exactly after each sub-loop, and reject a
     sub-loop that would raise the peak residual in the mask above the larger of the
-    cycle's starting peak and the delta scale's stop level, so with an exact operator
-    no major cycle raises it above that.  A major cycle that does all the same (an
+    cycle's starting peak and 1.1 times the delta scale's stop level
+    (`skyscale.levels.allowed_peak`), so with an exact operator no major cycle raises
+    it above that.  A major cycle that does all the same (an
     inexact operator) is rolled back and retried with a shallower minor cycle, at most
     twice in a row; then the run stops, 'no_progress' when the rise is within 1 %,
     'diverging' otherwise.  Rollbacks are counted in ``result.rollbacks``.  A residual
@@ -123,12 +126,13 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
                              "regrid or rebuild the mask")
     offsets = getattr(operator, "exact_offsets", None)
     exact = getattr(operator, "exact", True)
+    centres = (model != 0).astype(np.uint8)
     if mask_updater is not None:
-        mask = mask_updater(residual, model, mask)
+        mask = mask_updater(residual, centres, mask)
 
-    def stats(residual, model, mask):
+    def stats(residual, model, mask, previous=None):
         region = None if exact else exact_region(shape, model, offsets)
-        state = engine.measure(residual, mask, noise_region=region)
+        state = engine.measure(residual, mask, noise_region=region, previous=previous)
         inside = mask if region is None else (region if mask is None else mask & region)
         peak, rms = masked_stats(residual, inside)
         levels = scale_levels(state.noise, threshold=threshold, noise_threshold=noise_threshold,
@@ -186,10 +190,10 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
                 warnings_seen.append(msg)
                 stop = "diverging"
                 break
-            new_state, new_region, new_peak, new_rms, new_levels = stats(new_residual,
-                                                                         mc.model, mask)
-            allowed_peak = max(peak, float(levels[0]) if engine.scales.has_delta else 0.0)
-            if new_peak > allowed_peak * (1.0 + PEAK_TOLERANCE):
+            new_state, new_region, new_peak, new_rms, new_levels = stats(
+                new_residual, mc.model, mask, state)
+            highest = allowed_peak(peak, levels, engine.scales.has_delta)
+            if new_peak > highest * (1.0 + PEAK_TOLERANCE):
                 rollbacks += 1
                 msg = (f"major cycle {cycle} raised the peak residual {peak:.4g} -> "
                        f"{new_peak:.4g} Jy/beam; rolled back")
@@ -199,17 +203,18 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
                     retries += 1
                     depth = 0.5 * (1.0 + depth)
                     continue
-                stop = "no_progress" if new_peak <= allowed_peak * 1.01 else "diverging"
+                stop = "no_progress" if new_peak <= highest * 1.01 else "diverging"
                 break
             model, residual = mc.model, new_residual
             depth, retries = cycle_depth, 0
             tables.append(mc.components)
             n_comp += mc.components.size
             flux = float(model.sum(dtype=np.float64))
+            centres[mc.components["y"], mc.components["x"]] = 1
             if mask_updater is not None:
-                mask = mask_updater(residual, model, mask)
-                new_state, new_region, new_peak, new_rms, new_levels = stats(residual, model,
-                                                                             mask)
+                mask = mask_updater(residual, centres, mask)
+                new_state, new_region, new_peak, new_rms, new_levels = stats(
+                    residual, model, mask, state)
             state, region, peak, rms, levels = (new_state, new_region, new_peak, new_rms,
                                                 new_levels)
             history.append(CycleRecord(cycle, n_comp, peak, rms, flux,

@@ -7,7 +7,12 @@ emission that is faint per pixel but significant once smoothed is cleaned too.
 
 import numpy as np
 
-__all__ = ["DEFAULT_EXTENDED_DEPTH", "scale_levels"]
+__all__ = ["DEFAULT_EXTENDED_DEPTH", "LEVEL_ALLOWANCE", "scale_levels", "allowed_peak"]
+
+#: Near the noise a broad component's sidelobes may lift a noise peak of the unsmoothed
+#: residual a little; a minor or major cycle may leave the peak in the mask up to this
+#: multiple of the delta scale's stop level (it is then cleaned again like any peak).
+LEVEL_ALLOWANCE = 1.1
 
 #: Inside a mask, the largest scale stops at this fraction of the noise multiple, and
 #: the finite scales between it and the delta scale at fractions in proportion to their
@@ -63,3 +68,9 @@ def scale_levels(noise, *, threshold=0.0, noise_threshold=None,
         size = np.asarray(scales, dtype=np.float64) / float(np.max(scales))
         nu *= 1.0 - (1.0 - extended_depth) * size
     return np.maximum(levels, nu * sigma)
+
+
+def allowed_peak(peak, levels, has_delta=True):
+    """Highest peak |residual| in the mask a cycle may leave: its start, or
+    `LEVEL_ALLOWANCE` times the delta scale's stop level if that is higher."""
+    return max(float(peak), LEVEL_ALLOWANCE * float(levels[0]) if has_delta else 0.0)

@@ -30,7 +30,7 @@ from ._threads import thread_limit
 from ._validate import as_image, resolve_dtype
 from .fft import Convolver, MultiConvolver, get_backend
 from .kernels import scale_loop, stamp_components
-from .levels import scale_levels
+from .levels import allowed_peak, scale_levels
 from .noise import scale_noise
 from .precompute import plan_memory, scale_beams
 from .psf import check_psf, describe_psf
@@ -49,9 +49,14 @@ DEFAULT_SIZE_PENALTY = 0.3
 #: before every scale's residual is brought up to date and the next scale is chosen.
 DEFAULT_SCALE_LOOP_DEPTH = 0.5
 
-#: A sub-loop may not raise the peak residual in the mask above the cycle's start by
-#: more than this fraction (float32 rounding); past it the sub-loop is rejected.
+#: A sub-loop may not raise the peak residual in the mask above the cycle's start (or
+#: `skyscale.levels.LEVEL_ALLOWANCE` times the delta scale's stop level) by more than
+#: this fraction (rounding); past it the sub-loop is undone.
 PEAK_RISE_TOLERANCE = 1e-5
+
+#: A sub-loop that would raise the peak is retried with half its components this many
+#: times before its scale is given up for the rest of the cycle.
+MAX_HALVINGS = 3
 
 #: Why a minor cycle handed back to the major cycle.
 MINOR_STOP_REASONS = {
@@ -245,19 +250,23 @@ class Engine:
         return np.array([float(np.abs(p[a]).max()) if a.any() else 0.0
                          for p, a in zip(planes, allowed)])
 
-    def measure(self, residual, mask=None, noise_region=None):
+    def measure(self, residual, mask=None, noise_region=None, previous=None):
         """Smooth ``residual`` by every scale; return peaks and noise as a `ScaleState`.
 
         Noise is measured outside ``mask`` (grown by each scale's radius), inside
         ``noise_region`` (where the residual is exact; default everywhere), with
-        clipping of what emission is left (`skyscale.noise.scale_noise`).
+        clipping of what emission is left (`skyscale.noise.scale_noise`); ``previous``
+        (a `ScaleState`) supplies the smallest scale's noise when too little of the
+        image is left to measure it.
         """
         residual = np.asarray(residual)
         with thread_limit(self.threads):
             planes = self.smooth(residual)
         allowed = self.allowed(None if mask is None else np.asarray(mask, dtype=bool))
         sigma, used, how = scale_noise(planes, self.scales.support_radii, mask=mask,
-                                       region=noise_region, ratios=np.sqrt(self.beam_peaks))
+                                       region=noise_region, ratios=np.sqrt(self.beam_peaks),
+                                       previous=None if previous is None
+                                       else float(previous.noise[0]))
         return ScaleState(planes, self._peaks(planes, allowed), sigma, used, how)
 
     # --------------------------------------------------------------- the cycle
@@ -336,7 +345,7 @@ class Engine:
         floors = np.maximum(levels, cycle_depth * start)
         in_mask = np.ones(residual.shape, bool) if mask is None else mask
         peak_start = float(np.abs(residual[in_mask]).max()) if in_mask.any() else 0.0
-        guard = max(peak_start, floors[0] if self.scales.has_delta else 0.0)
+        guard = allowed_peak(peak_start, levels, self.scales.has_delta)
         guard *= 1.0 + PEAK_RISE_TOLERANCE
         out = dict(scale_peaks_start=start, scale_floors=floors, scale_levels=levels,
                    scale_noise=state.noise)
@@ -376,15 +385,25 @@ class Engine:
             if idx.size == 0:
                 blocked[k] = True
                 continue
-            step = np.zeros(residual.shape, dtype=np.float64)
-            stamp_components(step, [self.kernels[k].astype(np.float64)], ys[idx], xs[idx],
-                             np.zeros(idx.size, np.int64), flux)
-            change = self.psf_convolver(step, out_dtype=np.float64)
-            residual -= change
-            peak0 = float(np.abs(residual[in_mask]).max())
-            if peak0 > guard:
-                residual += change        # undo: this sub-loop raised the peak
+            # Apply the sub-loop; if it would raise the peak in the mask, try its first
+            # half, then quarter, ... (the rise grows with the flux taken) before
+            # giving the scale up for this cycle.
+            while True:
+                step = np.zeros(residual.shape, dtype=np.float64)
+                stamp_components(step, [self.kernels[k].astype(np.float64)], ys[idx],
+                                 xs[idx], np.zeros(idx.size, np.int64), flux)
+                change = self.psf_convolver(step, out_dtype=np.float64)
+                residual -= change
+                peak0 = float(np.abs(residual[in_mask]).max())
+                if peak0 <= guard:
+                    break
+                residual += change        # undo
                 rejected += 1
+                if idx.size < 2 or rejected % (MAX_HALVINGS + 1) == 0:
+                    idx = idx[:0]
+                    break
+                idx, flux = idx[:idx.size // 2], flux[:idx.size // 2]
+            if idx.size == 0:
                 blocked[k] = True
                 t_update += time.perf_counter() - tb
                 continue

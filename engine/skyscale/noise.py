@@ -136,7 +136,7 @@ def emission_free_noise(image, *, exclude=None, region=None, border=0, passes=3)
 MIN_INDEPENDENT = 50
 
 
-def scale_noise(planes, radii, *, mask=None, region=None, ratios=None):
+def scale_noise(planes, radii, *, mask=None, region=None, ratios=None, previous=None):
     """Noise of each scale's smoothed residual, measured where there is no emission.
 
     Parameters
@@ -153,6 +153,10 @@ def scale_noise(planes, radii, *, mask=None, region=None, ratios=None):
     ratios : (n_scales,) array_like, optional
         Expected noise of each scale relative to the others, ``sqrt(B_kk(0))`` (see
         Notes).  Used for a scale whose emission-free area is too small to measure it.
+    previous : float, optional
+        The smallest scale's noise from an earlier measurement, kept when too few
+        pixels lie outside the grown mask now (rather than measuring inside emission
+        that cleaning has flattened, which would underestimate it).
 
     Returns
     -------
@@ -160,7 +164,7 @@ def scale_noise(planes, radii, *, mask=None, region=None, ratios=None):
     used : (n_scales,) int64 ndarray
         Pixels (subsampled) each measurement used; 0 where the noise was scaled.
     how : list of str
-        ``'measured'`` or ``'scaled'`` per scale.
+        ``'measured'``, ``'scaled'`` or ``'kept'`` (the previous value) per scale.
 
     Notes
     -----
@@ -186,7 +190,7 @@ def scale_noise(planes, radii, *, mask=None, region=None, ratios=None):
         r = int(radii[k])
         if mask is None or mask.all():
             tries = [None]
-        elif k == 0 or ratios is None:
+        elif (k == 0 and previous is None) or ratios is None:
             tries = [_grow(mask, r), mask, None]
         else:
             tries = [_grow(mask, r)]
@@ -195,6 +199,8 @@ def scale_noise(planes, radii, *, mask=None, region=None, ratios=None):
                                                     region=region, border=r)
             if used[k] >= MIN_NOISE_PIXELS and sigma[k] > 0:
                 break
+        if k == 0 and previous is not None and (used[k] < MIN_NOISE_PIXELS or sigma[k] <= 0):
+            sigma[k], used[k], how[k] = float(previous), 0, "kept"
         independent = used[k] * step * step / max(np.pi * r * r, 1.0)
         if k > 0 and ratios is not None and sigma[0] > 0 and (
                 independent < MIN_INDEPENDENT or sigma[k] <= 0):

@@ -95,7 +95,11 @@ class ImagePlaneOperator:
 
 
 class FunctionOperator:
-    """Wrap a plain function ``f(model) -> residual`` and check what it returns."""
+    """Wrap a plain function ``f(model) -> residual`` and check what it returns.
+
+    Non-finite values are passed on: the driver stops the run as 'diverging' on them
+    and keeps the last good model.
+    """
 
     def __init__(self, function, shape, dtype=np.float32):
         self.function = function
@@ -104,7 +108,12 @@ class FunctionOperator:
 
     def __call__(self, model):
         out = self.function(model)
-        return as_image(out, "residual returned by the operator", dtype=self.dtype)
+        out = as_image(out, "residual returned by the operator", dtype=self.dtype,
+                       allow_nan=True)
+        if out.shape != self.shape:
+            raise ValueError(f"the operator returned a residual of shape {out.shape}, "
+                             f"expected the image's {self.shape}; return one image per model")
+        return out
 
 
 def as_operator(operator, shape, dtype=np.float32):

@@ -52,7 +52,7 @@ def _subtract_and_scan(values, ys, xs, beam, cy, cx, f, y0, x0, lo, hi):
     for j in range(lo, hi):
         v = values[j]
         if f != 0.0:
-            v = values.dtype.type(v - f * beam[cy + ys[j] - y0, cx + xs[j] - x0])
+            v = values.dtype.type(float(v) - f * float(beam[cy + ys[j] - y0, cx + xs[j] - x0]))
             values[j] = v
         a = abs(v)
         if a > best:
