@@ -259,13 +259,12 @@ class Engine:
     def _tools(self, shape):
         """PSF convolver and smoother for a box of ``shape`` (kept for reuse)."""
         shape = tuple(shape)
-        if shape == tuple(self.image_shape):
-            return self.psf_convolver, self.smoother
         if shape not in self._box_tools:
             if len(self._box_tools) >= 4:
                 self._box_tools.pop(next(iter(self._box_tools)))
-            self._box_tools[shape] = (Convolver(self.psf, shape, backend=self.fft),
-                                      MultiConvolver(self.kernels, shape, backend=self.fft))
+            self._box_tools[shape] = (
+                Convolver(self.psf, shape, backend=self.fft, precision=self.dtype),
+                MultiConvolver(self.kernels, shape, backend=self.fft, precision=self.dtype))
         return self._box_tools[shape]
 
     @staticmethod
