@@ -130,7 +130,8 @@ def build_parser():
                          help="largest angular size of the emission, arcsec [measured]")
     suggest.add_argument("--shortest-baseline", type=float,
                          help="shortest projected baseline, wavelengths [unknown]")
-    suggest.add_argument("--max-count", type=int, default=6, help="most scales [6]")
+    suggest.add_argument("--max-count", type=int, default=4,
+                         help="most scales, the delta scale included [4]")
     suggest.add_argument("--check", type=_scales, help="check this scale set (pixels) instead")
     _add_global_flags(suggest)
     suggest.set_defaults(func=cmd_suggest)
@@ -213,10 +214,9 @@ def cmd_suggest(args):
                        shortest_baseline=args.shortest_baseline, max_count=args.max_count)
     if args.check and args.check != "auto":
         import warnings
-        with warnings.catch_warnings():
+        with warnings.catch_warnings():     # judged by the suggestion's own limits
             warnings.simplefilter("ignore")
-            problems = check_scales(args.check, dirty.data, psf.data, suggestion=s,
-                                    cell_arcsec=cell, shortest_baseline=args.shortest_baseline)
+            problems = check_scales(args.check, suggestion=s)
         console.show_check(args.check, problems)
         return 0
     console.show_suggestion(s)

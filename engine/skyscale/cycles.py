@@ -269,6 +269,13 @@ def deconvolve(dirty, psf, *, scales=(0, 4, 8, 16), loop_gain=0.1, threshold=0.0
     >>> (int(r.components["y"][0]), int(r.components["x"][0])), round(float(r.model.sum()), 2)
     ((19, 14), 2.0)
     """
+    # --- issue 11 (scale advisor): scales="auto" asks skyscale.advisor.resolve_scales; its
+    # reasons land in result.parameters["scale_reasons"] through locals() below.
+    if isinstance(scales, str):
+        from .advisor import resolve_scales
+        scales, scale_reasons = resolve_scales(scales, dirty, psf, cell_arcsec=cell_arcsec)
+        del resolve_scales
+    # --- end of the issue 11 edit
     params = {k: v for k, v in locals().items()
               if k not in ("dirty", "psf", "mask", "operator", "callback", "beam", "auto_mask")}
     params["scales"] = [float(s) for s in np.atleast_1d(getattr(scales, "value", scales))]
