@@ -146,8 +146,8 @@ def test_rectangle_feret_and_equal_area_diameters():
     # the circle of the same area has diameter 2 sqrt(A / pi) (analytic).
     image = np.random.default_rng(4).normal(0.0, 1.0, (160, 160))
     image[50:70, 50:110] += 50.0
-    feret = measure_emission_extent(image, BEAM, smoothing_px=0)
-    area = measure_emission_extent(image, BEAM, smoothing_px=0, diameter="equal_area")
+    feret = measure_emission_extent(image, BEAM, smoothing_px=0, diameter="feret")
+    area = measure_emission_extent(image, BEAM, smoothing_px=0)        # the default
     assert abs(feret.areas[0] - 1200) <= 2
     assert abs(feret.largest_px - math.hypot(20, 60)) <= 1.0
     assert area.largest_px == pytest.approx(2.0 * math.sqrt(1200 / math.pi), abs=0.1)

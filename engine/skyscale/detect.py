@@ -43,9 +43,11 @@ FWHM_PER_SIGMA = 2.0 * math.sqrt(2.0 * math.log(2.0))
 #: Successive smoothing widths of the ladder grow by this factor.
 LADDER_RATIO = 2.0
 
-#: How an island's diameter is measured: the maximum Feret diameter (largest distance
-#: across, default) or the diameter of the circle with the island's area.
-DIAMETER_MEASURES = ("feret", "equal_area")
+#: How an island's diameter is measured: the diameter of the circle with the contour's
+#: area (default; steady against noisy edges) or the maximum Feret diameter (largest
+#: distance across; never underestimates an elongated source, but reads high on a
+#: noisy edge).
+DIAMETER_MEASURES = ("equal_area", "feret")
 
 #: The noise is estimated from an even subsample of at most this many pixels.
 NOISE_SAMPLES = 1 << 18
@@ -65,6 +67,17 @@ RESOLVED_GAIN = 1.0
 #: for one source when the width doubles, a Gaussian's area growing as its width
 #: squared).  The unsmoothed image and the first rung count as extended.
 RESOLVED_COVER = 0.5
+
+#: An extended island's size is trusted (``measured``) where its peak is at least this
+#: multiple of the detection level, so that its contour at half the peak lies above
+#: the detection level, ...
+MEASURE_PEAK = 2.0
+
+#: ... and where the smoothing is at most this multiple of the size found (wider, the
+#: broadening removed in quadrature dwarfs the size and multiplies the noise's error
+#: on the contour; the rung that maximises a structure's signal-to-noise is never
+#: wider than its size).
+MEASURE_WIDTH = 2.0
 
 
 # ------------------------------------------------------------------------- smoothing
@@ -186,7 +199,7 @@ def _diameter(ys, xs, measure):
     return 2.0 * math.sqrt(len(ys) / math.pi)
 
 
-def point_island(fwhm, contrast, measure="feret"):
+def point_island(fwhm, contrast, measure="equal_area"):
     """Diameter of the island an unresolved source makes: a round Gaussian of ``fwhm``
     pixels, ``contrast`` times the contour level at its peak pixel, sampled on the
     pixel grid and measured like any island (0 for a contrast of 1 or less)."""
@@ -225,6 +238,8 @@ class Island:
         source of the same peak makes at that contour.
     resolved : bool
         Extended at this rung (see `RESOLVED_GAIN` and `RESOLVED_COVER`).
+    measured : bool
+        Extended, and its size trusted (see `MEASURE_PEAK` and `MEASURE_WIDTH`).
     """
 
     smoothing_px: float
@@ -235,6 +250,7 @@ class Island:
     diameter_px: float
     intrinsic_px: float
     resolved: bool
+    measured: bool
 
 
 @dataclass
@@ -295,14 +311,16 @@ def _islands(sm, sigma, noise, previous, width, beam_major, min_area, measure, f
         point = point_island(spread, peak / contour, measure)
         intrinsic = math.sqrt(max(across * across - point * point, 0.0))
         resolved = first or gain >= RESOLVED_GAIN or cover >= RESOLVED_COVER
+        measured = resolved and peak >= MEASURE_PEAK * level \
+            and width <= MEASURE_WIDTH * intrinsic
         found.append(Island(width, int(areas[k]), peak / noise, gain, cover, across,
-                            intrinsic, resolved))
+                            intrinsic, resolved, measured))
     return found
 
 
 def detect_emission(image, beam_fwhm_px, smoothing_px=None, *, sigma=5.0, exclude=None,
                     include_negative=False, measure=False, beam_major_px=None,
-                    min_area=None, diameter="feret"):
+                    min_area=None, diameter="equal_area"):
     """Detect emission in an image smoothed at a ladder of widths.
 
     Parameters
@@ -328,8 +346,8 @@ def detect_emission(image, beam_fwhm_px, smoothing_px=None, *, sigma=5.0, exclud
     min_area : int, optional
         Islands with fewer pixels are not measured; default a quarter of the beam
         area, at least 2 pixels.
-    diameter : {'feret', 'equal_area'}
-        How an island's contour is measured.
+    diameter : {'equal_area', 'feret'}
+        How an island's contour is measured (`DIAMETER_MEASURES`).
 
     Returns
     -------

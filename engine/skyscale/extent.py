@@ -64,7 +64,7 @@ class EmissionExtent:
     noise: float
     threshold: float
     smoothing_px: float
-    diameter: str = "feret"
+    diameter: str = "equal_area"
     peak_snr: float = 0.0
     noise_by_smoothing: tuple = ()
     sigma: float = 5.0
@@ -87,7 +87,7 @@ class EmissionExtent:
 
 
 def measure_emission_extent(dirty, beam_fwhm_px, *, sigma=5.0, smoothing_px=None,
-                            min_area=None, diameter="feret"):
+                            min_area=None, diameter="equal_area"):
     """Find the largest extended structure, each smoothing against its own noise.
 
     Parameters
@@ -107,10 +107,10 @@ def measure_emission_extent(dirty, beam_fwhm_px, *, sigma=5.0, smoothing_px=None
     min_area : int, optional
         Islands with fewer pixels are ignored; default a quarter of the beam area,
         at least 2 pixels (a single hot pixel is not emission).
-    diameter : {'feret', 'equal_area'}
-        ``'feret'`` (default): the largest distance across the contour, which never
-        underestimates an elongated source; ``'equal_area'``: the diameter of the
-        circle of its area.
+    diameter : {'equal_area', 'feret'}
+        ``'equal_area'`` (default): the diameter of the circle of the contour's area,
+        steady against noisy edges; ``'feret'``: the largest distance across, which
+        never underestimates an elongated source but reads high on a noisy edge.
 
     Returns
     -------
@@ -128,8 +128,9 @@ def measure_emission_extent(dirty, beam_fwhm_px, *, sigma=5.0, smoothing_px=None
     Only positive islands count: negative regions of a dirty image are sidelobes or
     missing short spacings, not emission.  An island is measured at the rungs where
     it is extended (its peak signal-to-noise rose with the smoothing, or it was
-    already detected there at the rung before; see `skyscale.detect`); the largest
-    intrinsic diameter over those wins.  The size is read at half the island's peak,
+    already detected there at the rung before), its peak is at least twice the
+    detection level and the smoothing at most twice its size (see `skyscale.detect`);
+    the largest intrinsic diameter over those wins.  The size is read at half the island's peak,
     where a Gaussian source of FWHM :math:`f` reads :math:`f` whatever its
     brightness, and a disk its diameter (a little less once the smoothing nears its
     size: about 0.6 of it for a smoothing far wider than the disk, whose second
@@ -170,7 +171,7 @@ def measure_emission_extent(dirty, beam_fwhm_px, *, sigma=5.0, smoothing_px=None
     found = detect_emission(image, fwhm, ladder, sigma=float(sigma), measure=True,
                             beam_major_px=major, min_area=min_area, diameter=diameter)
     noise_by = tuple(zip(found.smoothing_px, found.noise))
-    extended = [i for i in found.islands if i.resolved]
+    extended = [i for i in found.islands if i.measured]
     if not extended:
         logger.info("no extended emission above %g sigma at smoothings %s px", sigma,
                     ", ".join(f"{w:.0f}" for w in found.smoothing_px))
