@@ -226,10 +226,10 @@ def suggest_scales(dirty, psf=None, *, cell_arcsec=None, largest_size=None,
     >>> s = suggest_scales(rng.normal(0, 1, (256, 256)) + disk, beam=Beam(4.0, 4.0),
     ...                    cell_arcsec=2.0)
     >>> s.pixels, s.arcsec
-    ((0, 4, 13, 40), (0.0, 8.0, 26.0, 80.0))
+    ((0, 4, 12, 39), (0.0, 8.0, 24.0, 78.0))
     >>> suggest_scales(rng.normal(0, 1, (256, 256)) + disk, beam=Beam(4.0, 4.0),
     ...                max_count=6).pixels
-    (0, 4, 9, 19, 40)
+    (0, 4, 9, 18, 39)
     """
     image = as_image(dirty, "dirty", dtype=np.float64)
     max_count = _count(max_count, "max_count")
