@@ -118,6 +118,18 @@ def test_point_sources_give_the_delta_and_beam_scales(snr):
     assert any(r.startswith("compact emission") for r in s.reasons)
 
 
+def test_faint_unresolved_sources_are_found_but_not_measured():
+    # Three points at 8 sigma in beam-correlated noise: above the detection level (5)
+    # but under twice it, and unresolved, so their size cannot be read.
+    dirty, _ = point_field(256, 3, 8, seed=1, correlated=True)
+    s = suggest_scales(dirty, beam=ROUND)
+    assert s.extent.n_detected >= 3 and s.extent.n_islands == 0
+    assert s.pixels == (0, 4, 8)
+    assert any(r.startswith(f"no extended emission found: {s.extent.n_detected} island(s) "
+                            "above 5 times the noise") and "none measurable" in r
+               for r in s.reasons)
+
+
 # ------------------------------------------------------------------ the structure
 
 def test_gaussian_reads_as_its_fwhm_at_any_brightness():

@@ -288,11 +288,17 @@ def suggest_scales(dirty, psf=None, *, cell_arcsec=None, largest_size=None,
         extent = measure_emission_extent(image, used, sigma=sigma)
         ladder = extent.noise_by_smoothing
         if extent.n_islands == 0:
-            reasons.append(
-                f"no extended emission found: nothing above {sigma:g} times the noise "
-                f"(measured off the emission) at any smoothing from 0 to "
-                f"{ladder[-1][0]:.0f} px (noise {ladder[0][1]:.3g} unsmoothed, "
-                f"{ladder[-1][1]:.3g} at {ladder[-1][0]:.0f} px): the extent is unknown")
+            noise = (f"(measured off the emission) at smoothings from 0 to "
+                     f"{ladder[-1][0]:.0f} px (noise {ladder[0][1]:.3g} unsmoothed, "
+                     f"{ladder[-1][1]:.3g} at {ladder[-1][0]:.0f} px)")
+            if extent.n_detected:
+                reasons.append(f"no extended emission found: {extent.n_detected} island(s) "
+                               f"above {sigma:g} times the noise {noise}, none both "
+                               "resolved and twice that bright, so none measurable: the "
+                               "extent is unknown")
+            else:
+                reasons.append(f"no extended emission found: nothing above {sigma:g} times "
+                               f"the noise {noise}: the extent is unknown")
         else:
             structure = extent.intrinsic_px
             note = extent.note()

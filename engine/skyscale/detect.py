@@ -73,10 +73,10 @@ RESOLVED_COVER = 0.5
 #: the detection level, ...
 MEASURE_PEAK = 2.0
 
-#: ... and where the smoothing is at most this multiple of the size found (wider, the
-#: broadening removed in quadrature dwarfs the size and multiplies the noise's error
-#: on the contour; the rung that maximises a structure's signal-to-noise is never
-#: wider than its size).
+#: ... and where the smoothing is at most this multiple of the size found or of the
+#: beam (wider, the broadening removed in quadrature dwarfs the size and multiplies
+#: the noise's error on the contour; the rung that maximises a structure's
+#: signal-to-noise is never wider than its size).
 MEASURE_WIDTH = 2.0
 
 
@@ -312,7 +312,7 @@ def _islands(sm, sigma, noise, previous, width, beam_major, min_area, measure, f
         intrinsic = math.sqrt(max(across * across - point * point, 0.0))
         resolved = first or gain >= RESOLVED_GAIN or cover >= RESOLVED_COVER
         measured = resolved and peak >= MEASURE_PEAK * level \
-            and width <= MEASURE_WIDTH * intrinsic
+            and width <= MEASURE_WIDTH * max(intrinsic, beam_major)
         found.append(Island(width, int(areas[k]), peak / noise, gain, cover, across,
                             intrinsic, resolved, measured))
     return found

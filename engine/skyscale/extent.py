@@ -54,6 +54,10 @@ class EmissionExtent:
         ``(smoothing FWHM, noise)`` for every rung of the ladder.
     sigma : float
         The detection level in units of each rung's noise.
+    n_detected : int
+        Islands above the detection level, over all rungs (an island seen at several
+        rungs counts at each); with ``n_islands`` 0, what was detected was too faint
+        to measure or unresolved at every rung.
     """
 
     largest_px: float
@@ -68,6 +72,7 @@ class EmissionExtent:
     peak_snr: float = 0.0
     noise_by_smoothing: tuple = ()
     sigma: float = 5.0
+    n_detected: int = 0
 
     def note(self):
         """Where the structure was found, in words, for reasons and messages."""
@@ -178,7 +183,7 @@ def measure_emission_extent(dirty, beam_fwhm_px, *, sigma=5.0, smoothing_px=None
         first_noise = found.noise[0] if found.noise else 0.0
         return EmissionExtent(0.0, 0.0, 0, (), (), first_noise, sigma * first_noise,
                               found.smoothing_px[0] if found.smoothing_px else 0.0,
-                              diameter, 0.0, noise_by, float(sigma))
+                              diameter, 0.0, noise_by, float(sigma), len(found.islands))
     best = max(extended, key=lambda i: (i.intrinsic_px, -i.smoothing_px))
     rung = found.smoothing_px.index(best.smoothing_px)
     same = sorted((i for i in found.islands if i.smoothing_px == best.smoothing_px),
@@ -190,4 +195,4 @@ def measure_emission_extent(dirty, beam_fwhm_px, *, sigma=5.0, smoothing_px=None
     return EmissionExtent(best.diameter_px, best.intrinsic_px, len(same),
                           tuple(i.area for i in same), tuple(i.diameter_px for i in same),
                           noise, sigma * noise, best.smoothing_px, diameter, best.peak_snr,
-                          noise_by, float(sigma))
+                          noise_by, float(sigma), len(found.islands))
