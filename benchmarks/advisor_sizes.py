@@ -15,7 +15,8 @@ Run from the repository root::
 Verdicts: ``ok`` when the largest suggested scale is between 0.3 and 0.8 of the true
 size; ``capped (image)`` when a quarter of the image sets it (the reasons say so);
 ``unresolved`` when the source is under 1.5 beams and only 0 and the beam scale are
-given; ``too faint`` when even the best smoothing leaves its peak under 10 sigma (not
+given (``unresolved, not measured`` when it was too faint to measure and 0, the beam
+and twice the beam are given, the reasons saying the extent is unknown); ``too faint`` when even the best smoothing leaves its peak under 10 sigma (not
 a fair test: listed, not judged).  Anything else is ``MISS``.
 """
 
@@ -56,8 +57,10 @@ def verdict(size, pixels, reasons, snr):
         return "ok"
     if any(r.startswith("largest scale") and "a quarter of the image" in r for r in reasons):
         return "capped (image)"
-    if pixels == (0, round(BEAM)) and size < 1.5 * BEAM:
+    if size < 1.5 * BEAM and pixels == (0, round(BEAM)):
         return "unresolved"
+    if size < 1.5 * BEAM and max(pixels) <= 2 * BEAM:
+        return "unresolved, not measured"
     return "MISS"
 
 
