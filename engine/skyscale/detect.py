@@ -144,7 +144,7 @@ def emission_free_noise(smoothed, sigma, *, exclude=None, margin_px=0.0):
     exclude : (ny, nx) ndarray of bool, optional
         Pixels always left out (for example those holding model flux).
     margin_px : float
-        Half-width in pixels of the (square) margin around excluded pixels.
+        Radius in pixels of the margin around excluded pixels.
 
     Returns
     -------
@@ -164,8 +164,8 @@ def emission_free_noise(smoothed, sigma, *, exclude=None, margin_px=0.0):
         if noise <= 0:
             break
         out = np.abs(data) > sigma * noise
-        if radius >= 1 and out.any():       # a square margin: two 1-D passes
-            out = ndimage.maximum_filter(out, size=2 * int(radius) + 1)
+        if radius >= 1 and out.any():
+            out = ndimage.distance_transform_edt(~out) <= radius
         if fixed is not None:
             out |= fixed
         if out.mean() > 0.9:
