@@ -8,9 +8,10 @@ noise, measured where it holds no emission: the robust noise
 (`skyscale.noise.robust_noise`, 1.4826 MAD [1]_) is estimated, the pixels above the
 detection level are left out together with a margin of half the smoothed beam, and
 the estimate is repeated until it settles.  A structure is found at the smoothing
-where it is significant; where a structure is measured, it is measured at a smoothing
-that raised its peak signal-to-noise (so it is resolved there): an unresolved source,
-or several of them blurred together, loses signal-to-noise as the smoothing grows.
+where it is significant, and measured only where it is extended: where the smoothing
+raised its peak signal-to-noise (it is resolved there) or where it had already been
+detected whole at the rung before; an unresolved source, or several of them blurred
+together, loses signal-to-noise as the smoothing grows and is mostly new blur.
 
 References
 ----------
@@ -310,7 +311,8 @@ def _islands(sm, sigma, noise, previous, width, beam_major, min_area, measure, f
         across = _diameter(ys, xs, measure)
         point = point_island(spread, peak / contour, measure)
         intrinsic = math.sqrt(max(across * across - point * point, 0.0))
-        resolved = first or gain >= RESOLVED_GAIN or cover >= RESOLVED_COVER
+        resolved = first or (gain is not None and
+                             (gain >= RESOLVED_GAIN or cover >= RESOLVED_COVER))
         measured = resolved and peak >= MEASURE_PEAK * level \
             and width <= MEASURE_WIDTH * max(intrinsic, beam_major)
         found.append(Island(width, int(areas[k]), peak / noise, gain, cover, across,
