@@ -77,7 +77,7 @@ def _add_run_options(p):
     m = p.add_argument_group("masks")
     m.add_argument("--mask", help="FITS mask on the image grid, non-zero = may clean [none]")
     m.add_argument("--mask-regions", help="regions where components may go, e.g. "
-                   "'circle 120 130 15; box 10 20 50 60' (see skyscale.masks) [none]")
+                   "'circle 120 130 15; box 10 20 50 60' (see skyscale.regions) [none]")
     m.add_argument("--auto-mask", action="store_true", default=None,
                    help="renew an automatic mask at each major cycle [off]")
     m.add_argument("--auto-mask-sigma", type=float,

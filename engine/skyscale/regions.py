@@ -67,7 +67,7 @@ REGION_SHAPES = {"circle": 3, "box": 4, "all": 0}
 ANGLE_UNITS = ("arcsec", "arcmin", "deg")
 #: Shown in every region error.
 REGION_EXAMPLE = ("write e.g. 'circle 120 130 15', 'box 10 20 50 60', "
-                  "'-circle 09h41m17s +25d18m00s 20arcsec' (see skyscale.masks)")
+                  "'-circle 09h41m17s +25d18m00s 20arcsec' (see skyscale.regions)")
 
 _NUM = r"[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?"
 _PIXEL_RE = re.compile(rf"^({_NUM})(?:px)?$")
