@@ -200,10 +200,13 @@ def test_count_is_four_by_default_and_more_are_costed(disk40):
 
 
 def test_max_count_limits(disk40):
-    assert suggest_scales(disk40, beam=ROUND, max_count=3, min_count=2).pixels == (0, 4, 26)
-    assert suggest_scales(disk40, beam=ROUND, max_count=2, min_count=2).pixels == (0, 4)
+    assert suggest_scales(disk40, beam=ROUND, max_count=3).pixels == (0, 4, 26)
+    assert suggest_scales(disk40, beam=ROUND, max_count=2).pixels == (0, 4)
     with pytest.warns(ScaleChoiceWarning, match="max_count is 1"):
-        assert suggest_scales(disk40, beam=ROUND, max_count=1, min_count=1).pixels == (0,)
+        assert suggest_scales(disk40, beam=ROUND, max_count=1).pixels == (0,)
+    noise = noise_field(128, seed=2)                      # extent unknown: min_count
+    assert suggest_scales(noise, beam=ROUND, max_count=2).pixels == (0, 4)
+    assert suggest_scales(noise, beam=ROUND, min_count=4).pixels == (0, 4, 8, 16)
 
 
 def test_largest_size_as_quantity_or_arcsec(disk40):

@@ -148,7 +148,7 @@ def _costs(shape, psf, chosen, fuller):
 
 
 def suggest_scales(dirty, psf=None, *, cell_arcsec=None, largest_size=None,
-                   shortest_baseline=None, max_count=DEFAULT_MAX_COUNT, min_count=3,
+                   shortest_baseline=None, max_count=DEFAULT_MAX_COUNT, min_count=None,
                    beam=None, sigma=5.0):
     """Suggest scale diameters for a field, with a reason for each decision.
 
@@ -172,9 +172,9 @@ def suggest_scales(dirty, psf=None, *, cell_arcsec=None, largest_size=None,
         At most this many scales, the delta scale included.  Default 4 (three or
         four to start, common practice); when the emission spans more doublings the
         reasons say so, with the predicted cost of the fuller set.
-    min_count : int
+    min_count : int, optional
         Scales given when the extent of the emission is unknown (none found and no
-        ``largest_size``).  Default 3.
+        ``largest_size``).  Default 3, or ``max_count`` when that is smaller.
     beam : Beam, optional
         A beam to use instead of fitting the PSF.
     sigma : float
@@ -233,7 +233,7 @@ def suggest_scales(dirty, psf=None, *, cell_arcsec=None, largest_size=None,
     """
     image = as_image(dirty, "dirty", dtype=np.float64)
     max_count = _count(max_count, "max_count")
-    min_count = _count(min_count, "min_count")
+    min_count = min(3, max_count) if min_count is None else _count(min_count, "min_count")
     if min_count > max_count:
         raise ValueError(f"min_count is {min_count} but max_count is {max_count}; "
                          "min_count must not exceed max_count")
