@@ -1,7 +1,13 @@
-"""Tests of skyscale.advisor: emission extent, scale suggestions and scale checks.
+"""Tests of skyscale.advisor: the largest structure, scale suggestions and scale checks.
 
-Every field is synthetic and built here: a Gaussian PSF of known FWHM, disks of known
-diameter, Gaussian blobs of known FWHM and flux, point sources and white noise.
+Fields are invented here (tests/advisor_fields.py): disks of known diameter and
+Gaussians of known FWHM, seen through a Gaussian beam of FWHM 4 px with white or
+beam-correlated noise of rms 1; point sources; pure noise.  Check values come from the
+rules of thumb (common practice, REFERENCES.md): the largest scale at most the largest
+structure (here 2/3 of it, so between 0.3 and 0.8 of the true size once the
+doubling's rounding is allowed for), below the recoverable scale 0.6 / B_min (common
+practice, from memory) and at most a quarter of the image; three or four scales to
+start.
 """
 
 import json
@@ -11,233 +17,206 @@ import warnings
 import numpy as np
 import pytest
 from astropy import units as u
-from scipy.signal import fftconvolve
-from scipy.special import erfcinv
 
-from skyscale.advisor import (DIAMETER_MEASURES, ScaleChoiceWarning, ScaleSuggestion,
-                              check_scales, measure_emission_extent, suggest_scales)
+from skyscale import deconvolve, plan_run
+from skyscale.advisor import (DEFAULT_MAX_COUNT, ScaleChoiceWarning, ScaleSuggestion,
+                              check_scales, measure_emission_extent, resolve_scales,
+                              suggest_scales)
 from skyscale.beam import Beam
+from tests.advisor_fields import (BEAM, gaussian_psf, make_field, noise_field, point_field,
+                                  smoothed_snr)
 
-N = 160                     # image side, pixels
-BEAM = 4.0                  # PSF FWHM, pixels (4 pixels across the beam: common practice)
 CELL = 2.0                  # arcsec per pixel
-NOISE = 1e-3                # Jy/beam per pixel, white
-#: Gaussian FWHM = 2 sqrt(2 ln 2) sigma (analytic).
-FWHM_PER_SIGMA = 2.0 * math.sqrt(2.0 * math.log(2.0))
 #: Arcseconds in a radian, 180 * 3600 / pi (definition of the arcsecond).
 ARCSEC_PER_RAD = 180.0 * 3600.0 / math.pi
+ROUND = Beam(BEAM, BEAM, 0.0)
 
 
-def gaussian_psf(fwhm, size=N + 1):
-    """Round Gaussian PSF, peak 1 at (size // 2, size // 2).  Odd size, so that
-    fftconvolve(mode='same') keeps sources where they are."""
-    r = np.arange(size) - size // 2
-    s = fwhm / FWHM_PER_SIGMA
-    return np.exp(-(r[:, None] ** 2 + r[None, :] ** 2) / (2.0 * s * s))
+def best_smoothed_snr(seen, n, correlated):
+    """The source's peak signal-to-noise at the best width of a doubling ladder."""
+    widths = [0.0] + [BEAM * 2 ** k for k in range(12) if BEAM * 2 ** k <= n / 4]
+    return max(smoothed_snr(seen, w, correlated) for w in widths)
 
 
-YY, XX = np.mgrid[:N, :N]
+# (kind, true size px, per-pixel S/N, image side, correlated noise)
+FIELDS = [
+    ("disk", 12, 30, 128, False),
+    ("disk", 40, 3, 256, False),
+    ("disk", 100, 1, 512, False),
+    ("disk", 60, 2, 256, True),
+    ("disk", 300, 1, 1024, False),
+    ("disk", 400, 10, 1024, False),
+    ("gaussian", 8, 100, 128, False),
+    ("gaussian", 30, 10, 256, False),
+    ("gaussian", 40, 5, 256, True),
+    ("gaussian", 100, 1, 512, False),
+    ("gaussian", 250, 1, 1024, False),
+]
 
 
-def disk(diameter, per_pixel, centre=(80, 80)):
-    return per_pixel * (((YY - centre[0]) ** 2 + (XX - centre[1]) ** 2) < (diameter / 2) ** 2)
-
-
-def blob(fwhm, flux, centre=(80, 80)):
-    """Gaussian of FWHM ``fwhm`` pixels holding ``flux`` Jy (Jy/pixel image)."""
-    s = fwhm / FWHM_PER_SIGMA
-    g = np.exp(-((YY - centre[0]) ** 2 + (XX - centre[1]) ** 2) / (2.0 * s * s))
-    return flux * g / g.sum()
-
-
-def observe(sky, seed, psf_fwhm=BEAM, noise=NOISE):
-    """Dirty image in Jy/beam: sky (Jy/pixel) convolved with the peak-1 PSF, plus noise."""
-    rng = np.random.default_rng(seed)
-    return fftconvolve(sky, gaussian_psf(psf_fwhm), mode="same") + rng.normal(0, noise, sky.shape)
-
-
-PSF = gaussian_psf(BEAM)
-
-
-@pytest.fixture(scope="module")
-def disk40():
-    """A disk 40 pixels across, about 180 sigma bright per beam."""
-    return observe(disk(40, 0.01), seed=1)
-
-
-@pytest.fixture(scope="module")
-def disk40_suggestion(disk40):
-    return suggest_scales(disk40, PSF, cell_arcsec=CELL)
-
-
-# --------------------------------------------------------------------- emission extent
-
-def test_noise_of_smoothed_white_noise():
-    # White noise of sigma n smoothed by a unit-sum Gaussian of width s (pixels) has
-    # sigma n / (2 sqrt(pi) s): the kernel's squares sum to 1 / (4 pi s^2) (analytic).
-    image = np.random.default_rng(2).normal(0.0, 1.0, (N, N))
-    ext = measure_emission_extent(image, BEAM)
-    expected = 1.0 / (2.0 * math.sqrt(math.pi) * (BEAM / FWHM_PER_SIGMA))
-    assert ext.noise == pytest.approx(expected, rel=0.05)
-    assert ext.threshold == pytest.approx(5.0 * ext.noise)
-    assert ext.n_islands == 0 and ext.largest_px == 0.0
-
-
-def test_gaussian_blob_island_matches_analytic_contour():
-    # Gaussian widths add in quadrature (REFERENCES: covariances add, analytic): the
-    # smoothed image of a blob of FWHM f and flux S is a Gaussian of FWHM
-    # F = sqrt(f^2 + b^2 + s^2) and peak P = S b^2 / F^2; its contour at T is a circle
-    # of diameter F sqrt(log2(P / T)) and area pi/4 of its square (analytic).
-    f, flux = 10.0, 2.0
-    ext = measure_emission_extent(observe(blob(f, flux), seed=3), BEAM)
-    total = math.sqrt(f * f + 2.0 * BEAM * BEAM)
-    peak = flux * BEAM * BEAM / total ** 2
-    stretch = math.sqrt(math.log2(peak / ext.threshold))
-    assert ext.n_islands == 1
-    # An island's diameter counts whole pixels (centre to centre plus one), which reads
-    # about a pixel wider than the contour, and the largest distance across a noisy
-    # edge reads high: allow 1 px below and 3 px above.
-    assert -1.0 <= ext.largest_px - total * stretch <= 3.0
-    assert ext.areas[0] == pytest.approx(math.pi / 4 * (total * stretch) ** 2, rel=0.05)
-    # Removing an unresolved source's island in quadrature leaves the blob's own
-    # diameter at T / P of its peak, f sqrt(log2(P / T)).
-    assert -1.5 <= ext.intrinsic_px - f * stretch <= 3.0
-
-
-def test_disk_island_reaches_the_blurred_edge(disk40):
-    # A straight edge blurred by a Gaussian of sigma e falls as P/2 erfc(d / (sqrt(2) e))
-    # (analytic); it drops to T at d = sqrt(2) e erfcinv(2 T / P).  The disk (40 px) is
-    # ten beams across, so its edge is nearly straight.  e combines the PSF and the
-    # smoothing (both FWHM 4 px) in quadrature; P = 0.01 Jy/px times the beam area
-    # pi b^2 / (4 ln 2) (REFERENCES, analytic).
-    ext = measure_emission_extent(disk40, BEAM)
-    e = math.sqrt(2.0) * BEAM / FWHM_PER_SIGMA
-    plateau = 0.01 * math.pi * BEAM ** 2 / (4.0 * math.log(2.0))
-    d = math.sqrt(2.0) * e * erfcinv(2.0 * ext.threshold / plateau)
-    assert ext.n_islands == 1
-    assert -1.0 <= ext.largest_px - (40 + 2 * d) <= 3.0       # pixel grid, as above
-    assert 40 <= ext.intrinsic_px <= ext.largest_px
-
-
-def test_rectangle_feret_and_equal_area_diameters():
-    # No smoothing, so the island is the rectangle itself (20 x 60 px, 50 sigma).
-    # Largest distance across: its diagonal, hypot(20, 60) (Pythagoras); the circle of
-    # the same area has diameter 2 sqrt(A / pi) (analytic).
-    image = np.random.default_rng(4).normal(0.0, 1.0, (N, N))
-    image[50:70, 50:110] += 50.0
-    feret = measure_emission_extent(image, BEAM, smoothing_px=0)
-    area = measure_emission_extent(image, BEAM, smoothing_px=0, diameter="equal_area")
-    assert feret.areas == area.areas and abs(feret.areas[0] - 1200) <= 2
-    assert abs(feret.largest_px - math.hypot(20, 60)) <= 1.0
-    assert area.largest_px == pytest.approx(2.0 * math.sqrt(area.areas[0] / math.pi))
-    assert set(DIAMETER_MEASURES) == {"feret", "equal_area"}
-
-
-def test_point_sources_are_unresolved_islands():
-    sky = np.zeros((N, N))
-    for y, x in ((30, 30), (90, 40), (120, 125)):
-        sky[y, x] = 0.2
-    ext = measure_emission_extent(observe(sky, seed=5), BEAM)
-    assert ext.n_islands == 3
-    assert len(ext.areas) == 3 and list(ext.areas) == sorted(ext.areas, reverse=True)
-    # Each island is the smoothed PSF, FWHM F = hypot(b, s), peak P = S b^2 / F^2,
-    # cut at T: a circle F sqrt(log2(P / T)) across (Gaussian widths add in
-    # quadrature, analytic); pixel grid allowed for as above.
-    spread = math.hypot(BEAM, BEAM)
-    across = spread * math.sqrt(math.log2(0.2 * BEAM ** 2 / spread ** 2 / ext.threshold))
-    assert all(-1.0 <= d - across <= 3.0 for d in ext.diameters)
-    # An unresolved source has no size of its own.  A grid error of one pixel diagonal
-    # on the island's diameter, removed in quadrature, leaves sqrt((D + 1.41)^2 - D^2).
-    assert ext.intrinsic_px <= math.sqrt((across + math.sqrt(2.0)) ** 2 - across ** 2)
-
-
-# --------------------------------------------------------------------- suggestions
-
-def test_suggestion_follows_the_rules(disk40_suggestion):
-    s = disk40_suggestion
-    assert s.pixels[0] == 0
-    assert all(isinstance(p, int) for p in s.pixels)
-    assert list(s.pixels) == sorted(set(s.pixels))
-    assert 3 <= len(s.pixels) <= 6
-    # The fitted beam of a Gaussian PSF is its FWHM (REFERENCES: astropy-style
-    # Gaussian fit; analytic for a Gaussian PSF); the first finite scale is it, rounded.
-    assert s.beam_px == pytest.approx(BEAM, abs=0.05)
-    assert s.pixels[1] == round(BEAM)
-    # Largest scale at or below the largest structure: the disk is 40 px across.
-    assert max(s.pixels) <= 40
-    assert max(s.pixels) <= 2 / 3 * s.largest_structure_px
-    assert max(s.pixels) <= N / 4
-    ratios = [b / a for a, b in zip(s.pixels[1:-1], s.pixels[2:])]
-    assert all(r == pytest.approx(2.0) for r in ratios)     # doubling (common practice)
-    assert s.arcsec == tuple(p * CELL for p in s.pixels)
-    assert s.recoverable_px is None
-
-
-def test_reasons_state_the_numbers(disk40_suggestion):
-    s = disk40_suggestion
+@pytest.mark.parametrize("kind, size, snr, n, correlated", FIELDS)
+def test_largest_scale_follows_the_largest_structure(kind, size, snr, n, correlated):
+    dirty, seen = make_field(kind, size, snr, n, seed=size, correlated=correlated)
+    # The field is a fair test: once smoothed, the source is far above 5 sigma.
+    assert best_smoothed_snr(seen, n, correlated) >= 10
+    s = suggest_scales(dirty, beam=ROUND, cell_arcsec=CELL)
+    largest = max(s.pixels)
     text = " | ".join(s.reasons)
-    assert f"beam FWHM {s.beam_px:.1f} px ({s.beam_px * CELL:.3g} arcsec)" in text
-    assert f"first finite scale {s.pixels[1]} px" in text
-    assert f"{s.extent.largest_px:.1f} px across" in text
-    assert f"{2 / 3 * s.largest_structure_px:.1f} px" in text
-    nxt = 2 * max(s.pixels)
-    assert f"scale {nxt} px dropped" in text            # the next doubling, and why
-    assert f"{N / 4:.0f} px" in text
+    assert s.pixels[:2] == (0, 4) and len(s.pixels) <= DEFAULT_MAX_COUNT
+    if 0.8 * size > n / 4:                       # the image caps it, and says so
+        assert largest == n // 4 and "a quarter of the image" in text
+        assert largest >= 0.3 * size
+    else:
+        assert 0.3 * size <= largest <= 0.8 * size
+    # The reason names the structure's size and the smoothing it was found at.
+    assert f"largest extended structure {s.largest_structure_px:.1f} px across" in text
+    assert f"smoothing {s.extent.smoothing_px:.0f} px" in text or "unsmoothed" in text
+    # One rule set: the suggestion passes its own check.
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        assert check_scales(s.pixels, suggestion=s) == []
 
 
-def test_max_count_is_respected(disk40):
-    s = suggest_scales(disk40, PSF, max_count=3, min_count=2)
-    assert s.pixels == (0, 4, 8)
-    assert any("max_count = 3" in r for r in s.reasons)
-    assert suggest_scales(disk40, PSF, max_count=2, min_count=2).pixels == (0, 4)
-    with pytest.warns(ScaleChoiceWarning, match="max_count is 1"):
-        assert suggest_scales(disk40, PSF, max_count=1, min_count=1).pixels == (0,)
+def test_faint_broad_emission_is_seen_once_smoothed():
+    # The issue's case, scaled to 1024 px: a disk 145 px across and a Gaussian blob of
+    # FWHM 95 px, both 0.7 sigma per pixel, invisible pixel by pixel.
+    disk, _ = make_field("disk", 145, 0.7, 1024, seed=21, centre=(400, 380))
+    blob, _ = make_field("gaussian", 95, 0.7, 1024, seed=22, centre=(700, 700))
+    dirty = disk + blob - noise_field(1024, seed=22)     # one noise of rms 1 left
+    s = suggest_scales(dirty, beam=ROUND)
+    assert s.extent.smoothing_px >= 2 * BEAM              # found only once smoothed
+    assert 0.3 * 145 <= max(s.pixels) <= 0.8 * 145
+    assert s.largest_structure_px == pytest.approx(145, rel=0.2)
 
 
-def test_shortest_baseline_limits_the_scales(disk40):
-    # Largest recoverable angle about 0.6 / B_min radians (common practice, from memory).
-    b_min = 1500.0
-    expected = 0.6 / b_min * ARCSEC_PER_RAD / CELL           # 41.3 px
-    s = suggest_scales(disk40, PSF, cell_arcsec=CELL, shortest_baseline=b_min)
+def test_recoverable_scale_caps_the_largest_scale_with_that_reason():
+    dirty, _ = make_field("disk", 100, 3, 512, seed=3)
+    # Largest recoverable angle about 0.6 / B_min radians (common practice, from
+    # memory): 2000 wavelengths at 2 arcsec per pixel is 30.9 px; half of it 15.5 px.
+    expected = 0.6 / 2000.0 * ARCSEC_PER_RAD / CELL
+    s = suggest_scales(dirty, beam=ROUND, cell_arcsec=CELL, shortest_baseline=2000.0)
     assert s.recoverable_px == pytest.approx(expected, rel=1e-9)
-    assert max(s.pixels) < 0.5 * expected
-    free = suggest_scales(disk40, PSF, cell_arcsec=CELL)
-    assert max(free.pixels) >= 0.5 * expected               # so the limit really binds
-    assert any(f"{expected:.0f} px" in r and "1500" in r for r in s.reasons)
-    assert any(f"scale {2 * max(s.pixels)} px dropped: above half the largest "
-               "recoverable" in r for r in s.reasons)
+    assert max(s.pixels) == 15 < 0.5 * expected
+    assert any(r.startswith("largest scale 15 px (30 arcsec): half the largest "
+                            "recoverable scale (15.5 px)") for r in s.reasons)
 
 
-def test_largest_size_as_quantity_or_arcsec(disk40):
-    # 30 arcsec at 2 arcsec/pixel is 15 px; 2/3 of it is 10 px.
-    a = suggest_scales(disk40, PSF, cell_arcsec=CELL, largest_size=30.0)
-    b = suggest_scales(disk40, PSF, cell_arcsec=CELL * u.arcsec, largest_size=0.5 * u.arcmin)
-    assert a.pixels == b.pixels == (0, 4, 8)
-    assert a.largest_structure_px == pytest.approx(15.0)
-    assert a.extent is None
-    assert any("15.0 px" in r for r in a.reasons)
-    # 80 arcsec is 40 px: 32 px fits inside it but not inside 2/3 of it (26.7 px).
-    c = suggest_scales(disk40, PSF, cell_arcsec=CELL, largest_size=80.0)
-    assert c.pixels == (0, 4, 8, 16)
-    assert "scale 32 px dropped: above 2/3 of the largest structure (26.7 px)" in c.reasons
+@pytest.mark.parametrize("correlated", [False, True])
+def test_pure_noise_gives_small_scales_and_says_no_emission(correlated):
+    s = suggest_scales(noise_field(512, seed=30 + correlated, correlated=correlated),
+                       gaussian_psf(512))
+    assert s.extent.n_islands == 0 and s.largest_structure_px is None
+    assert max(s.pixels) <= 3 * BEAM                      # a few beams at most
+    assert any(r.startswith("no extended emission found") for r in s.reasons)
 
 
-def test_compact_emission_gives_delta_and_beam_and_says_why():
-    sky = np.zeros((N, N))
-    sky[40, 40] = sky[100, 120] = 0.2
-    s = suggest_scales(observe(sky, seed=6), PSF)
+@pytest.mark.parametrize("snr", [20, 300, 3000])
+def test_point_sources_give_the_delta_and_beam_scales(snr):
+    dirty, _ = point_field(512, 12, snr, seed=snr)
+    s = suggest_scales(dirty, beam=ROUND)
     assert s.pixels == (0, 4)
-    assert any("compact emission" in r and "min_count = 3" in r and "8 px" in r
+    assert any(r.startswith("compact emission") for r in s.reasons)
+
+
+def test_faint_unresolved_sources_are_found_but_not_measured():
+    # Three points at 8 sigma in beam-correlated noise: above the detection level (5)
+    # but under twice it, and unresolved, so their size cannot be read.
+    dirty, _ = point_field(256, 3, 8, seed=1, correlated=True)
+    s = suggest_scales(dirty, beam=ROUND)
+    assert s.extent.n_detected >= 3 and s.extent.n_islands == 0
+    assert s.pixels == (0, 4, 8)
+    assert any(r.startswith(f"no extended emission found: {s.extent.n_detected} island(s) "
+                            "above 5 times the noise") and "none measurable" in r
                for r in s.reasons)
 
 
-def test_third_scale_added_when_within_the_structure():
-    # A blob of FWHM 4 px (as wide as the beam): 2/3 of its extent keeps only 0 and
-    # 4 px, but 8 px still fits inside it, so a third scale is added for min_count.
-    s = suggest_scales(observe(blob(4.0, 0.08), seed=7), PSF)
-    assert 2 / 3 * s.largest_structure_px < 8 <= s.largest_structure_px
-    assert s.pixels == (0, 4, 8)
-    assert any("scale 8 px added to reach min_count = 3" in r for r in s.reasons)
+# ------------------------------------------------------------------ the structure
+
+def test_gaussian_reads_as_its_fwhm_at_any_brightness():
+    # At half its peak a Gaussian of FWHM f seen through the beam b and smoothed by s
+    # is a circle sqrt(f^2 + b^2 + s^2) across (Gaussian widths add in quadrature,
+    # analytic); removing the point source's in quadrature leaves f.
+    for snr in (3, 30, 300):
+        dirty, _ = make_field("gaussian", 24, snr, 256, seed=snr)
+        ext = measure_emission_extent(dirty, BEAM)
+        assert ext.intrinsic_px == pytest.approx(24, abs=3)
+
+
+def test_disk_reads_as_its_diameter():
+    dirty, _ = make_field("disk", 60, 20, 256, seed=4)
+    ext = measure_emission_extent(dirty, ROUND)
+    assert ext.n_islands >= 1
+    # The contour at half the plateau runs along the disk's edge (a straight edge
+    # blurred by a symmetric kernel crosses half its height at the edge, analytic).
+    assert 55 <= ext.largest_px <= 64
+    assert 0.85 * 60 <= ext.intrinsic_px <= 1.05 * 60
+
+
+def test_rectangle_feret_and_equal_area_diameters():
+    # No smoothing; the contour at half the peak is the rectangle itself (20 x 60 px,
+    # 50 sigma).  Largest distance across: its diagonal, hypot(20, 60) (Pythagoras);
+    # the circle of the same area has diameter 2 sqrt(A / pi) (analytic).
+    image = np.random.default_rng(4).normal(0.0, 1.0, (160, 160))
+    image[50:70, 50:110] += 50.0
+    feret = measure_emission_extent(image, BEAM, smoothing_px=0, diameter="feret")
+    area = measure_emission_extent(image, BEAM, smoothing_px=0)        # the default
+    assert abs(feret.areas[0] - 1200) <= 2
+    assert abs(feret.largest_px - math.hypot(20, 60)) <= 1.0
+    assert area.largest_px == pytest.approx(2.0 * math.sqrt(1200 / math.pi), abs=0.1)
+
+
+def test_extent_reports_the_noise_ladder():
+    dirty, _ = make_field("disk", 40, 2, 256, seed=5)
+    ext = measure_emission_extent(dirty, BEAM)
+    widths = [w for w, _ in ext.noise_by_smoothing]
+    assert widths == [0.0, 4.0, 8.0, 16.0, 32.0, 64.0]
+    assert ext.threshold == pytest.approx(5.0 * ext.noise)
+    assert dict(ext.noise_by_smoothing)[ext.smoothing_px] == ext.noise
+    d = json.loads(json.dumps(ext.as_dict()))
+    assert d["noise_by_smoothing"][0][0] == 0.0
+
+
+# ------------------------------------------------------------------ suggestions
+
+@pytest.fixture(scope="module")
+def disk40():
+    return make_field("disk", 40, 10, 160, seed=1)[0]
+
+
+def test_count_is_four_by_default_and_more_are_costed(disk40):
+    s = suggest_scales(disk40, gaussian_psf(160), cell_arcsec=CELL)
+    assert len(s.pixels) == 4 and s.pixels[-1] == 26           # 2/3 of 40 px
+    assert s.fuller == (0, 4, 7, 14, 26)
+    # The costs are the planner's (skyscale.plan_run) for the two sets.
+    small = plan_run(disk40.shape, gaussian_psf(160), s.pixels)
+    big = plan_run(disk40.shape, small.psf_shape, s.fuller, psf_patch=small.psf_patch)
+    assert s.costs["seconds"] == pytest.approx(small.total_seconds)
+    assert s.costs["fuller_seconds"] == pytest.approx(big.total_seconds)
+    assert any(r.startswith("more scales would help") and f"{big.total_seconds:.3g} s" in r
+               and "max_count = 5" in r for r in s.reasons)
+    five = suggest_scales(disk40, gaussian_psf(160), max_count=5)
+    assert five.pixels == s.fuller and five.fuller is None
+    assert not any("more scales" in r for r in five.reasons)
+
+
+def test_max_count_limits(disk40):
+    assert suggest_scales(disk40, beam=ROUND, max_count=3).pixels == (0, 4, 26)
+    assert suggest_scales(disk40, beam=ROUND, max_count=2).pixels == (0, 4)
+    with pytest.warns(ScaleChoiceWarning, match="max_count is 1"):
+        assert suggest_scales(disk40, beam=ROUND, max_count=1).pixels == (0,)
+    noise = noise_field(128, seed=2)                      # extent unknown: min_count
+    assert suggest_scales(noise, beam=ROUND, max_count=2).pixels == (0, 4)
+    assert suggest_scales(noise, beam=ROUND, min_count=4).pixels == (0, 4, 8, 16)
+
+
+def test_largest_size_as_quantity_or_arcsec(disk40):
+    # 60 arcsec at 2 arcsec/pixel is 30 px; 2/3 of it is 20 px.
+    a = suggest_scales(disk40, beam=ROUND, cell_arcsec=CELL, largest_size=60.0)
+    b = suggest_scales(disk40, beam=ROUND, cell_arcsec=CELL * u.arcsec,
+                       largest_size=1.0 * u.arcmin)
+    assert a.pixels == b.pixels and a.pixels[-1] == 20
+    assert a.extent is None and a.largest_structure_px == pytest.approx(30.0)
+    assert any("30.0 px" in r for r in a.reasons)
 
 
 def test_beam_instead_of_psf(disk40):
@@ -247,39 +226,86 @@ def test_beam_instead_of_psf(disk40):
     assert s.pixels[1] == round(math.sqrt(24.0))
 
 
-def test_no_emission_gives_min_count_scales():
-    s = suggest_scales(np.random.default_rng(8).normal(0, NOISE, (N, N)), PSF, min_count=4)
-    assert s.largest_structure_px is None and s.extent.n_islands == 0
-    assert s.pixels == (0, 4, 8, 16)
-    assert any("unknown" in r for r in s.reasons)
+def test_scales_stay_roughly_doubling(disk40):
+    for max_count in (4, 5, 6):
+        px = suggest_scales(disk40, beam=ROUND, max_count=max_count).pixels
+        ratios = [b / a for a, b in zip(px[1:-1], px[2:])]
+        assert all(r >= 1.5 for r in ratios)                 # MIN_SCALE_RATIO
 
 
-def test_float32_input_and_json_report(disk40, disk40_suggestion):
-    s32 = suggest_scales(disk40.astype(np.float32), PSF.astype(np.float32), cell_arcsec=CELL)
-    assert s32.pixels == disk40_suggestion.pixels
-    d = json.loads(json.dumps(disk40_suggestion.as_dict()))
-    assert d["pixels"] == list(disk40_suggestion.pixels)
-    assert d["extent"]["n_islands"] == 1
-    assert d["beam"]["major"] == pytest.approx(BEAM, abs=0.05)
+def test_float32_input_and_json_report(disk40):
+    s64 = suggest_scales(disk40, beam=ROUND)
+    s32 = suggest_scales(disk40.astype(np.float32), beam=ROUND)
+    assert s32.pixels == s64.pixels
+    d = json.loads(json.dumps(s64.as_dict()))
+    assert d["pixels"] == list(s64.pixels) and d["extent"]["n_islands"] >= 1
 
 
-# ------------------------------------------------------------------------ checks
+def test_questionable_limits_warn_and_are_explained(disk40):
+    # 4 arcsec at 2 arcsec/pixel is 2 px, half the beam: unresolved.
+    with pytest.warns(ScaleChoiceWarning, match="largest_size is 4 arcsec, smaller than "
+                                                "the beam"):
+        s = suggest_scales(disk40, beam=ROUND, cell_arcsec=CELL, largest_size=4.0)
+    assert s.pixels == (0, 4)
+    assert any(r.startswith("compact emission: 2/3 of the largest structure is 1.3 px")
+               for r in s.reasons)
+    # 0.6 / B_min radians (common practice, from memory): 3.1 px for 20000 wavelengths.
+    expected = 0.6 / 20000.0 * ARCSEC_PER_RAD / CELL
+    with pytest.warns(ScaleChoiceWarning, match=f"recoverable scale \\({expected:.3g} px\\) "
+                                                "is under twice the beam"):
+        s = suggest_scales(disk40, beam=ROUND, cell_arcsec=CELL, shortest_baseline=20000.0)
+    assert s.pixels == (0, 4)
+    assert any(r.startswith("half the largest recoverable scale is 1.5 px") for r in s.reasons)
 
-def test_check_is_quiet_for_the_suggestion_and_a_good_set(disk40, disk40_suggestion):
+
+# ------------------------------------------------------------------ one rule set
+
+def test_suggest_and_check_agree_on_the_same_set(disk40):
+    s = suggest_scales(disk40, beam=ROUND)
+    top = s.pixels[-1]
     with warnings.catch_warnings():
         warnings.simplefilter("error")
-        assert check_scales(disk40_suggestion.pixels, suggestion=disk40_suggestion) == []
-        assert check_scales([0, 4, 8, 16], disk40, PSF, cell_arcsec=CELL,
-                            shortest_baseline=500.0, max_affordable_scales=4) == []
+        assert check_scales(s.pixels, suggestion=s) == []
+    # A scale the suggestion left out for being above 2/3 of the structure is flagged
+    # by the check with the same bound.
+    bound = 2 / 3 * s.largest_structure_px
+    over = top + 1
+    assert over > bound
+    with pytest.warns(ScaleChoiceWarning) as record:
+        problems = check_scales([0, 4, over], suggestion=s)
+    assert problems == [str(w.message) for w in record]
+    assert len(problems) == 1
+    assert problems[0].startswith(f"scale {over} px is above 2/3 of the largest "
+                                  f"structure ({bound:.1f} px")
+    assert f"2/3 of the largest structure ({bound:.1f} px)" in " ".join(s.reasons)
 
 
-FOUR = Beam(BEAM, BEAM, 0.0)
+def test_demo_suggest_and_check_say_the_same(capsys):
+    from skyscale.cli import demo_data_dir, main
+    from skyscale.fitsio import read_image
+    import os
+    folder = demo_data_dir()
+    dirty = read_image(os.path.join(folder, "dirty.fits")).data
+    psf = read_image(os.path.join(folder, "psf.fits")).data
+    s = suggest_scales(dirty, psf, cell_arcsec=CELL)
+    args = ["suggest", os.path.join(folder, "dirty.fits"), os.path.join(folder, "psf.fits")]
+    assert main(args) == 0
+    shown = capsys.readouterr().out
+    assert "use: --scales " + ",".join(map(str, s.pixels)) in shown
+    assert main(args + ["--check", ",".join(map(str, s.pixels))]) == 0
+    assert "no rule of thumb broken" in capsys.readouterr().out
+    bigger = [p for p in (0, 4, 8, 16, 32, 64) if p not in s.pixels and p > s.pixels[-1]]
+    assert main(args + ["--check", "0,4,8,16,32,64"]) == 0
+    out = " ".join(capsys.readouterr().out.split())
+    for p in bigger:
+        assert f"scale {p} px is above 2/3 of the largest structure" in out
 
 
-@pytest.mark.parametrize("scales, kwargs, match", [
+RULES = [
     ([4, 8, 16], {}, r"no delta scale \(0 px\)"),
-    ([0, 4, 8, 24], {"cell_arcsec": CELL, "largest_size": 40.0},
-     r"scale 24 px is above the largest structure \(20.0 px\)"),
+    ([0, 4, 8, 24], {"cell_arcsec": CELL, "largest_size": 60.0},
+     r"scale 24 px is above 2/3 of the largest structure \(20.0 px of 30.0 px, given as "
+     r"60 arcsec\)"),
     ([0, 4, 8, 24], {"cell_arcsec": CELL, "shortest_baseline": 1500.0},
      r"scale 24 px is near the largest recoverable scale \(41 px"),
     ([0, 4, 8, 48], {"cell_arcsec": CELL, "shortest_baseline": 3000.0},
@@ -288,58 +314,93 @@ FOUR = Beam(BEAM, BEAM, 0.0)
     ([0, 4, 4, 8], {}, r"scale 4 px is given 2 times"),
     ([0, 1, 4, 8], {}, r"scale 1 px is below half the beam FWHM \(2.0 px of 4.0 px\)"),
     ([0, 4, 8, 16], {"max_affordable_scales": 3}, r"4 scales, but the planned run can afford 3"),
-])
+]
+
+
+@pytest.mark.parametrize("scales, kwargs, match", RULES)
 def test_check_warns_for_each_rule(scales, kwargs, match):
     with pytest.warns(ScaleChoiceWarning, match=match) as record:
-        problems = check_scales(scales, beam=FOUR, **kwargs)
+        problems = check_scales(scales, beam=ROUND, **kwargs)
     # 0.6 / B_min radians (common practice, from memory): 41.25 px for 1500
     # wavelengths, 20.6 px for 3000, at 2 arcsec per pixel.
     assert len(problems) == 1 and len(record) == 1
 
 
 def test_check_measures_the_structure_and_image_size():
-    # A 20 px disk: its measured structure is below 32 px, the image limit 40 px.
-    dirty = observe(disk(20, 0.01), seed=9)
-    with pytest.warns(ScaleChoiceWarning, match="scale 32 px is above the largest structure"):
-        problems = check_scales([0, 4, 8, 16, 32], dirty, PSF)
+    dirty, _ = make_field("disk", 30, 10, 160, seed=9)
+    with pytest.warns(ScaleChoiceWarning, match="scale 32 px is above 2/3 of the largest "
+                                                "structure"):
+        problems = check_scales([0, 4, 8, 16, 32], dirty, gaussian_psf(160))
     assert len(problems) == 1
     with pytest.warns(ScaleChoiceWarning, match=r"above a quarter of the image's smaller "
                                                 r"side \(40 px\)") as record:
-        check_scales([0, 4, 8, 16, 48], dirty, PSF, cell_arcsec=CELL, largest_size=400.0)
+        check_scales([0, 4, 8, 16, 48], dirty, gaussian_psf(160), cell_arcsec=CELL,
+                     largest_size=400.0)
     assert len(record) == 1
 
 
 def test_check_accepts_angles():
     with warnings.catch_warnings():
         warnings.simplefilter("error")
-        assert check_scales([0, 8, 16] * u.arcsec, beam=FOUR, cell_arcsec=CELL) == []
+        assert check_scales([0, 8, 16] * u.arcsec, beam=ROUND, cell_arcsec=CELL) == []
     with pytest.warns(ScaleChoiceWarning, match="scale 1 px is below half the beam"):
-        check_scales([0, 2, 8] * u.arcsec, beam=FOUR, cell_arcsec=CELL)
+        check_scales([0, 2, 8] * u.arcsec, beam=ROUND, cell_arcsec=CELL)
 
 
-# ------------------------------------------------------------------------ errors
+# ------------------------------------------------------------------ scales="auto"
+
+def test_deconvolve_with_auto_scales():
+    dirty, _ = make_field("disk", 24, 30, 96, seed=11)
+    psf = gaussian_psf(192)[:192, :192].astype(np.float32)   # peak at (96, 96)
+    s = suggest_scales(dirty, psf)
+    r = deconvolve(dirty.astype(np.float32), psf, scales="auto", max_components=200,
+                   max_major_cycles=2, restore=False)
+    assert tuple(r.scales) == tuple(float(p) for p in s.pixels)
+    assert r.parameters["scales"] == [float(p) for p in s.pixels]
+    assert r.parameters["scale_reasons"] == s.reasons
+    assert resolve_scales("AUTO", dirty, psf) == (tuple(float(p) for p in s.pixels),
+                                                  s.reasons)
+    with pytest.raises(ValueError, match=r"scales is 'big'; pass diameters in pixels"):
+        deconvolve(dirty, psf, scales="big")
+
+
+def test_command_line_auto_uses_the_same_function(tmp_path):
+    from skyscale.job import _scales_in_pixels, RUN_DEFAULTS
+    dirty, _ = make_field("disk", 24, 30, 96, seed=11)
+    psf = gaussian_psf(192)[:192, :192]
+    reasons = []
+    px = _scales_in_pixels(dict(RUN_DEFAULTS, scales="auto"), None, dirty, psf, reasons)
+    assert (tuple(px), reasons) == resolve_scales("auto", dirty, psf)
+
+
+# ------------------------------------------------------------------ errors
 
 @pytest.mark.parametrize("call, match", [
-    (lambda d: suggest_scales(d, PSF, cell_arcsec=-1.0), r"cell_arcsec is -1.0"),
-    (lambda d: suggest_scales(d, PSF, cell_arcsec=CELL, largest_size=5 * u.m),
+    (lambda d: suggest_scales(d, ROUND_PSF, cell_arcsec=-1.0), r"cell_arcsec is -1.0"),
+    (lambda d: suggest_scales(d, ROUND_PSF, cell_arcsec=CELL, largest_size=5 * u.m),
      r"largest_size is .*not an angle"),
-    (lambda d: suggest_scales(d, PSF, largest_size=30.0), r"largest_size is 30.0 but cell_arcsec"),
-    (lambda d: suggest_scales(d, PSF, cell_arcsec=CELL, shortest_baseline=0.0),
+    (lambda d: suggest_scales(d, ROUND_PSF, largest_size=30.0),
+     r"largest_size is 30.0 but cell_arcsec"),
+    (lambda d: suggest_scales(d, ROUND_PSF, cell_arcsec=CELL, shortest_baseline=0.0),
      r"shortest_baseline is 0.0"),
-    (lambda d: suggest_scales(d, PSF, shortest_baseline=100.0),
+    (lambda d: suggest_scales(d, ROUND_PSF, shortest_baseline=100.0),
      r"shortest_baseline is 100.0 but cell_arcsec"),
-    (lambda d: suggest_scales(d, PSF, min_count=4, max_count=3), r"min_count is 4 but max_count is 3"),
-    (lambda d: suggest_scales(d, PSF, max_count=0), r"max_count is 0"),
+    (lambda d: suggest_scales(d, ROUND_PSF, min_count=4, max_count=3),
+     r"min_count is 4 but max_count is 3"),
+    (lambda d: suggest_scales(d, ROUND_PSF, max_count=0), r"max_count is 0"),
     (lambda d: suggest_scales(d), r"psf is None and no beam"),
     (lambda d: suggest_scales(d, beam=(4, 4)), r"beam is \(4, 4\)"),
-    (lambda d: suggest_scales(d[0], PSF), r"dirty has shape"),
+    (lambda d: suggest_scales(d[0], ROUND_PSF), r"dirty has shape"),
     (lambda d: measure_emission_extent(d, BEAM, sigma=0), r"sigma is 0"),
     (lambda d: measure_emission_extent(d, BEAM, diameter="box"), r"diameter is 'box'"),
     (lambda d: measure_emission_extent(d, -2.0), r"beam_fwhm_px is -2.0"),
+    (lambda d: measure_emission_extent(d, BEAM, smoothing_px=-1), r"smoothing_px is -1"),
     (lambda d: check_scales([0, -4]), r"scales_px is \[0, -4\]"),
     (lambda d: check_scales([0, 4], d), r"dirty was given but neither psf"),
     (lambda d: check_scales([0, 4] * u.arcsec), r"cell_arcsec is None"),
     (lambda d: check_scales([0, 4], max_affordable_scales=0), r"max_affordable_scales is 0"),
+    (lambda d: check_scales([0, 4], suggestion="yes"), r"suggestion is 'yes'"),
+    (lambda d: resolve_scales("many", d, ROUND_PSF), r"scales is 'many'"),
 ])
 def test_bad_input_gets_one_clear_error(call, match):
     dirty = np.zeros((32, 32))
@@ -347,27 +408,11 @@ def test_bad_input_gets_one_clear_error(call, match):
         call(dirty)
 
 
+ROUND_PSF = gaussian_psf(64)
+
+
 def test_suggestion_type():
-    s = suggest_scales(np.random.default_rng(10).normal(0, 1, (64, 64)), beam=FOUR)
+    s = suggest_scales(np.random.default_rng(10).normal(0, 1, (64, 64)), beam=ROUND)
     assert isinstance(s, ScaleSuggestion)
     assert s.arcsec is None
     assert s.image_limit_px == 16.0
-
-
-def test_questionable_limits_warn_and_are_explained(disk40):
-    # 4 arcsec at 2 arcsec/pixel is 2 px, half the beam: unresolved.
-    with pytest.warns(ScaleChoiceWarning, match="largest_size is 4 arcsec, smaller than "
-                                                "the beam"):
-        s = suggest_scales(disk40, PSF, cell_arcsec=CELL, largest_size=4.0)
-    assert s.pixels == (0, 4)
-    assert any("beam scale 4 px kept although above 2/3 of the largest structure (1.3 px)"
-               in r for r in s.reasons)
-    # 0.6 / B_min radians (common practice, from memory): 3.1 px for 20000 wavelengths.
-    expected = 0.6 / 20000.0 * ARCSEC_PER_RAD / CELL
-    with pytest.warns(ScaleChoiceWarning, match=f"recoverable scale \\({expected:.3g} px\\) "
-                                                "is under twice the beam"):
-        s = suggest_scales(disk40, PSF, cell_arcsec=CELL, shortest_baseline=20000.0)
-    assert s.pixels == (0, 4)
-    assert any(r.startswith("only 2 scales, fewer than min_count = 3; no scale 8 px, which "
-                            "would be above half the largest recoverable scale")
-               for r in s.reasons)

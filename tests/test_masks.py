@@ -332,3 +332,20 @@ def test_auto_mask_errors_are_clear():
         am.update(np.zeros((64, 64)))
     with pytest.raises(ValueError, match="non-finite pixels"):
         am.update(np.full((N, N), np.nan))
+
+
+def test_names_stay_importable_from_the_old_module_paths():
+    import skyscale
+    from skyscale import automask, mask_file, masks, regions
+    assert masks.AutoMask is automask.AutoMask is skyscale.AutoMask
+    assert masks.auto_mask is automask.auto_mask is skyscale.auto_mask
+    assert masks.load_mask is mask_file.load_mask is skyscale.load_mask
+    assert masks.regions_to_mask is regions.regions_to_mask is skyscale.regions_to_mask
+    assert masks.parse_regions is regions.parse_regions
+    assert masks.REGION_SHAPES is regions.REGION_SHAPES
+    from skyscale import advisor, extent, scale_rules
+    assert advisor.measure_emission_extent is extent.measure_emission_extent
+    assert advisor.check_scales is scale_rules.check_scales is skyscale.check_scales
+    assert advisor.STRUCTURE_FRACTION == scale_rules.STRUCTURE_FRACTION == 2 / 3
+    for module in (masks, advisor):
+        assert all(hasattr(module, name) for name in module.__all__)

@@ -14,10 +14,11 @@ _os.environ.setdefault("GOMP_SPINCOUNT", "20000")
 from importlib.metadata import PackageNotFoundError, version as _version
 
 from .advisor import (EmissionExtent, ScaleChoiceWarning, ScaleSuggestion, check_scales,
-                      measure_emission_extent, suggest_scales)
+                      measure_emission_extent, resolve_scales, suggest_scales)
 from .beam import (Beam, beam_area, beam_kernel, fit_beam, jy_per_beam_to_jy_per_pixel,
                    jy_per_pixel_to_jy_per_beam, restore)
 from .cycles import deconvolve, run_cycles
+from .detect import Detection, detect_emission
 from .cost import InsufficientMemoryError, Plan, check_fits_memory, max_affordable_scales, plan_run
 from .fitsio import (FitsImage, cell_size_arcsec, check_same_grid, read_image, write_image,
                      write_table_csv)
@@ -45,8 +46,8 @@ __all__ = [
     "DeconvolutionResult", "CycleRecord", "COMPONENT_DTYPE", "STOP_REASONS",
     "ScaleSet", "SCALE_SHAPES", "scale_kernel", "size_penalty_weights",
     "robust_noise",
-    "suggest_scales", "check_scales", "measure_emission_extent", "ScaleSuggestion",
-    "EmissionExtent", "ScaleChoiceWarning",
+    "suggest_scales", "check_scales", "resolve_scales", "measure_emission_extent",
+    "ScaleSuggestion", "EmissionExtent", "ScaleChoiceWarning", "detect_emission", "Detection",
     "Beam", "fit_beam", "beam_area", "beam_kernel", "restore", "jy_per_pixel_to_jy_per_beam",
     "jy_per_beam_to_jy_per_pixel",
     "FitsImage", "read_image", "write_image", "cell_size_arcsec", "check_same_grid",

@@ -80,7 +80,7 @@ def _add_run_options(p):
     m = p.add_argument_group("masks")
     m.add_argument("--mask", help="FITS mask on the image grid, non-zero = may clean [none]")
     m.add_argument("--mask-regions", help="regions where components may go, e.g. "
-                   "'circle 120 130 15; box 10 20 50 60' (see skyscale.masks) [none]")
+                   "'circle 120 130 15; box 10 20 50 60' (see skyscale.regions) [none]")
     m.add_argument("--auto-mask", action="store_true", default=None,
                    help="renew an automatic mask at each major cycle [off]")
     m.add_argument("--auto-mask-sigma", type=float,
@@ -133,7 +133,8 @@ def build_parser():
                          help="largest angular size of the emission, arcsec [measured]")
     suggest.add_argument("--shortest-baseline", type=float,
                          help="shortest projected baseline, wavelengths [unknown]")
-    suggest.add_argument("--max-count", type=int, default=6, help="most scales [6]")
+    suggest.add_argument("--max-count", type=int, default=4,
+                         help="most scales, the delta scale included [4]")
     suggest.add_argument("--check", type=_scales, help="check this scale set (pixels) instead")
     _add_global_flags(suggest)
     suggest.set_defaults(func=cmd_suggest)
@@ -216,10 +217,9 @@ def cmd_suggest(args):
                        shortest_baseline=args.shortest_baseline, max_count=args.max_count)
     if args.check and args.check != "auto":
         import warnings
-        with warnings.catch_warnings():
+        with warnings.catch_warnings():     # judged by the suggestion's own limits
             warnings.simplefilter("ignore")
-            problems = check_scales(args.check, dirty.data, psf.data, suggestion=s,
-                                    cell_arcsec=cell, shortest_baseline=args.shortest_baseline)
+            problems = check_scales(args.check, suggestion=s)
         console.show_check(args.check, problems)
         return 0
     console.show_suggestion(s)

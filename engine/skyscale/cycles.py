@@ -282,9 +282,10 @@ def deconvolve(dirty, psf, *, scales=(0, 4, 8, 16), loop_gain=0.1, threshold=0.0
     psf : (py, px) ndarray
         PSF, peak 1 at ``(py // 2, px // 2)``; the image's size or larger (twice the
         size makes the residual exact).
-    scales : sequence of float or Quantity ['angle']
-        Scale diameters in pixels (0 = delta), or angles with ``cell_arcsec``; default
-        ``[0, 4, 8, 16]``.
+    scales : sequence of float, Quantity ['angle'] or 'auto'
+        Scale diameters in pixels (0 = delta), or angles with ``cell_arcsec``; ``'auto'``
+        asks the scale advisor (`skyscale.suggest_scales`; its reasons go to
+        ``result.parameters['scale_reasons']``); default ``[0, 4, 8, 16]``.
     loop_gain : float
         Default 0.1.
     threshold : float
@@ -368,6 +369,10 @@ def deconvolve(dirty, psf, *, scales=(0, 4, 8, 16), loop_gain=0.1, threshold=0.0
     ((19, 14), 2.0)
     """
     from .masks import AutoMask
+    if isinstance(scales, str):       # 'auto': the advisor's set; its reasons in parameters
+        from .advisor import resolve_scales
+        scales, scale_reasons = resolve_scales(scales, dirty, psf, cell_arcsec=cell_arcsec)
+        del resolve_scales
     params = {k: v for k, v in locals().items()
               if k not in ("dirty", "psf", "mask", "model", "operator", "callback", "beam",
                            "auto_mask", "AutoMask")}

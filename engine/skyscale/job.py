@@ -75,11 +75,11 @@ def component_rows(components, wcs=None):
 
 def _scales_in_pixels(params, cell, dirty, psf, reasons):
     scales = params["scales"]
-    if isinstance(scales, str) and scales == "auto":
-        from .advisor import suggest_scales
-        s = suggest_scales(dirty, psf, cell_arcsec=cell)
-        reasons.extend(s.reasons)
-        return [float(p) for p in s.pixels]
+    if isinstance(scales, str):     # 'auto': the same advisor call as deconvolve's
+        from .advisor import resolve_scales
+        pixels, why = resolve_scales(scales, dirty, psf, cell_arcsec=cell)
+        reasons.extend(why)
+        return list(pixels)
     values = [float(v) for v in scales]
     if params["scale_unit"] == "arcsec":
         if cell is None:

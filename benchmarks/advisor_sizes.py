@@ -1,0 +1,125 @@
+"""Table of true sizes against the scale advisor's largest suggested scale.
+
+Every field is invented (tests/advisor_fields.py): one disk (size = diameter) or one
+Gaussian (size = FWHM) in noise of rms 1, white or correlated by the beam (FWHM 4 px),
+at a per-pixel signal-to-noise (the beam-convolved peak over the noise rms); plus the
+issue's field: a disk 290 px across and a diffuse Gaussian blob of FWHM 190 px on a
+2048 x 2048 image, and the same sky on 1024 and 512 px grids (sizes halved, brighter
+per pixel).
+
+Run from the repository root::
+
+    PYTHONPATH=engine python benchmarks/advisor_sizes.py            # the full table
+    PYTHONPATH=engine python benchmarks/advisor_sizes.py --quick    # a few rows
+
+Verdicts: ``ok`` when the largest suggested scale is between 0.3 and 0.8 of the true
+size; ``capped (image)`` when a quarter of the image sets it (the reasons say so);
+``unresolved`` when the source is under 1.5 beams and only 0 and the beam scale are
+given (``unresolved, not measured`` when it was too faint to measure and 0, the beam
+and twice the beam are given, the reasons saying the extent is unknown); ``too faint`` when even the best smoothing leaves its peak under 10 sigma (not
+a fair test: listed, not judged).  Anything else is ``MISS``.
+"""
+
+import argparse
+import os
+import sys
+import time
+
+import numpy as np
+
+HERE = os.path.dirname(os.path.abspath(__file__))
+sys.path[:0] = [os.path.join(HERE, "..", "engine"), os.path.join(HERE, "..")]
+
+from skyscale.advisor import suggest_scales  # noqa: E402
+from skyscale.beam import Beam  # noqa: E402
+from tests.advisor_fields import BEAM, make_field, smoothed_snr  # noqa: E402
+
+ROUND = Beam(BEAM, BEAM, 0.0)
+
+
+def best_snr(seen, n, correlated):
+    widths = [0.0] + [BEAM * 2 ** k for k in range(12) if BEAM * 2 ** k <= n / 4]
+    return max(smoothed_snr(seen, w, correlated) for w in widths)
+
+
+def image_side(size):
+    for n in (256, 512, 1024):
+        if size <= 0.4 * n:
+            return n
+    return 1024
+
+
+def verdict(size, pixels, reasons, snr):
+    largest = max(pixels)
+    if snr < 10:
+        return "too faint"
+    if 0.3 * size <= largest <= 0.8 * size:
+        return "ok"
+    if any(r.startswith("largest scale") and "a quarter of the image" in r for r in reasons):
+        return "capped (image)"
+    if size < 1.5 * BEAM and pixels == (0, round(BEAM)):
+        return "unresolved"
+    if size < 1.5 * BEAM and max(pixels) <= 2 * BEAM:
+        return "unresolved, not measured"
+    return "MISS"
+
+
+def issue_field(n, seed=0):
+    """The issue's sky on an n x n grid: disk 290 px and blob 190 px FWHM at 2048."""
+    k = n / 2048.0
+    per_pixel = 0.5 / k ** 2          # the same flux on fewer pixels: brighter per pixel
+    disk, _ = make_field("disk", 290 * k, per_pixel, n, seed=seed,
+                         centre=(0.40 * n, 0.35 * n))
+    blob, _ = make_field("gaussian", 190 * k, 0.6 * per_pixel, n, seed=seed + 1,
+                         centre=(0.68 * n, 0.70 * n))
+    from tests.advisor_fields import noise_field
+    return disk + blob - noise_field(n, seed=seed + 1), 290 * k, per_pixel
+
+
+def main(argv=None):
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--quick", action="store_true", help="a few rows only")
+    args = parser.parse_args(argv)
+    sizes = (2, 4, 8, 16, 32, 64, 128, 256, 400)
+    snrs = (1, 3, 10, 30, 100)
+    if args.quick:
+        sizes, snrs = (8, 64, 256), (1, 30)
+    rows = []
+    print("| source | true size px | S/N per px | noise | image | best smoothed S/N | "
+          "structure px | found at px | suggested scales px | largest / true | verdict |")
+    print("|---|---|---|---|---|---|---|---|---|---|---|")
+    t0 = time.perf_counter()
+    for kind in ("disk", "gaussian"):
+        for size in sizes:
+            for snr in snrs:
+                for correlated in (False, True):
+                    n = image_side(size)
+                    dirty, seen = make_field(kind, size, snr, n, seed=size + snr,
+                                             correlated=correlated)
+                    best = best_snr(seen, n, correlated)
+                    s = suggest_scales(dirty, beam=ROUND)
+                    rows.append(report(kind, size, snr, correlated, n, best, s))
+    for n in ((512, 1024) if args.quick else (512, 1024, 2048)):
+        dirty, size, per_pixel = issue_field(n)
+        s = suggest_scales(dirty, beam=ROUND)
+        rows.append(report("issue disk+blob", size, per_pixel, False, n, np.inf, s))
+    counts = {}
+    for r in rows:
+        counts[r] = counts.get(r, 0) + 1
+    print(f"\n{len(rows)} fields in {time.perf_counter() - t0:.0f} s: " +
+          ", ".join(f"{v} {k}" for k, v in sorted(counts.items())))
+
+
+def report(kind, size, snr, correlated, n, best, s):
+    v = verdict(size, s.pixels, s.reasons, best)
+    ext = s.extent
+    structure = "-" if s.largest_structure_px is None else f"{s.largest_structure_px:.0f}"
+    found = "-" if ext is None or not ext.n_islands else f"{ext.smoothing_px:.0f}"
+    print(f"| {kind} | {size:g} | {snr:g} | {'beam' if correlated else 'white'} | {n} | "
+          f"{best:.0f} | {structure} | {found} | {', '.join(map(str, s.pixels))} | "
+          f"{max(s.pixels) / size:.2f} | {v} |", flush=True)
+    return v
+
+
+if __name__ == "__main__":
+    main()

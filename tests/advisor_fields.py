@@ -1,0 +1,122 @@
+"""Invented fields of known extent for the scale advisor: disks, Gaussians, points, noise.
+
+Every field is a sky convolved with a round Gaussian PSF of peak 1 (the dirty beam),
+plus noise: white (independent pixels) or correlated by the beam like a dirty image's.
+Sizes are the truth we build: a disk's diameter, a Gaussian's FWHM.  The per-pixel
+signal-to-noise is the peak of the beam-convolved source over the per-pixel noise rms.
+
+Used by tests/test_advisor.py and benchmarks/advisor_sizes.py.
+"""
+
+import math
+
+import numpy as np
+from scipy import ndimage
+
+__all__ = ["FWHM_PER_SIGMA", "BEAM", "gaussian_psf", "make_field", "point_field",
+           "noise_field", "smoothed_snr"]
+
+#: Gaussian FWHM = 2 sqrt(2 ln 2) sigma (analytic).
+FWHM_PER_SIGMA = 2.0 * math.sqrt(2.0 * math.log(2.0))
+#: Beam FWHM in pixels: 4 pixels across the beam (common practice: 3 to 5).
+BEAM = 4.0
+
+
+def gaussian_psf(n, fwhm=BEAM):
+    """(n + 1, n + 1) round Gaussian PSF (odd size), peak 1 at the centre."""
+    r = np.arange(n + 1) - (n + 1) // 2
+    s = fwhm / FWHM_PER_SIGMA
+    return np.exp(-(r[:, None] ** 2 + r[None, :] ** 2) / (2.0 * s * s))
+
+
+def _noise(rng, n, correlated, fwhm):
+    white = rng.standard_normal((n, n))
+    if not correlated:
+        return white
+    smooth = ndimage.gaussian_filter(white, fwhm / FWHM_PER_SIGMA, mode="wrap")
+    return smooth / smooth.std()
+
+
+def _beam_blur(sky, fwhm):
+    """``sky`` convolved with the peak-1 Gaussian PSF: a unit-sum Gaussian filter
+    (scipy.ndimage) times the PSF's sum 2 pi sigma^2 (analytic)."""
+    s = fwhm / FWHM_PER_SIGMA
+    return ndimage.gaussian_filter(sky, s, mode="constant") * 2.0 * math.pi * s * s
+
+
+def make_field(kind, size, snr, n, *, seed=0, correlated=False, beam=BEAM, centre=None):
+    """One extended source in noise of rms 1.
+
+    Parameters
+    ----------
+    kind : {'disk', 'gaussian'}
+    size : float
+        Disk diameter or Gaussian FWHM, pixels.
+    snr : float
+        Peak of the beam-convolved source in units of the per-pixel noise.
+    n : int
+        Image side.
+
+    Returns
+    -------
+    dirty : (n, n) ndarray
+    seen : (n, n) ndarray
+        The noiseless beam-convolved source.
+    """
+    cy, cx = (n / 2.0, n / 2.0) if centre is None else centre
+    yy, xx = np.mgrid[:n, :n]
+    r2 = (yy - cy) ** 2 + (xx - cx) ** 2
+    if kind == "disk":
+        sky = (r2 <= (size / 2.0) ** 2).astype(np.float64)
+        if not sky.any():
+            sky[int(cy), int(cx)] = 1.0
+    elif kind == "gaussian":
+        sky = np.exp(-r2 / (2.0 * (size / FWHM_PER_SIGMA) ** 2))
+    else:
+        raise ValueError(f"kind is {kind!r}; use 'disk' or 'gaussian'")
+    seen = _beam_blur(sky, beam)
+    seen *= snr / seen.max()
+    rng = np.random.default_rng(seed)
+    return seen + _noise(rng, n, correlated, beam), seen
+
+
+def point_field(n, count, snr, *, seed=0, correlated=False, beam=BEAM):
+    """``count`` unresolved sources, peak ``snr`` times the noise, at least eight beams
+    apart and from the edge."""
+    rng = np.random.default_rng(seed)
+    sky = np.zeros((n, n))
+    placed = []
+    margin = int(8 * beam)
+    while len(placed) < count:
+        y, x = rng.integers(margin, n - margin, 2)
+        if all(math.hypot(y - a, x - b) >= 8 * beam for a, b in placed):
+            placed.append((y, x))
+            sky[y, x] = 1.0
+    seen = _beam_blur(sky, beam)
+    seen *= snr / seen.max()
+    return seen + _noise(rng, n, correlated, beam), placed
+
+
+def noise_field(n, *, seed=0, correlated=False, beam=BEAM):
+    """Noise of rms 1 and nothing else."""
+    return _noise(np.random.default_rng(seed), n, correlated, beam)
+
+
+def smoothed_snr(seen, fwhm, correlated=False, beam=BEAM):
+    """Peak signal-to-noise of the noiseless source after smoothing by a unit-sum
+    Gaussian of ``fwhm`` pixels: the smoothed peak over the smoothed noise.  White noise
+    of rms 1 smoothed by a unit-sum kernel k has rms sqrt(sum k^2) = 1 / (2 sqrt(pi) s)
+    for a Gaussian of sigma s (analytic); noise correlated by a Gaussian of sigma c
+    keeps rms c / sqrt(c^2 + s^2) (covariances add, analytic)."""
+    s = fwhm / FWHM_PER_SIGMA
+    if s > 0:       # scipy.ndimage.fourier_gaussian: the same filter, applied by FFT
+        spec = ndimage.fourier_gaussian(np.fft.rfft2(seen), s, n=seen.shape[1])
+        peak = np.fft.irfft2(spec, s=seen.shape).max()
+    else:
+        peak = seen.max()
+    if correlated:
+        c = beam / FWHM_PER_SIGMA
+        rms = c / math.sqrt(c * c + s * s)
+    else:
+        rms = 1.0 if s == 0 else 1.0 / (2.0 * math.sqrt(math.pi) * s)
+    return float(peak / rms)
