@@ -154,8 +154,8 @@ def scale_noise(planes, radii, *, mask=None, region=None, ratios=None, previous=
         Expected noise of each scale relative to the others, ``sqrt(B_kk(0))`` (see
         Notes).  Used for a scale whose emission-free area is too small to measure it.
     previous : float, optional
-        The smallest scale's noise from an earlier measurement, kept when too few
-        pixels lie outside the grown mask now (rather than measuring inside emission
+        The smallest scale's noise from an earlier measurement, kept when fewer than
+        ``5 * MIN_NOISE_PIXELS`` pixels lie outside the grown mask now (rather than measuring inside emission
         that cleaning has flattened, which would underestimate it).
 
     Returns
@@ -199,7 +199,8 @@ def scale_noise(planes, radii, *, mask=None, region=None, ratios=None, previous=
                                                     region=region, border=r)
             if used[k] >= MIN_NOISE_PIXELS and sigma[k] > 0:
                 break
-        if k == 0 and previous is not None and (used[k] < MIN_NOISE_PIXELS or sigma[k] <= 0):
+        if k == 0 and previous is not None and (used[k] * step * step < 5 * MIN_NOISE_PIXELS
+                                                or sigma[k] <= 0):
             sigma[k], used[k], how[k] = float(previous), 0, "kept"
         independent = used[k] * step * step / max(np.pi * r * r, 1.0)
         if k > 0 and ratios is not None and sigma[0] > 0 and (
