@@ -282,7 +282,7 @@ def test_uvw_in_wavelengths_detected():
     """Demo baselines given in wavelengths (x f / c = 10.7) where metres are expected."""
     data = read_visibilities(DEMO / "visibilities.npz")
     in_wavelengths = data.uvw * data.freqs[0] / C
-    with pytest.raises(ValueError, match="look like wavelengths rather than metres"):
+    with pytest.raises(ValueError, match="in wavelengths rather than metres"):
         VisibilityOperator(in_wavelengths, data.freqs, data.vis, data.weights, npix=256,
                            cell_arcsec=2.0)
     # far beyond any baseline as metres: refused whatever the cell

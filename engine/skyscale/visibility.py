@@ -190,9 +190,9 @@ def _check_cell(cell_arcsec, uvw, freqs, flags):
     uv_max = float(np.max(np.abs(uvw[used, :2])))
     per_beam = 1.0 / uv_max / (cell * ARCSEC) if uv_max > 0 else 0.0
     as_wavelengths = float(np.max(freqs)) > SPEED_OF_LIGHT and 2.0 <= per_beam <= 10.0
-    hint = (f"; the uvw look like wavelengths rather than metres (read as wavelengths this "
-            f"cell would give {per_beam:.1f} pixels across the beam): if so, convert them, "
-            "u_m = u_wavelengths * c / f" if as_wavelengths else "")
+    hint = (f"; or the uvw may be in wavelengths rather than metres (read as wavelengths, "
+            f"this cell gives a usual {per_beam:.1f} pixels across the beam): if so, convert "
+            "them, u_m = u_wavelengths * c / f" if as_wavelengths else "")
     raise ValueError(f"cell_arcsec {cell:g} is too coarse for the longest baseline "
                      f"({uv_max * np.max(freqs) / SPEED_OF_LIGHT:.4g} wavelengths at "
                      f"{np.max(freqs):.4g} Hz): the largest cell that samples it is "
