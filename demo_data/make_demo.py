@@ -8,9 +8,11 @@ anywhere::
     python demo_data/make_demo.py --out DIR  # writes into DIR
 
 It writes ``dirty.fits`` (Jy/beam), ``psf.fits`` (peak 1 at pixel (256, 256)),
-``true_sky.fits`` (Jy/pixel) and ``truth.json`` (noise level, component fluxes and
-positions, array layout), and prints a short report.  The seed is fixed, so the
-output is the same on every run up to floating-point rounding of the FFTs.
+``true_sky.fits`` (Jy/pixel), ``truth.json`` (noise level, component fluxes and
+positions, array layout) and ``visibilities.npz`` (the same observation as
+visibilities, in skyscale's own visibility file), and prints a short report.  The
+seed is fixed, so the output is the same on every run up to floating-point rounding
+of the FFTs.
 
 How it is made
 --------------
@@ -28,6 +30,14 @@ How it is made
    grid is twice the image, this circular convolution equals the linear convolution
    ``dirty = PSF (*) true_sky + noise`` exactly; the script checks it with
    ``scipy.signal.fftconvolve`` and reports the largest difference.
+5. The visibilities (needs the ``ducc0`` gridding library): the true sky's
+   visibilities at every sample, ``V = sum S exp(-2 pi i (u l + v m + w (n - 1)))``
+   with the w-term (TMS 2017, ch. 3), computed by ``ducc0.wgridder.dirty2vis`` in
+   double precision at accuracy 1e-12, plus the very same thermal noise sample by
+   sample as in the dirty image; weights ``1 / sigma^2``.  uvw are stored in metres
+   as float32 (about 0.1 mm on the longest baseline) to keep the file small.  Made
+   into an image with natural weighting this gives the dirty image above, up to the
+   nearest-cell gridding and the w-term that step 3 neglects.
 
 References
 ----------
@@ -37,8 +47,10 @@ References
 """
 
 import argparse
+import importlib.util
 import json
 import pathlib
+import sys
 
 import numpy as np
 from astropy.io import fits
@@ -257,7 +269,48 @@ def simulate(seed=SEED):
     )
     images = dict(dirty=dirty.astype(np.float32), psf=psf.astype(np.float32),
                   true_sky=sky.astype(np.float32))
-    return images, truth
+    samples = dict(uvw_m=np.stack([u, v, w], axis=1) * wavelength, noise=noise, sigma=s)
+    return images, truth, samples
+
+
+# ---------------------------------------------------------------- the visibilities
+VIS_FILE = "visibilities.npz"
+VIS_EPSILON = 1e-12
+
+
+def observe(sky, uvw_m):
+    """Noise-free visibilities of ``sky`` (Jy/pixel, [y, x]) at ``uvw_m`` (metres), Jy.
+
+    ``V = sum S exp(-2 pi i (u l + v m + w (n - 1)))`` with l = -(x - n // 2) cell
+    (RA increases to the left) and m = (y - n // 2) cell, by ``ducc0.wgridder``.
+    """
+    from ducc0 import wgridder
+    cell_rad = np.deg2rad(CELL_ARCSEC / 3600.0)
+    # the gridder's first image axis pairs with uvw[:, 0]: (v, -u, w) puts y north, x west
+    uvw = np.ascontiguousarray(np.stack([uvw_m[:, 1], -uvw_m[:, 0], uvw_m[:, 2]], axis=1))
+    vis = wgridder.dirty2vis(uvw=uvw, freq=np.array([FREQUENCY_HZ]),
+                             dirty=np.ascontiguousarray(sky, dtype=np.float64),
+                             pixsize_x=cell_rad, pixsize_y=cell_rad, epsilon=VIS_EPSILON,
+                             do_wgridding=True, flip_w=True, divide_by_n=False, nthreads=1)
+    return vis[:, 0]
+
+
+def write_visibility_file(images, samples, truth, out_dir):
+    """Write ``visibilities.npz`` (skyscale's visibility file) into ``out_dir``."""
+    engine = pathlib.Path(__file__).resolve().parents[1] / "engine"
+    if engine.is_dir():   # this source tree's skyscale, not another installed one
+        sys.path.insert(0, str(engine))
+    from skyscale.visfile import write_visibilities
+    sky = images["true_sky"].astype(np.float64)
+    vis = observe(sky, samples["uvw_m"]) + samples["noise"]
+    weight = np.full(vis.shape, 1.0 / samples["sigma"] ** 2)
+    path = pathlib.Path(out_dir) / VIS_FILE
+    write_visibilities(path, samples["uvw_m"], [FREQUENCY_HZ], vis[:, None].astype(np.complex64),
+                       weight[:, None], phase_centre_deg=(FIELD_RA_DEG, FIELD_DEC_DEG),
+                       description=f"{truth['description']}: {FIELD_NAME} observed with the "
+                                   f"{ARRAY_NAME} (invented), seed {truth['seed']}",
+                       overwrite=True, uvw_dtype=np.float32)
+    return path
 
 
 # ---------------------------------------------------------------- output
@@ -310,9 +363,17 @@ def main(argv=None):
     parser.add_argument("--out", default=str(pathlib.Path(__file__).resolve().parent),
                         help="output folder (default: the folder of this script)")
     args = parser.parse_args(argv)
-    images, truth = simulate()
+    images, truth, samples = simulate()
     add_sky_positions(truth)
+    truth["observation"]["visibility_file"] = dict(
+        name=VIS_FILE, rows=int(samples["uvw_m"].shape[0]), channels=1,
+        model_accuracy=VIS_EPSILON, uvw_storage="float32 metres", vis_storage="complex64 Jy")
     write_outputs(images, truth, args.out)
+    if importlib.util.find_spec("ducc0") is not None:
+        write_visibility_file(images, samples, truth, args.out)
+        wrote_vis = f", {VIS_FILE}"
+    else:
+        wrote_vis = f" (not {VIS_FILE}: it needs the ducc0 gridding library, pip install ducc0)"
     print(f"{ARRAY_NAME}: {truth['array']['n_antennas']} antennas, baselines "
           f"{truth['array']['shortest_baseline_m']}-{truth['array']['longest_baseline_m']} m, "
           f"{truth['observation']['n_visibilities']} visibilities")
@@ -322,7 +383,7 @@ def main(argv=None):
           f"(expected {NOISE_JY_PER_BEAM * 1e6:.1f}); total flux {truth['total_flux_jy']:.4f} Jy")
     print(f"dirty - noise vs fftconvolve(true_sky, psf): max |diff| = "
           f"{truth['consistency_max_abs_diff']:.2e} Jy/beam")
-    print(f"wrote dirty.fits, psf.fits, true_sky.fits, truth.json to {args.out}")
+    print(f"wrote dirty.fits, psf.fits, true_sky.fits, truth.json{wrote_vis} to {args.out}")
 
 
 if __name__ == "__main__":

@@ -23,6 +23,7 @@ from .cost import InsufficientMemoryError, Plan, check_fits_memory, max_affordab
 from .fitsio import (FitsImage, cell_size_arcsec, check_same_grid, read_image, write_image,
                      write_table_csv)
 from .job import run_files
+from .job_vis import run_visibilities
 from .masks import AutoMask, auto_mask, load_mask, regions_to_mask
 from .minor import Engine, MinorCycleResult
 from .noise import robust_noise
@@ -31,6 +32,9 @@ from .report import build_report, file_sha256, write_report
 from .operators import FunctionOperator, ImagePlaneOperator, ResidualOperator
 from .result import COMPONENT_DTYPE, STOP_REASONS, CycleRecord, DeconvolutionResult
 from .scales import SCALE_SHAPES, ScaleSet, scale_kernel, size_penalty_weights
+from .uvweights import WEIGHTINGS, imaging_weights
+from .visfile import VisibilityData, read_visibilities, write_visibilities
+from .visibility import VisibilityOperator
 
 _logging.getLogger(__name__).addHandler(_logging.NullHandler())
 
@@ -54,5 +58,7 @@ __all__ = [
     "write_table_csv", "run_files",
     "AutoMask", "auto_mask", "load_mask", "regions_to_mask",
     "build_report", "write_report", "file_sha256", "plot_convergence", "plot_panels",
+    "VisibilityOperator", "VisibilityData", "read_visibilities", "write_visibilities",
+    "imaging_weights", "WEIGHTINGS", "run_visibilities",
     "plan_run", "Plan", "check_fits_memory", "InsufficientMemoryError", "max_affordable_scales",
 ]

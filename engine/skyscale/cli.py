@@ -96,6 +96,26 @@ def _add_run_options(p):
     _add_global_flags(o)
 
 
+def _add_visibility_options(p, *, demo=False):
+    v = p.add_argument_group("visibilities (major cycles against the data)")
+    if demo:
+        v.add_argument("--from-visibilities", action="store_true",
+                       help="image the demo's visibilities.npz and run the major cycles "
+                       "against them, instead of its dirty.fits and psf.fits")
+    else:
+        v.add_argument("--visibilities", metavar="FILE",
+                       help="skyscale visibility file (.npz, see skyscale.visfile): image it "
+                       "and run the major cycles against it, instead of DIRTY and PSF")
+        v.add_argument("--size", type=int, help="image size in pixels, even (with "
+                       "--visibilities)")
+        v.add_argument("--cell", type=float, help="cell size in arcsec (with --visibilities)")
+    v.add_argument("--weighting", choices=("natural", "uniform", "briggs"),
+                   help="visibility weighting [natural]")
+    v.add_argument("--robust", type=float, help="Briggs robustness, -2 about uniform to "
+                   "+2 about natural [0]")
+    v.add_argument("--accuracy", type=float, help="gridder accuracy epsilon [1e-5]")
+
+
 def _add_global_flags(group):
     """--quiet and --debug are also accepted after the command."""
     group.add_argument("--quiet", action="store_true", default=argparse.SUPPRESS,
@@ -114,16 +134,19 @@ def build_parser():
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     sub.required = True
 
-    run = sub.add_parser("run", help="deconvolve a dirty image with its PSF (FITS)")
-    run.add_argument("dirty", help="dirty image, FITS, Jy/beam")
-    run.add_argument("psf", help="PSF, FITS, same grid, the image's size or larger")
+    run = sub.add_parser("run", help="deconvolve a dirty image with its PSF (FITS), or "
+                         "visibilities (--visibilities)")
+    run.add_argument("dirty", nargs="?", help="dirty image, FITS, Jy/beam")
+    run.add_argument("psf", nargs="?", help="PSF, FITS, same grid, the image's size or larger")
     run.add_argument("--out", required=True, help="output directory")
     _add_run_options(run)
+    _add_visibility_options(run)
     run.set_defaults(func=cmd_run)
 
     demo = sub.add_parser("demo", help="run the whole job on the bundled demo observation")
     demo.add_argument("--out", default="demo-out", help="output directory [demo-out]")
     _add_run_options(demo)
+    _add_visibility_options(demo, demo=True)
     demo.set_defaults(func=cmd_demo)
 
     suggest = sub.add_parser("suggest", help="propose a scale set and explain why")
@@ -173,21 +196,53 @@ def _params(args):
     return params
 
 
-def _execute(args, dirty, psf, out):
-    from .job import run_files
+def _execute(args, dirty, psf, out, visibilities=None):
     from . import console
     params = _params(args)
     with console.RunProgress(enabled=not args.quiet) as progress:
         t0 = time.perf_counter()
-        result, written, report = run_files(dirty, psf, out, params, callback=progress.update)
+        if visibilities is None:
+            from .job import run_files
+            result, written, report = run_files(dirty, psf, out, params,
+                                                callback=progress.update)
+        else:
+            from .job_vis import run_visibilities
+            result, written, report = run_visibilities(
+                visibilities["path"], out, params, size=visibilities["size"],
+                cell_arcsec=visibilities["cell"], weighting=args.weighting or "natural",
+                robust=0.0 if args.robust is None else args.robust, epsilon=args.accuracy,
+                callback=progress.update)
         elapsed = time.perf_counter() - t0
     if not args.quiet:
         console.summary(result, written, report, elapsed)
     return 0
 
 
+def _check_run_inputs(args):
+    """Either DIRTY and PSF, or --visibilities with --size and --cell; None or the latter."""
+    vis_only = [f"--{n}" for n in ("weighting", "robust", "accuracy", "size", "cell")
+                if getattr(args, n) is not None]
+    if args.visibilities is None:
+        if args.dirty is None or args.psf is None:
+            raise ValueError("run needs DIRTY and PSF (FITS files), or --visibilities FILE "
+                             "with --size and --cell")
+        if vis_only:
+            raise ValueError(f"{', '.join(vis_only)} apply to --visibilities runs only; "
+                             "drop them or give --visibilities FILE")
+        return None
+    if args.dirty is not None:
+        raise ValueError(f"run got both a dirty image ({args.dirty}) and --visibilities; "
+                         "give one or the other")
+    missing = [f"--{n}" for n in ("size", "cell") if getattr(args, n) is None]
+    if missing:
+        raise ValueError(f"--visibilities needs {' and '.join(missing)}: the image size in "
+                         "pixels and the cell size in arcsec")
+    return {"path": args.visibilities, "size": args.size, "cell": args.cell}
+
+
 def cmd_run(args):
-    return _execute(args, args.dirty, args.psf, args.out)
+    vis = _check_run_inputs(args)
+    return _execute(args, args.dirty, args.psf, args.out, visibilities=vis)
 
 
 def cmd_demo(args):
@@ -198,8 +253,18 @@ def cmd_demo(args):
         args.noise_threshold = 3.0
     if args.auto_mask is None and args.mask is None and args.config is None:
         args.auto_mask = True
+    vis = None
+    if args.from_visibilities:
+        import json
+        with open(os.path.join(data, "truth.json"), encoding="utf-8") as fh:
+            image = json.load(fh)["image"]
+        vis = {"path": os.path.join(data, "visibilities.npz"), "size": image["size"],
+               "cell": image["cell_arcsec"]}
+    elif any(getattr(args, n) is not None for n in ("weighting", "robust", "accuracy")):
+        raise ValueError("--weighting, --robust and --accuracy apply with --from-visibilities "
+                         "only")
     code = _execute(args, os.path.join(data, "dirty.fits"), os.path.join(data, "psf.fits"),
-                    args.out)
+                    args.out, visibilities=vis)
     if not args.quiet:
         from . import console
         console.say(f"demo finished: the results are in {os.path.abspath(args.out)}")

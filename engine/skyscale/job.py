@@ -15,8 +15,10 @@ from .beam import Beam
 from .cycles import deconvolve
 from .fitsio import (cell_size_arcsec, check_same_grid, provenance_history, read_image,
                      write_image, write_table_csv)
+from .report import file_sha256
 
-__all__ = ["RUN_DEFAULTS", "OUTPUT_NAMES", "run_files", "component_rows"]
+__all__ = ["RUN_DEFAULTS", "OUTPUT_NAMES", "run_files", "run_images", "merge_params",
+           "component_rows"]
 
 from .levels import DEFAULT_EXTENDED_DEPTH
 from .minor import DEFAULT_SIZE_PENALTY
@@ -73,6 +75,16 @@ def component_rows(components, wcs=None):
     return rows
 
 
+def _describe_operator(operator, psf, dirty):
+    """What ran the major cycles, for the report."""
+    if operator is None:
+        exact = all(p >= 2 * n - 1 for p, n in zip(psf.shape, dirty.shape))
+        return {"operator": "ImagePlaneOperator", "residual": "dirty - PSF (*) model by FFT",
+                "exact": bool(exact)}
+    describe = getattr(operator, "describe", None)
+    return describe() if callable(describe) else {"operator": type(operator).__name__}
+
+
 def _scales_in_pixels(params, cell, dirty, psf, reasons):
     scales = params["scales"]
     if isinstance(scales, str):     # 'auto': the same advisor call as deconvolve's
@@ -104,6 +116,17 @@ def _build_mask(params, image, shape):
     return mask
 
 
+def merge_params(params):
+    """`RUN_DEFAULTS` updated with ``params``; unknown keys are refused."""
+    merged = dict(RUN_DEFAULTS)
+    merged.update({k: v for k, v in (params or {}).items() if v is not None or k not in merged})
+    unknown = sorted(set(merged) - set(RUN_DEFAULTS))
+    if unknown:
+        raise ValueError(f"unknown run parameters {unknown}; valid ones are "
+                         f"{', '.join(sorted(RUN_DEFAULTS))}")
+    return merged
+
+
 def run_files(dirty_path, psf_path, out_dir, params=None, *, callback=None, inputs_extra=None):
     """Deconvolve FITS files and write model, residual, restored, table, report, figures.
 
@@ -127,18 +150,56 @@ def run_files(dirty_path, psf_path, out_dir, params=None, *, callback=None, inpu
     report : dict
         The JSON report as written.
     """
-    merged = dict(RUN_DEFAULTS)
-    merged.update({k: v for k, v in (params or {}).items() if v is not None or k not in merged})
-    unknown = sorted(set(merged) - set(RUN_DEFAULTS))
-    if unknown:
-        raise ValueError(f"unknown run parameters {unknown}; valid ones are "
-                         f"{', '.join(sorted(RUN_DEFAULTS))}")
+    merged = merge_params(params)
     start = _dt.datetime.now(_dt.timezone.utc)
     dirty = read_image(dirty_path, name="dirty")
     psf = read_image(psf_path, name="psf")
     check_same_grid(dirty, psf)
-    cell = cell_size_arcsec(dirty.wcs) if dirty.wcs is not None else None
+    inputs = {name: {"path": os.path.abspath(p), "shape": list(img.data.shape),
+                     "sha256": file_sha256(p)}
+              for name, p, img in (("dirty", dirty_path, dirty), ("psf", psf_path, psf))}
+    inputs.update(inputs_extra or {})
+    return run_images(dirty, psf, out_dir, merged, start=start, inputs=inputs,
+                      callback=callback)
+
+
+def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback=None,
+               operator=None, cell_arcsec=None, extra_images=None):
+    """Deconvolve images in memory and write every output (the body of `run_files`).
+
+    Parameters
+    ----------
+    dirty, psf : FitsImage
+        Dirty image (Jy/beam) and PSF; the dirty image's WCS goes into the outputs.
+    out_dir : str
+        Output directory; see `run_files`.
+    params : dict
+        Run parameters (merged with `RUN_DEFAULTS`).
+    start : datetime, optional
+        When the run started (default now).
+    inputs : dict, optional
+        Input records for the report.
+    callback : callable, optional
+    operator : callable, optional
+        Residual operator for the major cycles (default image plane); its
+        ``describe()`` dict, if it has one, goes into the report.
+    cell_arcsec : float, optional
+        Cell size when the dirty image has no celestial WCS.
+    extra_images : dict, optional
+        ``kind -> (file name, FitsImage)`` written beside the outputs (and refused like
+        them when they exist).
+
+    Returns
+    -------
+    result, written, report
+        As `run_files`.
+    """
+    merged = merge_params(params)
+    start = start or _dt.datetime.now(_dt.timezone.utc)
+    extra_images = extra_images or {}
+    cell = cell_size_arcsec(dirty.wcs) if dirty.wcs is not None else cell_arcsec
     names = {k: os.path.join(out_dir, v) for k, v in OUTPUT_NAMES.items()}
+    names.update({k: os.path.join(out_dir, v[0]) for k, v in extra_images.items()})
     if not merged["overwrite"]:
         clash = [p for p in names.values() if os.path.exists(p)]
         if clash:
@@ -186,7 +247,7 @@ def run_files(dirty_path, psf_path, out_dir, params=None, *, callback=None, inpu
             extended_depth=merged["extended_depth"],
             scale_shape=merged["scale_shape"], psf_patch=merged["psf_patch"],
             threads=merged["threads"], cell_arcsec=cell, beam=beam, auto_mask=auto,
-            callback=callback)
+            operator=operator, callback=callback)
     result.warnings.extend(scale_warnings)
     result.warnings.extend(str(w.message) for w in caught)
     end = _dt.datetime.now(_dt.timezone.utc)
@@ -194,7 +255,10 @@ def run_files(dirty_path, psf_path, out_dir, params=None, *, callback=None, inpu
     history = provenance_history(record, start, end)
     ow = merged["overwrite"]
     os.makedirs(out_dir, exist_ok=True)
-    written = {
+    written = {kind: write_image(names[kind], image.data, like=image, bunit=image.bunit,
+                                 history=history, overwrite=ow)
+               for kind, (_, image) in extra_images.items()}
+    written.update({
         "model": write_image(names["model"], result.model, like=dirty, bunit="Jy/pixel",
                              history=history, overwrite=ow),
         "residual": write_image(names["residual"], result.residual, like=dirty,
@@ -203,7 +267,7 @@ def run_files(dirty_path, psf_path, out_dir, params=None, *, callback=None, inpu
         "restored": write_image(names["restored"], result.restored, like=dirty,
                                 bunit="Jy/beam", beam=result.beam if dirty.wcs else None,
                                 history=history, overwrite=ow),
-    }
+    })
     if result.mask is not None:
         written["mask"] = write_image(names["mask"], result.mask.astype(np.float32), like=dirty,
                                       bunit="", history=history, overwrite=ow)
@@ -219,16 +283,13 @@ def run_files(dirty_path, psf_path, out_dir, params=None, *, callback=None, inpu
                                             mask=result.mask, overwrite=ow)
         except ImportError as exc:
             result.warnings.append(f"figures skipped: {exc}")
-    from .report import build_report, file_sha256, write_report
-    inputs = {name: {"path": os.path.abspath(p), "shape": list(img.data.shape),
-                     "sha256": file_sha256(p)}
-              for name, p, img in (("dirty", dirty_path, dirty), ("psf", psf_path, psf))}
-    inputs.update(inputs_extra or {})
+    from .report import build_report, write_report
     extra = {"start": start.isoformat(), "end": end.isoformat(), "outputs": written,
              "plan": plan.as_dict() if hasattr(plan, "as_dict") else dict(plan)}
     if reasons:
         extra["scale_reasons"] = reasons
     report = build_report(result, inputs=inputs, parameters=record, cell_arcsec=cell,
-                          threads=merged["threads"], extra=extra)
+                          threads=merged["threads"], extra=extra,
+                          major_cycle=_describe_operator(operator, psf.data, dirty.data))
     written["report"] = write_report(names["report"], report, overwrite=ow)
     return result, written, report

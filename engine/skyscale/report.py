@@ -37,7 +37,7 @@ REPORT_SCHEMA_VERSION = 1
 
 #: Distributions whose versions the report records (looked up, never imported).
 _DEPENDENCIES = ("numpy", "numba", "scipy", "astropy", "pyfftw", "rich",
-                 "matplotlib", "dask")
+                 "matplotlib", "dask", "ducc0")
 
 #: Read size for `file_sha256`.
 _CHUNK_BYTES = 1 << 20
@@ -247,7 +247,7 @@ def _scale_noise(result):
 
 
 def build_report(result, *, inputs=None, parameters=None, cell_arcsec=None,
-                 threads=None, extra=None):
+                 threads=None, extra=None, major_cycle=None):
     """Summarise a run as a JSON-ready dict.
 
     Parameters
@@ -265,6 +265,10 @@ def build_report(result, *, inputs=None, parameters=None, cell_arcsec=None,
         Threads used; default the Numba thread count if Numba is already loaded.
     extra : dict, optional
         Anything else the caller wants kept; stored under ``"extra"``.
+    major_cycle : dict, optional
+        Which residual operator ran the major cycles and how (for example
+        ``VisibilityOperator.describe()``); stored under ``"major_cycle"``, which says
+        ``{"operator": "not recorded"}`` when this is not given.
 
     Returns
     -------
@@ -272,7 +276,7 @@ def build_report(result, *, inputs=None, parameters=None, cell_arcsec=None,
         Plain Python values only.  Top-level keys: ``schema_version``, ``created_utc``,
         ``software``, ``machine``, ``inputs``, ``image``, ``parameters``, ``timings_s``,
         ``history``, ``per_scale``, ``final``, ``stop``, ``beam``, ``warnings``,
-        ``extra``.  ``final`` holds ``peak_residual`` and ``rms_residual`` (Jy/beam,
+        ``major_cycle``, ``extra``.  ``final`` holds ``peak_residual`` and ``rms_residual`` (Jy/beam,
         inside the mask when there is one), ``robust_noise``, ``model_flux`` (Jy),
         ``components`` and ``major_cycles``.
 
@@ -292,8 +296,9 @@ def build_report(result, *, inputs=None, parameters=None, cell_arcsec=None,
     cell = _check_cell(cell_arcsec)
     threads = _check_threads(threads)
     inputs = _check_inputs(inputs)
-    if extra is not None and not isinstance(extra, Mapping):
-        raise TypeError(f"extra is a {type(extra).__name__}; pass a dict (or None)")
+    for name, value in (("extra", extra), ("major_cycle", major_cycle)):
+        if value is not None and not isinstance(value, Mapping):
+            raise TypeError(f"{name} is a {type(value).__name__}; pass a dict (or None)")
     if parameters is None:
         parameters = getattr(result, "parameters", None) or {}
     if not isinstance(parameters, Mapping):
@@ -331,6 +336,8 @@ def build_report(result, *, inputs=None, parameters=None, cell_arcsec=None,
         "scale_noise": _scale_noise(result),
         "beam": _beam(getattr(result, "beam", None), cell),
         "warnings": [str(w) for w in (getattr(result, "warnings", None) or [])],
+        "major_cycle": _plain(dict(major_cycle)) if major_cycle is not None
+        else {"operator": "not recorded"},
         "extra": _plain(dict(extra)) if extra is not None else {},
     }
     log.debug("report built: %d components, %d history records",
