@@ -21,6 +21,7 @@ STOP_REASONS = {
     "diverging": "a major cycle raised the peak residual; its components were rolled back",
     "empty_mask": "the mask allows no pixel to be cleaned",
     "interrupted": "the run was interrupted; the result holds what was done so far",
+    "nothing_to_clean": "the dirty image is constant (zero included): there is nothing to clean",
 }
 
 
