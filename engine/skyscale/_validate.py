@@ -12,8 +12,28 @@ import warnings
 import numpy as np
 
 __all__ = ["InputError", "MissingFileError", "as_image", "resolve_dtype", "check_choice", "check_number",
-           "mask_nonfinite", "check_mask", "check_run_options", "FFT_BACKENDS",
+           "mask_nonfinite", "check_mask", "check_run_options", "FFT_BACKENDS", "NUMBER_RULES",
            "EMISSION_SIGMA"]
+
+#: Bounds of every numeric run option, with the fix a message suggests.
+NUMBER_RULES = {
+    "loop_gain": dict(low=0.0, high=1.0, low_open=True, hint="0.1 is the usual choice"),
+    "threshold": dict(low=0.0, hint="a peak residual in Jy/beam (0 for none); for a "
+                      "multiple of the noise use the noise threshold"),
+    "noise_threshold": dict(low=0.0, low_open=True, allow_none=True,
+                            hint="a multiple of the robust noise such as 3, or off"),
+    "max_components": dict(low=1, integer=True, hint="the most components the run may "
+                           "find, e.g. 20000"),
+    "max_major_cycles": dict(low=1, integer=True, hint="the most major cycles, e.g. 20"),
+    "cycle_depth": dict(low=0.0, high=1.0, high_open=True, hint="0.2 is the usual choice"),
+    "size_penalty": dict(low=0.0, high=1.0, high_open=True, hint="0.6 is the usual choice"),
+    "psf_patch": dict(low=0, integer=True, allow_none=True,
+                      hint="a half-width in pixels, or leave it out for automatic"),
+    "threads": dict(low=1, integer=True, allow_none=True, hint="or leave it out for all cores"),
+    "cell_arcsec": dict(low=0.0, low_open=True, allow_none=True, hint="the pixel size in arcsec"),
+    "auto_mask_sigma": dict(low=0.0, low_open=True, allow_none=True,
+                            hint="a multiple of the robust noise such as 5"),
+}
 
 #: FFT back ends `deconvolve` accepts.
 FFT_BACKENDS = ("auto", "numpy", "pyfftw")
@@ -161,7 +181,7 @@ def check_choice(value, name, choices):
 
 
 def check_number(value, name, *, low=None, high=None, low_open=False, high_open=False,
-                 integer=False, allow_none=False, hint=""):
+                 integer=False, allow_none=False, hint="", given=None):
     """Return ``value`` as a float (or int) inside the stated bounds, or raise `InputError`.
 
     Parameters
@@ -178,19 +198,22 @@ def check_number(value, name, *, low=None, high=None, low_open=False, high_open=
         Let None through (an option that is off).
     hint : str
         The fix, appended to the message (for example "0.1 is the usual choice").
+    given : object, optional
+        The value as the user wrote it, quoted in messages (default ``value``).
     """
+    shown = value if given is None else given
     if value is None and allow_none:
         return None
     tail = f"; {hint}" if hint else ""
     if isinstance(value, (bool, np.bool_)) or not isinstance(value, numbers.Real):
-        raise InputError(f"{name} is {value!r} (a {type(value).__name__}); give a "
+        raise InputError(f"{name} is {shown!r} (a {type(value).__name__}); give a "
                          f"{'whole ' if integer else ''}number{tail}")
     v = float(value)
     if not math.isfinite(v):
-        raise InputError(f"{name} is {value!r}; give a finite number{tail}")
+        raise InputError(f"{name} is {shown!r}; give a finite number{tail}")
     if integer:
         if v != int(v):
-            raise InputError(f"{name} is {value!r}; give a whole number{tail}")
+            raise InputError(f"{name} is {shown!r}; give a whole number{tail}")
         v = int(v)
     below = low is not None and (v <= low if low_open else v < low)
     above = high is not None and (v >= high if high_open else v > high)
@@ -202,7 +225,7 @@ def check_number(value, name, *, low=None, high=None, low_open=False, high_open=
         else:
             want = (f"{low:g} {'<' if low_open else '<='} {name} "
                     f"{'<' if high_open else '<='} {high:g}")
-        raise InputError(f"{name} is {value!r}, expected {want}{tail}")
+        raise InputError(f"{name} is {shown!r}, expected {want}{tail}")
     return v
 
 
@@ -296,27 +319,12 @@ def check_run_options(dirty, psf, *, scales, loop_gain, threshold, noise_thresho
     dt = resolve_dtype(dtype)
     check_choice(scale_shape, "scale_shape", SCALE_SHAPES)
     check_choice(fft, "fft", FFT_BACKENDS)
-    check_number(loop_gain, "loop_gain", low=0.0, high=1.0, low_open=True,
-                 hint="0.1 is the usual choice")
-    check_number(threshold, "threshold", low=0.0,
-                 hint="a peak residual in Jy/beam; for a multiple of the noise use "
-                      "noise_threshold")
-    check_number(noise_threshold, "noise_threshold", low=0.0, low_open=True, allow_none=True,
-                 hint="a multiple of the robust noise such as 3, or None for off")
-    check_number(max_components, "max_components", low=1, integer=True,
-                 hint="the most components the run may find, e.g. 20000")
-    check_number(max_major_cycles, "max_major_cycles", low=1, integer=True,
-                 hint="the most major cycles, e.g. 20")
-    check_number(cycle_depth, "cycle_depth", low=0.0, high=1.0, high_open=True,
-                 hint="0.2 is the usual choice")
-    check_number(size_penalty, "size_penalty", low=0.0, high=1.0, high_open=True,
-                 hint="0.6 is the usual choice")
-    check_number(psf_patch, "psf_patch", low=0, integer=True, allow_none=True,
-                 hint="a half-width in pixels, or None for automatic")
-    check_number(threads, "threads", low=1, integer=True, allow_none=True,
-                 hint="or None for all cores")
-    check_number(cell_arcsec, "cell_arcsec", low=0.0, low_open=True, allow_none=True,
-                 hint="the pixel size in arcsec")
+    values = dict(loop_gain=loop_gain, threshold=threshold, noise_threshold=noise_threshold,
+                  max_components=max_components, max_major_cycles=max_major_cycles,
+                  cycle_depth=cycle_depth, size_penalty=size_penalty, psf_patch=psf_patch,
+                  threads=threads, cell_arcsec=cell_arcsec)
+    for name, value in values.items():
+        check_number(value, name, **NUMBER_RULES[name])
     if beam is not None and not hasattr(beam, "major"):
         raise InputError(f"beam is {beam!r}; pass a skyscale.Beam in pixels "
                          "(Beam.from_sky converts arcsec) or None to fit one to the PSF")
