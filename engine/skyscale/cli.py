@@ -275,7 +275,10 @@ def _interrupted(args):
 def main(argv=None):
     """Entry point of the ``skyscale`` command; returns the exit code (see `EXIT_CODES`)."""
     parser = build_parser()
-    args = parser.parse_args(argv)
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as exc:        # usage errors (one line, code 2), --help, --version
+        return int(exc.code or 0)
     logging.basicConfig(level=logging.DEBUG if args.debug else logging.ERROR,
                         format="%(levelname)s %(name)s: %(message)s")
     if not args.debug:

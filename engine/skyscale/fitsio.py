@@ -217,20 +217,23 @@ def _open_checked(path, label):
         raise InputError(f"{label} is not a FITS file (a FITS file starts with the SIMPLE "
                          "card); give the FITS image itself")
     size = os.path.getsize(path)
+    compressed = head[:2] == b"\x1f\x8b"
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", AstropyWarning)
+        if not compressed:        # the header alone first: nothing large is read yet
+            with open(path, "rb") as fh:
+                header = fits.Header.fromfile(fh)
+                start = fh.tell()
+            shape, nbytes = _declared_shape(header, label)
+            if start + nbytes > size:
+                raise InputError(
+                    f"{label} is truncated: its header declares {nbytes} bytes of data "
+                    f"(shape {shape}) but the file holds {max(size - start, 0)}; write the "
+                    "file again (was a copy or download interrupted?)")
         with fits.open(path, memmap=False, lazy_load_hdus=True) as hdul:
             header = hdul[0].header.copy()
             shape, nbytes = _declared_shape(header, label)
-            compressed = head[:2] == b"\x1f\x8b"
-            if not compressed:
-                start = hdul.fileinfo(0)["datLoc"]
-                if start + nbytes > size:
-                    raise InputError(
-                        f"{label} is truncated: its header declares {nbytes} bytes of data "
-                        f"(shape {shape}) but the file holds {max(size - start, 0)}; write "
-                        "the file again (was a copy or download interrupted?)")
-            need = nbytes + 4 * (nbytes // max(abs(header["BITPIX"]) // 8, 1))
+            need = nbytes + 4 * (nbytes // _BITPIX_BYTES[header["BITPIX"]])
             from .cost import available_memory
             avail = available_memory()
             if avail is not None and need > avail:

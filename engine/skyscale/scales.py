@@ -157,11 +157,12 @@ def _as_given(scales):
     if isinstance(scales, (str, bytes)):
         return repr(scales)
     try:
-        items = list(np.atleast_1d(getattr(scales, "value", scales)))
+        items = list(scales) if isinstance(scales, (list, tuple)) else \
+            list(np.atleast_1d(getattr(scales, "value", scales)))
     except Exception:  # noqa: BLE001 - only used to quote the input back
         return repr(scales)
     unit = f" {scales.unit}" if hasattr(scales, "unit") else ""
-    text = ", ".join(f"{v:g}" if isinstance(v, (int, float, np.number)) and
+    text = ", ".join(f"{float(v):g}" if isinstance(v, (int, float, np.number)) and
                      not isinstance(v, bool) else repr(v) for v in items)
     return f"[{text}]{unit}"
 
