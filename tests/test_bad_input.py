@@ -365,3 +365,20 @@ def test_existing_outputs_are_refused_before_reading_inputs(files, tmp_path, cap
     assert code == 2 and "--overwrite" in capsys.readouterr().err
     assert (out / "model.fits").read_bytes() == b"earlier"
 
+
+
+def test_run_that_cannot_fit_is_refused_from_the_headers_before_reading(files, tmp_path,
+                                                                      monkeypatch, capsys):
+    import skyscale.cost
+    import skyscale.job
+    # enough memory to read the 64 x 64 image, far too little for the run's precompute
+    monkeypatch.setattr(skyscale.cost, "available_memory", lambda: 200_000)
+
+    def no_read(*args, **kwargs):
+        raise AssertionError("the data were read before the memory check")
+
+    monkeypatch.setattr(skyscale.job, "read_image", no_read)
+    code = main(["--quiet", "run", files["dirty"], files["psf"], "--out", str(tmp_path / "o"),
+                 "--scales", "0,4,8"])
+    err = capsys.readouterr().err
+    assert code == 2 and "the run needs about" in err and "available" in err

@@ -40,7 +40,7 @@ from ._atomic import atomic_output as _atomic_output
 from .beam import Beam, _wrap_pa
 
 __all__ = ["FitsImage", "HISTORY_WIDTH", "SQUARE_RTOL", "GRID_RTOL", "RESERVED_KEYWORDS",
-           "read_image", "cell_size_arcsec", "check_same_grid", "write_image",
+           "read_image", "read_shape", "cell_size_arcsec", "check_same_grid", "write_image",
            "provenance_history", "write_table_csv"]
 
 #: Characters of text one HISTORY card holds.
@@ -209,27 +209,38 @@ def _declared_shape(header, label):
     return tuple(reversed(dims)), count * _BITPIX_BYTES[bitpix]
 
 
-def _open_checked(path, label):
-    """Header and data of the primary HDU, after checking the file can hold them."""
+def _header_checked(path, label):
+    """The primary header alone, checked against the file's length: (header, shape, bytes).
+
+    Returns None for a compressed file (its length says nothing about the data).
+    """
     with open(path, "rb") as fh:
         head = fh.read(80)
-    if head[:2] != b"\x1f\x8b" and not head.startswith(b"SIMPLE  ="):
+    if head[:2] == b"\x1f\x8b":
+        return None
+    if not head.startswith(b"SIMPLE  ="):
         raise InputError(f"{label} is not a FITS file (a FITS file starts with the SIMPLE "
                          "card); give the FITS image itself")
     size = os.path.getsize(path)
-    compressed = head[:2] == b"\x1f\x8b"
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", AstropyWarning)
-        if not compressed:        # the header alone first: nothing large is read yet
-            with open(path, "rb") as fh:
-                header = fits.Header.fromfile(fh)
-                start = fh.tell()
-            shape, nbytes = _declared_shape(header, label)
-            if start + nbytes > size:
-                raise InputError(
-                    f"{label} is truncated: its header declares {nbytes} bytes of data "
-                    f"(shape {shape}) but the file holds {max(size - start, 0)}; write the "
-                    "file again (was a copy or download interrupted?)")
+        with open(path, "rb") as fh:
+            header = fits.Header.fromfile(fh)
+            start = fh.tell()
+    shape, nbytes = _declared_shape(header, label)
+    if start + nbytes > size:
+        raise InputError(
+            f"{label} is truncated: its header declares {nbytes} bytes of data (shape "
+            f"{shape}) but the file holds {max(size - start, 0)}; write the file again (was "
+            "a copy or download interrupted?)")
+    return header, shape, nbytes
+
+
+def _open_checked(path, label):
+    """Header and data of the primary HDU, after checking the file can hold them."""
+    _header_checked(path, label)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", AstropyWarning)
         with fits.open(path, memmap=False, lazy_load_hdus=True) as hdul:
             header = hdul[0].header.copy()
             shape, nbytes = _declared_shape(header, label)
@@ -244,6 +255,44 @@ def _open_checked(path, label):
             data = hdul[0].data
             data = None if data is None else np.array(data)
     return header, data
+
+
+def _guarded(call, path, label):
+    try:
+        return call(path, label)
+    except InputError:
+        raise
+    except MemoryError:
+        raise InputError(f"{label} does not fit in memory; cut out a smaller image") from None
+    except Exception as exc:  # noqa: BLE001 - astropy raises many types for broken files
+        raise InputError(f"{label} could not be read as FITS, its header or data is corrupt "
+                         f"({type(exc).__name__}: {_one_line(exc)}); write the file "
+                         "again") from None
+
+
+def _label(path, name):
+    path = os.fspath(path)
+    label = f"{name} file {path}" if name else path
+    if os.path.isdir(path):
+        raise InputError(f"{label} is a folder; give the FITS file inside it")
+    if not os.path.isfile(path):
+        raise MissingFileError(f"{label} does not exist; check the path")
+    return path, label
+
+
+def read_shape(path, *, name=None):
+    """The 2-D image shape a FITS file declares, from its header alone (no data read).
+
+    Leading axes of length 1 are dropped; None for a compressed file or one that is not
+    a single 2-D plane.  Raises as `read_image` does for files that are missing, not
+    FITS, truncated or corrupt.
+    """
+    path, label = _label(path, name)
+    checked = _guarded(_header_checked, path, label)
+    if checked is None:
+        return None
+    shape = tuple(n for n in checked[1][:-2] if n != 1) + tuple(checked[1][-2:])
+    return shape if len(shape) == 2 else None
 
 
 def read_image(path, *, name=None):
@@ -279,22 +328,8 @@ def read_image(path, *, name=None):
     >>> img.data.shape, img.data.dtype, img.bunit
     ((3, 4), dtype('float32'), 'Jy/beam')
     """
-    path = os.fspath(path)
-    label = f"{name} file {path}" if name else path
-    if os.path.isdir(path):
-        raise InputError(f"{label} is a folder; give the FITS file inside it")
-    if not os.path.isfile(path):
-        raise MissingFileError(f"{label} does not exist; check the path")
-    try:
-        header, data = _open_checked(path, label)
-    except InputError:
-        raise
-    except MemoryError:
-        raise InputError(f"{label} does not fit in memory; cut out a smaller image") from None
-    except Exception as exc:  # noqa: BLE001 - astropy raises many types for broken files
-        raise InputError(f"{label} could not be read as FITS, its header or data is corrupt "
-                         f"({type(exc).__name__}: {_one_line(exc)}); write the file "
-                         "again") from None
+    path, label = _label(path, name)
+    header, data = _guarded(_open_checked, path, label)
     if data is None or data.ndim < 2:
         raise InputError(f"{label}: the primary HDU holds no 2-D image (NAXIS="
                          f"{header.get('NAXIS', 0)}); write the image into the primary HDU")

@@ -17,7 +17,7 @@ from ._validate import InputError, mask_nonfinite
 from .beam import Beam
 from .cycles import deconvolve
 from .fitsio import (cell_size_arcsec, check_same_grid, provenance_history, read_image,
-                     write_image, write_table_csv)
+                     read_shape, write_image, write_table_csv)
 from .options import coerce_params, option_label
 
 __all__ = ["RUN_DEFAULTS", "OUTPUT_NAMES", "run_files", "component_rows", "resume_inputs",
@@ -168,6 +168,27 @@ def _prepare_out(out_dir, names, overwrite, label):
                               "pass --overwrite (overwrite=True)")
 
 
+def _plan_from_headers(dirty_path, psf_path, params):
+    """Refuse a run that cannot fit in memory from the headers alone, before any read."""
+    scales = params["scales"]
+    if scales == "auto" or params["scale_unit"] != "pixel":
+        return                       # scales not known in pixels yet: planned after reading
+    shapes = read_shape(dirty_path, name="dirty"), read_shape(psf_path, name="psf")
+    if None in shapes:
+        return
+    from .cost import check_fits_memory, plan_run
+    from .scales import ScaleSet
+    try:
+        ScaleSet(scales)
+    except InputError:
+        return                       # refused with its own message after reading
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        check_fits_memory(plan_run(shapes[0], shapes[1], [float(s) for s in scales],
+                                   max_components=params["max_components"],
+                                   threads=params["threads"], psf_patch=params["psf_patch"]))
+
+
 def resume_inputs(directory):
     """Dirty and PSF paths and the parameters of the run whose outputs are in ``directory``.
 
@@ -261,6 +282,7 @@ def run_files(dirty_path, psf_path, out_dir, params=None, *, callback=None, inpu
     names = {k: os.path.join(out_dir, v) for k, v in OUTPUT_NAMES.items()}
     ow = merged["overwrite"]
     _prepare_out(out_dir, names, ow, "--out" if sources else "out_dir")
+    _plan_from_headers(dirty_path, psf_path, merged)
     dirty = read_image(dirty_path, name="dirty")
     psf = read_image(psf_path, name="psf")
     check_same_grid(dirty, psf)
