@@ -40,6 +40,14 @@ DRIVER = textwrap.dedent("""
             print(f"CYCLE {event['cycle']} {event['components']}", flush=True)
             time.sleep(60)
     console.RunProgress.update = update
+    if "engine" in hooks:
+        import skyscale.minor
+        real_init = skyscale.minor.Engine.__init__
+        def slow_init(self, *a, **k):
+            print("ENGINE", flush=True)
+            time.sleep(60)
+            real_init(self, *a, **k)
+        skyscale.minor.Engine.__init__ = slow_init
     if "write" in hooks:
         real = job.write_table_csv
         def slow(*a, **k):
@@ -105,6 +113,17 @@ def test_interrupt_writes_every_output_labelled_and_exits_3(sig, inputs, tmp_pat
         assert _fits_ok(out / name)
     assert not (out / INCOMPLETE_MARKER).exists()
     assert not [p for p in os.listdir(out) if p.endswith(".tmp")]
+
+
+def test_interrupt_before_any_result_writes_nothing_and_exits_4(inputs, tmp_path):
+    out = tmp_path / "out"
+    proc = _start("engine", _run_args(inputs, out, "--no-plots"), tmp_path)
+    _wait_for(proc, "ENGINE")
+    proc.send_signal(signal.SIGINT)
+    _, err = proc.communicate(timeout=120)
+    assert proc.returncode == 4, err
+    assert "before any output was written" in err and "Traceback" not in err
+    assert os.listdir(out) == []
 
 
 def test_second_interrupt_while_writing_leaves_the_marker_and_exits_4(inputs, tmp_path):
