@@ -126,10 +126,12 @@ def as_image(array, name, *, dtype=np.float32, ndim=2, allow_nan=False):
     if not allow_nan:
         bad = ~np.isfinite(arr)
         if bad.any():
+            fix = ("replace them, or treat them as masked with skyscale.mask_nonfinite "
+                   "(--nonfinite mask on the command line)" if name == "dirty" else
+                   "replace them with finite values")
             raise InputError(
                 f"{name} has {int(np.count_nonzero(bad))} non-finite pixels (NaN or inf) of "
-                f"{arr.size}, at [y, x] {_where(bad)}; replace them, or treat them as "
-                "masked with skyscale.mask_nonfinite (--nonfinite mask on the command line)")
+                f"{arr.size}, at [y, x] {_where(bad)}; {fix}")
     return arr
 
 

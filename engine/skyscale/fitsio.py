@@ -341,8 +341,11 @@ def read_image(path, *, name=None):
                              "(reorder the cube)")
     extra = data.shape[:-2]
     if any(n != 1 for n in extra):
-        axes = ", ".join(f"axis {data.ndim - i} ({header.get(f'CTYPE{data.ndim - i}', '?')}) "
-                         f"has {n} planes" for i, n in enumerate(extra) if n != 1)
+        def axis(k):
+            ctype = str(header.get(f"CTYPE{k}", "")).strip()
+            return f"axis {k}" + (f" ({ctype})" if ctype else "")
+        axes = ", ".join(f"{axis(data.ndim - i)} has {n} planes"
+                         for i, n in enumerate(extra) if n != 1)
         raise InputError(f"{label} has shape {data.shape}: {axes}; skyscale run reads one "
                          f"2-D plane: cut one plane out{_cube_hint()}")
     data = np.ascontiguousarray(data.reshape(data.shape[-2:]), dtype=np.float32)

@@ -184,9 +184,13 @@ def _plan_from_headers(dirty_path, psf_path, params):
         return                       # refused with its own message after reading
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        check_fits_memory(plan_run(shapes[0], shapes[1], [float(s) for s in scales],
-                                   max_components=params["max_components"],
-                                   threads=params["threads"], psf_patch=params["psf_patch"]))
+        try:
+            plan = plan_run(shapes[0], shapes[1], [float(s) for s in scales],
+                            max_components=params["max_components"],
+                            threads=params["threads"], psf_patch=params["psf_patch"])
+        except InputError:
+            return                   # refused with the option's own name after reading
+    check_fits_memory(plan)
 
 
 def resume_inputs(directory):
