@@ -243,6 +243,7 @@ CLI_CASES = [
     ("beam-no-wcs", ["{no_wcs}", "{no_wcs_psf}", "--beam", "4,3,0"], "--beam is given"),
     ("out-is-file", ["--out", "{a_file}"], "--out"),
     ("out-not-writable", ["--out", "/proc/skyscale-out"], "--out /proc/skyscale-out cannot"),
+    ("out-under-a-file", ["--out", "{a_file}/sub"], "a_file.txt is a file"),
     ("regions-off-image", ["--mask-regions", "circle 500 500 10"], "--mask-regions: regions"),
     ("mask-and-regions-apart", ["--mask", "{corner_mask}", "--mask-regions",
                                 "circle 50 50 5"], "--mask and --mask-regions do not overlap"),
@@ -280,7 +281,7 @@ def test_command_line_bad_input_is_one_line_and_exit_2(case, args, text, files, 
     assert len(err) == 1, err
     assert text in err[0]
     assert "Traceback" not in err[0]
-    assert not os.path.exists(os.path.join(files["out"], "model.fits"))
+    assert not os.path.exists(files["out"])             # nothing written, no folder made
 
 
 def test_a_process_prints_no_traceback_without_debug_and_one_with_it(files):
@@ -319,6 +320,8 @@ def test_a_process_prints_no_traceback_without_debug_and_one_with_it(files):
     (dict(beam="0.00125deg,0.0009deg,30"), dict(beam=[4.5, 3.24, 30.0])),
     (dict(beam=[4.5, 3.2, -10]), dict(beam=[4.5, 3.2, -10.0])),
     (dict(scale_unit="ARCSEC"), dict(scale_unit="arcsec")),
+    (dict(mask_regions=["circle 1 2 3", "box 0 0 4 4"]),
+     dict(mask_regions="circle 1 2 3; box 0 0 4 4")),
 ])
 def test_values_are_read_as_meant(given, expected):
     got = coerce_params(given, {k: "cli" for k in given})

@@ -115,26 +115,32 @@ def remove_stale_temps(directory):
 
 
 def check_output_dir(path, label="out"):
-    """Make sure ``path`` is (or can become) a folder this process can write into.
+    """Make sure ``path`` is a folder this process can write into, or can become one.
 
-    Creates the folder when missing.  Raises `InputError` naming ``label`` when it is a
-    file, lies under a file, or cannot be written (tested by creating a file in it).
+    Nothing is created: a missing folder is checked through its nearest existing parent
+    (the folder itself is made when the first output is written).  Raises `InputError`
+    naming ``label`` when ``path`` is a file, lies under a file, or cannot be written
+    (tested by creating and removing a temporary file).
     """
-    path = os.fspath(path)
+    path = os.path.abspath(os.fspath(path))
     if os.path.exists(path) and not os.path.isdir(path):
         raise InputError(f"{label} {path} is a file; give a folder for the outputs")
+    probe_dir = path
+    while not os.path.exists(probe_dir):
+        probe_dir = os.path.dirname(probe_dir)
+    if not os.path.isdir(probe_dir):
+        raise InputError(f"{label} {path} cannot be made: {probe_dir} is a file; choose "
+                         "another folder")
     try:
-        os.makedirs(path, exist_ok=True)
-        fd, probe = _reserve_temp(path, "write-test")
+        fd, probe = _reserve_temp(probe_dir, "write-test")
         os.close(fd)
         os.unlink(probe)
     except OSError as exc:
-        why = {errno.ENOTDIR: "a part of the path is a file",
-               errno.EACCES: "permission denied", errno.EPERM: "permission denied",
+        why = {errno.EACCES: "permission denied", errno.EPERM: "permission denied",
                errno.EROFS: "the file system is read-only",
                errno.ENOSPC: "the disk is full"}.get(exc.errno, exc.strerror or str(exc))
-        raise InputError(f"{label} {path} cannot be written ({why}); choose a folder you "
-                         "can write to") from None
+        raise InputError(f"{label} {path} cannot be written ({why} in {probe_dir}); "
+                         "choose a folder you can write to") from None
     return path
 
 
@@ -145,6 +151,7 @@ def incomplete_marker(directory, what="skyscale outputs"):
     On any exception (an interrupt included) the marker stays, saying that the folder's
     outputs are incomplete.
     """
+    os.makedirs(directory, exist_ok=True)
     marker = os.path.join(directory, INCOMPLETE_MARKER)
     stamp = _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds")
     with open(marker, "w", encoding="utf-8") as fh:

@@ -285,7 +285,7 @@ def run_files(dirty_path, psf_path, out_dir, params=None, *, callback=None, inpu
     start = _dt.datetime.now(_dt.timezone.utc)
     names = {k: os.path.join(out_dir, v) for k, v in OUTPUT_NAMES.items()}
     ow = merged["overwrite"]
-    _prepare_out(out_dir, names, ow, "--out" if sources else "out_dir")
+    _prepare_out(out_dir, names, ow, "--out" if sources else "out_dir")   # creates nothing
     _plan_from_headers(dirty_path, psf_path, merged)
     dirty = read_image(dirty_path, name="dirty")
     psf = read_image(psf_path, name="psf")

@@ -215,6 +215,9 @@ def coerce_option(name, value, source=None):
     if kind == "bool":
         return parse_bool(value, label)
     if kind == "text":
+        if name == "mask_regions" and isinstance(value, (list, tuple)) and \
+                all(isinstance(v, str) for v in value):
+            return "; ".join(value)                  # one region a line in a TOML list
         if not isinstance(value, str):
             _fail(label, value, "give text (a path or region list)")
         return value
