@@ -2,77 +2,50 @@
 
 Each function recomputes everything from scratch at every step, with whole-array
 numpy operations and no tiling, so it can be read against the method's description.
-The compiled kernels must give the same components and the same planes.  The
-benchmark suite also uses `clean_loop` here as the plain numpy baseline.
+The compiled kernels must give the same components and the same values.
 """
 
 import numpy as np
 
-__all__ = ["valid_pixels", "clean_loop", "stamp_components", "convolve_centred"]
+__all__ = ["scale_loop", "smooth_all", "stamp_components", "convolve_centred"]
 
 
-def valid_pixels(shape, mask, lim):
-    """(n_scales, h, w) bool: where each scale's components may be centred."""
-    n = lim.shape[0]
-    valid = np.zeros((n,) + tuple(shape), dtype=bool)
-    for k in range(n):
-        ya, yb, xa, xb = lim[k]
-        valid[k, max(ya, 0):max(yb, 0), max(xa, 0):max(xb, 0)] = True
-    return valid & (np.asarray(mask) != 0)[None]
+def scale_loop(values, ys, xs, beam, *, beam_peak, gain, level, max_iter):
+    """Hogbom iterations over a set of pixels, whole-array numpy (twin of
+    kernels.scale_loop).
 
-
-def clean_loop(planes, mask, lim, mscale, ascale, patches, poff, phalf, *, gain, floor,
-               peak_limit, ref, delta, max_iter):
-    """Multi-scale CLEAN iterations, whole-array numpy (twin of kernels.clean_loop).
-
-    Returns ``((y, x, k, flux), reason, peak_ref, fallbacks)``; ``planes`` is updated
-    in place.
+    At each step: the largest ``|value|`` (first index on ties, as ``np.argmax``), stop
+    at or below ``level``, take ``gain * value / beam_peak``, subtract that times the
+    beam at every pixel's offset from the component.  ``values`` is updated in place.
+    Returns ``(idx, flux, reason, peak)``.
     """
-    dt = planes.dtype
-    n_planes, h, w = planes.shape
-    valid = valid_pixels((h, w), mask, lim)
-    ms = mscale.astype(dt)
-    asc = ascale.astype(dt)
-    ys, xs, ks, fs = [], [], [], []
-    fallbacks = 0
-    peak_ref = 0.0
+    cy, cx = (beam.shape[0] - 1) // 2, (beam.shape[1] - 1) // 2
+    idx, flux = [], []
     reason = "iterations"
+    peak = -1.0
     while True:
-        ref_vals = np.where(valid[ref], np.abs(planes[ref]), -1)
-        if not valid[ref].any():
+        if values.size == 0:
             reason = "empty"
             break
-        peak_ref = float(ref_vals.max())
-        if peak_ref <= floor:
-            reason = "depth"
+        i = int(np.argmax(np.abs(values)))
+        peak = float(abs(values[i]))
+        if peak <= level:
+            reason = "level"
             break
-        if peak_ref > peak_limit:
-            reason = "peak_rose"
-            break
-        if len(ys) >= max_iter:
+        if len(idx) >= max_iter:
             reason = "iterations"
             break
-        response = np.where(valid, np.abs(planes) * ms[:, None, None], dt.type(-1))
-        k, y, x = np.unravel_index(int(np.argmax(response)), response.shape)
-        amp = planes[k, y, x] * asc[k]
-        if delta >= 0 and k != delta and planes[delta, y, x] * amp <= 0:
-            d = np.where(valid[delta], np.abs(planes[delta]) * ms[delta], dt.type(-1))
-            k = delta
-            y, x = np.unravel_index(int(np.argmax(d)), d.shape)
-            amp = planes[k, y, x] * asc[k]
-            fallbacks += 1
-        f = dt.type(gain) * amp
-        ys.append(y), xs.append(x), ks.append(k), fs.append(f)
-        for l in range(n_planes):
-            hp = int(phalf[k, l])
-            side = 2 * hp + 1
-            patch = patches[poff[k, l]:poff[k, l] + side * side].reshape(side, side)
-            ya, yb = max(y - hp, 0), min(y + hp + 1, h)
-            xa, xb = max(x - hp, 0), min(x + hp + 1, w)
-            planes[l, ya:yb, xa:xb] -= f * patch[ya - y + hp:yb - y + hp, xa - x + hp:xb - x + hp]
-    comps = (np.array(ys, dtype=np.int64), np.array(xs, dtype=np.int64),
-             np.array(ks, dtype=np.int64), np.array(fs, dtype=dt))
-    return comps, reason, peak_ref, fallbacks
+        f = gain * float(values[i]) * (1.0 / float(beam_peak))
+        idx.append(i)
+        flux.append(f)
+        shifted = beam[cy + ys - ys[i], cx + xs - xs[i]].astype(np.float64)
+        values[:] = (values.astype(np.float64) - f * shifted).astype(values.dtype)
+    return np.array(idx, dtype=np.int64), np.array(flux), reason, peak
+
+
+def smooth_all(image, kernels):
+    """Every scale's smoothed image by direct sums (twin of fft.MultiConvolver)."""
+    return np.stack([convolve_centred(image, k) for k in kernels])
 
 
 def stamp_components(model, kernels, ys, xs, ks, fs):

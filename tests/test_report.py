@@ -162,8 +162,8 @@ def test_history_final_stop_and_beam():
     assert final["model_flux"] == pytest.approx(float(result.components["flux"].sum()),
                                                 rel=1e-6)
     assert final["components"] == 9 and final["major_cycles"] == 2
-    assert report["stop"] == {"reason": "threshold",
-                              "description": result.stop_description}
+    assert report["stop"]["reason"] == "threshold"
+    assert report["stop"]["description"] == result.stop_description
     beam = report["beam"]
     assert (beam["major_px"], beam["minor_px"], beam["pa_deg"]) == (5.0, 3.0, 25.0)
     # Reference: astropy.units converts pixels to arcsec with a pixel scale.

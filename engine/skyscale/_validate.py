@@ -26,7 +26,10 @@ NUMBER_RULES = {
                            "find, e.g. 20000"),
     "max_major_cycles": dict(low=1, integer=True, hint="the most major cycles, e.g. 20"),
     "cycle_depth": dict(low=0.0, high=1.0, high_open=True, hint="0.2 is the usual choice"),
-    "size_penalty": dict(low=0.0, high=1.0, high_open=True, hint="0.6 is the usual choice"),
+    "size_penalty": dict(low=0.0, high=1.0, high_open=True, hint="0.3 is the default"),
+    "extended_depth": dict(low=0.0, high=1.0, low_open=True,
+                           hint="a fraction of the noise multiple, 0.25 is the default"),
+    "scale_loop_depth": dict(low=0.0, high=1.0, high_open=True, hint="0.5 is the default"),
     "psf_patch": dict(low=0, integer=True, allow_none=True,
                       hint="a half-width in pixels, or leave it out for automatic"),
     "threads": dict(low=1, integer=True, allow_none=True, hint="or leave it out for all cores"),
@@ -296,15 +299,16 @@ def _early_result(dirty, psf, *, scales, restore, beam, params, mask, reason, no
 def check_run_options(dirty, psf, *, scales, loop_gain, threshold, noise_threshold,
                       max_components, max_major_cycles, cycle_depth, mask, size_penalty,
                       scale_shape, psf_patch, threads, fft, dtype, cell_arcsec, restore,
-                      beam):
+                      beam, extended_depth=0.25, scale_loop_depth=0.5, model=None):
     """Check every option of `skyscale.deconvolve` before any work starts.
 
     Parameters
     ----------
     dirty, psf, scales, loop_gain, threshold, noise_threshold, max_components,
     max_major_cycles, cycle_depth, mask, size_penalty, scale_shape, psf_patch, threads,
-    fft, dtype, cell_arcsec, restore, beam
-        As given to `deconvolve`.
+    fft, dtype, cell_arcsec, restore, beam, extended_depth, scale_loop_depth, model
+        As given to `deconvolve`.  A ``mask`` that is ``'auto'`` or an `AutoMask` is
+        left to the engine; an array mask is checked here.
 
     Returns
     -------
@@ -324,7 +328,8 @@ def check_run_options(dirty, psf, *, scales, loop_gain, threshold, noise_thresho
     values = dict(loop_gain=loop_gain, threshold=threshold, noise_threshold=noise_threshold,
                   max_components=max_components, max_major_cycles=max_major_cycles,
                   cycle_depth=cycle_depth, size_penalty=size_penalty, psf_patch=psf_patch,
-                  threads=threads, cell_arcsec=cell_arcsec)
+                  threads=threads, cell_arcsec=cell_arcsec, extended_depth=extended_depth,
+                  scale_loop_depth=scale_loop_depth)
     for name, value in values.items():
         check_number(value, name, **NUMBER_RULES[name])
     if beam is not None and not hasattr(beam, "major"):
@@ -333,6 +338,16 @@ def check_run_options(dirty, psf, *, scales, loop_gain, threshold, noise_thresho
     image = as_image(dirty, "dirty", dtype=dt)
     scale_set = ScaleSet(scales, shape=scale_shape, cell_arcsec=cell_arcsec,
                          image_shape=image.shape)
+    if model is not None:
+        start = as_image(model, "model", dtype=dt)
+        if start.shape != image.shape:
+            raise InputError(f"model has shape {start.shape}, expected the dirty image's "
+                             f"{image.shape}; start from a model made on the same grid")
+    if isinstance(mask, str):
+        check_choice(mask, "mask", ("auto",))
+        mask = None
+    elif mask is not None and hasattr(mask, "update"):     # an AutoMask
+        mask = None
     user_mask = None
     if mask is not None:
         user_mask = check_mask(mask, image.shape, dirty=image)
@@ -346,7 +361,7 @@ def check_run_options(dirty, psf, *, scales, loop_gain, threshold, noise_thresho
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")   # the engine warns about a peak it normalises
         check_psf(psf, image.shape, dtype=dt)
-    if float(image.max()) == float(image.min()):
+    if float(image.max()) == float(image.min()) and model is None:
         note = (f"the dirty image is constant ({float(image.flat[0]):.6g} Jy/beam "
                 "everywhere): there is no structure to clean")
         params = {"scales": list(scale_set.pixels)}

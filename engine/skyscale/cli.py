@@ -84,9 +84,11 @@ def _add_run_options(p):
     g.add_argument("--cycle-depth",
                    help="each minor cycle cleans to this fraction of its start peak [0.2]")
     g.add_argument("--size-penalty", help="bias toward small scales, weight 1 - p s/s_max, "
-                   "p in [0, 1) [0.6]")
-    g.add_argument("--psf-patch", help="half-width of the minor-cycle PSF patch, "
-                   "pixels [automatic]")
+                   "p in [0, 1) [0.3]")
+    g.add_argument("--extended-depth", help="inside a mask, finite scales stop at this "
+                   "fraction of the noise multiple, in (0, 1] [0.25]")
+    g.add_argument("--psf-patch", help="no longer used (minor cycles subtract whole scale "
+                   "beams); accepted with a warning")
     g.add_argument("--beam", help="restoring beam MAJOR,MINOR,PA: FWHMs in arcsec (or with "
                    "a unit: 0.0012deg) and degrees east of north [fitted to the PSF]")
     g.add_argument("--nonfinite", help="NaN/inf pixels in the dirty image: refuse, or mask "

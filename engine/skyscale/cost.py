@@ -36,7 +36,6 @@ import numpy as np
 
 from ._validate import resolve_dtype
 from .fft import fast_shape
-from .precompute import patch_half_widths
 
 __all__ = ["DEFAULT_CALIBRATION", "DEFAULT_PSF_PATCH", "DEFAULT_MAJOR_CYCLES", "SCALE_MIXES",
            "MEMORY_HEADROOM", "CALIBRATION_ENV", "InsufficientMemoryError", "Plan",
@@ -84,6 +83,13 @@ DEFAULT_CALIBRATION = {
 
 class InsufficientMemoryError(ValueError, MemoryError):
     """A planned run would need more memory than is available."""
+
+
+def patch_half_widths(radii, psf_patch_half, image_shape):
+    """Half-width of each cross-term patch: ``psf_patch + r_k + r_l``, capped by the image."""
+    r = np.asarray(radii, dtype=np.int64)
+    cap = int(max(image_shape)) - 1
+    return np.minimum(psf_patch_half + r[:, None] + r[None, :], cap).astype(np.int64)
 
 
 def _radii(scales, shape="paraboloid"):

@@ -2,31 +2,39 @@
 
 References
 ----------
-.. [1] Clark, B. G. 1980, A&A 89, 377 (minor cycles on a PSF patch, corrected by
-   major cycles; depth bounded by the sidelobes left out).
+.. [1] Clark, B. G. 1980, A&A 89, 377 (minor cycles corrected by major cycles).
 .. [2] Schwab, F. R. 1984, AJ 89, 1076.
 .. [3] Cornwell, T. J. 2008, IEEE J. Sel. Topics Signal Process. 2(5), 793.
 .. [4] Rousseeuw, P. J. & Croux, C. 1993, JASA 88, 1273.
+.. [5] Offringa, A. R. & Smirnov, O. 2017, MNRAS 471, 301.
 """
 
 import logging
 import time
+import warnings
 
 import numpy as np
 
 from ._validate import as_image, resolve_dtype
-from .minor import Engine
-from .noise import robust_noise
-from .operators import ImagePlaneOperator, as_operator
+from .levels import DEFAULT_EXTENDED_DEPTH, allowed_peak, scale_levels
+from .minor import DEFAULT_SCALE_LOOP_DEPTH, DEFAULT_SIZE_PENALTY, Engine
+from .operators import ImagePlaneOperator, as_operator, exact_box, exact_region
 from .result import COMPONENT_DTYPE, CycleRecord, DeconvolutionResult
 
 __all__ = ["deconvolve", "run_cycles", "masked_stats"]
 
 logger = logging.getLogger(__name__)
 
-#: A major cycle may raise the peak residual by at most this fraction before it is
-#: rolled back.
-PEAK_TOLERANCE = 1e-6
+#: A major cycle may raise the peak residual in the mask by at most this fraction (the
+#: float32 rounding of the model) before it is rolled back.
+PEAK_TOLERANCE = 1e-4
+
+#: After a minor cycle that reached every scale's stop level, the run stops when every
+#: scale is within this factor of its level (the noise re-measured, the mask renewed).
+LEVEL_SLACK = 1.05
+
+#: Rollbacks allowed in a row before the run stops as 'no_progress' or 'diverging'.
+MAX_RETRIES = 2
 
 
 def masked_stats(residual, mask):
@@ -38,21 +46,20 @@ def masked_stats(residual, mask):
     return float(np.abs(data).max()), float(np.sqrt(np.mean(data ** 2)))
 
 
-def _stop_level(residual, mask, threshold, noise_threshold):
-    """The level the run cleans to: the threshold, or the noise multiple if higher."""
-    if noise_threshold is None:
-        return threshold
-    return max(threshold, noise_threshold * robust_noise(residual, mask))
-
-
 def _notify(callback, **event):
     if callback is not None:
         callback(event)
 
 
-def run_cycles(engine, operator, *, dirty=None, mask=None, threshold=0.0, noise_threshold=None,
-               max_components=20000, max_major_cycles=20, cycle_depth=0.2,
-               mask_updater=None, callback=None):
+def _progress(engine, peaks, levels):
+    """The largest penalised response relative to its level: what cleaning still has to do."""
+    return float(np.max(peaks / np.maximum(levels, 1e-30)))
+
+
+def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold=0.0,
+               noise_threshold=None, extended_depth=DEFAULT_EXTENDED_DEPTH,
+               max_components=20000, max_major_cycles=20, cycle_depth=0.2, mask_updater=None,
+               callback=None):
     """Alternate minor cycles of ``engine`` with major cycles of ``operator``.
 
     Parameters
@@ -62,11 +69,16 @@ def run_cycles(engine, operator, *, dirty=None, mask=None, threshold=0.0, noise_
         ``operator(model) -> residual`` (Jy/beam).
     dirty : (ny, nx) ndarray, optional
         The residual of an empty model; computed with ``operator`` when not given.
-    mask, threshold, noise_threshold, max_components, max_major_cycles, cycle_depth
+    model : (ny, nx) ndarray, optional
+        Model to start from (Jy/pixel); its residual is computed with ``operator``.
+    mask, threshold, noise_threshold, extended_depth, max_components, max_major_cycles,
+    cycle_depth
         See `deconvolve`.
     mask_updater : callable, optional
-        ``mask_updater(residual, model, previous_mask) -> mask``, called after every
-        major cycle (the automatic mask).
+        ``mask_updater(residual, centres, previous_mask) -> mask``, called after every
+        major cycle (the automatic mask); ``centres`` is non-zero where components are
+        centred (the model's footprint would grow the mask by each kernel's radius
+        every cycle).
     callback : callable, optional
         Receives progress dicts (``stage`` 'major' or 'minor').
 
@@ -77,122 +89,188 @@ def run_cycles(engine, operator, *, dirty=None, mask=None, threshold=0.0, noise_
 
     Notes
     -----
-    Robustness: after each major cycle the exact peak residual inside the mask is
-    compared with the one before.  A cycle that raised it is rolled back and tried
-    again with a shallower minor cycle (the depth moved halfway to 1), at most
-    twice; a third rise stops the run: 'diverging', or 'no_progress' when the rise
-    is within 1 % (cleaning has reached what the data allow).  The
-    peak residual in the mask therefore never grows across a run.  Inside a minor
-    cycle a finite-scale component whose sign disagrees with the unsmoothed residual
-    at its centre is replaced by the best delta component, and a cycle whose tracked
-    peak rises hands back at once.  Large scales never centre closer to the image
-    edge than their radius.
+    Each scale has its own stop level (`skyscale.levels.scale_levels`) from its own
+    noise, measured where there is no emission and where the residual is exact; the run
+    stops when every scale is below its level inside the mask.  Minor cycles subtract
+    whole scale beams and update every scale exactly after each sub-loop, and reject a
+    sub-loop that would raise the peak residual in the mask above the larger of the
+    cycle's starting peak and 1.1 times the delta scale's stop level
+    (`skyscale.levels.allowed_peak`), so with an exact operator no major cycle raises
+    it above that.  A major cycle that does all the same (an
+    inexact operator) is rolled back and retried with a shallower minor cycle, at most
+    twice in a row; then the run stops, 'no_progress' when the rise is within 1 %,
+    'diverging' otherwise.  Rollbacks are counted in ``result.rollbacks``.  A residual
+    with non-finite values stops the run as 'diverging' with the last good model.
     """
     t_major = 0.0
     t_minor = 0.0
     t0 = time.perf_counter()
-    if dirty is None:
-        residual = as_image(operator(np.zeros(engine.image_shape, engine.dtype)), "residual",
-                            dtype=engine.dtype)
+    shape = engine.image_shape
+    if model is None:
+        model = np.zeros(shape, dtype=engine.dtype)
+        if dirty is None:
+            dirty = operator(model)
+        residual = as_image(dirty, "dirty", dtype=np.float64)
     else:
-        residual = as_image(dirty, "dirty", dtype=engine.dtype)
+        model = as_image(model, "model", dtype=engine.dtype)
+        if model.shape != shape:
+            raise ValueError(f"model has shape {model.shape}, expected the image's {shape}; "
+                             "start from a model on the dirty image's grid")
+        residual = as_image(operator(model), "residual returned by the operator",
+                            dtype=np.float64)
     t_major += time.perf_counter() - t0
-    shape = residual.shape
-    model = np.zeros(shape, dtype=engine.dtype)
     if mask is not None:
         mask = np.asarray(mask, dtype=bool)
         if mask.shape != shape:
             raise ValueError(f"mask has shape {mask.shape}, expected the image's {shape}; "
                              "regrid or rebuild the mask")
+    offsets = getattr(operator, "exact_offsets", None)
+    exact = getattr(operator, "exact", True)
+    centres = (model != 0).astype(np.uint8)
     if mask_updater is not None:
-        mask = mask_updater(residual, model, mask)
-    tables = []
-    n_comp = 0
-    peak, rms = masked_stats(residual, mask)
-    history = [CycleRecord(0, 0, peak, rms, 0.0)]
+        mask = mask_updater(residual, centres, mask)
+
+    def stats(residual, model, mask, previous=None):
+        region = None if exact else exact_region(shape, model, offsets)
+        state = engine.measure(residual, mask, noise_region=region, previous=previous)
+        inside = mask if region is None else (region if mask is None else mask & region)
+        peak, rms = masked_stats(residual, inside)
+        levels = scale_levels(state.noise, threshold=threshold, noise_threshold=noise_threshold,
+                              extended_depth=extended_depth, masked=mask is not None,
+                              scales=engine.scales.pixels)
+        return state, region, peak, rms, levels
+
+    state, region, peak, rms, levels = stats(residual, model, mask)
+    flux0 = float(model.sum(dtype=np.float64))
+    history = [CycleRecord(0, 0, peak, rms, flux0, scale_peaks=state.peaks.tolist())]
     _notify(callback, stage="major", cycle=0, components=0, peak=peak, rms=rms)
+    tables = []
     warnings_seen = []
+    n_comp = 0
     stop = "max_major_cycles"
     stagnant = 0
     depth = cycle_depth
-    retries = 0
+    retries = rollbacks = rounds = rejected = 0
+    progress = _progress(engine, state.peaks, levels)
     try:
         for cycle in range(1, max_major_cycles + 1):
             if mask is not None and not mask.any():
                 stop = "empty_mask"
                 break
-            level = _stop_level(residual, mask, threshold, noise_threshold)
-            if peak <= level:
-                stop = "threshold" if level == threshold else "noise"
+            if np.all(state.peaks <= levels):
+                stop = "noise" if noise_threshold is not None and np.any(levels > threshold) \
+                    else "threshold"
                 break
             if n_comp >= max_components:
                 stop = "max_components"
                 break
             t1 = time.perf_counter()
-            mc = engine.minor_cycle(residual, model, mask=mask, threshold=level,
-                                    cycle_depth=depth, max_components=max_components - n_comp,
-                                    callback=callback)
+            mc = engine.minor_cycle(residual, model, mask=mask, threshold=threshold,
+                                    noise_threshold=noise_threshold,
+                                    extended_depth=extended_depth, cycle_depth=depth,
+                                    max_components=max_components - n_comp, callback=callback,
+                                    noise_region=region, state=state)
             t2 = time.perf_counter()
             t_minor += t2 - t1
+            rounds += mc.rounds
+            rejected += mc.rejected
             if mc.components.size == 0:
-                stop = {"threshold": "threshold" if level == threshold else "noise",
-                        "empty": "empty_mask"}.get(mc.stop_reason, "no_progress")
+                stop = {"empty": "empty_mask", "max_components": "max_components"}.get(
+                    mc.stop_reason, "no_progress")
+                if mc.stop_reason == "threshold":
+                    stop = "noise" if noise_threshold is not None else "threshold"
                 break
             new_residual = as_image(operator(mc.model), "residual returned by the operator",
-                                    dtype=engine.dtype)
+                                    dtype=np.float64, allow_nan=True)
             t_major += time.perf_counter() - t2
-            new_peak, new_rms = masked_stats(new_residual, mask)
-            if new_peak > peak * (1.0 + PEAK_TOLERANCE):
-                msg = (f"major cycle {cycle} raised the peak residual {peak:.4g} -> {new_peak:.4g}"
-                       f" Jy/beam; rolled back")
+            if not np.all(np.isfinite(new_residual)):
+                msg = (f"major cycle {cycle} gave a residual with non-finite values; "
+                       "stopped with the model of the cycle before")
                 logger.warning(msg)
                 warnings_seen.append(msg)
-                if retries < 2:   # retry shallower: less patch error piles up
+                stop = "diverging"
+                break
+            new_state, new_region, new_peak, new_rms, new_levels = stats(
+                new_residual, mc.model, mask, state)
+            highest = allowed_peak(peak, levels, engine.scales.has_delta)
+            if new_peak > highest * (1.0 + PEAK_TOLERANCE):
+                rollbacks += 1
+                msg = (f"major cycle {cycle} raised the peak residual {peak:.4g} -> "
+                       f"{new_peak:.4g} Jy/beam; rolled back")
+                logger.warning(msg)
+                warnings_seen.append(msg)
+                if retries < MAX_RETRIES:
                     retries += 1
                     depth = 0.5 * (1.0 + depth)
                     continue
-                # A rise within 1 % is the noise floor of the method, not a runaway.
-                stop = "no_progress" if new_peak <= peak * 1.01 else "diverging"
+                stop = "no_progress" if new_peak <= highest * 1.01 else "diverging"
                 break
             model, residual = mc.model, new_residual
             depth, retries = cycle_depth, 0
             tables.append(mc.components)
             n_comp += mc.components.size
             flux = float(model.sum(dtype=np.float64))
-            history.append(CycleRecord(cycle, n_comp, new_peak, new_rms, flux,
-                                       int(mc.components.size), mc.stop_reason))
-            _notify(callback, stage="major", cycle=cycle, components=n_comp, peak=new_peak,
-                    rms=new_rms, flux=flux, minor_stop=mc.stop_reason)
-            stagnant = stagnant + 1 if new_peak > 0.99 * peak else 0
-            peak, rms = new_peak, new_rms
+            centres[mc.components["y"], mc.components["x"]] = 1
             if mask_updater is not None:
-                mask = mask_updater(residual, model, mask)
-                peak, rms = masked_stats(residual, mask)
+                mask = mask_updater(residual, centres, mask)
+                new_state, new_region, new_peak, new_rms, new_levels = stats(
+                    residual, model, mask, state)
+            state, region, peak, rms, levels = (new_state, new_region, new_peak, new_rms,
+                                                new_levels)
+            history.append(CycleRecord(cycle, n_comp, peak, rms, flux,
+                                       int(mc.components.size), mc.stop_reason,
+                                       scale_peaks=state.peaks.tolist()))
+            _notify(callback, stage="major", cycle=cycle, components=n_comp, peak=peak,
+                    rms=rms, flux=flux, minor_stop=mc.stop_reason)
+            if mc.stop_reason == "threshold" and np.all(state.peaks <= levels * LEVEL_SLACK):
+                stop = "noise" if noise_threshold is not None and np.any(levels > threshold) \
+                    else "threshold"
+                break
+            new_progress = _progress(engine, state.peaks, levels)
+            stagnant = stagnant + 1 if new_progress > 0.99 * progress else 0
+            progress = new_progress
             if stagnant >= 3:
                 stop = "no_progress"
                 break
         else:
             stop = "max_major_cycles"
-        if stop == "max_major_cycles" or stop == "max_components":
-            level = _stop_level(residual, mask, threshold, noise_threshold)
-            if peak <= level:
-                stop = "threshold" if level == threshold else "noise"
-            elif n_comp >= max_components:
-                stop = "max_components"
+        if stop in ("max_major_cycles", "max_components") and np.all(state.peaks <= levels):
+            stop = "noise" if noise_threshold is not None and np.any(levels > threshold) \
+                else "threshold"
+        elif stop == "max_major_cycles" and n_comp >= max_components:
+            stop = "max_components"
     except KeyboardInterrupt:
         stop = "interrupted"
         logger.warning("interrupted: returning the model of the last complete major cycle")
     components = np.concatenate(tables) if tables else np.zeros(0, COMPONENT_DTYPE)
+    active = [s for s, p, lv in zip(engine.scales.pixels, state.peaks, levels) if p > lv]
     return DeconvolutionResult(
-        model=model, residual=residual, components=components, stop_reason=stop,
-        history=history, scales=engine.scales.pixels, mask=mask,
+        model=model, residual=residual.astype(engine.dtype), components=components,
+        stop_reason=stop, history=history, scales=engine.scales.pixels, mask=mask,
         timings={"precompute": engine.precompute_seconds, "minor": t_minor, "major": t_major},
-        warnings=warnings_seen)
+        warnings=warnings_seen, rollbacks=rollbacks, scale_noise=state.noise.tolist(),
+        scale_levels=levels.tolist(), scale_peaks=state.peaks.tolist(), active_scales=active,
+        noise_region=_describe_region(region, state, mask),
+        sub_loops=rounds, rejected_sub_loops=rejected)
+
+
+def _describe_region(region, state, mask):
+    """Words for where the noise was measured (the report records them)."""
+    where = "the whole image" if region is None else \
+        f"the {int(region.sum())} pixels where the residual is exact"
+    if mask is not None:
+        where += ", outside the mask grown by each scale's radius"
+    return {"where": where + ", emission beyond 4 robust sigmas clipped; a scale with too "
+                     "few independent samples there is scaled from the smallest scale by "
+                     "sqrt(B_kk(0))",
+            "how": list(state.noise_how), "pixels_used": [int(u) for u in state.noise_pixels]}
 
 
 def deconvolve(dirty, psf, *, scales=(0, 4, 8, 16), loop_gain=0.1, threshold=0.0,
-               noise_threshold=None, max_components=20000, max_major_cycles=20,
-               cycle_depth=0.2, mask=None, size_penalty=0.6, scale_shape="paraboloid",
+               noise_threshold=None, extended_depth=DEFAULT_EXTENDED_DEPTH,
+               max_components=20000, max_major_cycles=20, cycle_depth=0.2, mask=None,
+               model=None, size_penalty=DEFAULT_SIZE_PENALTY,
+               scale_loop_depth=DEFAULT_SCALE_LOOP_DEPTH, scale_shape="paraboloid",
                psf_patch=None, threads=None, fft="auto", dtype=None, cell_arcsec=None,
                operator=None, restore=True, beam=None, auto_mask=None, callback=None):
     """Multi-scale CLEAN of a dirty image with its PSF, with image-plane major cycles.
@@ -210,25 +288,35 @@ def deconvolve(dirty, psf, *, scales=(0, 4, 8, 16), loop_gain=0.1, threshold=0.0
     loop_gain : float
         Default 0.1.
     threshold : float
-        Stop when the peak residual in the mask is at or below this, Jy/beam;
-        default 0.
+        Stop when every scale's smoothed residual in the mask is at or below this,
+        Jy/beam; default 0.
     noise_threshold : float, optional
-        Stop at this multiple of the robust noise (1.4826 MAD of the residual
-        outside the mask, [4]_); default off.
+        Stop each scale at this multiple of its own noise, measured where there is no
+        emission and the residual is exact ([4]_); default off.
+    extended_depth : float
+        Inside a mask (given or automatic), finite scales stop at this fraction of
+        ``noise_threshold``; default 0.25 (see `skyscale.levels`).
     max_components : int
         Component budget; default 20000.
     max_major_cycles : int
         Major-cycle budget; default 20.
     cycle_depth : float
-        Each minor cycle cleans down to this fraction of its starting peak, bounded
-        below by the PSF's sidelobe level outside the patch ([1]_); default 0.2.
-    mask : (ny, nx) bool ndarray, optional
-        Where components may go; default everywhere.
+        Each minor cycle cleans every scale to this fraction of its starting peak
+        (never below its stop level); default 0.2.
+    mask : (ny, nx) bool ndarray, 'auto', AutoMask or None
+        Where components may go; default everywhere.  ``'auto'`` selects the automatic
+        mask renewed after every major cycle (an `AutoMask` instance gives its options).
+    model : (ny, nx) ndarray, optional
+        Start from this model (Jy/pixel), for example one written by an earlier run.
     size_penalty : float
-        Bias toward small scales, ``1 - p s / s_max`` ([3]_); default 0.6.
+        Bias toward small scales, ``1 - p s / s_max``; default 0.3 (derivation in
+        `Engine`).
+    scale_loop_depth : float
+        Each single-scale sub-loop cleans its scale to this fraction of its peak before
+        every scale is updated by FFT; default 0.5.
     scale_shape : {'paraboloid', 'gaussian'}
-    psf_patch : int, optional
-        Half-width of the minor-cycle PSF patch; default automatic.
+    psf_patch : optional
+        No longer used; a DeprecationWarning when given.
     threads : int, optional
         Default all cores.  The result does not depend on it.
     fft : {'auto', 'numpy', 'pyfftw'}
@@ -244,7 +332,7 @@ def deconvolve(dirty, psf, *, scales=(0, 4, 8, 16), loop_gain=0.1, threshold=0.0
     beam : Beam, optional
         Restoring beam to use instead of the fit.
     auto_mask : AutoMask, optional
-        Renewed after every major cycle; combined with ``mask`` (intersection).
+        Same as ``mask=AutoMask(...)``, combined with an array ``mask`` (intersection).
     callback : callable, optional
         Progress: called with dicts, ``stage`` 'major' or 'minor'.
 
@@ -252,12 +340,22 @@ def deconvolve(dirty, psf, *, scales=(0, 4, 8, 16), loop_gain=0.1, threshold=0.0
     -------
     DeconvolutionResult
 
+    Notes
+    -----
+    With a PSF smaller than twice the image the image-plane residual is exact only
+    within the PSF's half-size of every component.  Components are then confined to
+    the central box in which every pair of pixels is that close (intersected with the
+    mask when one is given, which may reach beyond it at the user's choice), and the
+    noise, the automatic mask and the stop are measured only where the residual is
+    exact for the model's extent.
+
     References
     ----------
     .. [1] Clark 1980, A&A 89, 377.
     .. [2] Schwab 1984, AJ 89, 1076.
     .. [3] Cornwell 2008, IEEE J. Sel. Topics Signal Process. 2(5), 793.
     .. [4] Rousseeuw & Croux 1993, JASA 88, 1273.
+    .. [5] Offringa & Smirnov 2017, MNRAS 471, 301.
 
     Examples
     --------
@@ -269,15 +367,18 @@ def deconvolve(dirty, psf, *, scales=(0, 4, 8, 16), loop_gain=0.1, threshold=0.0
     >>> (int(r.components["y"][0]), int(r.components["x"][0])), round(float(r.model.sum()), 2)
     ((19, 14), 2.0)
     """
+    from .masks import AutoMask
     params = {k: v for k, v in locals().items()
-              if k not in ("dirty", "psf", "mask", "operator", "callback", "beam", "auto_mask")}
+              if k not in ("dirty", "psf", "mask", "model", "operator", "callback", "beam",
+                           "auto_mask", "AutoMask")}
     # --- input checks (issue 12): every option is checked in _validate.check_run_options ---
     from ._validate import check_run_options
     early = check_run_options(
         dirty, psf, scales=scales, loop_gain=loop_gain, threshold=threshold,
-        noise_threshold=noise_threshold, max_components=max_components,
-        max_major_cycles=max_major_cycles, cycle_depth=cycle_depth, mask=mask,
-        size_penalty=size_penalty, scale_shape=scale_shape, psf_patch=psf_patch,
+        noise_threshold=noise_threshold, extended_depth=extended_depth,
+        max_components=max_components, max_major_cycles=max_major_cycles,
+        cycle_depth=cycle_depth, mask=mask, model=model, size_penalty=size_penalty,
+        scale_loop_depth=scale_loop_depth, scale_shape=scale_shape, psf_patch=psf_patch,
         threads=threads, fft=fft, dtype=dtype, cell_arcsec=cell_arcsec, restore=restore,
         beam=beam)
     if early is not None:
@@ -286,29 +387,79 @@ def deconvolve(dirty, psf, *, scales=(0, 4, 8, 16), loop_gain=0.1, threshold=0.0
     params["scales"] = [float(s) for s in np.atleast_1d(getattr(scales, "value", scales))]
     dt = resolve_dtype(dtype)
     dirty_arr = as_image(dirty, "dirty", dtype=dt)
+    if isinstance(mask, str):
+        if mask != "auto":
+            raise ValueError(f"mask is {mask!r}; give 'auto', a boolean array or None")
+        mask = None
+        auto_mask = auto_mask or "auto"
+    elif isinstance(mask, AutoMask):
+        auto_mask, mask = mask, None
     engine = Engine(psf, scales, image_shape=dirty_arr.shape, scale_shape=scale_shape,
-                    size_penalty=size_penalty, loop_gain=loop_gain, psf_patch=psf_patch,
-                    dtype=dt, threads=threads, fft=fft, cell_arcsec=cell_arcsec)
+                    size_penalty=size_penalty, loop_gain=loop_gain,
+                    scale_loop_depth=scale_loop_depth, dtype=dt, threads=threads, fft=fft,
+                    cell_arcsec=cell_arcsec, psf_patch=psf_patch)
     if operator is None:
-        operator = ImagePlaneOperator(dirty_arr, engine.psf, fft=engine.fft, dtype=dt)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")   # said once below, in words, with the region
+            operator = ImagePlaneOperator(dirty_arr, engine.psf, fft=engine.fft, dtype=dt)
     else:
         operator = as_operator(operator, dirty_arr.shape, dt)
+    user_mask = None if mask is None else np.asarray(mask, dtype=bool)
+    notes = []
+    box = None
+    if not getattr(operator, "exact", True):
+        box = exact_box(dirty_arr.shape, operator.exact_offsets)
+        (y0, y1), (x0, x1) = box
+        notes.append(
+            f"the PSF {engine.psf.shape} is smaller than twice the image {dirty_arr.shape}: "
+            f"the residual is exact only within {operator.exact_offsets} pixels (dy, dx) of "
+            f"each component; components are confined to rows {y0}..{y1 - 1} and columns "
+            f"{x0}..{x1 - 1}" + (" and the mask" if user_mask is not None else "") +
+            ", and the noise and the stop are measured where the residual is exact")
+        inner = np.zeros(dirty_arr.shape, dtype=bool)
+        inner[y0:y1, x0:x1] = True
+        if user_mask is None:
+            mask = inner
+        elif (user_mask & ~inner).any():
+            notes[-1] += ("; the mask reaches beyond that box, where residuals far from "
+                          "components are approximate")
+        for note in notes:
+            logger.warning(note)
+            warnings.warn(note, stacklevel=2)
     updater = None
     if auto_mask is not None:
-        def updater(residual, model, previous, _user=mask):
-            m = auto_mask.update(residual, model=model, previous=previous)
-            return m if _user is None else (m & np.asarray(_user, dtype=bool))
-    result = run_cycles(engine, operator, dirty=dirty_arr, mask=mask, threshold=threshold,
-                        noise_threshold=noise_threshold, max_components=max_components,
+        if isinstance(auto_mask, str):
+            from .beam import fit_beam
+            b = beam if beam is not None else fit_beam(engine.psf)
+            auto_mask = AutoMask(engine.scales.pixels, 0.5 * (b.major + b.minor))
+        updater = _auto_mask_updater(auto_mask, user_mask, box)
+    result = run_cycles(engine, operator, dirty=dirty_arr, model=model, mask=mask,
+                        threshold=threshold, noise_threshold=noise_threshold,
+                        extended_depth=extended_depth, max_components=max_components,
                         max_major_cycles=max_major_cycles, cycle_depth=cycle_depth,
                         mask_updater=updater, callback=callback)
-    params["psf_patch"] = engine.psf_info.patch_half
     result.parameters = params
-    if getattr(operator, "approximation", None):
-        result.warnings.append("residual approximate far from components: "
-                               f"{operator.approximation}")
+    result.warnings = notes + result.warnings
     if restore:
         from .beam import fit_beam, restore as restore_image
         result.beam = beam if beam is not None else fit_beam(engine.psf)
         result.restored = restore_image(result.model, result.residual, result.beam)
     return result
+
+
+def _auto_mask_updater(auto_mask, user_mask, box):
+    """The automatic mask after each major cycle: inside ``box`` (where the residual is
+    exact) when given, intersected with the user's mask."""
+    if hasattr(auto_mask, "reset"):
+        auto_mask.reset()
+
+    def update(residual, model, previous):   # the mask keeps its own previous pixels
+        if box is None:
+            m = auto_mask.update(residual, model=model)
+        else:
+            (y0, y1), (x0, x1) = box
+            m = np.zeros(residual.shape, dtype=bool)
+            m[y0:y1, x0:x1] = auto_mask.update(residual[y0:y1, x0:x1],
+                                               model=model[y0:y1, x0:x1])
+        return m if user_mask is None else (m & user_mask)
+    return update

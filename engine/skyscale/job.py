@@ -23,6 +23,9 @@ from .options import coerce_params, option_label
 __all__ = ["RUN_DEFAULTS", "OUTPUT_NAMES", "run_files", "component_rows", "resume_inputs",
            "BEAM_MIN_PIXELS"]
 
+from .levels import DEFAULT_EXTENDED_DEPTH
+from .minor import DEFAULT_SIZE_PENALTY
+
 logger = logging.getLogger(__name__)
 
 #: Every run parameter with its default (the keys a configuration file may hold).
@@ -36,7 +39,8 @@ RUN_DEFAULTS = {
     "max_components": 20000,
     "max_major_cycles": 20,
     "cycle_depth": 0.2,
-    "size_penalty": 0.6,
+    "size_penalty": DEFAULT_SIZE_PENALTY,
+    "extended_depth": DEFAULT_EXTENDED_DEPTH,
     "psf_patch": None,
     "mask": None,
     "mask_regions": None,
@@ -344,6 +348,7 @@ def run_files(dirty_path, psf_path, out_dir, params=None, *, callback=None, inpu
             threshold=merged["threshold"], noise_threshold=merged["noise_threshold"],
             max_components=merged["max_components"], max_major_cycles=merged["max_major_cycles"],
             cycle_depth=merged["cycle_depth"], mask=mask, size_penalty=merged["size_penalty"],
+            extended_depth=merged["extended_depth"],
             scale_shape=merged["scale_shape"], psf_patch=merged["psf_patch"],
             threads=merged["threads"], cell_arcsec=cell, beam=beam, auto_mask=auto,
             callback=callback, **extra_kw)

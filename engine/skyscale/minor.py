@@ -1,47 +1,82 @@
-"""The `Engine`: precomputed scale beams and the multi-scale minor cycle around the kernels.
+"""The `Engine`: precomputed scale beams and the multi-scale minor cycle.
+
+A minor cycle alternates two steps until every scale is below its floor:
+
+1. choose the scale whose smoothed residual holds the most significant peak (the
+   penalised matched-filter response, see `Engine`);
+2. clean that scale alone with the compiled single-scale sub-loop over its active
+   pixels, subtracting its whole scale beam, then update the residual and every
+   scale's smoothed residual once, exactly, by FFT.
+
+Nothing is ever subtracted approximately, so a minor cycle with the image-plane PSF
+ends on the residual the major cycle will compute (Offringa & Smirnov 2017).
 
 References
 ----------
 .. [1] Cornwell, T. J. 2008, "Multiscale CLEAN deconvolution of radio synthesis
    images", IEEE J. Sel. Topics Signal Process. 2(5), 793.
-.. [2] Clark, B. G. 1980, A&A 89, 377.
+.. [2] Offringa, A. R. & Smirnov, O. 2017, MNRAS 471, 301.
 .. [3] Hogbom, J. A. 1974, A&AS 15, 417.
 """
 
-import copy as _copy
 import logging
 import time
+import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
 
 from ._threads import thread_limit
 from ._validate import as_image, resolve_dtype
-from .fft import Convolver, fast_shape, get_backend
-from .kernels import clean_loop, stamp_components, tile_maxima
-from .precompute import cross_term_patches, plan_memory
-from .psf import PSF_PATCH_LEVEL, check_psf, describe_psf
+from .fft import Convolver, MultiConvolver, get_backend
+from .kernels import scale_loop, stamp_components
+from .levels import allowed_peak, scale_levels
+from .noise import scale_noise
+from .precompute import plan_memory, scale_beams
+from .psf import check_psf, describe_psf
 from .result import COMPONENT_DTYPE
 from .scales import ScaleSet
 
-__all__ = ["Engine", "MinorCycleResult", "LoopState", "MINOR_STOP_REASONS"]
+__all__ = ["Engine", "MinorCycleResult", "ScaleState", "MINOR_STOP_REASONS",
+           "DEFAULT_SIZE_PENALTY", "DEFAULT_SCALE_LOOP_DEPTH"]
 
 logger = logging.getLogger(__name__)
 
-#: A minor cycle hands back early when its tracked peak rises above this multiple of
-#: the peak it started from.  Sidelobes of components nearby may raise a pixel a
-#: little before it is cleaned itself; a rise of this size means the cycle is fitting
-#: what is not there.
-PEAK_RISE_LIMIT = 1.1
+#: Default bias toward small scales (see `Engine` for the derivation).
+DEFAULT_SIZE_PENALTY = 0.3
+
+#: A sub-loop cleans its scale down to this fraction of the scale's peak (or its floor)
+#: before every scale's residual is brought up to date and the next scale is chosen.
+DEFAULT_SCALE_LOOP_DEPTH = 0.5
+
+#: A sub-loop may not raise the peak residual in the mask above the cycle's start (or
+#: `skyscale.levels.LEVEL_ALLOWANCE` times the delta scale's stop level) by more than
+#: this fraction (rounding); past it the sub-loop is undone.
+PEAK_RISE_TOLERANCE = 1e-5
+
+#: A sub-loop that would raise the peak is retried with half its components this many
+#: times before its scale is given up for the rest of the cycle.
+MAX_HALVINGS = 3
 
 #: Why a minor cycle handed back to the major cycle.
 MINOR_STOP_REASONS = {
-    "depth": "the residual peak reached the cycle's floor (cycle_depth or PSF sidelobe level)",
-    "threshold": "the residual peak reached the global threshold",
+    "depth": "every scale reached its floor for this cycle (cycle_depth of its start)",
+    "threshold": "every scale reached its stop level (threshold or noise multiple)",
     "max_components": "the component budget of this cycle was spent",
-    "peak_rose": "the residual peak rose during the cycle; handed back early",
-    "empty": "no pixel may be cleaned (empty mask or nothing above the floor)",
+    "peak_rose": "every remaining sub-loop would have raised the peak residual; rejected",
+    "empty": "no pixel may be cleaned (empty mask)",
 }
+
+
+@dataclass
+class ScaleState:
+    """The residual seen by every scale: smoothed planes, their peaks and noise."""
+
+    planes: np.ndarray         #: (n_scales, ny, nx) residual smoothed by each scale
+    peaks: np.ndarray          #: peak |plane| where each scale may place components
+    noise: np.ndarray          #: each scale's noise, measured where there is no emission
+    noise_pixels: np.ndarray   #: (subsampled) pixels each noise estimate used
+    noise_how: list = None     #: 'measured' or 'scaled' (from the smallest scale) per scale
 
 
 @dataclass
@@ -52,10 +87,16 @@ class MinorCycleResult:
     components: np.ndarray     #: components added, `COMPONENT_DTYPE`
     stop_reason: str           #: a key of `MINOR_STOP_REASONS`
     peak_start: float          #: peak |residual| in the mask at the start, Jy/beam
-    peak_end: float            #: the same at the end, as tracked by the minor cycle
-    floor: float               #: the level the cycle cleaned down to, Jy/beam
-    region: tuple = ()         #: (y0, y1, x0, x1) sub-region searched
-    fallbacks: int = 0         #: components taken as deltas because a scale's sign disagreed
+    peak_end: float            #: the same at the end (the minor cycle's own residual)
+    floor: float               #: the delta scale's floor in this cycle, Jy/beam
+    residual: np.ndarray = None  #: the residual as the minor cycle updated it
+    scale_peaks_start: np.ndarray = None  #: per-scale peak at the start
+    scale_peaks_end: np.ndarray = None    #: per-scale peak at the end
+    scale_floors: np.ndarray = None       #: per-scale floor of this cycle
+    scale_levels: np.ndarray = None       #: per-scale stop level of the run
+    scale_noise: np.ndarray = None        #: per-scale noise used for the levels
+    rounds: int = 0            #: sub-loops run (each ends with an exact update)
+    rejected: int = 0          #: sub-loops undone because they raised the peak
     seconds: float = 0.0
     timings: dict = field(default_factory=dict)
 
@@ -75,42 +116,68 @@ class Engine:
     scale_shape : {'paraboloid', 'gaussian'}
         Scale kernel shape; default the tapered paraboloid of [1]_.
     size_penalty : float
-        Bias toward small scales, weight ``1 - size_penalty * s / s_max``; default 0.6.
+        Bias toward small scales, weight ``1 - size_penalty * s / s_max``; default
+        `DEFAULT_SIZE_PENALTY` (0.3, see Notes).
     loop_gain : float
         Fraction of each component's flux taken per iteration; default 0.1.
-    psf_patch : int, optional
-        Half-width in pixels of the minor-cycle PSF patch; default the smallest one
-        beyond which ``|psf| <= psf_patch_level`` (0.1).
+    scale_loop_depth : float
+        Each sub-loop cleans its scale to this fraction of the scale's peak; default 0.5.
     dtype : {float32, float64}
-        Working precision; default float32.
+        Working precision of the smoothed residuals; default float32.
     threads : int, optional
         Threads for kernels and FFTs; default all cores.
     fft : {'auto', 'numpy', 'pyfftw'} or backend
         FFT backend; default pyfftw when installed.
     cell_arcsec : float, optional
         Cell size, needed when scales are angles.
-    tile : int
-        Tile side of the peak search; default 16.
     max_memory : int, optional
-        Refuse (ValueError) a precompute needing more bytes than this.
+        Refuse (ValueError) an engine needing more bytes than this.
+    psf_patch : optional
+        No longer used (the minor cycle subtracts whole scale beams); a value gives a
+        DeprecationWarning.
 
     Notes
     -----
-    For each scale pair the cross term ``PSF (*) scale_k (*) scale_l`` is kept as a
-    patch of half-width ``psf_patch + r_k + r_l``.  A component is chosen where the
-    penalised matched-filter response ``w_k |R_k| / sqrt(B_kk(0))`` peaks, with
-    ``R_k`` the residual smoothed by scale k and ``B_kk(0)`` the peak of the doubly
-    smoothed PSF; its integrated flux is ``R_k / B_kk(0)`` ([1]_).  The square of the
-    response is the drop in the squared smoothed residual a full-gain component would
-    give, so components are taken in order of the residual they explain.  With a
-    single delta scale this is Hogbom's CLEAN [3]_.
+    Choice of component.  Let ``R`` be the residual (the dirty image of what the model
+    has not explained), ``s_k`` the unit-sum kernel of scale ``k``, ``R_k = s_k (*) R``
+    and ``B_kk = PSF (*) s_k (*) s_k``.  Adding a component of integrated flux ``a``
+    and shape ``s_k`` at pixel ``p`` changes the data misfit (chi-square, for which the
+    PSF is the normal matrix and ``R`` the gradient) by
+
+    .. math:: \\Delta\\chi^2 = -2 a R_k(p) + a^2 B_{kk}(0),
+
+    which is smallest for ``a = R_k(p) / B_kk(0)`` and then equals
+    ``-R_k(p)^2 / B_kk(0)``.  The best component therefore maximises
+    ``|R_k(p)| / sqrt(B_kk(0))`` ([1]_).  The same quantity is the signal-to-noise
+    ratio of ``R_k(p)`` when the noise has the PSF as its covariance (natural
+    weighting), because the noise of ``R_k`` is then ``sigma sqrt(B_kk(0))``.  By
+    Cauchy-Schwarz ``B_jk(0) <= sqrt(B_jj(0) B_kk(0))``, so a source shaped exactly
+    like scale ``j`` is fitted best by scale ``j`` itself, and a point source by the
+    delta scale, without any bias.  The size penalty ``w_k = 1 - p s_k / s_max``
+    multiplies this response only to break near-ties in favour of smaller scales where
+    noise and blending make them as good; with the response divided by
+    ``sqrt(B_kk(0))`` (not ``B_kk(0)``, which measures flux and grows with the scale
+    without bound) a mild ``p = 0.3`` does that.  The often-quoted ``p`` of about 0.6
+    belongs to the flux-normalised response and, used here, would hand extended
+    emission to the delta scale.  The flux taken is ``gain * R_k(p) / B_kk(0)``.
+
+    With a single delta scale this is Hogbom's CLEAN [3]_.
+
+    References
+    ----------
+    .. [1] Cornwell 2008, IEEE J. Sel. Topics Signal Process. 2(5), 793.
+    .. [2] Offringa & Smirnov 2017, MNRAS 471, 301.
+    .. [3] Hogbom 1974, A&AS 15, 417.
     """
 
     def __init__(self, psf, scales=(0, 4, 8, 16), *, image_shape=None,
-                 scale_shape="paraboloid", size_penalty=0.6, loop_gain=0.1, psf_patch=None,
-                 psf_patch_level=PSF_PATCH_LEVEL, dtype=None, threads=None, fft="auto",
-                 cell_arcsec=None, tile=16, max_memory=None):
+                 scale_shape="paraboloid", size_penalty=DEFAULT_SIZE_PENALTY, loop_gain=0.1,
+                 scale_loop_depth=DEFAULT_SCALE_LOOP_DEPTH, dtype=None, threads=None,
+                 fft="auto", cell_arcsec=None, max_memory=None, psf_patch=None):
         t0 = time.perf_counter()
+        if psf_patch is not None:
+            warnings.warn("psf_patch is no longer used: minor cycles subtract whole scale "
+                          "beams; drop the argument", DeprecationWarning, stacklevel=2)
         self.dtype = resolve_dtype(dtype)
         psf_arr = as_image(psf, "psf", dtype=self.dtype)
         self.image_shape = tuple(image_shape) if image_shape is not None else psf_arr.shape
@@ -123,106 +190,90 @@ class Engine:
         if not 0.0 < loop_gain <= 1.0:
             raise ValueError(f"loop_gain is {loop_gain}, expected 0 < loop_gain <= 1; "
                              "0.1 is the usual choice")
-        if int(tile) < 1:
-            raise ValueError(f"tile is {tile}, expected a positive number of pixels")
+        if not 0.0 <= scale_loop_depth < 1.0:
+            raise ValueError(f"scale_loop_depth is {scale_loop_depth}, expected a fraction "
+                             "in [0, 1); 0.5 is the default")
         self.loop_gain = float(loop_gain)
         self.size_penalty = float(size_penalty)
+        self.scale_loop_depth = float(scale_loop_depth)
         self.weights = self.scales.weights(size_penalty)
         self.threads = threads
-        self.tile = int(tile)
         self.fft = get_backend(fft, threads=threads)
-        self.psf_info = describe_psf(self.psf, self.image_shape, patch_half=psf_patch,
-                                     patch_level=psf_patch_level)
+        self.psf_info = describe_psf(self.psf, self.image_shape)
         self.memory = plan_memory(self.image_shape, self.psf.shape, self.scales.support_radii,
-                                  self.psf_info.patch_half, self.dtype.itemsize)
+                                  self.dtype.itemsize)
         if max_memory is not None and self.memory["total"] > max_memory:
-            raise ValueError(f"the precompute needs {self.memory['total'] / 2**20:.0f} MiB, over "
+            raise ValueError(f"the engine needs {self.memory['total'] / 2**20:.0f} MiB, over "
                              f"max_memory {max_memory / 2**20:.0f} MiB; use fewer or smaller "
-                             "scales, a smaller psf_patch, or raise max_memory")
+                             "scales, a smaller image, or raise max_memory")
         self.kernels = self.scales.kernels(self.dtype)
         with thread_limit(threads):
-            pk = cross_term_patches(self.psf, [k.astype(np.float64) for k in self.kernels],
-                                    self.psf_info.patch_half, self.image_shape, self.fft)
-        self.patches, self.patch_offset, self.patch_half, self.beam_peaks = pk
-        bad = [s for s, b in zip(self.scales.pixels, self.beam_peaks) if not b > 0]
-        if bad:
-            raise ValueError(f"scales {bad} px see a PSF whose doubly smoothed peak is <= 0 "
-                             "(the array does not recover structure that large); drop them "
-                             "or use smaller scales")
-        self.patches = self.patches.astype(self.dtype)
+            self.beams, self.beam_peaks = scale_beams(
+                self.psf, [k.astype(np.float64) for k in self.kernels], self.image_shape,
+                self.fft, dtype=self.dtype)
+            bad = [s for s, b in zip(self.scales.pixels, self.beam_peaks) if not b > 0]
+            if bad:
+                raise ValueError(f"scales {bad} px see a PSF whose doubly smoothed peak is "
+                                 "<= 0 (the array does not recover structure that large); "
+                                 "drop them or use smaller scales")
+            self.smoother = MultiConvolver(self.kernels, self.image_shape, backend=self.fft)
+            self.psf_convolver = Convolver(self.psf, self.image_shape, backend=self.fft)
         self.amp_scale = 1.0 / self.beam_peaks
         self.response_scale = self.weights / np.sqrt(self.beam_peaks)
-        self._smoothers = {}
         self.precompute_seconds = time.perf_counter() - t0
-        logger.info("engine ready: %d scales %s, PSF patch half-width %d px, %.1f MiB, %.2f s",
-                    len(self.scales), list(self.scales.pixels), self.psf_info.patch_half,
-                    self.memory["total"] / 2**20, self.precompute_seconds)
+        logger.info("engine ready: %d scales %s, %.1f MiB, %.2f s", len(self.scales),
+                    list(self.scales.pixels), self.memory["total"] / 2**20,
+                    self.precompute_seconds)
 
     # ------------------------------------------------------------------ helpers
     @property
     def n_scales(self):
         return len(self.scales)
 
-    @property
-    def delta_index(self):
-        """Index of the delta plane, or -1 when the set has no delta scale."""
-        return 0 if self.scales.has_delta else -1
-
     def smooth(self, residual):
         """Residual smoothed by every scale kernel: ``(n_scales, ny, nx)``."""
-        shape = residual.shape
-        planes = np.empty((self.n_scales,) + shape, dtype=self.dtype)
-        for k, kern in enumerate(self.kernels):
-            if kern.size == 1:
-                planes[k] = residual * kern[0, 0]
-                continue
-            key = (k, shape)
-            conv = self._smoothers.get(key)
-            if conv is None:
-                conv = self._smoothers[key] = Convolver(kern, shape, backend=self.fft)
-            planes[k] = conv(residual, out_dtype=self.dtype)
-        return planes
+        return self.smoother(np.asarray(residual), dtype=self.dtype)
 
-    def _limits(self, shape, box):
-        """Per-scale allowed centres in box coordinates: a kernel must fit the image."""
-        y0, y1, x0, x1 = box
-        lim = np.empty((self.n_scales, 4), dtype=np.int64)
+    def allowed(self, mask=None):
+        """Per scale, where its components may be centred: in the mask, and at least the
+        kernel's radius from the image edge.  ``(n_scales, ny, nx)`` bool."""
+        ny, nx = self.image_shape
+        out = np.zeros((self.n_scales, ny, nx), dtype=bool)
         for k, r in enumerate(self.scales.support_radii):
-            lim[k] = (max(r, y0) - y0, min(shape[0] - r, y1) - y0,
-                      max(r, x0) - x0, min(shape[1] - r, x1) - x0)
-        return lim
+            out[k, r:ny - r, r:nx - r] = True
+            if mask is not None:
+                out[k] &= mask
+        return out
 
-    def _region(self, planes, mask, floor):
-        """Bounding box of the pixels that may still exceed the floor, with a margin."""
-        shape = planes.shape[1:]
-        any_above = np.zeros(shape, dtype=bool)
-        full = (0, shape[0], 0, shape[1])
-        lim = self._limits(shape, full)
-        level = floor * self.response_scale[0]
-        for k in range(self.n_scales):
-            ya, yb, xa, xb = lim[k]
-            if ya >= yb or xa >= xb:
-                continue
-            resp = np.abs(planes[k, ya:yb, xa:xb]) * self.response_scale[k]
-            any_above[ya:yb, xa:xb] |= resp > level
-        if mask is not None:
-            any_above &= mask
-        ys = np.nonzero(any_above.any(axis=1))[0]
-        if ys.size == 0:
-            return None
-        xs = np.nonzero(any_above.any(axis=0))[0]
-        m = self.psf_info.main_lobe_radius + max(self.scales.support_radii)
-        return (max(ys[0] - m, 0), min(ys[-1] + m + 1, shape[0]),
-                max(xs[0] - m, 0), min(xs[-1] + m + 1, shape[1]))
+    @staticmethod
+    def _peaks(planes, allowed):
+        return np.array([float(np.abs(p[a]).max()) if a.any() else 0.0
+                         for p, a in zip(planes, allowed)])
 
-    def loop_state(self, residual, mask=None, region=None):
-        """Return a `LoopState` over ``region`` (default the whole image)."""
-        return LoopState(self, residual, mask, region)
+    def measure(self, residual, mask=None, noise_region=None, previous=None):
+        """Smooth ``residual`` by every scale; return peaks and noise as a `ScaleState`.
+
+        Noise is measured outside ``mask`` (grown by each scale's radius), inside
+        ``noise_region`` (where the residual is exact; default everywhere), with
+        clipping of what emission is left (`skyscale.noise.scale_noise`); ``previous``
+        (a `ScaleState`) supplies the smallest scale's noise when too little of the
+        image is left to measure it.
+        """
+        residual = np.asarray(residual)
+        with thread_limit(self.threads):
+            planes = self.smooth(residual)
+        allowed = self.allowed(None if mask is None else np.asarray(mask, dtype=bool))
+        sigma, used, how = scale_noise(planes, self.scales.support_radii, mask=mask,
+                                       region=noise_region, ratios=np.sqrt(self.beam_peaks),
+                                       previous=None if previous is None
+                                       else float(previous.noise[0]))
+        return ScaleState(planes, self._peaks(planes, allowed), sigma, used, how)
 
     # --------------------------------------------------------------- the cycle
-    def minor_cycle(self, residual, model=None, *, mask=None, threshold=0.0, cycle_depth=0.2,
-                    max_components=100000, callback=None, chunk=2000):
-        """Clean ``residual`` down to this cycle's floor and return the updated model.
+    def minor_cycle(self, residual, model=None, *, mask=None, threshold=0.0,
+                    noise_threshold=None, extended_depth=0.5, cycle_depth=0.2,
+                    max_components=20000, callback=None, noise_region=None, state=None):
+        """Clean ``residual`` down to this cycle's floors and return the updated model.
 
         Parameters
         ----------
@@ -233,25 +284,34 @@ class Engine:
         mask : (ny, nx) bool ndarray, optional
             Where components may go; default everywhere.
         threshold : float
-            Global threshold in Jy/beam; the cycle never cleans below it.
+            Absolute stop level, Jy/beam, applied to every scale's smoothed residual.
+        noise_threshold : float, optional
+            Stop each scale at this multiple of its own noise (see `scale_levels`).
+        extended_depth : float
+            Inside a mask, finite scales stop at this fraction of the noise multiple.
         cycle_depth : float
-            Clean down to this fraction of the cycle's starting peak (bounded below by
-            the PSF's level outside the patch times that peak, [2]_); default 0.2.
+            Each scale is cleaned down to this fraction of its peak at the cycle's
+            start (never below its stop level); default 0.2.
         max_components : int
-            Most components this cycle may add.
+            Most components this cycle may add; default 20000.
         callback : callable, optional
-            Called as ``callback(dict)`` every ``chunk`` components with keys
-            ``stage='minor'``, ``components``, ``peak``.
+            Called as ``callback(dict)`` after every sub-loop with keys
+            ``stage='minor'``, ``components``, ``peak``, ``scale``.
+        noise_region : (ny, nx) bool ndarray, optional
+            Where the residual is exact, for the noise; default everywhere.
+        state : ScaleState, optional
+            `measure` of this very residual, when the caller already has it.
 
         Returns
         -------
         MinorCycleResult
         """
         t0 = time.perf_counter()
-        residual = as_image(residual, "residual", dtype=self.dtype)
-        if residual.shape[0] > self.psf.shape[0] or residual.shape[1] > self.psf.shape[1]:
-            raise ValueError(f"residual has shape {residual.shape}, larger than the PSF "
-                             f"{self.psf.shape}; give a PSF at least the image's size")
+        residual = as_image(residual, "residual", dtype=np.float64)
+        if residual.shape != self.image_shape:
+            raise ValueError(f"residual has shape {residual.shape}, the engine was built "
+                             f"for {self.image_shape}; build an Engine with image_shape="
+                             f"{residual.shape}")
         if model is None:
             model = np.zeros(residual.shape, dtype=self.dtype)
         else:
@@ -267,122 +327,107 @@ class Engine:
         if not 0.0 <= cycle_depth < 1.0:
             raise ValueError(f"cycle_depth is {cycle_depth}, expected a fraction in [0, 1)")
         with thread_limit(self.threads):
-            return self._minor_cycle(residual, model, mask, float(threshold), float(cycle_depth),
-                                     int(max_components), callback, int(chunk), t0)
+            return self._minor_cycle(residual, model, mask, float(threshold), noise_threshold,
+                                     float(extended_depth), float(cycle_depth),
+                                     int(max_components), callback, noise_region, state, t0)
 
-    def _minor_cycle(self, residual, model, mask, threshold, cycle_depth, budget, callback,
-                     chunk, t0):
-        planes_full = self.smooth(residual)
+    def _minor_cycle(self, residual, model, mask, threshold, noise_threshold, extended_depth,
+                     cycle_depth, budget, callback, noise_region, state, t0):
+        if state is None:
+            state = self.measure(residual, mask, noise_region)
+        planes = state.planes
         t_smooth = time.perf_counter()
-        if mask is not None and not mask.any():
+        allowed = self.allowed(mask)
+        levels = scale_levels(state.noise, threshold=threshold, noise_threshold=noise_threshold,
+                              extended_depth=extended_depth, masked=mask is not None,
+                              scales=self.scales.pixels)
+        start = self._peaks(planes, allowed)
+        floors = np.maximum(levels, cycle_depth * start)
+        in_mask = np.ones(residual.shape, bool) if mask is None else mask
+        peak_start = float(np.abs(residual[in_mask]).max()) if in_mask.any() else 0.0
+        guard = allowed_peak(peak_start, levels, self.scales.has_delta)
+        guard *= 1.0 + PEAK_RISE_TOLERANCE
+        out = dict(scale_peaks_start=start, scale_floors=floors, scale_levels=levels,
+                   scale_noise=state.noise)
+        if not in_mask.any():
             return MinorCycleResult(model.copy(), np.zeros(0, COMPONENT_DTYPE), "empty",
-                                    0.0, 0.0, threshold)
-        ref_plane = np.abs(planes_full[0])
-        peak_start = float(ref_plane[mask].max() if mask is not None else ref_plane.max())
-        floor = max(threshold, cycle_depth * peak_start,
-                    self.psf_info.outside_level * peak_start)
-        floor_is_threshold = floor == threshold
-        empty = MinorCycleResult(model.copy(), np.zeros(0, COMPONENT_DTYPE), "empty",
-                                 peak_start, peak_start, floor)
-        if budget <= 0:
-            empty.stop_reason = "max_components"
-            return empty
-        if peak_start <= floor:
-            empty.stop_reason = "threshold" if floor_is_threshold else "depth"
-            return empty
-        box = self._region(planes_full, mask, floor)
-        if box is None:
-            return empty
-        y0, y1, x0, x1 = box
-        planes = np.ascontiguousarray(planes_full[:, y0:y1, x0:x1])
-        del planes_full
-        mbox = (np.ones((y1 - y0, x1 - x0), dtype=np.uint8) if mask is None
-                else np.ascontiguousarray(mask[y0:y1, x0:x1], dtype=np.uint8))
-        lim = self._limits(residual.shape, box)
-        maxima = tile_maxima(planes, mbox, lim, self.response_scale, self.tile)
+                                    0.0, 0.0, float(floors[0]), residual, scale_peaks_end=start,
+                                    **out)
+        residual = residual.copy()
+        new_model = model.astype(np.float64)
+        peaks = start.copy()
         pieces = []
-        added, fallbacks = 0, 0
-        peak_end = peak_start
-        reason = "empty"
-        while added < budget:
-            comps, code, peak_end, fb = clean_loop(
-                planes, mbox, lim, self.response_scale, self.amp_scale, self.patches,
-                self.patch_offset, self.patch_half, self.tile, maxima, gain=self.loop_gain,
-                floor=floor, peak_limit=peak_start * PEAK_RISE_LIMIT, ref=0,
-                delta=self.delta_index, max_iter=min(chunk, budget - added))
-            pieces.append(comps)
-            added += comps[0].size
-            fallbacks += fb
-            if callback is not None:
-                callback({"stage": "minor", "components": added, "peak": peak_end})
-            if code != "iterations":
-                reason = {"depth": "threshold" if floor_is_threshold else "depth"}.get(code, code)
+        added = rounds = rejected = 0
+        blocked = np.zeros(self.n_scales, dtype=bool)
+        reason = "depth"
+        t_loop = t_update = 0.0
+        while True:
+            live = (peaks > floors) & ~blocked
+            if not live.any():
+                reason = ("peak_rose" if (peaks > floors).any() else
+                          "threshold" if np.all(peaks <= levels) else "depth")
                 break
-        else:
-            reason = "max_components"
-        t_loop = time.perf_counter()
-        ys = np.concatenate([p[0] for p in pieces]) + y0
-        xs = np.concatenate([p[1] for p in pieces]) + x0
-        ks = np.concatenate([p[2] for p in pieces])
-        fs = np.concatenate([p[3] for p in pieces]).astype(np.float64)
-        new_model = model.copy()
-        stamp_components(new_model, self.kernels, ys, xs, ks, fs)
-        table = np.zeros(ys.size, dtype=COMPONENT_DTYPE)
-        table["y"], table["x"], table["flux"] = ys, xs, fs
-        table["scale"] = np.asarray(self.scales.pixels, dtype=np.float32)[ks]
+            if added >= budget:
+                reason = "max_components"
+                break
+            response = np.where(live, self.response_scale * peaks, -1.0)
+            k = int(np.argmax(response))
+            level = max(floors[k], self.scale_loop_depth * peaks[k])
+            ta = time.perf_counter()
+            ys, xs = np.nonzero(allowed[k] & (np.abs(planes[k]) > level))
+            values = planes[k][ys, xs]
+            idx, flux, _, _ = scale_loop(values, ys, xs, self.beams[k],
+                                         beam_peak=self.beam_peaks[k], gain=self.loop_gain,
+                                         level=level, max_iter=budget - added)
+            tb = time.perf_counter()
+            t_loop += tb - ta
+            rounds += 1
+            if idx.size == 0:
+                blocked[k] = True
+                continue
+            # Apply the sub-loop; if it would raise the peak in the mask, try its first
+            # half, then quarter, ... (the rise grows with the flux taken) before
+            # giving the scale up for this cycle.
+            while True:
+                step = np.zeros(residual.shape, dtype=np.float64)
+                stamp_components(step, [self.kernels[k].astype(np.float64)], ys[idx],
+                                 xs[idx], np.zeros(idx.size, np.int64), flux)
+                change = self.psf_convolver(step, out_dtype=np.float64)
+                residual -= change
+                peak0 = float(np.abs(residual[in_mask]).max())
+                if peak0 <= guard:
+                    break
+                residual += change        # undo
+                rejected += 1
+                if idx.size < 2 or rejected % (MAX_HALVINGS + 1) == 0:
+                    idx = idx[:0]
+                    break
+                idx, flux = idx[:idx.size // 2], flux[:idx.size // 2]
+            if idx.size == 0:
+                blocked[k] = True
+                t_update += time.perf_counter() - tb
+                continue
+            new_model += step
+            planes = self.smooth(residual)
+            peaks = self._peaks(planes, allowed)
+            t_update += time.perf_counter() - tb
+            table = np.zeros(idx.size, dtype=COMPONENT_DTYPE)
+            table["y"], table["x"], table["flux"] = ys[idx], xs[idx], flux
+            table["scale"] = np.float32(self.scales.pixels[k])
+            pieces.append(table)
+            added += idx.size
+            blocked[:] = False
+            if callback is not None:
+                callback({"stage": "minor", "components": added, "peak": peak0,
+                          "scale": self.scales.pixels[k]})
+        table = np.concatenate(pieces) if pieces else np.zeros(0, COMPONENT_DTYPE)
+        peak_end = float(np.abs(residual[in_mask]).max())
         t1 = time.perf_counter()
-        logger.debug("minor cycle: %d components, peak %.4g -> %.4g (floor %.4g), %s, region %s",
-                     ys.size, peak_start, peak_end, floor, reason, box)
-        return MinorCycleResult(new_model, table, reason, peak_start, peak_end, floor, box,
-                                fallbacks, t1 - t0,
-                                {"smooth": t_smooth - t0, "loop": t_loop - t_smooth,
-                                 "model": t1 - t_loop})
-
-
-class LoopState:
-    """The minor-cycle loop over a fixed sub-region, stepped by hand.
-
-    For benchmarks and the cost model: ``state = engine.loop_state(residual)`` then
-    ``state.iterate(n)`` adds ``n`` components (no floor, no stop but an empty
-    region) and returns them.  ``bytes_per_iteration`` is what one iteration reads
-    and writes in the planes (patch areas, tiles rescanned included) on average.
-    """
-
-    def __init__(self, engine, residual, mask=None, region=None):
-        self.engine = engine
-        planes_full = engine.smooth(as_image(residual, "residual", dtype=engine.dtype))
-        shape = planes_full.shape[1:]
-        self.region = region or (0, shape[0], 0, shape[1])
-        y0, y1, x0, x1 = self.region
-        self.planes = np.ascontiguousarray(planes_full[:, y0:y1, x0:x1])
-        self.mask = (np.ones(self.planes.shape[1:], dtype=np.uint8) if mask is None
-                     else np.ascontiguousarray(np.asarray(mask)[y0:y1, x0:x1], dtype=np.uint8))
-        self.lim = engine._limits(shape, self.region)
-        self.maxima = tile_maxima(self.planes, self.mask, self.lim, engine.response_scale,
-                                  engine.tile)
-
-    @property
-    def bytes_per_iteration(self):
-        """Plane bytes one iteration touches, averaged over the scale of the component."""
-        e = self.engine
-        t = e.tile
-        h, w = self.planes.shape[1:]
-        side = np.minimum(2 * e.patch_half + 1 + t, max(h, w))
-        per_k = (np.minimum(side, h) * np.minimum(side, w)).sum(axis=1)
-        return float(per_k.mean()) * 2 * e.dtype.itemsize
-
-    def copy(self):
-        """An independent copy (planes and peaks): every timed round can do the same work."""
-        twin = _copy.copy(self)
-        twin.planes = self.planes.copy()
-        twin.maxima = tuple(a.copy() for a in self.maxima)
-        return twin
-
-    def iterate(self, n):
-        e = self.engine
-        with thread_limit(e.threads):
-            comps, code, peak, _ = clean_loop(
-                self.planes, self.mask, self.lim, e.response_scale, e.amp_scale, e.patches,
-                e.patch_offset, e.patch_half, e.tile, self.maxima, gain=e.loop_gain, floor=-1.0,
-                peak_limit=np.inf, ref=0, delta=e.delta_index, max_iter=n)
-        return comps
+        logger.debug("minor cycle: %d components in %d sub-loops (%d rejected), peak "
+                     "%.4g -> %.4g, %s", table.size, rounds, rejected, peak_start, peak_end,
+                     reason)
+        return MinorCycleResult(
+            new_model.astype(self.dtype), table, reason, peak_start, peak_end,
+            float(floors[0]), residual, scale_peaks_end=peaks, rounds=rounds,
+            rejected=rejected, seconds=t1 - t0,
+            timings={"smooth": t_smooth - t0, "loop": t_loop, "update": t_update}, **out)

@@ -8,7 +8,7 @@ References
 
 import numpy as np
 
-__all__ = ["MAD_TO_SIGMA", "robust_noise"]
+__all__ = ["MAD_TO_SIGMA", "CLIP_SIGMA", "robust_noise", "emission_free_noise", "scale_noise"]
 
 #: Factor turning the median absolute deviation into a Gaussian sigma [1]_.
 MAD_TO_SIGMA = 1.4826
@@ -51,3 +51,160 @@ def robust_noise(image, mask=None):
         return 0.0
     med = np.median(data)
     return float(MAD_TO_SIGMA * np.median(np.abs(data - med)))
+
+
+#: Pixels farther than this many robust sigmas from the median are emission, not noise,
+#: and are left out of the next pass of `emission_free_noise` (common practice).
+CLIP_SIGMA = 4.0
+
+#: `emission_free_noise` reads at most about this many pixels (a regular subsample).
+MAX_SAMPLES = 1 << 19
+
+#: Fewest pixels a noise estimate may rest on before `scale_noise` excludes less.
+MIN_NOISE_PIXELS = 400
+
+
+def _grow(mask, radius):
+    """Square dilation of ``mask`` by ``radius`` pixels (separable running maximum)."""
+    from scipy import ndimage
+    if radius <= 0:
+        return mask
+    size = 2 * int(radius) + 1
+    grown = ndimage.maximum_filter1d(mask.view(np.uint8), size, axis=0, mode="constant")
+    return ndimage.maximum_filter1d(grown, size, axis=1, mode="constant").astype(bool)
+
+
+def emission_free_noise(image, *, exclude=None, region=None, border=0, passes=3):
+    """Noise of an image measured where it holds no emission, and where that was.
+
+    Parameters
+    ----------
+    image : (ny, nx) ndarray
+        A residual, or a residual smoothed by one scale (Jy/beam).
+    exclude : (ny, nx) bool ndarray, optional
+        Pixels known to hold emission (a mask grown by the scale's radius): left out.
+    region : (ny, nx) bool ndarray, optional
+        Where the image is trustworthy (for example where the residual is exact);
+        default everywhere.
+    border : int
+        Pixels this close to the image edge are left out (edge effects of smoothing).
+    passes : int
+        Passes of the clipping: after each, pixels beyond ``CLIP_SIGMA`` robust sigmas
+        from the median are left out, so unmasked emission cannot inflate the estimate.
+
+    Returns
+    -------
+    sigma : float
+        1.4826 MAD of the pixels kept ([1]_); 0 when none are left.
+    used : int
+        How many (subsampled) pixels the last pass used.
+
+    References
+    ----------
+    .. [1] Rousseeuw & Croux 1993, JASA 88, 1273.
+    """
+    img = np.asarray(image)
+    ny, nx = img.shape
+    keep = np.ones(img.shape, dtype=bool) if region is None else np.array(region, dtype=bool)
+    if exclude is not None:
+        keep &= ~np.asarray(exclude, dtype=bool)
+    if border > 0:
+        b = min(int(border), (ny - 1) // 2, (nx - 1) // 2)
+        keep[:b] = keep[ny - b:] = False
+        keep[:, :b] = keep[:, nx - b:] = False
+    step = max(int(np.ceil(np.sqrt(ny * nx / MAX_SAMPLES))), 1)
+    data = img[::step, ::step][keep[::step, ::step]].astype(np.float64)
+    data = data[np.isfinite(data)]
+    sigma = 0.0
+    for _ in range(max(int(passes), 1)):
+        if data.size == 0:
+            return 0.0, 0
+        med = np.median(data)
+        sigma = float(MAD_TO_SIGMA * np.median(np.abs(data - med)))
+        if sigma == 0.0:
+            break
+        inside = np.abs(data - med) <= CLIP_SIGMA * sigma
+        if inside.all():
+            break
+        data = data[inside]
+    return sigma, int(data.size)
+
+
+#: A scale's noise is measured only where its emission-free area holds at least this
+#: many kernel areas (independent samples of its smoothed noise); otherwise it comes
+#: from the smallest scale's noise and the PSF (`scale_noise`).
+MIN_INDEPENDENT = 50
+
+
+def scale_noise(planes, radii, *, mask=None, region=None, ratios=None, previous=None):
+    """Noise of each scale's smoothed residual, measured where there is no emission.
+
+    Parameters
+    ----------
+    planes : (n_scales, ny, nx) ndarray
+        The residual smoothed by each scale, smallest scale first.
+    radii : sequence of int
+        Each scale kernel's support half-width: the mask is grown by it and the image
+        border of that width is left out.
+    mask : (ny, nx) bool ndarray, optional
+        Where the emission is (the clean mask); left out.
+    region : (ny, nx) bool ndarray, optional
+        Where the residual is exact; default everywhere.
+    ratios : (n_scales,) array_like, optional
+        Expected noise of each scale relative to the others, ``sqrt(B_kk(0))`` (see
+        Notes).  Used for a scale whose emission-free area is too small to measure it.
+    previous : float, optional
+        The smallest scale's noise from an earlier measurement, kept when too few
+        pixels lie outside the grown mask now (rather than measuring inside emission
+        that cleaning has flattened, which would underestimate it).
+
+    Returns
+    -------
+    sigma : (n_scales,) float64 ndarray
+    used : (n_scales,) int64 ndarray
+        Pixels (subsampled) each measurement used; 0 where the noise was scaled.
+    how : list of str
+        ``'measured'``, ``'scaled'`` or ``'kept'`` (the previous value) per scale.
+
+    Notes
+    -----
+    For white noise of deviation ``sigma`` a unit-sum kernel ``s`` leaves
+    ``sigma * sqrt(sum s^2)``.  Interferometric noise is correlated like the PSF
+    (natural weighting makes the PSF its covariance), so smoothing by ``s_k`` leaves
+    ``sigma * sqrt(B_kk(0))`` with ``B_kk = PSF (*) s_k (*) s_k``, which falls much less.
+    Each scale's noise is measured where it can be (other weightings change the
+    ratio); where the image holds too few independent samples of a broad scale's noise
+    outside the emission, the smallest scale's measured noise is scaled by
+    ``sqrt(B_kk(0) / B_00(0))``.  When fewer than `MIN_NOISE_PIXELS` pixels are left
+    outside the grown mask the mask is left ungrown, and then out, the clipping alone
+    keeping emission out.
+    """
+    n = planes.shape[0]
+    ny, nx = planes.shape[1:]
+    sigma = np.zeros(n)
+    used = np.zeros(n, dtype=np.int64)
+    how = ["measured"] * n
+    mask = None if mask is None else np.asarray(mask, dtype=bool)
+    step = max(int(np.ceil(np.sqrt(ny * nx / MAX_SAMPLES))), 1)
+    for k in range(n):
+        r = int(radii[k])
+        if mask is None or mask.all():
+            tries = [None]
+        elif (k == 0 and previous is None) or ratios is None:
+            tries = [_grow(mask, r), mask, None]
+        else:
+            tries = [_grow(mask, r)]
+        for exclude in tries:
+            sigma[k], used[k] = emission_free_noise(planes[k], exclude=exclude,
+                                                    region=region, border=r)
+            if used[k] >= MIN_NOISE_PIXELS and sigma[k] > 0:
+                break
+        if k == 0 and previous is not None and (used[k] < MIN_NOISE_PIXELS or sigma[k] <= 0):
+            sigma[k], used[k], how[k] = float(previous), 0, "kept"
+        independent = used[k] * step * step / max(np.pi * r * r, 1.0)
+        if k > 0 and ratios is not None and sigma[0] > 0 and (
+                independent < MIN_INDEPENDENT or sigma[k] <= 0):
+            sigma[k] = sigma[0] * float(ratios[k]) / float(ratios[0])
+            used[k] = 0
+            how[k] = "scaled"
+    return sigma, used, how

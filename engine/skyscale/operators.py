@@ -20,15 +20,10 @@ from ._validate import as_image, resolve_dtype
 from .fft import Convolver, get_backend
 from .psf import check_psf
 
-try:  # Python >= 3.8
-    from typing import Protocol, runtime_checkable
-except ImportError:  # pragma: no cover
-    Protocol = object
+from typing import Protocol, runtime_checkable
 
-    def runtime_checkable(c):
-        return c
-
-__all__ = ["ResidualOperator", "ImagePlaneOperator", "FunctionOperator", "as_operator"]
+__all__ = ["ResidualOperator", "ImagePlaneOperator", "FunctionOperator", "as_operator",
+           "exact_box", "exact_region"]
 
 logger = logging.getLogger(__name__)
 
@@ -100,7 +95,11 @@ class ImagePlaneOperator:
 
 
 class FunctionOperator:
-    """Wrap a plain function ``f(model) -> residual`` and check what it returns."""
+    """Wrap a plain function ``f(model) -> residual`` and check what it returns.
+
+    Non-finite values are passed on: the driver stops the run as 'diverging' on them
+    and keeps the last good model.
+    """
 
     def __init__(self, function, shape, dtype=np.float32):
         self.function = function
@@ -109,7 +108,12 @@ class FunctionOperator:
 
     def __call__(self, model):
         out = self.function(model)
-        return as_image(out, "residual returned by the operator", dtype=self.dtype)
+        out = as_image(out, "residual returned by the operator", dtype=self.dtype,
+                       allow_nan=True)
+        if out.shape != self.shape:
+            raise ValueError(f"the operator returned a residual of shape {out.shape}, "
+                             f"expected the image's {self.shape}; return one image per model")
+        return out
 
 
 def as_operator(operator, shape, dtype=np.float32):
@@ -120,3 +124,38 @@ def as_operator(operator, shape, dtype=np.float32):
         raise TypeError(f"operator is {type(operator).__name__}, expected a callable "
                         "model -> residual")
     return FunctionOperator(operator, shape, dtype)
+
+
+def exact_box(shape, offsets):
+    """The central box in which every two pixels are within ``offsets`` of each other.
+
+    A model confined to it has an exact residual on it when the PSF covers ``offsets``
+    (``(dy, dx)``, see `ImagePlaneOperator.exact_offsets`).  Returns ``((y0, y1),
+    (x0, x1))``, half-open.
+    """
+    box = []
+    for n, e in zip(shape, offsets):
+        h = min(int(e) + 1, n)
+        lo = (n - h) // 2
+        box.append((lo, lo + h))
+    return tuple(box)
+
+
+def exact_region(shape, model, offsets):
+    """Where the residual is exact for a model's extent: a bool image, or None for all.
+
+    The residual at ``q`` is exact when every model pixel ``p`` has
+    ``|q - p| <= offsets`` per axis, that is inside the model's bounding box grown by
+    ``offsets`` and shrunk from the far side.
+    """
+    ys = np.nonzero(np.any(model != 0, axis=1))[0]
+    if ys.size == 0:
+        return None
+    xs = np.nonzero(np.any(model != 0, axis=0))[0]
+    ey, ex = offsets
+    ny, nx = shape
+    out = np.zeros(shape, dtype=bool)
+    ya, yb = max(int(ys[-1]) - ey, 0), min(int(ys[0]) + ey + 1, ny)
+    xa, xb = max(int(xs[-1]) - ex, 0), min(int(xs[0]) + ex + 1, nx)
+    out[ya:yb, xa:xb] = True
+    return out

@@ -1,124 +1,120 @@
-"""Precompute of the multi-scale beams: cross-term patches and their memory.
+"""Precompute of the multi-scale beams and what they cost in memory.
+
+For each scale ``k`` the minor cycle needs the scale beam
+``B_kk = PSF (*) scale_k (*) scale_k``: the response of scale ``k``'s smoothed residual
+to a component of scale ``k``.  It is kept at every offset between two pixels of the
+image, so that a sub-loop subtracts it exactly however far apart its components are.
 
 References
 ----------
-.. [1] Cornwell, T. J. 2008, IEEE J. Sel. Topics Signal Process. 2(5), 793 (cross terms
-   PSF (*) scale_k (*) scale_l).
+.. [1] Cornwell, T. J. 2008, IEEE J. Sel. Topics Signal Process. 2(5), 793 (scale
+   beams PSF (*) scale_k (*) scale_l).
+.. [2] Offringa, A. R. & Smirnov, O. 2017, MNRAS 471, 301.
 """
 
 import numpy as np
 
 from .fft import fast_shape
 
-__all__ = ["patch_half_widths", "plan_memory", "cross_term_patches"]
+__all__ = ["scale_beams", "plan_memory"]
 
 
-def patch_half_widths(radii, psf_patch_half, image_shape):
-    """Half-width of each cross-term patch: ``psf_patch + r_k + r_l``, capped by the image.
+def _psf_offsets(psf, half_y, half_x):
+    """The PSF at offsets ``[-half, half]`` per axis, zero beyond its edge (float64)."""
+    py, px = psf.shape
+    cy, cx = py // 2, px // 2
+    out = np.zeros((2 * half_y + 1, 2 * half_x + 1), dtype=np.float64)
+    ya, yb = max(cy - half_y, 0), min(cy + half_y + 1, py)
+    xa, xb = max(cx - half_x, 0), min(cx + half_x + 1, px)
+    out[ya - cy + half_y:yb - cy + half_y, xa - cx + half_x:xb - cx + half_x] = psf[ya:yb, xa:xb]
+    return out
 
-    An offset between two pixels of the image never exceeds ``max(image_shape) - 1``,
-    so no patch need be wider than that.
+
+def scale_beams(psf, kernels, image_shape, backend, dtype=np.float32):
+    """Scale beams ``PSF (*) scale_k (*) scale_k`` at every offset within the image.
+
+    Parameters
+    ----------
+    psf : (py, px) ndarray
+        Normalised PSF, peak 1 at ``(py // 2, px // 2)``.
+    kernels : list of (2r+1, 2r+1) ndarray
+        Unit-sum scale kernels.
+    image_shape : (int, int)
+        ``(ny, nx)``: beams cover offsets ``|dy| <= ny - 1``, ``|dx| <= nx - 1``.
+    backend : FFT backend
+    dtype : numpy dtype
+        Dtype of the returned beams.
+
+    Returns
+    -------
+    beams : list of (2 ny - 1, 2 nx - 1) ndarray
+        Zero offset at ``(ny - 1, nx - 1)``.  The delta scale's beam is the PSF itself.
+    peaks : (n_scales,) float64 ndarray
+        ``B_kk(0)``.
+
+    Notes
+    -----
+    Beyond the PSF's own edge it is taken as zero, as the image-plane residual does.
+    The PSF's transform is taken once; each finite scale costs one forward transform of
+    its kernel and one inverse ([1]_).
     """
-    r = np.asarray(radii, dtype=np.int64)
-    cap = int(max(image_shape)) - 1
-    return np.minimum(psf_patch_half + r[:, None] + r[None, :], cap).astype(np.int64)
+    ny, nx = image_shape
+    radii = [k.shape[0] // 2 for k in kernels]
+    rmax = max(radii)
+    hy, hx = ny - 1 + 2 * rmax, nx - 1 + 2 * rmax
+    region = _psf_offsets(np.asarray(psf, dtype=np.float64), hy, hx)
+    beams, peaks = [], np.zeros(len(kernels))
+    psf_f = None
+    fshape = fast_shape(region.shape, (4 * rmax + 1, 4 * rmax + 1))
+    for k, (kern, r) in enumerate(zip(kernels, radii)):
+        if r == 0:
+            beam = region[2 * rmax:2 * rmax + 2 * ny - 1, 2 * rmax:2 * rmax + 2 * nx - 1]
+            beam = beam * float(np.asarray(kern, dtype=np.float64).ravel()[0]) ** 2
+        else:
+            if psf_f is None:
+                psf_f = backend.rfft2(region, fshape)
+            kern_f = backend.rfft2(np.asarray(kern, dtype=np.float64), fshape)
+            full = backend.irfft2(psf_f * kern_f * kern_f, fshape)
+            # full[i] holds offset i - hy - 2 r (linear convolution of region and kernel^2).
+            s = 2 * rmax + 2 * r
+            beam = full[s:s + 2 * ny - 1, s:s + 2 * nx - 1]
+        beam = np.ascontiguousarray(beam, dtype=dtype)
+        peaks[k] = float(beam[ny - 1, nx - 1])
+        beams.append(beam)
+    return beams, peaks
 
 
-def plan_memory(image_shape, psf_shape, radii, psf_patch_half, itemsize=4):
-    """Bytes a run will hold, known before anything is allocated.
+def plan_memory(image_shape, psf_shape, radii, itemsize=4):
+    """Bytes an `Engine` and its minor cycle hold, known before anything is allocated.
 
     Parameters
     ----------
     image_shape, psf_shape : (int, int)
     radii : sequence of int
         Support half-width of each scale kernel.
-    psf_patch_half : int
-        Half-width of the minor-cycle PSF patch.
     itemsize : int
         4 for float32, 8 for float64.
 
     Returns
     -------
     dict
-        ``patches`` (cross terms, symmetric pairs stored once each way), ``planes``
-        (one smoothed residual per scale), ``precompute_fft`` (transient FFT work
-        space), ``major_fft`` (the image-plane major cycle), ``images`` (dirty,
-        residual, model, mask) and ``total``.
+        ``beams`` (one scale beam per scale), ``planes`` (smoothed residuals, twice: the
+        working set and the copy a rejected sub-loop returns to), ``precompute_fft``
+        (transient work space of the beams' transforms), ``cycle_fft`` (the residual
+        update and smoothing), ``images`` (residual in float64, model, its increment,
+        mask) and ``total`` (beams + planes + images + the larger transient).
     """
     n = len(radii)
-    half = patch_half_widths(radii, psf_patch_half, image_shape)
-    patches = int(((2 * half + 1) ** 2).sum()) * itemsize
     ny, nx = image_shape
-    planes = n * ny * nx * itemsize
     rmax = int(max(radii)) if n else 0
-    reg = 2 * min(psf_patch_half + 4 * rmax, max(psf_shape) // 2) + 1
-    fy, fx = fast_shape((reg, reg), (4 * rmax + 1, 4 * rmax + 1))
-    precompute_fft = (n + 3) * fy * (fx // 2 + 1) * 16
-    my, mx = fast_shape(image_shape, psf_shape)
-    major_fft = 3 * my * (mx // 2 + 1) * 16
-    images = 4 * ny * nx * itemsize + ny * nx * 8
-    total = patches + planes + max(precompute_fft, major_fft) + images
-    return {"patches": patches, "planes": planes, "precompute_fft": precompute_fft,
-            "major_fft": major_fft, "images": images, "total": total}
-
-
-def cross_term_patches(psf, kernels, psf_patch_half, image_shape, backend):
-    """Cross terms ``PSF (*) scale_k (*) scale_l`` cut to patches, by FFT.
-
-    Parameters
-    ----------
-    psf : (py, px) ndarray
-        Normalised PSF, centred at ``(py // 2, px // 2)``.
-    kernels : list of (2r+1, 2r+1) ndarray
-        Unit-sum scale kernels (float64).
-    psf_patch_half : int
-        PSF patch half-width; the (k, l) patch has half-width ``psf_patch + r_k + r_l``.
-    image_shape : (int, int)
-        Caps the patch size (see `patch_half_widths`).
-    backend : FFT backend
-
-    Returns
-    -------
-    patches : (n,) float64 ndarray
-        All patches flattened and packed.
-    offsets, halves : (n_scales, n_scales) int64 ndarrays
-        Start of patch (k, l) in ``patches`` and its half-width; (k, l) and (l, k)
-        share storage.
-    beam_peaks : (n_scales,) ndarray
-        ``B_kk(0)``, the peak of each doubly smoothed PSF.
-
-    Notes
-    -----
-    The patch (k, l) at offsets up to ``h_kl`` needs the PSF out to
-    ``h_kl + r_k + r_l``; the PSF is cut to that region (zero beyond the PSF itself)
-    and every product is transformed once, so the cost is one forward FFT per scale
-    and one inverse FFT per scale pair ([1]_).
-    """
-    radii = [k.shape[0] // 2 for k in kernels]
-    n = len(kernels)
-    halves = patch_half_widths(radii, psf_patch_half, image_shape)
-    need = int(max(halves[k, l] + radii[k] + radii[l] for k in range(n) for l in range(n)))
-    py, px = psf.shape
-    cy, cx = py // 2, px // 2
-    region = np.zeros((2 * need + 1, 2 * need + 1), dtype=np.float64)
-    ya, yb = max(cy - need, 0), min(cy + need + 1, py)
-    xa, xb = max(cx - need, 0), min(cx + need + 1, px)
-    region[ya - cy + need:yb - cy + need, xa - cx + need:xb - cx + need] = psf[ya:yb, xa:xb]
-    rmax = max(radii)
-    fshape = fast_shape(region.shape, (4 * rmax + 1, 4 * rmax + 1))
-    psf_f = backend.rfft2(region, fshape)
-    kern_f = [backend.rfft2(k, fshape) for k in kernels]
-    offsets = np.zeros((n, n), dtype=np.int64)
-    pieces, beam_peaks, pos = [], np.zeros(n), 0
-    for k in range(n):
-        for l in range(k, n):
-            full = backend.irfft2(psf_f * kern_f[k] * kern_f[l], fshape)
-            c = need + radii[k] + radii[l]     # centre of the linear convolution
-            h = int(halves[k, l])
-            patch = np.ascontiguousarray(full[c - h:c + h + 1, c - h:c + h + 1])
-            pieces.append(patch.ravel())
-            offsets[k, l] = offsets[l, k] = pos
-            pos += patch.size
-            if k == l:
-                beam_peaks[k] = patch[h, h]
-    return np.concatenate(pieces), offsets, halves, beam_peaks
+    beams = n * (2 * ny - 1) * (2 * nx - 1) * itemsize
+    planes = 2 * n * ny * nx * itemsize
+    ry, rx = 2 * (ny - 1 + 2 * rmax) + 1, 2 * (nx - 1 + 2 * rmax) + 1
+    fy, fx = fast_shape((ry, rx), (4 * rmax + 1, 4 * rmax + 1))
+    precompute_fft = ry * rx * 8 + 4 * fy * (fx // 2 + 1) * 16
+    ly, lx = fast_shape((ny, nx), (min(psf_shape[0], 2 * ny - 1), min(psf_shape[1], 2 * nx - 1)))
+    cycle_fft = 3 * ly * (lx // 2 + 1) * 16 + ly * lx * 8
+    images = 2 * ny * nx * 8 + 2 * ny * nx * itemsize + ny * nx
+    total = beams + planes + images + max(precompute_fft, cycle_fft)
+    return {"beams": beams, "planes": planes, "precompute_fft": precompute_fft,
+            "cycle_fft": cycle_fft, "images": images, "total": total}

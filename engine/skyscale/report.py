@@ -233,6 +233,19 @@ def _beam(beam, cell):
     return out
 
 
+def _scale_noise(result):
+    """Per-scale noise, stop level and final peak (Jy/beam), and where noise was measured."""
+    noise = getattr(result, "scale_noise", None)
+    if noise is None:
+        return None
+    rows = [{"scale_px": float(s), "noise": float(n), "level": float(lv), "peak": float(p),
+             "active": bool(p > lv)}
+            for s, n, lv, p in zip(result.scales, noise, result.scale_levels,
+                                   result.scale_peaks)]
+    return {"unit": "Jy/beam", "per_scale": rows,
+            "measured_where": _plain(getattr(result, "noise_region", None))}
+
+
 def build_report(result, *, inputs=None, parameters=None, cell_arcsec=None,
                  threads=None, extra=None):
     """Summarise a run as a JSON-ready dict.
@@ -310,7 +323,12 @@ def build_report(result, *, inputs=None, parameters=None, cell_arcsec=None,
         "final": final,
         "stop": {"reason": str(result.stop_reason),
                  "description": str(getattr(result, "stop_description",
-                                            result.stop_reason))},
+                                            result.stop_reason)),
+                 "active_scales_px": _plain(getattr(result, "active_scales", None)),
+                 "rollbacks": int(getattr(result, "rollbacks", 0) or 0),
+                 "sub_loops": int(getattr(result, "sub_loops", 0) or 0),
+                 "rejected_sub_loops": int(getattr(result, "rejected_sub_loops", 0) or 0)},
+        "scale_noise": _scale_noise(result),
         "beam": _beam(getattr(result, "beam", None), cell),
         "warnings": [str(w) for w in (getattr(result, "warnings", None) or [])],
         "extra": _plain(dict(extra)) if extra is not None else {},

@@ -13,12 +13,13 @@ COMPONENT_DTYPE = np.dtype([("y", np.int32), ("x", np.int32),
 
 #: Every reason a run can stop, with a one-line meaning.
 STOP_REASONS = {
-    "threshold": "peak residual in the mask reached the absolute threshold",
-    "noise": "peak residual in the mask reached the requested multiple of the robust noise",
+    "threshold": "every scale's residual in the mask reached the absolute threshold",
+    "noise": "every scale's residual in the mask reached its multiple of that scale's noise",
     "max_components": "the component budget was spent",
     "max_major_cycles": "the major-cycle budget was spent",
     "no_progress": "major cycles stopped lowering the peak residual",
-    "diverging": "a major cycle raised the peak residual; its components were rolled back",
+    "diverging": "major cycles kept raising the peak residual (or gave non-finite values); "
+                 "the last good model is kept",
     "empty_mask": "the mask allows no pixel to be cleaned",
     "interrupted": "the run was interrupted; the result holds what was done so far",
     "nothing_to_clean": "the dirty image is constant (zero included): there is nothing to clean",
@@ -41,6 +42,7 @@ class CycleRecord:
     flux: float                #: total model flux, Jy
     minor_iterations: int = 0  #: components added by this cycle's minor cycle
     minor_stop: str = ""       #: why that minor cycle handed back
+    scale_peaks: list = None   #: per-scale peak of the smoothed residual in the mask
 
     def as_dict(self):
         return dict(self.__dict__)
@@ -76,6 +78,17 @@ class DeconvolutionResult:
         Seconds spent in ``precompute``, ``minor`` and ``major`` cycles.
     warnings : list of str
         Unusual but allowed conditions met during the run.
+    rollbacks : int
+        Major cycles undone because they raised the peak residual in the mask.
+    scale_noise, scale_levels, scale_peaks : list of float
+        Per scale: its own noise (Jy/beam, measured where there is no emission), its
+        stop level and its peak in the mask at the end.
+    active_scales : list of float
+        Scales (pixels) still above their stop level when the run stopped.
+    noise_region : dict
+        Where the noise was measured (``where``, ``pixels_used`` per scale).
+    sub_loops, rejected_sub_loops : int
+        Single-scale sub-loops run, and those undone because they raised the peak.
     """
 
     model: np.ndarray
@@ -90,6 +103,14 @@ class DeconvolutionResult:
     parameters: dict = field(default_factory=dict)
     timings: dict = field(default_factory=dict)
     warnings: list = field(default_factory=list)
+    rollbacks: int = 0
+    scale_noise: list = None
+    scale_levels: list = None
+    scale_peaks: list = None
+    active_scales: list = None
+    noise_region: dict = None
+    sub_loops: int = 0
+    rejected_sub_loops: int = 0
 
     @property
     def stop_description(self):

@@ -5,7 +5,7 @@ and hands the kernel contiguous arrays; each has a plain numpy twin in
 ``tests/naive.py`` that it must match.
 """
 
-from .clean_loop import LOOP_STOP_CODES, clean_loop, tile_maxima
+from .scale_loop import PARALLEL_MIN_ACTIVE, SCALE_LOOP_STOP_CODES, scale_loop
 from .stamp import stamp_components
 
-__all__ = ["LOOP_STOP_CODES", "clean_loop", "tile_maxima", "stamp_components"]
+__all__ = ["PARALLEL_MIN_ACTIVE", "SCALE_LOOP_STOP_CODES", "scale_loop", "stamp_components"]
