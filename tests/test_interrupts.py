@@ -8,7 +8,6 @@ FITS integrity is checked with astropy's CHECKSUM/DATASUM verification (FITS Sta
 4.0, appendix J).
 """
 
-import inspect
 import json
 import os
 import signal
@@ -200,11 +199,6 @@ def test_sigkill_during_a_large_write_never_leaves_a_half_file(previous, tmp_pat
     assert not [p for p in os.listdir(tmp_path) if p.endswith(".tmp")]
 
 
-ENGINE_RESUMES = "model" in inspect.signature(skyscale.deconvolve).parameters
-
-
-@pytest.mark.xfail(not ENGINE_RESUMES, strict=True,
-                   reason="deconvolve(..., model=) has not landed yet (lead, issue 14)")
 def test_resume_continues_from_the_written_model(inputs, tmp_path):
     out = tmp_path / "out"
     first = ["--quiet", "run", inputs[0], inputs[1], "--out", str(out), "--scales", "0,4",
