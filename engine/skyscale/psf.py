@@ -82,9 +82,9 @@ def check_psf(psf, image_shape, *, dtype=np.float32, name="psf"):
         raise InputError(f"{name} has a negative peak ({value:.4g} at the centre {centre}); "
                          "the PSF's peak must be positive (was the image negated?)")
     if value <= 0 or float(absolute[peak]) > value * (1 + 1e-4):
-        raise InputError(f"{name} peak is at [y, x] {peak} ({float(psf[peak]):.4g}), expected "
-                         f"the centre {centre}; re-centre the PSF so its maximum is at "
-                         "(ny // 2, nx // 2)")
+        raise InputError(f"{name} peak is at [y, x] {peak} (value {float(psf[peak]):.4g}), "
+                         f"expected the centre {centre}; re-centre the PSF so its maximum "
+                         "is at (ny // 2, nx // 2)")
     if abs(value - 1.0) > PSF_PEAK_TOLERANCE:
         raise InputError(f"{name} peak is {value:.4g}, not 1 (more than "
                          f"{PSF_PEAK_TOLERANCE:g} off); check that this is the PSF and not "
