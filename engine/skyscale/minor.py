@@ -90,6 +90,7 @@ class MinorCycleResult:
     peak_end: float            #: the same at the end (the minor cycle's own residual)
     floor: float               #: the delta scale's floor in this cycle, Jy/beam
     residual: np.ndarray = None  #: the residual as the minor cycle updated it
+    region: tuple = ()         #: (y0, y1, x0, x1) box the cycle worked in
     scale_peaks_start: np.ndarray = None  #: per-scale peak at the start
     scale_peaks_end: np.ndarray = None    #: per-scale peak at the end
     scale_floors: np.ndarray = None       #: per-scale floor of this cycle
@@ -218,6 +219,7 @@ class Engine:
                                  "drop them or use smaller scales")
             self.smoother = MultiConvolver(self.kernels, self.image_shape, backend=self.fft)
             self.psf_convolver = Convolver(self.psf, self.image_shape, backend=self.fft)
+        self._box_tools = {}
         self.amp_scale = 1.0 / self.beam_peaks
         self.response_scale = self.weights / np.sqrt(self.beam_peaks)
         self.precompute_seconds = time.perf_counter() - t0
@@ -244,6 +246,26 @@ class Engine:
             if mask is not None:
                 out[k] &= mask
         return out
+
+    def _box(self, allowed):
+        """(y0, y1, x0, x1): the allowed centres' bounding box grown by the largest radius."""
+        ny, nx = self.image_shape
+        r = max(self.scales.support_radii)
+        rows = np.nonzero(allowed.any(axis=(0, 2)))[0]
+        cols = np.nonzero(allowed.any(axis=(0, 1)))[0]
+        return (max(int(rows[0]) - r, 0), min(int(rows[-1]) + r + 1, ny),
+                max(int(cols[0]) - r, 0), min(int(cols[-1]) + r + 1, nx))
+
+    def _tools(self, shape):
+        """PSF convolver and smoother for a box of ``shape`` (kept for reuse)."""
+        shape = tuple(shape)
+        if shape not in self._box_tools:
+            if len(self._box_tools) >= 4:
+                self._box_tools.pop(next(iter(self._box_tools)))
+            self._box_tools[shape] = (
+                Convolver(self.psf, shape, backend=self.fft, precision=self.dtype),
+                MultiConvolver(self.kernels, shape, backend=self.fft, precision=self.dtype))
+        return self._box_tools[shape]
 
     @staticmethod
     def _peaks(planes, allowed):
@@ -353,8 +375,15 @@ class Engine:
             return MinorCycleResult(model.copy(), np.zeros(0, COMPONENT_DTYPE), "empty",
                                     0.0, 0.0, float(floors[0]), residual, scale_peaks_end=start,
                                     **out)
-        residual = residual.copy()
-        new_model = model.astype(np.float64)
+        # Work on the box that holds every allowed centre, grown by the largest kernel
+        # radius: there the smoothed residuals are exact, and the FFTs are that size.
+        y0, y1, x0, x1 = self._box(allowed)
+        sub = residual[y0:y1, x0:x1].copy()
+        planes = np.ascontiguousarray(planes[:, y0:y1, x0:x1])
+        allowed = allowed[:, y0:y1, x0:x1]
+        in_box = in_mask[y0:y1, x0:x1]
+        psf_convolver, smoother = self._tools(sub.shape)
+        total = np.zeros(sub.shape, dtype=np.float64)
         peaks = start.copy()
         pieces = []
         added = rounds = rejected = 0
@@ -374,7 +403,20 @@ class Engine:
             k = int(np.argmax(response))
             level = max(floors[k], self.scale_loop_depth * peaks[k])
             ta = time.perf_counter()
-            ys, xs = np.nonzero(allowed[k] & (np.abs(planes[k]) > level))
+            # Active pixels: above the sub-loop's level, and where no other scale that is
+            # still above its own floor there has a larger penalised response (a bright
+            # compact source seen through a broad scale's smoothing stays the delta
+            # scale's, as it would with a per-component choice of scale).
+            mine = allowed[k] & (np.abs(planes[k]) > level)
+            ys, xs = np.nonzero(mine)
+            resp = self.response_scale[k] * np.abs(planes[k][ys, xs])
+            for j in range(self.n_scales):
+                if j != k:
+                    pj = np.abs(planes[j][ys, xs])
+                    claims = allowed[j][ys, xs] & (pj > floors[j]) & ~blocked[j]
+                    resp = np.where(claims & (self.response_scale[j] * pj > resp), -1.0, resp)
+            best = resp >= 0
+            ys, xs = ys[best], xs[best]
             values = planes[k][ys, xs]
             idx, flux, _, _ = scale_loop(values, ys, xs, self.beams[k],
                                          beam_peak=self.beam_peaks[k], gain=self.loop_gain,
@@ -382,37 +424,34 @@ class Engine:
             tb = time.perf_counter()
             t_loop += tb - ta
             rounds += 1
-            if idx.size == 0:
-                blocked[k] = True
-                continue
             # Apply the sub-loop; if it would raise the peak in the mask, try its first
             # half, then quarter, ... (the rise grows with the flux taken) before
             # giving the scale up for this cycle.
-            while True:
-                step = np.zeros(residual.shape, dtype=np.float64)
+            tries = 0
+            while idx.size:
+                step = np.zeros(sub.shape, dtype=np.float64)
                 stamp_components(step, [self.kernels[k].astype(np.float64)], ys[idx],
                                  xs[idx], np.zeros(idx.size, np.int64), flux)
-                change = self.psf_convolver(step, out_dtype=np.float64)
-                residual -= change
-                peak0 = float(np.abs(residual[in_mask]).max())
+                change = psf_convolver(step, out_dtype=np.float64)
+                sub -= change
+                peak0 = float(np.abs(sub[in_box]).max())
                 if peak0 <= guard:
                     break
-                residual += change        # undo
+                sub += change        # undo
                 rejected += 1
-                if idx.size < 2 or rejected % (MAX_HALVINGS + 1) == 0:
-                    idx = idx[:0]
-                    break
-                idx, flux = idx[:idx.size // 2], flux[:idx.size // 2]
+                tries += 1
+                keep = idx.size // 2 if tries <= MAX_HALVINGS else 0
+                idx, flux = idx[:keep], flux[:keep]
             if idx.size == 0:
                 blocked[k] = True
                 t_update += time.perf_counter() - tb
                 continue
-            new_model += step
-            planes = self.smooth(residual)
+            total += step
+            planes = smoother(sub, dtype=self.dtype)
             peaks = self._peaks(planes, allowed)
             t_update += time.perf_counter() - tb
             table = np.zeros(idx.size, dtype=COMPONENT_DTYPE)
-            table["y"], table["x"], table["flux"] = ys[idx], xs[idx], flux
+            table["y"], table["x"], table["flux"] = ys[idx] + y0, xs[idx] + x0, flux
             table["scale"] = np.float32(self.scales.pixels[k])
             pieces.append(table)
             added += idx.size
@@ -420,14 +459,21 @@ class Engine:
             if callback is not None:
                 callback({"stage": "minor", "components": added, "peak": peak0,
                           "scale": self.scales.pixels[k]})
+        new_model = model.astype(np.float64)
+        new_model[y0:y1, x0:x1] += total
+        if added:
+            step = np.zeros(residual.shape, dtype=np.float64)
+            step[y0:y1, x0:x1] = total
+            residual = residual - self.psf_convolver(step, out_dtype=np.float64)
         table = np.concatenate(pieces) if pieces else np.zeros(0, COMPONENT_DTYPE)
         peak_end = float(np.abs(residual[in_mask]).max())
+        box = (y0, y1, x0, x1)
         t1 = time.perf_counter()
         logger.debug("minor cycle: %d components in %d sub-loops (%d rejected), peak "
                      "%.4g -> %.4g, %s", table.size, rounds, rejected, peak_start, peak_end,
                      reason)
         return MinorCycleResult(
             new_model.astype(self.dtype), table, reason, peak_start, peak_end,
-            float(floors[0]), residual, scale_peaks_end=peaks, rounds=rounds,
+            float(floors[0]), residual, box, scale_peaks_end=peaks, rounds=rounds,
             rejected=rejected, seconds=t1 - t0,
             timings={"smooth": t_smooth - t0, "loop": t_loop, "update": t_update}, **out)
