@@ -385,3 +385,20 @@ def test_run_that_cannot_fit_is_refused_from_the_headers_before_reading(files, t
                  "--scales", "0,4,8"])
     err = capsys.readouterr().err
     assert code == 2 and "the run needs about" in err and "available" in err
+
+
+@pytest.mark.parametrize("extra, text", [
+    (["--check", "0,8arcsec"], "give the scales to check in pixels"),
+    (["--check", "0,4,4x"], "--check is '0,4,4x'"),
+    (["--max-count", "many"], "--max-count"),
+], ids=["check-in-arcsec", "check-word", "max-count-word"])
+def test_suggest_bad_input_is_one_line_and_exit_2(extra, text, files, capsys):
+    assert main(["suggest", files["dirty"], files["psf"]] + extra) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and text in err[0]
+
+
+def test_suggest_refuses_a_file_that_is_not_fits(files, capsys):
+    assert main(["suggest", files["notfits"], files["psf"]]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "is not a FITS file" in err[0]

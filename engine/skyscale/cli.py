@@ -58,7 +58,10 @@ def demo_data_dir():
 def _scales(text):
     from .options import parse_scales
     try:
-        return parse_scales(text, "--check")[0]
+        scales, unit = parse_scales(text, "--check")
+        if unit == "arcsec":
+            raise InputError(f"--check is {text!r}; give the scales to check in pixels")
+        return scales
     except InputError as exc:
         raise argparse.ArgumentTypeError(str(exc)) from None
 
