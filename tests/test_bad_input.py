@@ -203,6 +203,9 @@ def files(tmp_path_factory):
     other["corner_mask"] = write_fits(d / "corner.fits",
                                       _mask(False, (slice(0, 10), slice(0, 10))), sky_header(N))
     other["empty_mask"] = write_fits(d / "empty.fits", _mask(False), sky_header(N))
+    shifted = sky_header(N)
+    shifted["CRPIX1"] += 7
+    other["shifted_mask"] = write_fits(d / "shifted.fits", _mask(True), shifted)
     other["notfits"] = str(d / "notfits.fits")
     open(other["notfits"], "w").write("not a FITS file\n")
     other["a_file"] = str(d / "a_file.txt")
@@ -248,6 +251,8 @@ CLI_CASES = [
     ("mask-and-regions-apart", ["--mask", "{corner_mask}", "--mask-regions",
                                 "circle 50 50 5"], "--mask and --mask-regions do not overlap"),
     ("mask-empty", ["--mask", "{empty_mask}"], "allows no pixel"),
+    ("mask-shifted-grid", ["--mask", "{shifted_mask}"], "is on another grid: its pixels lie "
+                                                       "up to 7 pixels"),
     ("dirty-jy-per-pixel", ["{jy_pixel}", "{psf}"], "BUNIT 'Jy/pixel'"),
     ("dirty-nan", ["{nan}", "{psf}"], "--nonfinite mask"),
     ("psf-other-grid", ["{dirty}", "{psf_other_grid}"], "psf cell size is"),

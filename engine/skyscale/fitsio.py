@@ -378,7 +378,7 @@ def _header_wcs(header, label):
                          "CRVAL, CDELT/CD or remove them") from None
 
 
-def check_same_grid(image, psf):
+def check_same_grid(image, psf, *, name="psf"):
     """Check that the PSF was made on the image's grid: same cell size and orientation.
 
     Parameters
@@ -391,7 +391,8 @@ def check_same_grid(image, psf):
     ------
     ValueError
         If the cell sizes differ by more than `GRID_RTOL` (relative) or one grid is
-        rotated or flipped relative to the other.
+        rotated or flipped relative to the other.  Messages call the second image
+        ``name`` (for example ``'mask'``).
 
     Examples
     --------
@@ -407,16 +408,16 @@ def check_same_grid(image, psf):
     cel_i, cel_p = (w.celestial for w in wcs)
     ci, cp = cell_size_arcsec(cel_i), cell_size_arcsec(cel_p)
     if abs(ci - cp) > GRID_RTOL * ci:
-        raise InputError(f"psf cell size is {cp:.9g} arcsec but the image's is {ci:.9g} "
-                         "arcsec; make the PSF on the image's grid (same cell size)")
+        raise InputError(f"{name} cell size is {cp:.9g} arcsec but the image's is {ci:.9g} "
+                         f"arcsec; make the {name} on the image's grid (same cell size)")
     oi, op = _orientation(cel_i), _orientation(cel_p)
     if np.max(np.abs(oi - op)) > GRID_RTOL:
         def describe(o):
             dx, dy = np.linalg.solve(o, [0.0, 1.0])
             side = "-x" if np.linalg.det(o) < 0 else "+x"
             return f"north {math.degrees(math.atan2(-dx, dy)):.4f} deg from +y, east to {side}"
-        raise InputError(f"psf grid orientation ({describe(op)}) differs from the image's "
-                         f"({describe(oi)}); make the PSF on the image's grid")
+        raise InputError(f"{name} grid orientation ({describe(op)}) differs from the "
+                         f"image's ({describe(oi)}); make the {name} on the image's grid")
     return None
 
 

@@ -105,6 +105,7 @@ def _build_mask(params, image, shape, labels):
     mask = None
     if params.get("mask"):
         from .masks import load_mask
+        _check_mask_grid(image, params["mask"], labels["mask"])
         mask = load_mask(params["mask"], shape)
         if not mask.any():
             raise InputError(f"{labels['mask']} {params['mask']} allows no pixel (it is all "
@@ -126,6 +127,26 @@ def _build_mask(params, image, shape, labels):
             region = mask & region
         mask = region
     return mask
+
+
+def _check_mask_grid(image, path, label):
+    """Refuse a FITS mask whose WCS puts its pixels elsewhere on the sky than the image's."""
+    mask_img = read_image(path, name="mask")
+    if image.wcs is None or mask_img.wcs is None or mask_img.data.shape != image.data.shape:
+        return                                  # nothing to compare, or load_mask says it
+    try:
+        check_same_grid(image, mask_img, name="mask")
+    except InputError as exc:
+        raise InputError(f"{label} {path}: {exc}") from None
+    ny, nx = image.data.shape
+    corners = np.array([[0.0, 0.0], [nx - 1.0, ny - 1.0]])
+    world = mask_img.wcs.pixel_to_world_values(corners[:, 0], corners[:, 1])
+    back = np.array(image.wcs.world_to_pixel_values(*world)).T
+    shift = float(np.max(np.abs(back - corners)))
+    if not shift <= 0.5:
+        raise InputError(f"{label} {path} is on another grid: its pixels lie up to "
+                         f"{shift:.3g} pixels from the dirty image's (compare CRPIX/CRVAL); "
+                         "regrid the mask onto the dirty image")
 
 
 def _check_units(image, warn_list):
