@@ -389,7 +389,7 @@ def check_same_grid(image, psf, *, name="psf"):
 
     Raises
     ------
-    ValueError
+    InputError
         If the cell sizes differ by more than `GRID_RTOL` (relative) or one grid is
         rotated or flipped relative to the other.  Messages call the second image
         ``name`` (for example ``'mask'``).
