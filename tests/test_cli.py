@@ -104,7 +104,7 @@ def test_run_with_options_and_config(tmp_path):
 @pytest.mark.parametrize("argv, text", [
     (["run", "missing.fits", "missing.fits", "--out", "x"], "missing.fits"),
     (["run", os.path.join(DEMO, "dirty.fits"), os.path.join(DEMO, "psf.fits"), "--out", "{tmp}",
-      "--loop-gain", "3"], "loop_gain"),
+      "--loop-gain", "3"], "--loop-gain"),
 ])
 def test_bad_input_is_one_line_and_exit_2(argv, text, tmp_path, capsys):
     argv = [a.replace("{tmp}", str(tmp_path / "o")) for a in argv]

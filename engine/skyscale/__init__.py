@@ -13,6 +13,7 @@ import os as _os
 _os.environ.setdefault("GOMP_SPINCOUNT", "20000")
 from importlib.metadata import PackageNotFoundError, version as _version
 
+from ._validate import InputError, mask_nonfinite
 from .advisor import (EmissionExtent, ScaleChoiceWarning, ScaleSuggestion, check_scales,
                       measure_emission_extent, resolve_scales, suggest_scales)
 from .beam import (Beam, beam_area, beam_kernel, fit_beam, jy_per_beam_to_jy_per_pixel,
@@ -44,7 +45,7 @@ except PackageNotFoundError:  # running from a source tree
     __version__ = "unknown"
 
 __all__ = [
-    "__version__",
+    "__version__", "InputError", "mask_nonfinite",
     "deconvolve", "run_cycles", "Engine", "MinorCycleResult",
     "ImagePlaneOperator", "FunctionOperator", "ResidualOperator",
     "DeconvolutionResult", "CycleRecord", "COMPONENT_DTYPE", "STOP_REASONS",

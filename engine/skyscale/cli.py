@@ -1,21 +1,46 @@
 """The ``skyscale`` command line: a thin layer over the API.
 
-Exit codes: 0 success, 1 failure while running, 2 bad input.
+Exit codes (`EXIT_CODES`): 0 success; 1 failure while running; 2 bad input (one line
+on stderr, found before any work); 3 interrupted (Ctrl-C or SIGTERM), every output
+written with stop reason "interrupted"; 4 interrupted before the outputs were complete
+(none written, or the folder keeps its OUTPUTS_INCOMPLETE.txt marker).
 """
 
 import argparse
 import logging
 import os
+import signal
 import sys
 import time
 
 from . import __version__
+from ._validate import InputError
 
-__all__ = ["main", "build_parser", "demo_data_dir"]
+__all__ = ["main", "build_parser", "demo_data_dir", "EXIT_CODES"]
 
-#: Exceptions that mean the input was bad (exit code 2).
-BAD_INPUT = (ValueError, TypeError, FileNotFoundError, FileExistsError, KeyError,
-             IsADirectoryError, NotADirectoryError)
+#: Every exit code of the command line and what it means.
+EXIT_CODES = {
+    0: "success",
+    1: "failure while running (a bug or a system fault; --debug shows the traceback)",
+    2: "bad input: one line on stderr names the problem and the fix; nothing was written",
+    3: "interrupted (Ctrl-C or SIGTERM): the run stopped after its last complete step and "
+       "every output was written, stop reason 'interrupted'",
+    4: "interrupted before the outputs were complete: none were written, or the output "
+       "folder keeps its OUTPUTS_INCOMPLETE.txt marker",
+}
+EXIT_OK, EXIT_FAILED, EXIT_BAD_INPUT, EXIT_INTERRUPTED, EXIT_INCOMPLETE = 0, 1, 2, 3, 4
+
+#: Exceptions that mean the input was bad (exit code 2).  Plain ValueError stays here
+#: until every check in the engine raises InputError.
+BAD_INPUT = (InputError, ValueError, FileNotFoundError, FileExistsError,
+             IsADirectoryError, NotADirectoryError, PermissionError)
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse with usage errors on one line and exit code 2."""
+
+    def error(self, message):
+        self.exit(EXIT_BAD_INPUT, f"{self.prog}: error: {message} (see {self.prog} --help)\n")
 
 
 def demo_data_dir():
@@ -30,63 +55,58 @@ def demo_data_dir():
                             "(pip install -e .) or set SKYSCALE_DEMO_DATA to its folder")
 
 
-def _floats(text):
-    return [float(v) for v in text.replace(" ", "").split(",") if v]
-
-
 def _scales(text):
-    if text.strip().lower() == "auto":
-        return "auto"
+    from .options import parse_scales
     try:
-        return _floats(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(
-            f"--scales {text!r}: give comma-separated diameters such as 0,4,16, or auto") from None
-
-
-def _beam(text):
-    vals = _floats(text)
-    if len(vals) != 3:
-        raise argparse.ArgumentTypeError("--beam takes MAJOR,MINOR,PA: FWHMs in arcsec, "
-                                         "position angle in degrees east of north")
-    return vals
+        scales, unit = parse_scales(text, "--check")
+        if unit == "arcsec":
+            raise InputError(f"--check is {text!r}; give the scales to check in pixels")
+        return scales
+    except InputError as exc:
+        raise argparse.ArgumentTypeError(str(exc)) from None
 
 
 def _add_run_options(p):
+    # Values are read by skyscale.options (the same reader as the TOML file), so every
+    # option takes text here and a bad value gets one line naming it.
     g = p.add_argument_group("deconvolution")
-    g.add_argument("--scales", type=_scales, help="scale diameters, comma-separated, 0 = delta; "
-                   "'auto' asks the scale advisor [0,4,8,16]")
-    g.add_argument("--scale-unit", choices=("pixel", "arcsec"),
-                   help="unit of --scales: pixel, or arcsec through the WCS [pixel]")
-    g.add_argument("--scale-shape", choices=("paraboloid", "gaussian"),
-                   help="scale kernel shape [paraboloid]")
-    g.add_argument("--loop-gain", type=float, help="fraction of a component taken per step [0.1]")
-    g.add_argument("--threshold", type=float, help="stop at this peak residual, Jy/beam [0]")
-    g.add_argument("--noise-threshold", type=float,
-                   help="stop at this multiple of the robust noise (1.4826 MAD) [off]")
-    g.add_argument("--max-components", type=int, help="component budget [20000]")
-    g.add_argument("--max-major-cycles", type=int, help="major-cycle budget [20]")
-    g.add_argument("--cycle-depth", type=float,
+    g.add_argument("--scales", help="scale diameters, 0 = delta, separated by commas or "
+                   "spaces (0,4,16), in pixels or with a unit (0,8arcsec,16arcsec); 'auto' "
+                   "asks the scale advisor [0,4,8,16]")
+    g.add_argument("--scale-unit", help="unit of --scales: pixel, or arcsec through the WCS "
+                   "[pixel]")
+    g.add_argument("--scale-shape", help="scale kernel shape: paraboloid or gaussian "
+                   "[paraboloid]")
+    g.add_argument("--loop-gain", help="fraction of a component taken per step, in (0, 1] [0.1]")
+    g.add_argument("--threshold", help="stop at this peak residual, Jy/beam; a unit may be "
+                   "written (0.1mJy) [0]")
+    g.add_argument("--noise-threshold", help="stop at this multiple of the robust noise "
+                   "(1.4826 MAD), e.g. 3 or 3sigma [off]")
+    g.add_argument("--max-components", help="component budget, >= 1 [20000]")
+    g.add_argument("--max-major-cycles", help="major-cycle budget, >= 1 [20]")
+    g.add_argument("--cycle-depth",
                    help="each minor cycle cleans to this fraction of its start peak [0.2]")
-    g.add_argument("--size-penalty", type=float,
-                   help="bias toward small scales, weight 1 - p s/s_max [0.3]")
-    g.add_argument("--extended-depth", type=float,
-                   help="inside a mask, finite scales stop at this fraction of the noise "
-                   "multiple [0.25]")
-    g.add_argument("--psf-patch", type=int, help="no longer used (minor cycles subtract "
-                   "whole scale beams); accepted with a warning")
-    g.add_argument("--beam", type=_beam, help="restoring beam MAJOR,MINOR,PA in arcsec and "
-                   "degrees [fitted to the PSF]")
+    g.add_argument("--size-penalty", help="bias toward small scales, weight 1 - p s/s_max, "
+                   "p in [0, 1) [0.3]")
+    g.add_argument("--extended-depth", help="inside a mask, finite scales stop at this "
+                   "fraction of the noise multiple, in (0, 1] [0.25]")
+    g.add_argument("--psf-patch", help="no longer used (minor cycles subtract whole scale "
+                   "beams); accepted with a warning")
+    g.add_argument("--beam", help="restoring beam MAJOR,MINOR,PA: FWHMs in arcsec (or with "
+                   "a unit: 0.0012deg) and degrees east of north [fitted to the PSF]")
+    g.add_argument("--nonfinite", help="NaN/inf pixels in the dirty image: refuse, or mask "
+                   "(leave them out of cleaning, blank in the outputs) [refuse]")
     m = p.add_argument_group("masks")
     m.add_argument("--mask", help="FITS mask on the image grid, non-zero = may clean [none]")
     m.add_argument("--mask-regions", help="regions where components may go, e.g. "
-                   "'circle 120 130 15; box 10 20 50 60' (see skyscale.regions) [none]")
+                   "'circle 120 130 15; box 10 20 50 60' (see skyscale.regions); with --mask "
+                   "the two are intersected [none]")
     m.add_argument("--auto-mask", action="store_true", default=None,
                    help="renew an automatic mask at each major cycle [off]")
-    m.add_argument("--auto-mask-sigma", type=float,
+    m.add_argument("--auto-mask-sigma",
                    help="automatic-mask level, multiples of the robust noise [5]")
     o = p.add_argument_group("run")
-    o.add_argument("--threads", type=int, help="threads for kernels and FFTs [all cores]")
+    o.add_argument("--threads", help="threads for kernels and FFTs [all cores]")
     o.add_argument("--config", help="TOML file with any of these options (the command line "
                    "overrides it)")
     o.add_argument("--no-plots", dest="plots", action="store_false", default=None,
@@ -126,19 +146,24 @@ def _add_global_flags(group):
 
 def build_parser():
     """The argument parser with every subcommand."""
-    parser = argparse.ArgumentParser(
-        prog="skyscale", description="Multi-scale CLEAN deconvolution of radio images.")
+    parser = _Parser(
+        prog="skyscale", description="Multi-scale CLEAN deconvolution of radio images.",
+        epilog="exit codes: " + "; ".join(f"{k} {v.split(':')[0].split(' (')[0]}"
+                                          for k, v in EXIT_CODES.items()))
     parser.add_argument("--version", action="version", version=f"skyscale {__version__}")
     parser.add_argument("--debug", action="store_true", help="full tracebacks and debug logs")
     parser.add_argument("--quiet", action="store_true", help="no progress bars or tables")
-    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
     sub.required = True
 
     run = sub.add_parser("run", help="deconvolve a dirty image with its PSF (FITS), or "
                          "visibilities (--visibilities)")
     run.add_argument("dirty", nargs="?", help="dirty image, FITS, Jy/beam")
     run.add_argument("psf", nargs="?", help="PSF, FITS, same grid, the image's size or larger")
-    run.add_argument("--out", required=True, help="output directory")
+    run.add_argument("--out", help="output directory (with --resume: that folder)")
+    run.add_argument("--resume", metavar="DIR", help="continue from the model.fits of an "
+                     "earlier run's output folder, with its inputs and options (options "
+                     "given here override them); budgets count the new part only")
     _add_run_options(run)
     _add_visibility_options(run)
     run.set_defaults(func=cmd_run)
@@ -170,41 +195,35 @@ def build_parser():
     return parser
 
 
-def _load_config(path):
-    try:
-        import tomllib
-    except ImportError:  # Python < 3.11
-        import tomli as tomllib
-    with open(path, "rb") as fh:
-        data = tomllib.load(fh)
-    return {k.replace("-", "_"): v for k, v in data.get("run", data).items()}
-
-
-def _params(args):
+def _params(args, base=None):
+    """Run options from --config, then the command line; and where each came from."""
     from .job import RUN_DEFAULTS
-    params = {}
+    from .options import load_config
+    params, sources = dict(base or {}), {k: "the resumed run's report" for k in base or {}}
     if getattr(args, "config", None):
-        params.update(_load_config(args.config))
-        unknown = sorted(set(params) - set(RUN_DEFAULTS))
-        if unknown:
-            raise ValueError(f"--config {args.config}: unknown options {unknown}; valid ones are "
-                             f"{', '.join(sorted(RUN_DEFAULTS))}")
+        table = load_config(args.config)
+        params.update(table)
+        sources.update({k: args.config for k in table})
     for key in RUN_DEFAULTS:
         value = getattr(args, key, None)
         if value is not None:
             params[key] = value
-    return params
+            sources[key] = "cli"
+    return params, sources
 
 
-def _execute(args, dirty, psf, out, visibilities=None):
+def _execute(args, dirty, psf, out, base=None, resume=None, visibilities=None):
     from . import console
-    params = _params(args)
+    params, sources = _params(args, base)
+    if resume and os.path.abspath(out) == os.path.abspath(resume):
+        params["overwrite"], sources["overwrite"] = True, "cli"
     with console.RunProgress(enabled=not args.quiet) as progress:
         t0 = time.perf_counter()
         if visibilities is None:
             from .job import run_files
             result, written, report = run_files(dirty, psf, out, params,
-                                                callback=progress.update)
+                                                callback=progress.update, sources=sources,
+                                                resume_from=resume)
         else:
             from .job_vis import run_visibilities
             result, written, report = run_visibilities(
@@ -215,7 +234,11 @@ def _execute(args, dirty, psf, out, visibilities=None):
         elapsed = time.perf_counter() - t0
     if not args.quiet:
         console.summary(result, written, report, elapsed)
-    return 0
+    if result.stop_reason == "interrupted":
+        print(f"skyscale: interrupted: every output in {out} holds the last complete major "
+              "cycle (stop reason 'interrupted')", file=sys.stderr)
+        return EXIT_INTERRUPTED
+    return EXIT_OK
 
 
 def _check_run_inputs(args):
@@ -224,24 +247,40 @@ def _check_run_inputs(args):
                 if getattr(args, n) is not None]
     if args.visibilities is None:
         if args.dirty is None or args.psf is None:
-            raise ValueError("run needs DIRTY and PSF (FITS files), or --visibilities FILE "
+            raise InputError("run needs DIRTY and PSF (FITS files), or --visibilities FILE "
                              "with --size and --cell")
         if vis_only:
-            raise ValueError(f"{', '.join(vis_only)} apply to --visibilities runs only; "
+            raise InputError(f"{', '.join(vis_only)} apply to --visibilities runs only; "
                              "drop them or give --visibilities FILE")
         return None
     if args.dirty is not None:
-        raise ValueError(f"run got both a dirty image ({args.dirty}) and --visibilities; "
+        raise InputError(f"run got both a dirty image ({args.dirty}) and --visibilities; "
                          "give one or the other")
     missing = [f"--{n}" for n in ("size", "cell") if getattr(args, n) is None]
     if missing:
-        raise ValueError(f"--visibilities needs {' and '.join(missing)}: the image size in "
+        raise InputError(f"--visibilities needs {' and '.join(missing)}: the image size in "
                          "pixels and the cell size in arcsec")
     return {"path": args.visibilities, "size": args.size, "cell": args.cell}
 
 
 def cmd_run(args):
+    if args.resume:
+        if args.visibilities is not None:
+            raise InputError("--resume continues a run made from FITS images; it cannot be "
+                             "combined with --visibilities")
+        from .job import resume_inputs
+        rd, rp, base = resume_inputs(args.resume)
+        dirty, psf = args.dirty or rd, args.psf or rp
+        out = args.out or args.resume
+        missing = [n for n, v in (("DIRTY", dirty), ("PSF", psf)) if not v]
+        if missing:
+            raise InputError(f"run needs {' and '.join(missing)} (or --resume DIR of a run "
+                             "with a report); see skyscale run --help")
+        args.out = out
+        return _execute(args, dirty, psf, out, base=base, resume=args.resume)
     vis = _check_run_inputs(args)
+    if not args.out:
+        raise InputError("run needs --out DIR, the output directory; see skyscale run --help")
     return _execute(args, args.dirty, args.psf, args.out, visibilities=vis)
 
 
@@ -280,7 +319,10 @@ def cmd_suggest(args):
     cell = cell_size_arcsec(dirty.wcs) if dirty.wcs is not None else None
     s = suggest_scales(dirty.data, psf.data, cell_arcsec=cell, largest_size=args.largest_size,
                        shortest_baseline=args.shortest_baseline, max_count=args.max_count)
-    if args.check and args.check != "auto":
+    if args.check == "auto":
+        raise InputError("--check takes the scale set to check, such as 0,4,16; without "
+                         "--check, suggest proposes a set")
+    if args.check:
         import warnings
         with warnings.catch_warnings():     # judged by the suggestion's own limits
             warnings.simplefilter("ignore")
@@ -291,36 +333,60 @@ def cmd_suggest(args):
     return 0
 
 
+def _raise_interrupt(signum, frame):
+    raise KeyboardInterrupt(f"signal {signum}")
+
+
+def _interrupted(args):
+    from ._atomic import INCOMPLETE_MARKER
+    out = getattr(args, "out", None)
+    if out and os.path.exists(os.path.join(out, INCOMPLETE_MARKER)):
+        return (f"skyscale: interrupted while writing the outputs; {out}/{INCOMPLETE_MARKER} "
+                "marks them incomplete (run again with --overwrite)")
+    return "skyscale: interrupted before any output was written"
+
+
 def main(argv=None):
-    """Entry point of the ``skyscale`` command."""
+    """Entry point of the ``skyscale`` command; returns the exit code (see `EXIT_CODES`)."""
     parser = build_parser()
-    args = parser.parse_args(argv)
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as exc:        # usage errors (one line, code 2), --help, --version
+        return int(exc.code or 0)
     logging.basicConfig(level=logging.DEBUG if args.debug else logging.ERROR,
                         format="%(levelname)s %(name)s: %(message)s")
     if not args.debug:
         import warnings
         warnings.simplefilter("ignore")  # warnings go into the report instead
+    # SIGTERM (a batch system's stop) is handled as Ctrl-C: stop after the current step.
+    try:
+        previous = signal.signal(signal.SIGTERM, _raise_interrupt)
+    except ValueError:   # not the main thread (an embedding program): leave signals alone
+        previous = None
     try:
         return int(args.func(args) or 0)
     except KeyboardInterrupt:
-        print("skyscale: interrupted", file=sys.stderr)
-        return 1
+        print(_interrupted(args), file=sys.stderr)
+        return EXIT_INCOMPLETE
     except BAD_INPUT as exc:
         if args.debug:
             raise
-        print(f"skyscale: error: {exc}", file=sys.stderr)
-        return 2
+        print(f"skyscale: error: {' '.join(str(exc).split())}", file=sys.stderr)
+        return EXIT_BAD_INPUT
     except MemoryError as exc:
         if args.debug:
             raise
-        print(f"skyscale: error: {exc}", file=sys.stderr)
-        return 2
+        print(f"skyscale: error: {' '.join(str(exc).split())}", file=sys.stderr)
+        return EXIT_BAD_INPUT
     except Exception as exc:  # noqa: BLE001 - one clear line, the rest under --debug
         if args.debug:
             raise
-        print(f"skyscale: failed: {type(exc).__name__}: {exc} (rerun with --debug for the "
-              "traceback)", file=sys.stderr)
-        return 1
+        print(f"skyscale: failed: {type(exc).__name__}: {' '.join(str(exc).split())} (rerun "
+              "with --debug for the traceback)", file=sys.stderr)
+        return EXIT_FAILED
+    finally:
+        if previous is not None:
+            signal.signal(signal.SIGTERM, previous)
 
 
 if __name__ == "__main__":  # pragma: no cover

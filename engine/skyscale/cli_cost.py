@@ -34,10 +34,10 @@ def _int_list(text):
 
 def _floats(text):
     try:
-        return [float(v) for v in text.replace(" ", "").split(",") if v]
+        return [float(v) for v in re.split(r"[,;\s]+", text.strip()) if v]
     except ValueError:
-        raise argparse.ArgumentTypeError(f"{text!r}: give numbers separated by commas, "
-                                         "such as 0,4,8,16") from None
+        raise argparse.ArgumentTypeError(f"{text!r}: give numbers separated by commas or "
+                                         "spaces, such as 0,4,8,16") from None
 
 
 def _shape(text):

@@ -376,6 +376,19 @@ def deconvolve(dirty, psf, *, scales=(0, 4, 8, 16), loop_gain=0.1, threshold=0.0
     params = {k: v for k, v in locals().items()
               if k not in ("dirty", "psf", "mask", "model", "operator", "callback", "beam",
                            "auto_mask", "AutoMask")}
+    # --- input checks (issue 12): every option is checked in _validate.check_run_options ---
+    from ._validate import check_run_options
+    early = check_run_options(
+        dirty, psf, scales=scales, loop_gain=loop_gain, threshold=threshold,
+        noise_threshold=noise_threshold, extended_depth=extended_depth,
+        max_components=max_components, max_major_cycles=max_major_cycles,
+        cycle_depth=cycle_depth, mask=mask, model=model, size_penalty=size_penalty,
+        scale_loop_depth=scale_loop_depth, scale_shape=scale_shape, psf_patch=psf_patch,
+        threads=threads, fft=fft, dtype=dtype, cell_arcsec=cell_arcsec, restore=restore,
+        beam=beam)
+    if early is not None:
+        return early
+    # --- end of input checks ---
     params["scales"] = [float(s) for s in np.atleast_1d(getattr(scales, "value", scales))]
     dt = resolve_dtype(dtype)
     dirty_arr = as_image(dirty, "dirty", dtype=dt)

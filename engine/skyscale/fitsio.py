@@ -32,14 +32,15 @@ from dataclasses import dataclass
 import numpy as np
 from astropy import units as u
 from astropy.io import fits
+from astropy.utils.exceptions import AstropyWarning
 from astropy.wcs import WCS
 
-from ._validate import as_image
+from ._validate import InputError, MissingFileError, as_image
 from ._atomic import atomic_output as _atomic_output
 from .beam import Beam, _wrap_pa
 
 __all__ = ["FitsImage", "HISTORY_WIDTH", "SQUARE_RTOL", "GRID_RTOL", "RESERVED_KEYWORDS",
-           "read_image", "cell_size_arcsec", "check_same_grid", "write_image",
+           "read_image", "read_shape", "cell_size_arcsec", "check_same_grid", "write_image",
            "provenance_history", "write_table_csv"]
 
 #: Characters of text one HISTORY card holds.
@@ -87,7 +88,7 @@ def _celestial(wcs, name):
     if isinstance(wcs, FitsImage):
         wcs = wcs.wcs
     if wcs is None or not getattr(wcs, "has_celestial", False):
-        raise ValueError(f"{name} has no celestial WCS; give an image whose header "
+        raise InputError(f"{name} has no celestial WCS; give an image whose header "
                          "has RA/Dec-like CTYPE, CRPIX, CRVAL and CDELT or CD keywords")
     return wcs.celestial
 
@@ -130,11 +131,11 @@ def cell_size_arcsec(wcs):
     mat = _sky_matrix(_celestial(wcs, "wcs"))
     sx, sy = np.sqrt((mat ** 2).sum(axis=0))
     if abs(sx - sy) > SQUARE_RTOL * max(sx, sy):
-        raise ValueError(f"wcs pixel grid is not square: the x step is {sx:.9g} arcsec and "
+        raise InputError(f"wcs pixel grid is not square: the x step is {sx:.9g} arcsec and "
                          f"the y step {sy:.9g} arcsec; regrid the images to square pixels")
     skew = abs(float(mat[:, 0] @ mat[:, 1])) / (sx * sy)
     if skew > SQUARE_RTOL:
-        raise ValueError(f"wcs pixel axes are not perpendicular (skew "
+        raise InputError(f"wcs pixel axes are not perpendicular (skew "
                          f"{math.degrees(math.asin(min(skew, 1.0))):.6g} deg); regrid "
                          "the images to a square, unskewed grid")
     return float(0.5 * (sx + sy))
@@ -176,6 +177,124 @@ def _header_beam(header, wcs, label):
         return None
 
 
+#: Bytes per pixel of each FITS BITPIX value (FITS Standard 4.0, Table 8).
+_BITPIX_BYTES = {8: 1, 16: 2, 32: 4, 64: 8, -32: 4, -64: 8}
+
+
+def _one_line(exc, limit=160):
+    """An exception's message on one line, without hints about library keywords."""
+    text = " ".join(str(exc).split())
+    text = text.split(" If this is really a FITS file")[0]
+    return text if len(text) <= limit else text[:limit - 3] + "..."
+
+
+def _declared_shape(header, label):
+    """(shape, bytes) the primary header declares, refusing nonsense before any read."""
+    bitpix = header.get("BITPIX")
+    naxis = header.get("NAXIS")
+    if bitpix not in _BITPIX_BYTES or isinstance(bitpix, bool):
+        raise InputError(f"{label} has BITPIX = {bitpix!r}, which FITS does not allow "
+                         f"({', '.join(map(str, _BITPIX_BYTES))}); the header is corrupt")
+    if not isinstance(naxis, int) or isinstance(naxis, bool) or not 0 <= naxis <= 999:
+        raise InputError(f"{label} has NAXIS = {naxis!r}; the header is corrupt (FITS "
+                         "needs a whole number from 0 to 999)")
+    dims = []
+    for k in range(1, naxis + 1):
+        n = header.get(f"NAXIS{k}")
+        if not isinstance(n, int) or isinstance(n, bool) or n < 0:
+            raise InputError(f"{label} has NAXIS{k} = {n!r}; the header is corrupt (FITS "
+                             "needs a whole number >= 0)")
+        dims.append(n)
+    count = math.prod(dims) if dims else 0
+    return tuple(reversed(dims)), count * _BITPIX_BYTES[bitpix]
+
+
+def _header_checked(path, label):
+    """The primary header alone, checked against the file's length: (header, shape, bytes).
+
+    Returns None for a compressed file (its length says nothing about the data).
+    """
+    with open(path, "rb") as fh:
+        head = fh.read(80)
+    if head[:2] == b"\x1f\x8b":
+        return None
+    if not head.startswith(b"SIMPLE  ="):
+        raise InputError(f"{label} is not a FITS file (a FITS file starts with the SIMPLE "
+                         "card); give the FITS image itself")
+    size = os.path.getsize(path)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", AstropyWarning)
+        with open(path, "rb") as fh:
+            header = fits.Header.fromfile(fh)
+            start = fh.tell()
+    shape, nbytes = _declared_shape(header, label)
+    if start + nbytes > size:
+        raise InputError(
+            f"{label} is truncated: its header declares {nbytes} bytes of data (shape "
+            f"{shape}) but the file holds {max(size - start, 0)}; write the file again (was "
+            "a copy or download interrupted?)")
+    return header, shape, nbytes
+
+
+def _open_checked(path, label):
+    """Header and data of the primary HDU, after checking the file can hold them."""
+    _header_checked(path, label)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", AstropyWarning)
+        with fits.open(path, memmap=False, lazy_load_hdus=True) as hdul:
+            header = hdul[0].header.copy()
+            shape, nbytes = _declared_shape(header, label)
+            need = nbytes + 4 * (nbytes // _BITPIX_BYTES[header["BITPIX"]])
+            from .cost import available_memory
+            avail = available_memory()
+            if avail is not None and need > avail:
+                raise InputError(
+                    f"{label} declares shape {shape}: reading it needs about "
+                    f"{need / 2**30:.1f} GiB but {avail / 2**30:.1f} GiB is available; "
+                    "cut out a smaller image or use a machine with more memory")
+            data = hdul[0].data
+            data = None if data is None else np.array(data)
+    return header, data
+
+
+def _guarded(call, path, label):
+    try:
+        return call(path, label)
+    except InputError:
+        raise
+    except MemoryError:
+        raise InputError(f"{label} does not fit in memory; cut out a smaller image") from None
+    except Exception as exc:  # noqa: BLE001 - astropy raises many types for broken files
+        raise InputError(f"{label} could not be read as FITS, its header or data is corrupt "
+                         f"({type(exc).__name__}: {_one_line(exc)}); write the file "
+                         "again") from None
+
+
+def _label(path, name):
+    path = os.fspath(path)
+    label = f"{name} file {path}" if name else path
+    if os.path.isdir(path):
+        raise InputError(f"{label} is a folder; give the FITS file inside it")
+    if not os.path.isfile(path):
+        raise MissingFileError(f"{label} does not exist; check the path")
+    return path, label
+
+
+def read_shape(path, *, name=None):
+    """The 2-D image shape a FITS file declares, from its header alone (no data read).
+
+    Leading axes of length 1 are dropped; None for a compressed file or one that is not
+    a single 2-D plane.  Raises as `read_image` does for files that are missing, not
+    FITS, truncated or corrupt.
+    """
+    path, label = _label(path, name)
+    checked = _guarded(_header_checked, path, label)
+    if checked is None:
+        return None
+    shape = tuple(n for n in checked[1][:-2] if n != 1) + tuple(checked[1][-2:])
+    return shape if len(shape) == 2 else None
+
+
 def read_image(path, *, name=None):
     """Read a 2-D image (or one plane with degenerate extra axes) from a FITS file.
 
@@ -192,11 +311,13 @@ def read_image(path, *, name=None):
 
     Raises
     ------
-    FileNotFoundError
-        If ``path`` does not exist.
-    ValueError
-        If the primary HDU holds no image, has fewer than 2 axes, its celestial axes
-        are not the first two, or an extra axis has more than one plane.
+    MissingFileError
+        If ``path`` does not exist (also a `FileNotFoundError`).
+    InputError
+        If the file is not FITS, is truncated, has a corrupt header or WCS, declares
+        more data than memory holds (checked before reading), the primary HDU holds no
+        image or fewer than 2 axes, its celestial axes are not the first two, or an
+        extra axis has more than one plane.
 
     Examples
     --------
@@ -207,29 +328,26 @@ def read_image(path, *, name=None):
     >>> img.data.shape, img.data.dtype, img.bunit
     ((3, 4), dtype('float32'), 'Jy/beam')
     """
-    path = os.fspath(path)
-    label = f"{name} file {path}" if name else path
-    if not os.path.isfile(path):
-        raise FileNotFoundError(f"{label} does not exist; check the path")
-    with fits.open(path, memmap=False) as hdul:
-        header = hdul[0].header.copy()
-        data = hdul[0].data
-        data = None if data is None else np.array(data)
+    path, label = _label(path, name)
+    header, data = _guarded(_open_checked, path, label)
     if data is None or data.ndim < 2:
-        raise ValueError(f"{label}: the primary HDU holds no 2-D image (NAXIS="
+        raise InputError(f"{label}: the primary HDU holds no 2-D image (NAXIS="
                          f"{header.get('NAXIS', 0)}); write the image into the primary HDU")
-    full = WCS(header, fix=True) if any(k in header for k in ("CTYPE1", "CTYPE2")) else None
+    full = _header_wcs(header, label)
     if full is not None and full.has_celestial:
         if {full.wcs.lng, full.wcs.lat} != {0, 1}:
-            raise ValueError(f"{label}: the celestial axes are FITS axes {full.wcs.lng + 1} "
+            raise InputError(f"{label}: the celestial axes are FITS axes {full.wcs.lng + 1} "
                              f"and {full.wcs.lat + 1}; skyscale needs them as axes 1 and 2 "
                              "(reorder the cube)")
     extra = data.shape[:-2]
     if any(n != 1 for n in extra):
-        axes = ", ".join(f"axis {data.ndim - i} ({header.get(f'CTYPE{data.ndim - i}', '?')}) "
-                         f"has {n} planes" for i, n in enumerate(extra) if n != 1)
-        raise ValueError(f"{label} has shape {data.shape}: {axes}; skyscale reads one 2-D "
-                         "plane, cut the plane out first (or deconvolve the cube plane by plane)")
+        def axis(k):
+            ctype = str(header.get(f"CTYPE{k}", "")).strip()
+            return f"axis {k}" + (f" ({ctype})" if ctype else "")
+        axes = ", ".join(f"{axis(data.ndim - i)} has {n} planes"
+                         for i, n in enumerate(extra) if n != 1)
+        raise InputError(f"{label} has shape {data.shape}: {axes}; skyscale run reads one "
+                         f"2-D plane: cut one plane out{_cube_hint()}")
     data = np.ascontiguousarray(data.reshape(data.shape[-2:]), dtype=np.float32)
     wcs = full.celestial if full is not None and full.has_celestial else None
     bunit = header.get("BUNIT")
@@ -238,7 +356,29 @@ def read_image(path, *, name=None):
                      bunit=None if bunit is None else str(bunit).strip())
 
 
-def check_same_grid(image, psf):
+def _cube_hint():
+    import importlib.util
+    if importlib.util.find_spec("skyscale.cube") is not None:
+        return ", or deconvolve every plane with skyscale cube"
+    return ""
+
+
+def _header_wcs(header, label):
+    if not any(k in header for k in ("CTYPE1", "CTYPE2")):
+        return None
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", AstropyWarning)
+            wcs = WCS(header, fix=True)
+            wcs.has_celestial  # noqa: B018 - parses the axis types now, inside the guard
+            return wcs
+    except Exception as exc:  # noqa: BLE001 - astropy.wcs raises many types
+        raise InputError(f"{label} has world-coordinate keywords that cannot be used "
+                         f"({type(exc).__name__}: {_one_line(exc)}); fix CTYPE, CRPIX, "
+                         "CRVAL, CDELT/CD or remove them") from None
+
+
+def check_same_grid(image, psf, *, name="psf"):
     """Check that the PSF was made on the image's grid: same cell size and orientation.
 
     Parameters
@@ -249,9 +389,10 @@ def check_same_grid(image, psf):
 
     Raises
     ------
-    ValueError
+    InputError
         If the cell sizes differ by more than `GRID_RTOL` (relative) or one grid is
-        rotated or flipped relative to the other.
+        rotated or flipped relative to the other.  Messages call the second image
+        ``name`` (for example ``'mask'``).
 
     Examples
     --------
@@ -267,16 +408,16 @@ def check_same_grid(image, psf):
     cel_i, cel_p = (w.celestial for w in wcs)
     ci, cp = cell_size_arcsec(cel_i), cell_size_arcsec(cel_p)
     if abs(ci - cp) > GRID_RTOL * ci:
-        raise ValueError(f"psf cell size is {cp:.9g} arcsec but the image's is {ci:.9g} "
-                         "arcsec; make the PSF on the image's grid (same cell size)")
+        raise InputError(f"{name} cell size is {cp:.9g} arcsec but the image's is {ci:.9g} "
+                         f"arcsec; make the {name} on the image's grid (same cell size)")
     oi, op = _orientation(cel_i), _orientation(cel_p)
     if np.max(np.abs(oi - op)) > GRID_RTOL:
         def describe(o):
             dx, dy = np.linalg.solve(o, [0.0, 1.0])
             side = "-x" if np.linalg.det(o) < 0 else "+x"
             return f"north {math.degrees(math.atan2(-dx, dy)):.4f} deg from +y, east to {side}"
-        raise ValueError(f"psf grid orientation ({describe(op)}) differs from the image's "
-                         f"({describe(oi)}); make the PSF on the image's grid")
+        raise InputError(f"{name} grid orientation ({describe(op)}) differs from the "
+                         f"image's ({describe(oi)}); make the {name} on the image's grid")
     return None
 
 

@@ -11,14 +11,18 @@ import warnings
 
 import numpy as np
 
-from .beam import Beam
+from ._atomic import incomplete_marker
+from ._validate import InputError, mask_nonfinite
 from .cycles import deconvolve
 from .fitsio import (cell_size_arcsec, check_same_grid, provenance_history, read_image,
                      write_image, write_table_csv)
+from .options import coerce_params, option_label
+from .preflight import (OUTPUT_NAMES, build_mask, check_units, initial_model,
+                        plan_from_headers, prepare_out, resume_inputs, restoring_beam)
 from .report import file_sha256
 
 __all__ = ["RUN_DEFAULTS", "OUTPUT_NAMES", "run_files", "run_images", "merge_params",
-           "component_rows"]
+           "component_rows", "resume_inputs"]
 
 from .levels import DEFAULT_EXTENDED_DEPTH
 from .minor import DEFAULT_SIZE_PENALTY
@@ -47,14 +51,10 @@ RUN_DEFAULTS = {
     "beam": None,
     "plots": True,
     "overwrite": False,
+    "nonfinite": "refuse",
 }
 
-#: File names of the outputs inside the output directory.
-OUTPUT_NAMES = {
-    "model": "model.fits", "residual": "residual.fits", "restored": "restored.fits",
-    "mask": "mask.fits", "components": "components.csv", "report": "report.json",
-    "convergence": "convergence.png", "panels": "panels.png",
-}
+
 
 
 def component_rows(components, wcs=None):
@@ -85,7 +85,16 @@ def _describe_operator(operator, psf, dirty):
     return describe() if callable(describe) else {"operator": type(operator).__name__}
 
 
-def _scales_in_pixels(params, cell, dirty, psf, reasons):
+def merge_params(params, sources=None):
+    """`RUN_DEFAULTS` updated with ``params``, read as a user would write them
+    (`skyscale.options.coerce_params`); unknown keys are refused."""
+    merged = dict(RUN_DEFAULTS)
+    merged.update(coerce_params({k: v for k, v in (params or {}).items() if v is not None},
+                                sources or {}))
+    return merged
+
+
+def _scales_in_pixels(params, cell, dirty, psf, reasons, label):
     scales = params["scales"]
     if isinstance(scales, str):     # 'auto': the same advisor call as deconvolve's
         from .advisor import resolve_scales
@@ -95,39 +104,14 @@ def _scales_in_pixels(params, cell, dirty, psf, reasons):
     values = [float(v) for v in scales]
     if params["scale_unit"] == "arcsec":
         if cell is None:
-            raise ValueError("scale_unit is 'arcsec' but the dirty image has no celestial WCS; "
-                             "give scales in pixels")
+            raise InputError(f"{label} are in arcsec but the dirty image has no celestial "
+                             "WCS to convert them; give scales in pixels")
         return [v / cell for v in values]
-    if params["scale_unit"] != "pixel":
-        raise ValueError(f"scale_unit is {params['scale_unit']!r}; valid values are "
-                         "'pixel', 'arcsec'")
     return values
 
 
-def _build_mask(params, image, shape):
-    mask = None
-    if params.get("mask"):
-        from .masks import load_mask
-        mask = load_mask(params["mask"], shape)
-    if params.get("mask_regions"):
-        from .masks import regions_to_mask
-        region = regions_to_mask(params["mask_regions"], shape, wcs=image.wcs)
-        mask = region if mask is None else (mask & region)
-    return mask
-
-
-def merge_params(params):
-    """`RUN_DEFAULTS` updated with ``params``; unknown keys are refused."""
-    merged = dict(RUN_DEFAULTS)
-    merged.update({k: v for k, v in (params or {}).items() if v is not None or k not in merged})
-    unknown = sorted(set(merged) - set(RUN_DEFAULTS))
-    if unknown:
-        raise ValueError(f"unknown run parameters {unknown}; valid ones are "
-                         f"{', '.join(sorted(RUN_DEFAULTS))}")
-    return merged
-
-
-def run_files(dirty_path, psf_path, out_dir, params=None, *, callback=None, inputs_extra=None):
+def run_files(dirty_path, psf_path, out_dir, params=None, *, callback=None, inputs_extra=None,
+              sources=None, resume_from=None):
     """Deconvolve FITS files and write model, residual, restored, table, report, figures.
 
     Parameters
@@ -135,23 +119,45 @@ def run_files(dirty_path, psf_path, out_dir, params=None, *, callback=None, inpu
     dirty_path, psf_path : str
         FITS files: dirty image (Jy/beam) and PSF on the same grid.
     out_dir : str
-        Output directory (created if missing).  Existing outputs are refused unless
-        ``params['overwrite']``; nothing is written before the run has finished.
+        Output directory (created if missing).  It is checked before any work: a file,
+        or a folder that cannot be written, is refused, and so are existing outputs
+        unless ``params['overwrite']``.  While outputs are written the folder holds
+        `~skyscale._atomic.INCOMPLETE_MARKER`; it is removed after the last one.
     params : dict, optional
-        Any of `RUN_DEFAULTS`; missing keys take the defaults.
+        Any of `RUN_DEFAULTS`; missing keys take the defaults.  Values may be given as
+        text as a user would write them (``"0.1"``, ``"false"``, ``"0 4 8"``,
+        ``"0.1mJy"``); see `skyscale.options`.
     callback : callable, optional
         Progress callback passed to `deconvolve`.
+    sources : dict, optional
+        Where each parameter came from (``'cli'`` or a configuration file name), so
+        that messages name the option as the user wrote it.
+    resume_from : str, optional
+        Output folder of an earlier run: cleaning continues from its ``model.fits``.
+        Budgets (components, major cycles) count this run only.
 
     Returns
     -------
     result : DeconvolutionResult
+        ``result.stop_reason`` is ``'interrupted'`` when Ctrl-C (or SIGTERM, from the
+        command line) stopped the run: the outputs then hold the last complete major
+        cycle.
     written : dict
         Output kind -> path.
     report : dict
         The JSON report as written.
+
+    Raises
+    ------
+    InputError, FileExistsError
+        Bad input, found before the deconvolution starts.
     """
-    merged = merge_params(params)
+    sources = sources or {}
+    merged = merge_params(params, sources)
     start = _dt.datetime.now(_dt.timezone.utc)
+    names = {k: os.path.join(out_dir, v) for k, v in OUTPUT_NAMES.items()}
+    prepare_out(out_dir, names, merged["overwrite"], "--out" if sources else "out_dir")
+    plan_from_headers(dirty_path, psf_path, merged)
     dirty = read_image(dirty_path, name="dirty")
     psf = read_image(psf_path, name="psf")
     check_same_grid(dirty, psf)
@@ -160,11 +166,12 @@ def run_files(dirty_path, psf_path, out_dir, params=None, *, callback=None, inpu
               for name, p, img in (("dirty", dirty_path, dirty), ("psf", psf_path, psf))}
     inputs.update(inputs_extra or {})
     return run_images(dirty, psf, out_dir, merged, start=start, inputs=inputs,
-                      callback=callback)
+                      callback=callback, sources=sources, resume_from=resume_from)
 
 
 def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback=None,
-               operator=None, cell_arcsec=None, extra_images=None):
+               operator=None, cell_arcsec=None, extra_images=None, sources=None,
+               resume_from=None):
     """Deconvolve images in memory and write every output (the body of `run_files`).
 
     Parameters
@@ -188,73 +195,103 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
     extra_images : dict, optional
         ``kind -> (file name, FitsImage)`` written beside the outputs (and refused like
         them when they exist).
+    sources, resume_from
+        See `run_files`.
 
     Returns
     -------
     result, written, report
         As `run_files`.
     """
-    merged = merge_params(params)
+    sources = sources or {}
+    labels = {k: option_label(k, sources.get(k)) for k in RUN_DEFAULTS}
+    merged = merge_params(params, sources)
     start = start or _dt.datetime.now(_dt.timezone.utc)
     extra_images = extra_images or {}
-    cell = cell_size_arcsec(dirty.wcs) if dirty.wcs is not None else cell_arcsec
     names = {k: os.path.join(out_dir, v) for k, v in OUTPUT_NAMES.items()}
     names.update({k: os.path.join(out_dir, v[0]) for k, v in extra_images.items()})
-    if not merged["overwrite"]:
-        clash = [p for p in names.values() if os.path.exists(p)]
-        if clash:
-            raise FileExistsError(f"{clash[0]} exists; choose another output directory or "
-                                  "pass --overwrite (overwrite=True)")
+    ow = merged["overwrite"]
+    prepare_out(out_dir, names, ow, "--out" if sources else "out_dir")
+    notes = []
+    check_units(dirty, notes)
+    cell = cell_size_arcsec(dirty.wcs) if dirty.wcs is not None else cell_arcsec
+    data, blank = dirty.data, None
+    if merged["nonfinite"] == "mask":
+        data, nan_mask, blank = mask_nonfinite(dirty.data)
+        if blank.any():
+            notes.append(f"{int(blank.sum())} non-finite dirty pixels treated as masked "
+                         "and left blank (NaN) in the residual and restored images")
+        else:
+            blank = None
+    initial = initial_model(resume_from, dirty) if resume_from else None
     reasons = []
-    scales_px = _scales_in_pixels(merged, cell, dirty.data, psf.data, reasons)
+    scales_px = _scales_in_pixels(merged, cell, data, psf.data, reasons, labels["scales"])
     scale_warnings = []
     if not reasons:   # the user's own set: check it against the rules of thumb
         from .advisor import check_scales
+        from .scales import ScaleSet
+        try:                                            # refuse bad sets before the advice
+            ScaleSet(scales_px, image_shape=data.shape)
+        except InputError as exc:
+            raise InputError(f"{labels['scales']}: {exc}") from None
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             from .cost import max_affordable_scales
-            afford = max_affordable_scales(dirty.data.shape, psf.data, scales_px,
+            afford = max_affordable_scales(data.shape, psf.data, scales_px,
                                            max_components=merged["max_components"],
                                            threads=merged["threads"],
                                            psf_patch=merged["psf_patch"])
-            scale_warnings = check_scales(scales_px, dirty.data, psf.data, cell_arcsec=cell,
+            scale_warnings = check_scales(scales_px, data, psf.data, cell_arcsec=cell,
                                           max_affordable_scales=len(afford.scales))
-    mask = _build_mask(merged, dirty, dirty.data.shape)
+    mask = build_mask(merged, dirty, data.shape, labels)
+    if blank is not None:
+        mask = ~blank if mask is None else (mask & ~blank)
     auto = None
     if merged["auto_mask"]:
         from .beam import fit_beam
         from .masks import AutoMask
         kw = {} if merged["auto_mask_sigma"] is None else {"sigma": merged["auto_mask_sigma"]}
         auto = AutoMask(scales_px, fit_beam(psf.data).major, **kw)
-    beam = None
-    if merged["beam"] is not None:
-        maj, mnr, pa = merged["beam"]
-        if cell is None:
-            raise ValueError("beam is given in arcsec but the image has no celestial WCS")
-        beam = Beam.from_sky(maj, mnr, pa, cell)
+    beam = None if merged["beam"] is None else restoring_beam(merged, cell, labels["beam"])
     from .cost import check_fits_memory, plan_run
-    plan = plan_run(dirty.data.shape, psf.data, scales_px,
+    plan = plan_run(data.shape, psf.data, scales_px,
                     max_components=merged["max_components"], threads=merged["threads"],
                     psf_patch=merged["psf_patch"])
     check_fits_memory(plan)
+    extra_kw = {} if initial is None else {"model": initial}
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         result = deconvolve(
-            dirty.data, psf.data, scales=scales_px, loop_gain=merged["loop_gain"],
+            data, psf.data, scales=scales_px, loop_gain=merged["loop_gain"],
             threshold=merged["threshold"], noise_threshold=merged["noise_threshold"],
             max_components=merged["max_components"], max_major_cycles=merged["max_major_cycles"],
             cycle_depth=merged["cycle_depth"], mask=mask, size_penalty=merged["size_penalty"],
             extended_depth=merged["extended_depth"],
             scale_shape=merged["scale_shape"], psf_patch=merged["psf_patch"],
             threads=merged["threads"], cell_arcsec=cell, beam=beam, auto_mask=auto,
-            operator=operator, callback=callback)
-    result.warnings.extend(scale_warnings)
+            operator=operator, callback=callback, **extra_kw)
+    result.warnings.extend(notes + scale_warnings)
     result.warnings.extend(str(w.message) for w in caught)
+    if blank is not None:
+        for img in (result.residual, result.restored):
+            if img is not None:
+                img[blank] = np.nan
     end = _dt.datetime.now(_dt.timezone.utc)
     record = dict(merged, scales=scales_px, psf_patch=result.parameters.get("psf_patch"))
+    inputs = dict(inputs or {})
+    if resume_from:
+        inputs["resumed_from"] = {"path": os.path.abspath(
+            os.path.join(resume_from, OUTPUT_NAMES["model"]))}
+    major = _describe_operator(operator, psf.data, dirty.data)
+    with incomplete_marker(out_dir):
+        written, report = _write_outputs(result, dirty, psf, names, record, start, end, plan,
+                                         reasons, inputs, cell, ow, extra_images, major)
+    return result, written, report
+
+
+def _write_outputs(result, dirty, psf, names, record, start, end, plan, reasons,
+                   inputs, cell, ow, extra_images, major):
     history = provenance_history(record, start, end)
-    ow = merged["overwrite"]
-    os.makedirs(out_dir, exist_ok=True)
     written = {kind: write_image(names[kind], image.data, like=image, bunit=image.bunit,
                                  history=history, overwrite=ow)
                for kind, (_, image) in extra_images.items()}
@@ -275,7 +312,7 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
     fields = ["y", "x"] + (["ra_deg", "dec_deg"] if dirty.wcs is not None else []) + \
         ["scale_px", "flux_jy"]
     written["components"] = write_table_csv(names["components"], rows, fields, overwrite=ow)
-    if merged["plots"]:
+    if record["plots"]:
         try:
             from .plots import plot_convergence, plot_panels
             written["convergence"] = plot_convergence(result, names["convergence"], overwrite=ow)
@@ -289,7 +326,6 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
     if reasons:
         extra["scale_reasons"] = reasons
     report = build_report(result, inputs=inputs, parameters=record, cell_arcsec=cell,
-                          threads=merged["threads"], extra=extra,
-                          major_cycle=_describe_operator(operator, psf.data, dirty.data))
+                          threads=record["threads"], extra=extra, major_cycle=major)
     written["report"] = write_report(names["report"], report, overwrite=ow)
-    return result, written, report
+    return written, report

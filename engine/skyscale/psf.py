@@ -13,15 +13,19 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import ndimage
 
-from ._validate import as_image
+from ._validate import InputError, as_image
 
-__all__ = ["PSFInfo", "check_psf", "describe_psf", "outside_level_profile", "PSF_PATCH_LEVEL"]
+__all__ = ["PSFInfo", "check_psf", "describe_psf", "outside_level_profile", "PSF_PATCH_LEVEL",
+           "PSF_PEAK_TOLERANCE"]
 
 logger = logging.getLogger(__name__)
 
 #: Default |PSF| level outside the minor-cycle patch: the patch is the smallest
 #: centred square beyond which the PSF never exceeds this fraction of its peak.
 PSF_PATCH_LEVEL = 0.1
+#: A PSF whose peak differs from 1 by up to this much is normalised (with a warning);
+#: beyond it the file is probably not a PSF and is refused.
+PSF_PEAK_TOLERANCE = 0.1
 
 
 @dataclass(frozen=True)
@@ -56,20 +60,35 @@ def check_psf(psf, image_shape, *, dtype=np.float32, name="psf"):
 
     Raises
     ------
-    ValueError
-        If the PSF is smaller than the image, its peak is off centre, or not positive.
+    InputError
+        If the PSF has non-finite pixels, is all zeros, is smaller than the image, its
+        peak is off centre or negative, or its peak differs from 1 by more than
+        `PSF_PEAK_TOLERANCE` (a peak off by less is normalised, with a warning).
     """
     psf = as_image(psf, name, dtype=dtype)
     ny, nx = image_shape
+    if not np.any(psf):
+        raise InputError(f"{name} is all zeros; give the PSF (dirty beam) image, peak 1 at "
+                         "its centre")
     if psf.shape[0] < ny or psf.shape[1] < nx:
-        raise ValueError(f"{name} has shape {psf.shape}, smaller than the image {tuple(image_shape)}; "
-                         "make the PSF at least the image's size (twice the size is exact)")
+        raise InputError(f"{name} has shape {psf.shape}, smaller than the image "
+                         f"{tuple(image_shape)}; make the PSF at least the image's size "
+                         "(twice the size is exact)")
     centre = (psf.shape[0] // 2, psf.shape[1] // 2)
-    peak = np.unravel_index(int(np.argmax(psf)), psf.shape)
+    absolute = np.abs(psf)
+    peak = tuple(int(p) for p in np.unravel_index(int(np.argmax(absolute)), psf.shape))
     value = float(psf[centre])
-    if value <= 0 or float(psf[peak]) > value * (1 + 1e-4):
-        raise ValueError(f"{name} peak is at {tuple(int(p) for p in peak)}, expected the centre "
-                         f"{centre}; re-centre the PSF so its maximum is at (ny // 2, nx // 2)")
+    if value < 0 and float(absolute[peak]) <= -value * (1 + 1e-4):
+        raise InputError(f"{name} has a negative peak ({value:.4g} at the centre {centre}); "
+                         "the PSF's peak must be positive (was the image negated?)")
+    if value <= 0 or float(absolute[peak]) > value * (1 + 1e-4):
+        raise InputError(f"{name} peak is at [y, x] {peak} (value {float(psf[peak]):.4g}), "
+                         f"expected the centre {centre}; re-centre the PSF so its maximum "
+                         "is at (ny // 2, nx // 2)")
+    if abs(value - 1.0) > PSF_PEAK_TOLERANCE:
+        raise InputError(f"{name} peak is {value:.4g}, not 1 (more than "
+                         f"{PSF_PEAK_TOLERANCE:g} off); check that this is the PSF and not "
+                         "another image, and divide it by its peak if it is")
     if abs(value - 1.0) > 1e-3:
         warnings.warn(f"{name} peak is {value:.4g}, not 1; it has been normalised to 1",
                       stacklevel=3)
@@ -150,7 +169,7 @@ def describe_psf(psf, image_shape, *, patch_half=None, patch_level=PSF_PATCH_LEV
     else:
         h = int(patch_half)
         if h < 0:
-            raise ValueError(f"psf_patch is {patch_half}, expected a half-width >= 0 pixels")
+            raise InputError(f"psf_patch is {patch_half}, expected a half-width >= 0 pixels")
     h = int(min(h, hcap, len(levels) - 1))
     outside_level = float(levels[h]) if h < len(levels) else 0.0
     exact = (min(cy, py - 1 - cy), min(cx, px - 1 - cx))

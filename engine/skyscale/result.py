@@ -22,6 +22,7 @@ STOP_REASONS = {
                  "the last good model is kept",
     "empty_mask": "the mask allows no pixel to be cleaned",
     "interrupted": "the run was interrupted; the result holds what was done so far",
+    "nothing_to_clean": "the dirty image is constant (zero included): there is nothing to clean",
 }
 
 

@@ -13,7 +13,7 @@ References
 
 import numpy as np
 
-from ._validate import check_choice
+from ._validate import InputError, check_choice
 
 __all__ = ["SCALE_SHAPES", "ScaleSet", "spheroidal", "scale_kernel", "size_penalty_weights",
            "angle_to_pixels"]
@@ -134,7 +134,7 @@ def size_penalty_weights(scales, size_penalty=0.6):
     .. [1] Cornwell 2008 (bias toward small scales; the value 0.6 from memory).
     """
     if not 0.0 <= size_penalty < 1.0:
-        raise ValueError(f"size_penalty is {size_penalty}, expected a value in [0, 1); "
+        raise InputError(f"size_penalty is {size_penalty}, expected a value in [0, 1); "
                          "0.6 is the usual choice")
     s = np.asarray(scales, dtype=np.float64)
     smax = s.max() if s.size and s.max() > 0 else 1.0
@@ -150,6 +150,21 @@ def angle_to_pixels(values, cell_arcsec):
     except ImportError:  # pragma: no cover - astropy is a dependency
         pass
     return np.atleast_1d(np.asarray(values, dtype=np.float64)) / float(cell_arcsec)
+
+
+def _as_given(scales):
+    """The scale list as the caller wrote it, for messages."""
+    if isinstance(scales, (str, bytes)):
+        return repr(scales)
+    try:
+        items = list(scales) if isinstance(scales, (list, tuple)) else \
+            list(np.atleast_1d(getattr(scales, "value", scales)))
+    except Exception:  # noqa: BLE001 - only used to quote the input back
+        return repr(scales)
+    unit = f" {scales.unit}" if hasattr(scales, "unit") else ""
+    text = ", ".join(f"{float(v):g}" if isinstance(v, (int, float, np.number)) and
+                     not isinstance(v, bool) else repr(v) for v in items)
+    return f"[{text}]{unit}"
 
 
 class ScaleSet:
@@ -185,25 +200,47 @@ class ScaleSet:
             is_angle = isinstance(scales, u.Quantity)
         except ImportError:  # pragma: no cover
             is_angle = False
+        given = _as_given(scales)
+        if isinstance(scales, (str, bytes)):
+            raise InputError(f"scales is {scales!r} (text); give a list of diameters such as "
+                             "[0, 4, 8] (on the command line: --scales 0,4,8)")
         if is_angle:
             if cell_arcsec is None:
-                raise ValueError("scales were given as angles but cell_arcsec is missing; "
-                                 "pass the cell size or give scales in pixels")
-            px = angle_to_pixels(scales, cell_arcsec)
+                raise InputError(f"scales {given} are angles but there is no cell size to turn "
+                                 "them into pixels (cell_arcsec is None, or the image has no "
+                                 "celestial WCS); pass cell_arcsec or give scales in pixels")
+            try:
+                px = angle_to_pixels(scales, cell_arcsec)
+            except Exception:  # noqa: BLE001 - astropy raises several types for bad units
+                raise InputError(f"scales {given} are not angles; give them in arcsec, "
+                                 "arcmin or deg, or as plain pixels") from None
         else:
-            px = np.atleast_1d(np.asarray(scales, dtype=np.float64))
+            try:
+                px = np.atleast_1d(np.asarray(scales, dtype=np.float64))
+            except (TypeError, ValueError):
+                raise InputError(f"scales {given} are not all numbers; give diameters in "
+                                 "pixels such as [0, 4, 8]") from None
+        if px.ndim != 1:
+            raise InputError(f"scales {given} is not a flat list; give diameters such as "
+                             "[0, 4, 8]")
         if px.size == 0:
-            raise ValueError("scales is empty; give at least one diameter, e.g. [0, 4, 8]")
-        if not np.all(np.isfinite(px)) or np.any(px < 0):
-            raise ValueError(f"scales {px.tolist()} contain negative or non-finite values; "
-                             "scale diameters are >= 0 pixels")
+            raise InputError("scales is empty; give at least one diameter, e.g. [0, 4, 8]")
+        if not np.all(np.isfinite(px)):
+            raise InputError(f"scales {given} contain non-finite values; scale diameters "
+                             "are finite numbers >= 0 pixels")
+        if np.any(px < 0):
+            raise InputError(f"scales {given} contain negative values; scale diameters are "
+                             ">= 0 pixels (0 is the delta scale)")
         px = np.round(px, 3)
-        if len(np.unique(px)) != len(px):
-            raise ValueError(f"scales {px.tolist()} contain duplicates; give each once")
+        uniq, counts = np.unique(px, return_counts=True)
+        if np.any(counts > 1):
+            dup = ", ".join(f"{v:g}" for v in uniq[counts > 1])
+            raise InputError(f"scales {given} contain duplicates ({dup} px); give each "
+                             "scale once")
         px = np.sort(px)
         if image_shape is not None and px[-1] > min(image_shape):
-            raise ValueError(f"scale {px[-1]:g} px is larger than the image {tuple(image_shape)}; "
-                             "drop it or use a larger image")
+            raise InputError(f"scale {px[-1]:g} px is larger than the image "
+                             f"{tuple(image_shape)}; drop it or use a larger image")
         self.pixels = tuple(float(p) for p in px)
         self.cell_arcsec = cell_arcsec
 
