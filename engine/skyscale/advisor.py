@@ -25,7 +25,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ._validate import as_image
+from ._validate import InputError, as_image
 from .beam import Beam, fit_beam
 from .detect import DIAMETER_MEASURES
 from .extent import EmissionExtent, measure_emission_extent
@@ -406,7 +406,7 @@ def resolve_scales(scales, dirty, psf, cell_arcsec=None, **options):
     if not isinstance(scales, str):
         return scales, []
     if scales.strip().lower() != "auto":
-        raise ValueError(f"scales is {scales!r}; pass diameters in pixels, e.g. "
+        raise InputError(f"scales is {scales!r}; pass diameters in pixels, e.g. "
                          "[0, 4, 8, 16], or 'auto' to ask the scale advisor")
     s = suggest_scales(dirty, psf, cell_arcsec=cell_arcsec, **options)
     return tuple(float(p) for p in s.pixels), list(s.reasons)
