@@ -15,7 +15,8 @@ import warnings
 
 import numpy as np
 
-from ._validate import as_image, resolve_dtype
+from ._threads import thread_limit
+from ._validate import InputError, as_image, resolve_dtype
 from .levels import DEFAULT_EXTENDED_DEPTH, allowed_peak, scale_levels
 from .minor import DEFAULT_SCALE_LOOP_DEPTH, DEFAULT_SIZE_PENALTY, Engine
 from .operators import ImagePlaneOperator, as_operator, exact_box, exact_region
@@ -106,6 +107,12 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
     t_minor = 0.0
     t0 = time.perf_counter()
     shape = engine.image_shape
+    user_operator = operator
+
+    def operator(model):          # the operator's own threads follow the run's
+        with thread_limit(engine.threads):
+            return user_operator(model)
+
     if model is None:
         model = np.zeros(shape, dtype=engine.dtype)
         if dirty is None:
@@ -114,7 +121,7 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
     else:
         model = as_image(model, "model", dtype=engine.dtype)
         if model.shape != shape:
-            raise ValueError(f"model has shape {model.shape}, expected the image's {shape}; "
+            raise InputError(f"model has shape {model.shape}, expected the image's {shape}; "
                              "start from a model on the dirty image's grid")
         residual = as_image(operator(model), "residual returned by the operator",
                             dtype=np.float64)
@@ -122,10 +129,10 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
     if mask is not None:
         mask = np.asarray(mask, dtype=bool)
         if mask.shape != shape:
-            raise ValueError(f"mask has shape {mask.shape}, expected the image's {shape}; "
+            raise InputError(f"mask has shape {mask.shape}, expected the image's {shape}; "
                              "regrid or rebuild the mask")
-    offsets = getattr(operator, "exact_offsets", None)
-    exact = getattr(operator, "exact", True)
+    offsets = getattr(user_operator, "exact_offsets", None)
+    exact = getattr(user_operator, "exact", True)
     centres = (model != 0).astype(np.uint8)
     if mask_updater is not None:
         mask = mask_updater(residual, centres, mask)
@@ -394,7 +401,7 @@ def deconvolve(dirty, psf, *, scales=(0, 4, 8, 16), loop_gain=0.1, threshold=0.0
     dirty_arr = as_image(dirty, "dirty", dtype=dt)
     if isinstance(mask, str):
         if mask != "auto":
-            raise ValueError(f"mask is {mask!r}; give 'auto', a boolean array or None")
+            raise InputError(f"mask is {mask!r}; give 'auto', a boolean array or None")
         mask = None
         auto_mask = auto_mask or "auto"
     elif isinstance(mask, AutoMask):
@@ -403,6 +410,10 @@ def deconvolve(dirty, psf, *, scales=(0, 4, 8, 16), loop_gain=0.1, threshold=0.0
                     size_penalty=size_penalty, loop_gain=loop_gain,
                     scale_loop_depth=scale_loop_depth, dtype=dt, threads=threads, fft=fft,
                     cell_arcsec=cell_arcsec, psf_patch=psf_patch)
+    describe = getattr(operator, "describe", None)
+    params["operator"] = (describe() if callable(describe) else
+                          {"operator": "ImagePlaneOperator" if operator is None
+                           else type(operator).__name__})
     if operator is None:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")   # said once below, in words, with the region

@@ -7,6 +7,8 @@ emission that is faint per pixel but significant once smoothed is cleaned too.
 
 import numpy as np
 
+from ._validate import InputError
+
 __all__ = ["DEFAULT_EXTENDED_DEPTH", "LEVEL_ALLOWANCE", "scale_levels", "allowed_peak"]
 
 #: Near the noise a broad component's sidelobes may lift a noise peak of the unsmoothed
@@ -61,7 +63,7 @@ def scale_levels(noise, *, threshold=0.0, noise_threshold=None,
     if noise_threshold is None:
         return levels
     if not 0.0 < extended_depth <= 1.0:
-        raise ValueError(f"extended_depth is {extended_depth}, expected a fraction in (0, 1]; "
+        raise InputError(f"extended_depth is {extended_depth}, expected a fraction in (0, 1]; "
                          f"{DEFAULT_EXTENDED_DEPTH} is the default")
     nu = np.full(sigma.shape, float(noise_threshold))
     if masked and scales is not None and np.max(scales) > 0:

@@ -27,7 +27,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ._threads import thread_limit
-from ._validate import as_image, resolve_dtype
+from ._validate import NUMBER_RULES, InputError, as_image, check_number, resolve_dtype
 from .fft import Convolver, MultiConvolver, get_backend
 from .kernels import scale_loop, stamp_components
 from .levels import allowed_peak, scale_levels
@@ -189,10 +189,10 @@ class Engine:
             self.scales = ScaleSet(scales, shape=scale_shape, cell_arcsec=cell_arcsec,
                                    image_shape=self.image_shape)
         if not 0.0 < loop_gain <= 1.0:
-            raise ValueError(f"loop_gain is {loop_gain}, expected 0 < loop_gain <= 1; "
+            raise InputError(f"loop_gain is {loop_gain}, expected 0 < loop_gain <= 1; "
                              "0.1 is the usual choice")
         if not 0.0 <= scale_loop_depth < 1.0:
-            raise ValueError(f"scale_loop_depth is {scale_loop_depth}, expected a fraction "
+            raise InputError(f"scale_loop_depth is {scale_loop_depth}, expected a fraction "
                              "in [0, 1); 0.5 is the default")
         self.loop_gain = float(loop_gain)
         self.size_penalty = float(size_penalty)
@@ -204,7 +204,7 @@ class Engine:
         self.memory = plan_memory(self.image_shape, self.psf.shape, self.scales.support_radii,
                                   self.dtype.itemsize)
         if max_memory is not None and self.memory["total"] > max_memory:
-            raise ValueError(f"the engine needs {self.memory['total'] / 2**20:.0f} MiB, over "
+            raise InputError(f"the engine needs {self.memory['total'] / 2**20:.0f} MiB, over "
                              f"max_memory {max_memory / 2**20:.0f} MiB; use fewer or smaller "
                              "scales, a smaller image, or raise max_memory")
         self.kernels = self.scales.kernels(self.dtype)
@@ -214,7 +214,7 @@ class Engine:
                 self.fft, dtype=self.dtype)
             bad = [s for s, b in zip(self.scales.pixels, self.beam_peaks) if not b > 0]
             if bad:
-                raise ValueError(f"scales {bad} px see a PSF whose doubly smoothed peak is "
+                raise InputError(f"scales {bad} px see a PSF whose doubly smoothed peak is "
                                  "<= 0 (the array does not recover structure that large); "
                                  "drop them or use smaller scales")
             self.smoother = MultiConvolver(self.kernels, self.image_shape, backend=self.fft)
@@ -331,7 +331,7 @@ class Engine:
         t0 = time.perf_counter()
         residual = as_image(residual, "residual", dtype=np.float64)
         if residual.shape != self.image_shape:
-            raise ValueError(f"residual has shape {residual.shape}, the engine was built "
+            raise InputError(f"residual has shape {residual.shape}, the engine was built "
                              f"for {self.image_shape}; build an Engine with image_shape="
                              f"{residual.shape}")
         if model is None:
@@ -339,15 +339,21 @@ class Engine:
         else:
             model = as_image(model, "model", dtype=self.dtype)
             if model.shape != residual.shape:
-                raise ValueError(f"model has shape {model.shape}, expected the residual's "
+                raise InputError(f"model has shape {model.shape}, expected the residual's "
                                  f"{residual.shape}")
         if mask is not None:
             mask = np.asarray(mask, dtype=bool)
             if mask.shape != residual.shape:
-                raise ValueError(f"mask has shape {mask.shape}, expected the image's "
+                raise InputError(f"mask has shape {mask.shape}, expected the image's "
                                  f"{residual.shape}; regrid or rebuild the mask")
-        if not 0.0 <= cycle_depth < 1.0:
-            raise ValueError(f"cycle_depth is {cycle_depth}, expected a fraction in [0, 1)")
+        threshold = check_number(threshold, "threshold", **NUMBER_RULES["threshold"])
+        noise_threshold = check_number(noise_threshold, "noise_threshold",
+                                       **NUMBER_RULES["noise_threshold"])
+        extended_depth = check_number(extended_depth, "extended_depth",
+                                      **NUMBER_RULES["extended_depth"])
+        cycle_depth = check_number(cycle_depth, "cycle_depth", **NUMBER_RULES["cycle_depth"])
+        max_components = check_number(max_components, "max_components",
+                                      **NUMBER_RULES["max_components"])
         with thread_limit(self.threads):
             return self._minor_cycle(residual, model, mask, float(threshold), noise_threshold,
                                      float(extended_depth), float(cycle_depth),

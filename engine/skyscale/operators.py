@@ -13,14 +13,13 @@ References
 
 import logging
 import warnings
+from typing import Protocol, runtime_checkable
 
 import numpy as np
 
-from ._validate import as_image, resolve_dtype
+from ._validate import InputError, as_image, resolve_dtype
 from .fft import Convolver, get_backend
 from .psf import check_psf
-
-from typing import Protocol, runtime_checkable
 
 __all__ = ["ResidualOperator", "ImagePlaneOperator", "FunctionOperator", "as_operator",
            "exact_box", "exact_region"]
@@ -111,7 +110,7 @@ class FunctionOperator:
         out = as_image(out, "residual returned by the operator", dtype=self.dtype,
                        allow_nan=True)
         if out.shape != self.shape:
-            raise ValueError(f"the operator returned a residual of shape {out.shape}, "
+            raise InputError(f"the operator returned a residual of shape {out.shape}, "
                              f"expected the image's {self.shape}; return one image per model")
         return out
 
