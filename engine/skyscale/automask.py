@@ -155,7 +155,7 @@ class AutoMask:
         # integers, so > 0.5 is exact dilation.
         return conv[r:r + ny, r:r + nx] > 0.5
 
-    def update(self, residual, model=None, previous=None):
+    def update(self, residual, model=None, previous=None, noise=None):
         """Compute the mask for this major cycle.
 
         Parameters
@@ -166,6 +166,9 @@ class AutoMask:
             Current model; its non-zero pixels are always in the mask.
         previous : (ny, nx) array_like of bool, optional
             Pixels that must stay in the mask.  Default: the mask of the last update.
+        noise : float, optional
+            The residual's noise from the deconvolution (see
+            `skyscale.detect.detect_emission`'s ``reference_noise``).
 
         Returns
         -------
@@ -197,7 +200,8 @@ class AutoMask:
         widths = self.smoothing_px()
         found = detect_emission(res, self.beam_fwhm_px, [widths[s] for s in self.scales],
                                 sigma=self.sigma, exclude=protected,
-                                include_negative=self.include_negative)
+                                include_negative=self.include_negative,
+                                reference_noise=noise)
         self.noise = dict(zip(self.scales, found.noise))
         detected = found.mask
         labels, n = ndimage.label(detected, structure=np.ones((3, 3), dtype=bool))

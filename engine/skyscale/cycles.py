@@ -76,10 +76,10 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
     cycle_depth
         See `deconvolve`.
     mask_updater : callable, optional
-        ``mask_updater(residual, centres, previous_mask) -> mask``, called after every
-        major cycle (the automatic mask); ``centres`` is non-zero where components are
-        centred (the model's footprint would grow the mask by each kernel's radius
-        every cycle).
+        ``mask_updater(residual, centres, previous_mask, noise=sigma) -> mask``, called
+        after every major cycle (the automatic mask); ``centres`` is non-zero where
+        components are centred (the model's footprint would grow the mask by each
+        kernel's radius every cycle) and ``sigma`` is the smallest scale's noise.
     callback : callable, optional
         Receives progress dicts (``stage`` 'major' or 'minor').
 
@@ -134,8 +134,6 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
     offsets = getattr(user_operator, "exact_offsets", None)
     exact = getattr(user_operator, "exact", True)
     centres = (model != 0).astype(np.uint8)
-    if mask_updater is not None:
-        mask = mask_updater(residual, centres, mask)
 
     def stats(residual, model, mask, previous=None):
         region = None if exact else exact_region(shape, model, offsets)
@@ -148,6 +146,9 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
         return state, region, peak, rms, levels
 
     state, region, peak, rms, levels = stats(residual, model, mask)
+    if mask_updater is not None:
+        mask = mask_updater(residual, centres, mask, noise=float(state.noise[0]))
+        state, region, peak, rms, levels = stats(residual, model, mask)
     flux0 = float(model.sum(dtype=np.float64))
     history = [CycleRecord(0, 0, peak, rms, flux0, scale_peaks=state.peaks.tolist())]
     _notify(callback, stage="major", cycle=0, components=0, peak=peak, rms=rms)
@@ -219,7 +220,7 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
             flux = float(model.sum(dtype=np.float64))
             centres[mc.components["y"], mc.components["x"]] = 1
             if mask_updater is not None:
-                mask = mask_updater(residual, centres, mask)
+                mask = mask_updater(residual, centres, mask, noise=float(new_state.noise[0]))
                 new_state, new_region, new_peak, new_rms, new_levels = stats(
                     residual, model, mask, state)
             state, region, peak, rms, levels = (new_state, new_region, new_peak, new_rms,
@@ -469,13 +470,13 @@ def _auto_mask_updater(auto_mask, user_mask, box):
     if hasattr(auto_mask, "reset"):
         auto_mask.reset()
 
-    def update(residual, model, previous):   # the mask keeps its own previous pixels
+    def update(residual, model, previous, noise=None):   # the mask keeps its own pixels
         if box is None:
-            m = auto_mask.update(residual, model=model)
+            m = auto_mask.update(residual, model=model, noise=noise)
         else:
             (y0, y1), (x0, x1) = box
             m = np.zeros(residual.shape, dtype=bool)
             m[y0:y1, x0:x1] = auto_mask.update(residual[y0:y1, x0:x1],
-                                               model=model[y0:y1, x0:x1])
+                                               model=model[y0:y1, x0:x1], noise=noise)
         return m if user_mask is None else (m & user_mask)
     return update

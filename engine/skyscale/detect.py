@@ -322,7 +322,7 @@ def _islands(sm, sigma, noise, previous, width, beam_major, min_area, measure, f
 
 def detect_emission(image, beam_fwhm_px, smoothing_px=None, *, sigma=5.0, exclude=None,
                     include_negative=False, measure=False, beam_major_px=None,
-                    min_area=None, diameter="equal_area"):
+                    min_area=None, diameter="equal_area", reference_noise=None):
     """Detect emission in an image smoothed at a ladder of widths.
 
     Parameters
@@ -350,6 +350,11 @@ def detect_emission(image, beam_fwhm_px, smoothing_px=None, *, sigma=5.0, exclud
         area, at least 2 pixels.
     diameter : {'equal_area', 'feret'}
         How an island's contour is measured (`DIAMETER_MEASURES`).
+    reference_noise : float, optional
+        The unsmoothed image's noise from a better estimate (the deconvolution's own,
+        which broad emission cannot inflate).  When it is below this routine's estimate
+        at the first rung, every rung's noise is scaled down by their ratio: emission
+        the exclusion missed inflated them all.
 
     Returns
     -------
@@ -370,11 +375,15 @@ def detect_emission(image, beam_fwhm_px, smoothing_px=None, *, sigma=5.0, exclud
     mask = np.zeros(image.shape, dtype=bool)
     noises, islands = [], []
     previous = None
+    correction = 1.0
     for i, (width, sm) in enumerate(smoothed_images(image, ladder)):
         margin = 0.5 * math.hypot(beam_fwhm_px, width)
         noise = emission_free_noise(sm, sigma, exclude=exclude, margin_px=margin)
         if noise == 0:
             noise = float(np.std(sm))
+        if i == 0 and reference_noise is not None and 0 < reference_noise < noise:
+            correction = float(reference_noise) / noise
+        noise *= correction
         noises.append(noise)
         if noise == 0:
             previous = None

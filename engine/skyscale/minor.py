@@ -220,6 +220,14 @@ class Engine:
             self.smoother = MultiConvolver(self.kernels, self.image_shape, backend=self.fft)
             self.psf_convolver = Convolver(self.psf, self.image_shape, backend=self.fft)
         self._box_tools = {}
+        #: ``B_0k(0)``: the PSF smoothed once by scale k, at its centre.
+        py, px = self.psf.shape
+        self.cross_peaks = np.array([
+            float(np.sum(k.astype(np.float64) * self.psf[py // 2 - k.shape[0] // 2:
+                                                         py // 2 + k.shape[0] // 2 + 1,
+                                                         px // 2 - k.shape[1] // 2:
+                                                         px // 2 + k.shape[1] // 2 + 1]))
+            for k in self.kernels])
         self.amp_scale = 1.0 / self.beam_peaks
         self.response_scale = self.weights / np.sqrt(self.beam_peaks)
         self.precompute_seconds = time.perf_counter() - t0
@@ -277,9 +285,10 @@ class Engine:
 
         Noise is measured outside ``mask`` (grown by each scale's radius), inside
         ``noise_region`` (where the residual is exact; default everywhere), with
-        clipping of what emission is left (`skyscale.noise.scale_noise`); ``previous``
-        (a `ScaleState`) supplies the smallest scale's noise when too little of the
-        image is left to measure it.
+        clipping of what emission is left (`skyscale.noise.scale_noise`, which also
+        high-passes the residual so that broad emission the mask missed cannot inflate
+        the smallest scale's noise).  ``previous`` (a `ScaleState`) supplies the
+        smallest scale's noise when too little of the image is left to measure it.
         """
         residual = np.asarray(residual)
         with thread_limit(self.threads):
@@ -287,6 +296,7 @@ class Engine:
         allowed = self.allowed(None if mask is None else np.asarray(mask, dtype=bool))
         sigma, used, how = scale_noise(planes, self.scales.support_radii, mask=mask,
                                        region=noise_region, ratios=np.sqrt(self.beam_peaks),
+                                       cross=self.cross_peaks,
                                        previous=None if previous is None
                                        else float(previous.noise[0]))
         return ScaleState(planes, self._peaks(planes, allowed), sigma, used, how)

@@ -130,13 +130,19 @@ def emission_free_noise(image, *, exclude=None, region=None, border=0, passes=3)
     return sigma, int(data.size)
 
 
+#: A broad scale's measured noise above this multiple of the smallest scale's noise
+#: times ``sqrt(B_kk(0) / B_00(0))`` holds emission the mask missed (smoothing keeps
+#: emission and lowers noise); the scaled value is used instead.
+CONTAMINATED = 2.0
+
 #: A scale's noise is measured only where its emission-free area holds at least this
 #: many kernel areas (independent samples of its smoothed noise); otherwise it comes
 #: from the smallest scale's noise and the PSF (`scale_noise`).
 MIN_INDEPENDENT = 50
 
 
-def scale_noise(planes, radii, *, mask=None, region=None, ratios=None, previous=None):
+def scale_noise(planes, radii, *, mask=None, region=None, ratios=None, previous=None,
+                cross=None):
     """Noise of each scale's smoothed residual, measured where there is no emission.
 
     Parameters
@@ -154,9 +160,16 @@ def scale_noise(planes, radii, *, mask=None, region=None, ratios=None, previous=
         Expected noise of each scale relative to the others, ``sqrt(B_kk(0))`` (see
         Notes).  Used for a scale whose emission-free area is too small to measure it.
     previous : float, optional
-        The smallest scale's noise from an earlier measurement, kept when fewer than
-        ``5 * MIN_NOISE_PIXELS`` pixels lie outside the grown mask now (rather than measuring inside emission
-        that cleaning has flattened, which would underestimate it).
+        The smallest scale's noise from the previous cycle, kept when fewer than
+        ``5 * MIN_NOISE_PIXELS`` pixels lie outside the grown mask now (measuring inside
+        emission that cleaning has flattened would underestimate it).
+    cross : (n_scales,) array_like, optional
+        ``B_0k(0)``, the PSF smoothed once by each scale at its centre.  With ``ratios``
+        it gives a second estimate of the smallest scale's noise from the residual
+        minus its smoothing by the largest scale, which broad emission cannot inflate:
+        for noise correlated like the PSF its deviation is
+        ``sigma sqrt(1 - 2 B_0K(0) + B_KK(0))``.  It replaces the first when that is
+        more than `CONTAMINATED` times higher (emission the mask missed).
 
     Returns
     -------
@@ -164,7 +177,8 @@ def scale_noise(planes, radii, *, mask=None, region=None, ratios=None, previous=
     used : (n_scales,) int64 ndarray
         Pixels (subsampled) each measurement used; 0 where the noise was scaled.
     how : list of str
-        ``'measured'``, ``'scaled'`` or ``'kept'`` (the previous value) per scale.
+        ``'measured'`` (or with the mask not grown, or by clipping only) or ``'scaled'``
+        per scale.
 
     Notes
     -----
@@ -201,10 +215,26 @@ def scale_noise(planes, radii, *, mask=None, region=None, ratios=None, previous=
                 break
         if k == 0 and previous is not None and (used[k] * step * step < 5 * MIN_NOISE_PIXELS
                                                 or sigma[k] <= 0):
-            sigma[k], used[k], how[k] = float(previous), 0, "kept"
+            sigma[k], used[k], how[k] = float(previous), 0, "kept from the previous cycle"
+        elif k == 0 and exclude is not tries[0]:
+            how[k] = "measured (mask not grown)" if exclude is not None else \
+                "measured (clipping only)"
+        if k == 0 and cross is not None and ratios is not None and n > 1 and radii[-1] > 0:
+            big = n - 1
+            factor = 1.0 - 2.0 * float(cross[big]) + float(ratios[big]) ** 2
+            if factor > 0.05:
+                grown = None if mask is None or mask.all() else _grow(mask, int(radii[big]))
+                hp, hp_used = emission_free_noise(planes[0] - planes[big], exclude=grown,
+                                                  region=region, border=int(radii[big]))
+                hp /= np.sqrt(factor)
+                if hp_used >= MIN_NOISE_PIXELS and 0 < hp and hp * CONTAMINATED < sigma[k]:
+                    sigma[k], used[k] = hp, hp_used
+                    how[k] = "high-passed (residual minus its largest-scale smoothing)"
         independent = used[k] * step * step / max(np.pi * r * r, 1.0)
+        expected = 0.0 if ratios is None else sigma[0] * float(ratios[k]) / float(ratios[0])
         if k > 0 and ratios is not None and sigma[0] > 0 and (
-                independent < MIN_INDEPENDENT or sigma[k] <= 0):
+                independent < MIN_INDEPENDENT or sigma[k] <= 0 or
+                sigma[k] > CONTAMINATED * expected):
             sigma[k] = sigma[0] * float(ratios[k]) / float(ratios[0])
             used[k] = 0
             how[k] = "scaled"
