@@ -66,8 +66,19 @@ def summary(result, written, report, elapsed):
     t.add_column("scale (px)", justify="right")
     t.add_column("components", justify="right")
     t.add_column("flux (Jy)", justify="right")
-    for row in result.per_scale():
-        t.add_row(f"{row['scale']:g}", str(row["components"]), f"{row['flux']:.5g}")
+    levels = getattr(result, "scale_levels", None)
+    if levels is not None:
+        t.add_column("noise (Jy/beam)", justify="right")
+        t.add_column("stop level", justify="right")
+        t.add_column("peak left", justify="right")
+    for i, row in enumerate(result.per_scale()):
+        cells = [f"{row['scale']:g}", str(row["components"]), f"{row['flux']:.5g}"]
+        if levels is not None:
+            peak = result.scale_peaks[i]
+            cells += [f"{result.scale_noise[i]:.3g}", f"{levels[i]:.3g}",
+                      f"{peak:.3g}" + (" (active)" if result.scales[i] in
+                                        (result.active_scales or ()) else "")]
+        t.add_row(*cells)
     t.add_row("all", str(result.components.size), f"{float(result.model.sum()):.5g}")
     _out.print(t)
     last = result.history[-1]
@@ -75,7 +86,8 @@ def summary(result, written, report, elapsed):
     s.add_column("what")
     s.add_column("value")
     s.add_row("stop reason", f"{result.stop_reason}: {result.stop_description}")
-    s.add_row("major cycles", str(len(result.history) - 1))
+    s.add_row("major cycles", f"{len(result.history) - 1} ({getattr(result, 'sub_loops', 0)} "
+              f"sub-loops, {getattr(result, 'rollbacks', 0)} rollbacks)")
     s.add_row("peak residual", f"{last.peak:.4g} Jy/beam")
     s.add_row("rms residual", f"{last.rms:.4g} Jy/beam")
     if result.beam is not None:

@@ -251,7 +251,8 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
         stop = "interrupted"
         logger.warning("interrupted: returning the model of the last complete major cycle")
     components = np.concatenate(tables) if tables else np.zeros(0, COMPONENT_DTYPE)
-    active = [s for s, p, lv in zip(engine.scales.pixels, state.peaks, levels) if p > lv]
+    active = [s for s, p, lv in zip(engine.scales.pixels, state.peaks, levels)
+              if p > lv * LEVEL_SLACK]
     return DeconvolutionResult(
         model=model, residual=residual.astype(engine.dtype), components=components,
         stop_reason=stop, history=history, scales=engine.scales.pixels, mask=mask,

@@ -238,8 +238,9 @@ def _scale_noise(result):
     noise = getattr(result, "scale_noise", None)
     if noise is None:
         return None
+    active = set(getattr(result, "active_scales", None) or ())
     rows = [{"scale_px": float(s), "noise": float(n), "level": float(lv), "peak": float(p),
-             "active": bool(p > lv)}
+             "active": float(s) in active}
             for s, n, lv, p in zip(result.scales, noise, result.scale_levels,
                                    result.scale_peaks)]
     return {"unit": "Jy/beam", "per_scale": rows,

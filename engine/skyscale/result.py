@@ -84,7 +84,7 @@ class DeconvolutionResult:
         Per scale: its own noise (Jy/beam, measured where there is no emission), its
         stop level and its peak in the mask at the end.
     active_scales : list of float
-        Scales (pixels) still above their stop level when the run stopped.
+        Scales (pixels) still more than 5 % above their stop level when the run stopped.
     noise_region : dict
         Where the noise was measured (``where``, ``pixels_used`` per scale).
     sub_loops, rejected_sub_loops : int
