@@ -151,11 +151,10 @@ def run_files(dirty_path, psf_path, out_dir, params=None, *, callback=None, inpu
         from .advisor import check_scales
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            from .cost import max_affordable_scales
+            from .planner import max_affordable_scales
             afford = max_affordable_scales(dirty.data.shape, psf.data, scales_px,
                                            max_components=merged["max_components"],
-                                           threads=merged["threads"],
-                                           psf_patch=merged["psf_patch"])
+                                           threads=merged["threads"])
             scale_warnings = check_scales(scales_px, dirty.data, psf.data, cell_arcsec=cell,
                                           max_affordable_scales=len(afford.scales))
     mask = _build_mask(merged, dirty, dirty.data.shape)
@@ -171,10 +170,11 @@ def run_files(dirty_path, psf_path, out_dir, params=None, *, callback=None, inpu
         if cell is None:
             raise ValueError("beam is given in arcsec but the image has no celestial WCS")
         beam = Beam.from_sky(maj, mnr, pa, cell)
-    from .cost import check_fits_memory, plan_run
+    from .planner import check_fits_memory, plan_run
     plan = plan_run(dirty.data.shape, psf.data, scales_px,
                     max_components=merged["max_components"], threads=merged["threads"],
-                    psf_patch=merged["psf_patch"])
+                    max_major_cycles=merged["max_major_cycles"], dirty=dirty.data,
+                    threshold=merged["threshold"], noise_threshold=merged["noise_threshold"])
     check_fits_memory(plan)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
