@@ -9,6 +9,11 @@ points use, and the sub-loop and the FFTs at 1 and 2 threads.  Whole runs at the
 sizes calibrate the counts (rounds, active pixels, major cycles); runs at sizes and on
 fields it did not see check the planner.  `skyscale.sweepfit` fits and summarises.
 Nothing here prints: progress goes to ``callback(dict)`` and the log.
+
+Times at one thread are the process's CPU time (`cpu_clock`), not the wall clock: on a
+machine shared with other work the wall clock of a long step depends on the load far
+more than on the step, and the planner predicts the time of an unshared core.  The
+thread probes, which must see threads run side by side, use the wall clock.
 """
 
 import contextlib
@@ -29,7 +34,8 @@ from .minor import Engine
 from .operators import ImagePlaneOperator
 
 __all__ = ["SCALE_SETS", "DEFAULT_SIZES", "QUICK_SETTINGS", "synthetic_field", "PeakMemory",
-           "record_sub_loops", "fft_probe", "measure_point", "measure_run", "run_sweep"]
+           "cpu_clock", "record_sub_loops", "fft_probe", "measure_point", "measure_run",
+           "run_sweep"]
 
 logger = logging.getLogger(__name__)
 
@@ -127,6 +133,26 @@ class PeakMemory:
 
 
 # ------------------------------------------------------------------ instrumentation
+#: Resident-set sampling interval of the sweep's memory measurements, seconds (the
+#: sampling thread's own CPU time is then negligible against the steps timed).
+RSS_INTERVAL = 0.05
+
+
+@contextlib.contextmanager
+def cpu_clock():
+    """Within the block the engine's and the driver's timings are CPU seconds of this
+    process (``time.process_time``) instead of wall seconds (measurement only)."""
+    import types
+    from . import cycles, minor
+    shim = types.SimpleNamespace(perf_counter=time.process_time)
+    saved = minor.time, cycles.time
+    minor.time = cycles.time = shim
+    try:
+        yield
+    finally:
+        minor.time, cycles.time = saved
+
+
 @contextlib.contextmanager
 def record_sub_loops():
     """Record every sub-loop the engine runs: ``(active pixels, components, seconds)``.
@@ -139,9 +165,9 @@ def record_sub_loops():
     rows = []
 
     def timed(values, ys, xs, beam, **kw):
-        t0 = time.perf_counter()
+        t0 = time.process_time()
         out = inner(values, ys, xs, beam, **kw)
-        rows.append((int(np.size(values)), int(out[0].size), time.perf_counter() - t0))
+        rows.append((int(np.size(values)), int(out[0].size), time.process_time() - t0))
         return out
     minor.scale_loop = timed
     try:
@@ -152,7 +178,9 @@ def record_sub_loops():
 
 def fft_probe(grids, *, threads=1, repeats=3, backend="auto"):
     """Seconds of one real FFT (mean of a forward and an inverse, best of ``repeats``)
-    on each grid, with the engine's backend: ``[{'grid', 'seconds', 'threads'}]``."""
+    on each grid, with the engine's backend: ``[{'grid', 'seconds', 'threads'}]``.
+    CPU seconds at one thread, wall seconds at more."""
+    clock = time.process_time if threads == 1 else time.perf_counter
     out = []
     fft = get_backend(backend, threads=threads)
     for grid in sorted({tuple(int(v) for v in g) for g in grids}):
@@ -161,9 +189,9 @@ def fft_probe(grids, *, threads=1, repeats=3, backend="auto"):
         fft.irfft2(spec, grid)                          # plan once
         best = np.inf
         for _ in range(repeats):
-            t0 = time.perf_counter()
+            t0 = clock()
             fft.irfft2(fft.rfft2(a, grid), grid)
-            best = min(best, (time.perf_counter() - t0) / 2)
+            best = min(best, (clock() - t0) / 2)
         out.append({"grid": list(grid), "seconds": best, "threads": int(threads)})
         del a, spec
     return out
@@ -178,15 +206,16 @@ def _record(engine, dirty, psf):
 
 
 def _timed(fn, *args, **kw):
-    t0 = time.perf_counter()
+    t0 = time.process_time()
     out = fn(*args, **kw)
-    return out, time.perf_counter() - t0
+    return out, time.process_time() - t0
 
 
 def measure_point(dirty, psf, scales, *, components=POINT_COMPONENTS, dtype=None):
     """One sweep point at one thread: precompute, set-up, the rounds and sub-loops of
-    one minor cycle, one major cycle and its statistics, and the peak memory."""
-    with PeakMemory() as mem:
+    one minor cycle, one major cycle and its statistics, and the peak memory (CPU
+    seconds)."""
+    with PeakMemory(RSS_INTERVAL) as mem, cpu_clock():
         engine = Engine(psf, scales, image_shape=dirty.shape, threads=1, dtype=dtype)
         op, setup = _timed(ImagePlaneOperator, dirty, engine.psf, fft=engine.fft,
                            dtype=engine.dtype)
@@ -211,13 +240,16 @@ def measure_point(dirty, psf, scales, *, components=POINT_COMPONENTS, dtype=None
 
 def measure_run(dirty, psf, scales, *, max_components, noise_threshold=3.0, threads=1,
                 seed_note=""):
-    """A whole `skyscale.deconvolve` run: its time by step, its counts and peak memory."""
+    """A whole `skyscale.deconvolve` run at one thread: its time by step (CPU seconds;
+    ``wall`` beside), its counts and peak memory."""
+    if resolve_threads(threads) != 1:
+        raise ValueError(f"threads is {threads}: measure_run times CPU seconds and needs 1")
     from .cycles import deconvolve
-    with record_sub_loops() as loops, PeakMemory() as mem:
-        t0 = time.perf_counter()
+    with record_sub_loops() as loops, PeakMemory(RSS_INTERVAL) as mem, cpu_clock():
+        t0, c0 = time.perf_counter(), time.process_time()
         res = deconvolve(dirty, psf, scales=scales, max_components=max_components,
                          noise_threshold=noise_threshold, threads=threads, restore=False)
-        wall = time.perf_counter() - t0
+        wall, cpu = time.perf_counter() - t0, time.process_time() - c0
     act = [a for a, _, _ in loops]
     sigma = res.scale_noise[0] if res.scale_noise else 0.0
     level = noise_threshold * sigma
@@ -229,9 +261,9 @@ def measure_run(dirty, psf, scales, *, max_components, noise_threshold=3.0, thre
             "active_pixels": float(np.mean(act)) if act else 0.0,
             "dynamic_range": float(np.abs(dirty).max() / level) if level > 0 else None,
             "measured": {"precompute": res.timings["precompute"], "minor": res.timings["minor"],
-                         "major": res.timings["major"], "total": wall,
+                         "major": res.timings["major"], "total": cpu,
                          "memory": int(mem.traced_peak)},
-            "rss_increase": int(mem.rss_increase)}
+            "wall": wall, "load": list(os.getloadavg()), "rss_increase": int(mem.rss_increase)}
 
 
 def predicted_for(run, calibration, *, a_priori):
@@ -286,15 +318,15 @@ def loop_threads_probe(n=512, iterations=40, thread_counts=(1, 2), repeats=3):
 
 _COLD_RUN = """
 import json, sys, time
-t0 = time.perf_counter()
+t0 = time.process_time()
 from skyscale.cycles import deconvolve
 from skyscale.sweep import synthetic_field
 n, scales, comps, seed = json.loads(sys.argv[1])
 dirty, psf = synthetic_field(n, seed=seed)
-t1 = time.perf_counter()
+t1 = time.process_time()
 r = deconvolve(dirty, psf, scales=scales, max_components=comps, threads=1, restore=False,
                noise_threshold=3.0)
-t2 = time.perf_counter()
+t2 = time.process_time()
 print(json.dumps({"imports_s": t1 - t0, "seconds": t2 - t1, "components": int(r.components.size),
                   "rounds": int(r.sub_loops), "cycles": len(r.history) - 1}))
 """
@@ -302,7 +334,7 @@ print(json.dumps({"imports_s": t1 - t0, "seconds": t2 - t1, "components": int(r.
 
 def measure_cold_start(n, scales, components=500, seed=13):
     """A run in a fresh Python process: imports, then the first run (compiled code
-    loaded from the cache, FFT plans made, fresh memory pages)."""
+    loaded from the cache, FFT plans made, fresh memory pages); CPU seconds."""
     import json
     import subprocess
     import sys
@@ -389,8 +421,9 @@ def run_sweep(sizes=DEFAULT_SIZES, *, scale_sets=SCALE_SETS, components=POINT_CO
                                              thread_counts=thread_counts)
     out["runs"] = []
     budget = q.get("run_components", 20000)
-    cal_runs = [(n, s) for n in sizes[:2] for s in ((0, 4, 8), (0, 4, 8, 16))
-                if max(s) <= n // 4]
+    cal_runs = [(sizes[0], (0, 4, 8)), (sizes[0], (0, 4, 8, 16)), (sizes[-1 if len(sizes) < 2
+                                                                        else 1], (0, 4, 8, 16))]
+    cal_runs = [(n, s) for n, s in cal_runs if max(s) <= n // 4]
     for n, scales in cal_runs:
         _notify(callback, what="calibration run", size=n, scales=list(scales))
         dirty, psf = synthetic_field(n, seed=0)
@@ -403,13 +436,12 @@ def run_sweep(sizes=DEFAULT_SIZES, *, scale_sets=SCALE_SETS, components=POINT_CO
     out["calibration"] = calibrate(out)
     out["validation"] = []
     if validate:
-        held = [(q["validate_size"], (0, 4, 8), 11, 1)] if quick else [
-            (768, (0, 4, 8, 16), 11, 1), (1536, (0, 4, 8, 16, 32), 12, 1),
-            (512, (0, 4, 8, 16, 32), 14, None)]
-        for n, scales, seed, threads in held:
-            _notify(callback, what="validation", size=n, scales=list(scales), threads=threads)
+        held = [(q["validate_size"], (0, 4, 8), 11)] if quick else [
+            (768, (0, 4, 8, 16), 11), (1536, (0, 4, 8, 16, 32), 12), (640, (0, 4, 8, 16, 32), 14)]
+        for n, scales, seed in held:
+            _notify(callback, what="validation", size=n, scales=list(scales))
             dirty, psf = synthetic_field(n, seed=seed)
-            run = measure_run(dirty, psf, list(scales), max_components=budget, threads=threads,
+            run = measure_run(dirty, psf, list(scales), max_components=budget,
                               seed_note=f"synthetic_field({n}, seed={seed})")
             for label, prior in (("model, run's counts", False), ("a priori", True)):
                 pred = predicted_for(run, out["calibration"], a_priori=prior)
