@@ -176,7 +176,8 @@ def test_plan_totals_add_up():
     p = cost.plan_run((256, 256), (512, 512), [0, 4, 8], components=1000, rounds=30,
                       major_cycles=4, active_pixels=500.0, threads=1, calibration=cal)
     t = cost.predict_times(cost.run_geometry((256, 256), (512, 512), (0, 2, 4)), cal)
-    loop = t["per_component_pixel"] * 1000 * 500 + t["per_active_pixel"] * 30 * 500
+    loop = (t["per_component_pixel"] * 1000 * 500
+            + 30 * (t["per_active_pixel"] * 500 + t["per_sub_loop"]))
     assert p.loop_seconds == pytest.approx(loop)
     assert p.minor_seconds == pytest.approx(30 * t["round"] + loop)
     assert p.major_total_seconds == pytest.approx(4 * (t["major"] + t["stats"]) + t["stats"])
@@ -304,7 +305,9 @@ def test_calibrate_inverts_the_model_on_noiseless_data():
     true["fft"] = {"coefficient": 3e-9, "exponent": 1.1}
     true["round"] = {"fixed": 2e-3, "per_fft_second": 1.5, "per_plane_pixel": 4e-9}
     true["major"] = {"fixed": 1e-3, "per_fft_second": 1.2, "per_plane_pixel": 2e-9}
-    true["loop"] = {"per_component_pixel": 1.5e-9, "per_active_pixel": 3e-9}
+    true["loop"] = {"per_component_pixel": 1.5e-9, "per_active_pixel": 3e-9,
+                    "per_sub_loop": 2e-5}
+    true["setup"] = {"fixed": 1e-2, "per_fft_second": 0.9}
     grids = set()
     points = []
     for n in (128, 256, 512):
@@ -313,17 +316,17 @@ def test_calibrate_inverts_the_model_on_noiseless_data():
             g = cost.run_geometry((n, n), (2 * n, 2 * n), radii)
             grids |= {g.major_grid} | ({g.precompute_grid, g.smooth_grid} if g.n_finite else set())
             t = cost.predict_times(g, true)
-            loops = [[a, m, 1.5e-9 * a * m + 3e-9 * a] for a, m in ((5000, 40), (20000, 7),
-                                                                     (900, 300))]
+            loops = [[a, m, 1.5e-9 * a * m + 3e-9 * a + 2e-5]
+                     for a, m in ((5000, 40), (20000, 7), (900, 300), (100, 2))]
             points.append({"size": n, "image_shape": [n, n], "psf_shape": [2 * n, 2 * n],
                            "radii": list(radii), "itemsize": 4, "n_scales": len(scales),
                            "scales": scales, "precompute_s": t["precompute"],
                            "round_s": t["round"], "updates": 3, "major_s": t["major"],
-                           "stats_s": t["stats"], "loops": loops,
+                           "stats_s": t["stats"], "loops": loops, "setup_s": t["setup"],
                            "traced_peak": cost.predict_memory(g, true)["peak"]})
     fft = [{"grid": list(g), "seconds": 3e-9 * cost._fft_work(g) ** 1.1} for g in grids]
     cal = calibrate({"settings": {"sizes": [128, 256, 512]}, "points": points, "fft": fft})
-    for sec in ("fft", "round", "major", "loop"):
+    for sec in ("fft", "round", "major", "loop", "setup"):
         for k, v in true[sec].items():
             assert cal[sec][k] == pytest.approx(v, rel=1e-5), (sec, k)
     assert cal["memory"]["scale"] == pytest.approx(true["memory"]["scale"])

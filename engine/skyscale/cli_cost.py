@@ -58,8 +58,8 @@ def register(subparsers):
     b.add_argument("--out", required=True, help="output directory for bench.json and bench.png")
     b.add_argument("--sizes", type=_int_list, default=[512, 1024, 2048],
                    help="image sizes, comma-separated [512,1024,2048]")
-    b.add_argument("--components", type=int, default=400,
-                   help="components of the minor cycle timed per point [400]")
+    b.add_argument("--components", type=int, default=1500,
+                   help="components of the minor cycle timed per point [1500]")
     b.add_argument("--threads", type=_int_list, help="thread counts of the thread probes "
                    "[1 and all cores]")
     b.add_argument("--calibration", help="write the fitted coefficients here [the default "

@@ -15,7 +15,7 @@ With ``N_s`` scales of which ``N_f`` are finite, the three FFT grids of the engi
 
     t_\mathrm{round} = b_0 + b_1 [2 f(M) + (1 + N_f) f(S)] + b_2 N_s N^2
 
-    t_\mathrm{loop} = \ell_1 \sum_\mathrm{components} A + \ell_2 \sum_\mathrm{rounds} A
+    t_\mathrm{loop} = \ell_1 \sum_\mathrm{components} A + \sum_\mathrm{rounds} (\ell_2 A + \ell_0)
 
     t_\mathrm{major} = m_0 + m_1\, 2 f(M) + m_2 N^2, \qquad
     t_\mathrm{stats} = s_0 + s_1 (1 + N_f) f(S) + s_2 N_s N^2
@@ -25,7 +25,8 @@ With ``N_s`` scales of which ``N_f`` are finite, the three FFT grids of the engi
 
 ``A`` is the sub-loop's active set (pixels of the chosen scale above the sub-loop's
 level, in the mask), ``R`` the rounds (sub-loops, each ending with the exact update)
-and ``C`` the major cycles.  How those counts are estimated is in `estimate_counts`:
+and ``C`` the major cycles; ``t_stats`` is the smoothing, noise and peaks after a major
+cycle with the next minor cycle's own set-up.  How those counts are estimated is in `estimate_counts`:
 they depend on the field, and the planner says which it assumed.  Threads divide the
 parallel part (Amdahl's law, fractions measured with 1 and 2 threads).  Memory builds
 on the engine's own account, `skyscale.precompute.plan_memory`, and adds what it leaves
@@ -105,7 +106,8 @@ class Geometry:
         if nf:
             pre += [(self.precompute_grid, 2 * nf + 1), (self.smooth_grid, nf)]
             step_s = [(self.smooth_grid, 1 + nf)]
-        return {"precompute": pre, "setup": [(self.major_grid, 1)],
+        setup = [(self.major_grid, 3)] + ([(self.smooth_grid, 2)] if nf else [])
+        return {"precompute": pre, "setup": setup,
                 "round": [(self.major_grid, 2)] + step_s, "major": [(self.major_grid, 2)],
                 "stats": step_s}
 
@@ -136,7 +138,9 @@ def predict_times(geom, calibration=None, *, threads=1):
     """Seconds of each step: ``precompute``, ``setup`` (the residual operator), ``round``
     (one sub-loop's exact update, without the loop), ``major`` (one residual),
     ``stats`` (smoothing and noise after a major cycle), and the loop's
-    ``per_component_pixel`` and ``per_active_pixel``."""
+    ``per_component_pixel``, ``per_active_pixel`` and ``per_sub_loop``.  The set-up
+    also counts the first use of the cycle's FFT plans (their buffers made: about the
+    work of three transforms on the PSF convolution's grid and two on the smoothing's)."""
     cal = calibration or load_calibration()
     ffts = {k: fft_seconds(v, cal, threads) for k, v in geom.transforms().items()}
     n_psf = geom.psf_shape[0] * geom.psf_shape[1]
@@ -147,7 +151,8 @@ def predict_times(geom, calibration=None, *, threads=1):
         "precompute": pre["fixed"] + pre["per_psf_pixel"] * n_psf
         + pre["per_fft_second"] * ffts["precompute"]
         + pre["per_beam_pixel"] * geom.n_scales * (2 * ny - 1) * (2 * nx - 1),
-        "setup": pre["per_psf_pixel"] * n_psf + pre["per_fft_second"] * ffts["setup"],
+        "setup": cal["setup"]["fixed"] + pre["per_psf_pixel"] * n_psf
+        + cal["setup"]["per_fft_second"] * ffts["setup"],
         "round": rnd["fixed"] + rnd["per_fft_second"] * ffts["round"]
         + rnd["per_plane_pixel"] * geom.n_scales * geom.pixels,
         "major": maj["fixed"] + maj["per_fft_second"] * ffts["major"]
@@ -156,6 +161,7 @@ def predict_times(geom, calibration=None, *, threads=1):
         + sts["per_plane_pixel"] * geom.n_scales * geom.pixels,
         "per_component_pixel": cal["loop"]["per_component_pixel"] * loop,
         "per_active_pixel": cal["loop"]["per_active_pixel"] * loop,
+        "per_sub_loop": cal["loop"]["per_sub_loop"],
     }
 
 

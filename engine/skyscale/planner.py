@@ -201,7 +201,8 @@ def plan_run(image_shape, psf, scales, *, max_components=20000, max_major_cycles
             messages.append(f"{key.replace('_', ' ')}: {words}")
     t = cost.predict_times(geom, cal, threads=threads)
     loop = (t["per_component_pixel"] * counts["components"] * counts["active_pixels"]
-            + t["per_active_pixel"] * counts["rounds"] * counts["active_pixels"])
+            + counts["rounds"] * (t["per_active_pixel"] * counts["active_pixels"]
+                                  + t["per_sub_loop"]))
     minor = counts["rounds"] * t["round"] + loop
     major_each = t["major"] + t["stats"]
     major = counts["major_cycles"] * major_each + t["stats"]    # the dirty image's stats too

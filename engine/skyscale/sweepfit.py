@@ -74,10 +74,13 @@ def calibrate(sweep):
     fit("stats", ("fixed", "per_fft_second", "per_plane_pixel"),
         [[1.0, t["stats"], r["n_scales"] * r["size"] ** 2] for r, t in zip(pts, ffts)],
         [r["stats_s"] for r in pts])
-    loops = [row for r in pts for row in r["loops"] if row[1] > 0 and row[2] > 2e-5]
-    if len(loops) >= 3:
-        fit("loop", ("per_component_pixel", "per_active_pixel"),
-            [[a * m, a] for a, m, _ in loops], [t for _, _, t in loops])
+    psf_s = cal["precompute"]["per_psf_pixel"]      # the operator checks the PSF too
+    fit("setup", ("fixed", "per_fft_second"), [[1.0, t["setup"]] for t in ffts],
+        [r["setup_s"] - psf_s * r["psf_shape"][0] * r["psf_shape"][1] for r in pts])
+    loops = [row for r in pts for row in r["loops"] if row[1] > 0 and row[2] > 0]
+    if len(loops) >= 4:
+        fit("loop", ("per_component_pixel", "per_active_pixel", "per_sub_loop"),
+            [[a * m, a, 1.0] for a, m, _ in loops], [t for _, _, t in loops])
     runs = [r for r in sweep.get("runs", []) if r["major_cycles"] > 0]
     if runs:
         rho = [r["rounds"] / (len(r["scales"]) * r["major_cycles"]) for r in runs]
@@ -138,7 +141,7 @@ def summarize(sweep, calibration=None):
         g = _geometry(r)
         t = cost.predict_times(g, cal)
         lp = sum(t["per_component_pixel"] * a * m + t["per_active_pixel"] * a
-                 for a, m, _ in r["loops"])
+                 + t["per_sub_loop"] for a, m, _ in r["loops"])
         r["model"] = {"precompute_s": t["precompute"], "round_s": t["round"],
                       "major_s": t["major"], "stats_s": t["stats"],
                       "loops_s": lp, "loops_measured_s": sum(x[2] for x in r["loops"]),
