@@ -19,27 +19,28 @@ logger = logging.getLogger(__name__)
 #: Environment variable naming a calibration file (overrides the default path).
 CALIBRATION_ENV = "SKYSCALE_COST_CALIBRATION"
 
-#: Coefficients measured on this machine (2 cores, shared; 1 thread, float32) on
-#: 2026-12-02 by ``PYTHONPATH=engine python -m skyscale.cli bench --sizes 512,1024,2048
-#: --out bench-out`` (rounded).  Seconds; an FFT of S points has work U = S log2 S and
-#: takes ``fft.coefficient * U ** fft.exponent``; the other families are linear in the
-#: predicted FFT seconds and in pixels (see `skyscale.cost`).
+#: Coefficients measured on this machine (2 cores, shared, load average 5 to 8; 1 thread,
+#: float32, CPU seconds) on 2026-12-02 by ``PYTHONPATH=engine python -m skyscale.cli
+#: bench --sizes 512,1024,2048 --out bench-out`` (the calibration it wrote, rounded).
+#: Seconds; an FFT of S points has work U = S log2 S and takes
+#: ``fft.coefficient * U ** fft.exponent``; the other families are linear in the
+#: predicted FFT seconds and in pixels (see `skyscale.cost`).  Two threads were slower
+#: than one on the loaded machine, so the parallel fractions came out 0.
 DEFAULT_CALIBRATION = {
-    "source": "built-in: skyscale bench --sizes 512,1024,2048, 2026-12-02",
-    "fft": {"coefficient": 2.0e-9, "exponent": 1.0},
-    "precompute": {"fixed": 0.02, "per_psf_pixel": 3.0e-8, "per_fft_second": 1.2,
-                   "per_beam_pixel": 2.0e-9},
-    "round": {"fixed": 1.0e-3, "per_fft_second": 1.2, "per_plane_pixel": 3.0e-9},
-    "setup": {"fixed": 0.0, "per_fft_second": 1.0},
-    "loop": {"per_component_pixel": 1.2e-9, "per_active_pixel": 2.0e-9, "per_sub_loop": 0.0},
-    "major": {"fixed": 1.0e-3, "per_fft_second": 1.2, "per_plane_pixel": 3.0e-9},
-    "stats": {"fixed": 5.0e-3, "per_fft_second": 1.2, "per_plane_pixel": 1.0e-8},
-    "counts": {"rounds_per_scale_cycle": 2.0, "active_fraction": 0.005,
-               "cycles_offset": 1.0},
-    "threads": {"fft_parallel": 0.6, "loop_parallel": 0.5, "measured_with": 2},
-    "memory": {"scale": 1.0},
+    "source": "built-in: skyscale bench --sizes 512,1024,2048, 2026-12-02 (CPU seconds, load 5-8)",
+    "fft": {"coefficient": 6.28e-11, "exponent": 1.11},
+    "precompute": {"fixed": 0.0209, "per_psf_pixel": 0.0, "per_fft_second": 1.16,
+                   "per_beam_pixel": 2.92e-08},
+    "setup": {"fixed": 0.0, "per_fft_second": 0.836},
+    "round": {"fixed": 0.0, "per_fft_second": 1.26, "per_plane_pixel": 0.0},
+    "loop": {"per_component_pixel": 5.18e-09, "per_active_pixel": 0.0, "per_sub_loop": 0.000114},
+    "major": {"fixed": 0.0, "per_fft_second": 1.02, "per_plane_pixel": 0.0},
+    "stats": {"fixed": 0.0281, "per_fft_second": 1.64, "per_plane_pixel": 1.37e-08},
+    "counts": {"rounds_per_scale_cycle": 6.17, "active_fraction": 0.00324, "cycles_offset": 0.727},
+    "threads": {"fft_parallel": 0.0, "loop_parallel": 0.0, "measured_with": 2.0},
+    "memory": {"scale": 0.94},
     "range": {"max_image_pixels": 2048 * 2048},
-    "startup": {"fixed": 0.5},
+    "startup": {"fixed": 1.9},
 }
 
 
