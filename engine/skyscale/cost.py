@@ -34,10 +34,8 @@ out (`predict_memory`).
 """
 
 import math
-
 from dataclasses import dataclass
 
-import numpy as np
 from scipy.fft import next_fast_len
 
 from .calibration import (CALIBRATION_ENV, DEFAULT_CALIBRATION, default_calibration_path,
