@@ -18,8 +18,10 @@ Skyscale's time and components "to 3 sigma" are read at the first major cycle wh
 peak residual in the mask is at most 3 sigma (its progress callback); its own stop
 (every scale at its level, broad scales deeper inside the mask) comes at or after it.
 
-Both report components, wall time (the textbook's with its cross terms), the peak and
-mean residual in the mask in units of that noise, and the model flux against the sky's.
+Both report components, wall time and CPU time of the process (the textbook's with its
+cross terms; on a shared machine the wall clock follows the load, which can change
+between the two runs, so the CPU-time ratio is the steadier one), the peak and mean
+residual in the mask in units of that noise, and the model flux against the sky's.
 When the textbook loop would run past ``--max-seconds`` it stops there and its time to
 the level is extrapolated: its time per iteration times the components it needed at
 the next smaller size, scaled by skyscale's component ratio between the two sizes;
@@ -61,17 +63,19 @@ def run_size(n, *, dynamic_range, seed, threads, max_seconds, previous=None, log
     out = {"size": n, "scales": SCALES, "dynamic_range": dynamic_range, "seed": seed,
            "mask_fraction": float(mask.mean()), "sky_flux": float(sky.sum())}
     marks = []
-    t0 = time.perf_counter()
+    t0, c0 = time.perf_counter(), time.process_time()
 
     def mark(event):
         if event.get("stage") == "major":
-            marks.append((time.perf_counter() - t0, event["components"], event["peak"]))
+            marks.append((time.perf_counter() - t0, event["components"], event["peak"],
+                          time.process_time() - c0))
     res = skyscale.deconvolve(dirty, psf, scales=SCALES, mask=mask, noise_threshold=3.0,
                               max_components=500000, max_major_cycles=60, restore=False,
                               threads=threads, callback=mark)
-    wall = time.perf_counter() - t0
+    wall, cpu = time.perf_counter() - t0, time.process_time() - c0
     sigma = float(res.scale_noise[0])
-    first = next(((t, c) for t, c, p in marks if p <= 3.0 * sigma), (wall, len(res.components)))
+    first = next(((t, c, u) for t, c, p, u in marks if p <= 3.0 * sigma),
+                 (wall, len(res.components), cpu))
     comps = res.components
     finite = float(comps["flux"][comps["scale"] > 0].sum() / max(comps["flux"].sum(), 1e-30))
     out["skyscale"] = dict(_stats(res.residual, mask, sigma), seconds=wall,
@@ -80,21 +84,24 @@ def run_size(n, *, dynamic_range, seed, threads, max_seconds, previous=None, log
                            rollbacks=int(res.rollbacks), threads=threads,
                            flux_fraction=float(res.model.sum() / sky.sum()),
                            finite_scale_flux_fraction=finite, timings=res.timings)
-    out["skyscale"].update(seconds_to_3sigma=first[0], components_to_3sigma=int(first[1]))
+    out["skyscale"].update(seconds_to_3sigma=first[0], components_to_3sigma=int(first[1]),
+                           cpu_seconds=cpu, cpu_seconds_to_3sigma=first[2])
     out["noise_sigma"] = sigma
     log(f"{n}: skyscale {wall:.1f} s, {comps.size} components, stop {res.stop_reason}, "
         f"peak {out['skyscale']['peak_sigma']:.2f} sigma", flush=True)
     e = Engine(psf, SCALES, image_shape=dirty.shape, threads=1)
     kernels = [k.astype(np.float64) for k in e.kernels]
+    c1 = time.process_time()
     beams = TextbookBeams(psf, kernels, dirty.shape, e.weights)
     tb = textbook_clean(dirty, beams, kernels, e.allowed(mask), gain=e.loop_gain,
                         level=textbook_multiple * sigma, max_iter=2_000_000,
                         max_seconds=max_seconds)
+    tb_cpu = time.process_time() - c1
     from skyscale.fft import convolve_centred
     exact = dirty - convolve_centred(tb["model"], psf.astype(np.float64))
     total = tb["seconds"] + tb["precompute_seconds"]
     out["textbook"] = dict(_stats(tb["residual"], mask, sigma), seconds=total,
-                           level_sigma=textbook_multiple,
+                           level_sigma=textbook_multiple, cpu_seconds=tb_cpu,
                            loop_seconds=tb["seconds"], precompute_seconds=tb["precompute_seconds"],
                            components=tb["components"], per_scale=tb["per_scale"],
                            stop=tb["stop"], per_iteration_seconds=tb["per_iteration_seconds"],
@@ -111,6 +118,8 @@ def run_size(n, *, dynamic_range, seed, threads, max_seconds, previous=None, log
         out["textbook"].update(
             extrapolated=True, components_done=tb["components"], components=int(round(need)),
             seconds=tb["precompute_seconds"] + tb["per_iteration_seconds"] * need,
+            cpu_seconds=tb_cpu * (tb["precompute_seconds"] + tb["per_iteration_seconds"] * need)
+            / max(tb["seconds"] + tb["precompute_seconds"], 1e-9),
             how=(f"stopped after {max_seconds} s ({tb['components']} components); time = "
                  "cross terms + its time per iteration x the components it needed at "
                  f"{previous['size']} x skyscale's component ratio {n}/{previous['size']}"))
@@ -120,7 +129,9 @@ def run_size(n, *, dynamic_range, seed, threads, max_seconds, previous=None, log
         "seconds_textbook_over_skyscale": out["textbook"]["seconds"] / wall,
         "components_to_3sigma": out["textbook"]["components"]
         / max(out["skyscale"]["components_to_3sigma"], 1),
-        "seconds_to_3sigma": out["textbook"]["seconds"] / out["skyscale"]["seconds_to_3sigma"]}
+        "seconds_to_3sigma": out["textbook"]["seconds"] / out["skyscale"]["seconds_to_3sigma"],
+        "cpu_seconds_to_3sigma": out["textbook"]["cpu_seconds"]
+        / out["skyscale"]["cpu_seconds_to_3sigma"]}
     log(f"{n}: textbook {out['textbook']['seconds']:.1f} s"
         f"{' (extrapolated)' if out['textbook']['extrapolated'] else ''}, "
         f"{out['textbook']['components']} components, peak "
@@ -163,7 +174,9 @@ def main(argv=None):
         print(f"{r['size']:>5}: {s['components_to_3sigma']} ({s['components']}) comps, "
               f"{s['seconds_to_3sigma']:.1f} ({s['seconds']:.1f}) s | {t['components']} comps, "
               f"{t['seconds']:.1f} s{'*' if t['extrapolated'] else ''} | "
-              f"x{q['components_to_3sigma']:.2f} comps, x{q['seconds_to_3sigma']:.1f} s")
+              f"x{q['components_to_3sigma']:.2f} comps, x{q['seconds_to_3sigma']:.1f} s "
+              f"(CPU seconds {s['cpu_seconds_to_3sigma']:.1f} vs {t['cpu_seconds']:.1f}: "
+              f"x{q['cpu_seconds_to_3sigma']:.1f})")
     if args.out:
         with open(args.out, "w") as fh:
             json.dump(res, fh, indent=1, default=float)
