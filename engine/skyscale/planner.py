@@ -95,7 +95,12 @@ def _spinning_threads():
 
 
 def _dynamic_range(dirty, threshold, noise_threshold, messages):
-    """Peak of ``dirty`` over the stop level (robust noise times the multiple)."""
+    """Peak of ``dirty`` over the stop level (robust noise times the multiple).
+
+    The dirty image's robust noise includes the sidelobes of its bright sources, so for
+    a field whose sidelobes stand above the noise this underestimates the dynamic range
+    (and the major cycles); ``dynamic_range=`` gives it directly.
+    """
     from .noise import robust_noise
     data = np.asarray(dirty, dtype=np.float32)
     peak = float(np.nanmax(np.abs(data)))
@@ -104,6 +109,9 @@ def _dynamic_range(dirty, threshold, noise_threshold, messages):
         messages.append("no stop level given: the dynamic range is counted to 3 x the "
                         "dirty image's robust noise")
     level = max(float(threshold), nu * robust_noise(data))
+    messages.append("dynamic range measured on the dirty image, whose robust noise includes "
+                    "the sidelobes of bright sources (an underestimate where they stand "
+                    "above the noise; give dynamic_range for a closer figure)")
     return peak / level if level > 0 else cost.DEFAULT_DYNAMIC_RANGE
 
 
