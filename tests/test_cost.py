@@ -341,7 +341,7 @@ def test_plan_command(capsys):
     assert "will not fit" in capsys.readouterr().out
     assert main(["plan", "--size", "256x512", "--psf-size", "512x1024", "--json"]) == 0
     assert json.loads(capsys.readouterr().out)["image_shape"] == [256, 512]
-    assert main(["plan", "--size", "256", "--components", "100", "--rounds", "9",
+    assert main(["plan", "--size", "256", "--components", "100", "--sub-loops", "9",
                  "--major-cycles", "3", "--json"]) == 0
     counts = json.loads(capsys.readouterr().out)["counts"]
     assert (counts["components"], counts["rounds"], counts["major_cycles"]) == (100, 9, 3)

@@ -89,7 +89,7 @@ def register(subparsers):
     p.add_argument("--mask-fraction", type=float, default=1.0,
                    help="fraction of the image where components may go [1]")
     for name, what in (("components", "components the run will take"),
-                       ("rounds", "sub-loops the run will run"),
+                       ("sub-loops", "sub-loops (single-scale rounds) the run will run"),
                        ("major-cycles", "major cycles the run will need"),
                        ("active-pixels", "mean active pixels per sub-loop")):
         p.add_argument(f"--{name}", type=float, help=f"{what}, when known from an earlier "
@@ -134,9 +134,10 @@ def cmd_plan(args):
         shape = dirty.shape
         psf = read_image(args.psf, name="psf").data.shape
     memory = None if args.memory is None else int(args.memory * 2**30)
-    known = {k: (None if getattr(args, k) is None else
-                 (float if k == "active_pixels" else int)(getattr(args, k)))
-             for k in ("components", "rounds", "major_cycles", "active_pixels")}
+    known = {k: (None if getattr(args, a) is None else
+                 (float if k == "active_pixels" else int)(getattr(args, a)))
+             for k, a in (("components", "components"), ("rounds", "sub_loops"),
+                          ("major_cycles", "major_cycles"), ("active_pixels", "active_pixels"))}
     plan = plan_run(shape, psf, args.scales, max_components=args.max_components,
                     max_major_cycles=args.max_major_cycles, threads=args.threads,
                     dtype=args.dtype, memory_available=memory, calibration=args.calibration,
