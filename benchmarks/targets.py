@@ -124,7 +124,10 @@ def major(n, repeats):
     model[::37, ::41] = 1.0
     conv = Convolver(psf, dirty.shape, backend=get_backend("auto", threads=1))
     conv(model)
-    full = lambda: fftconvolve(model, psf.astype(np.float64), mode="full")[n:2 * n, n:2 * n]  # noqa: E731
+    psf64 = psf.astype(np.float64)
+
+    def full():
+        return fftconvolve(model, psf64, mode="full")[n:2 * n, n:2 * n]
     diff = float(np.abs(conv(model, out_dtype=np.float64) - full()).max())
     t_conv = best(lambda: conv(model), repeats)
     t_full = best(full, repeats)

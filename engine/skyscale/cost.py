@@ -20,14 +20,19 @@ With ``N_s`` scales of which ``N_f`` are finite, the three FFT grids of the engi
     t_\mathrm{major} = m_0 + m_1\, 2 f(M) + m_2 N^2, \qquad
     t_\mathrm{stats} = s_0 + s_1 (1 + N_f) f(S) + s_2 N_s N^2
 
+    t_\mathrm{setup} = e_0 + a_1 n_\mathrm{psf} + e_1 [3 f(M) + 2 f(S)]
+
     t = t_\mathrm{pre} + t_\mathrm{setup} + R\, t_\mathrm{round} + t_\mathrm{loop}
-        + C (t_\mathrm{major} + t_\mathrm{stats})
+        + C (t_\mathrm{major} + t_\mathrm{stats}) + t_\mathrm{stats}
 
 ``A`` is the sub-loop's active set (pixels of the chosen scale above the sub-loop's
 level, in the mask), ``R`` the rounds (sub-loops, each ending with the exact update)
 and ``C`` the major cycles; ``t_stats`` is the smoothing, noise and peaks after a major
-cycle with the next minor cycle's own set-up.  How those counts are estimated is in `estimate_counts`:
-they depend on the field, and the planner says which it assumed.  Threads divide the
+cycle (and of the dirty image) with the next minor cycle's own set-up; ``t_setup`` the
+residual operator and the first use of the cycle's FFT plans.  How the counts are
+estimated is in `estimate_counts`: they depend on the field, and the planner says
+which it assumed.  Times are those of one unshared core (the sweep measures CPU
+seconds).  Threads divide the
 parallel part (Amdahl's law, fractions measured with 1 and 2 threads).  Memory builds
 on the engine's own account, `skyscale.precompute.plan_memory`, and adds what it leaves
 out (`predict_memory`).
