@@ -1,79 +1,101 @@
-"""Minor-cycle kernels: one iteration of the compiled loop against the plain numpy twin.
+"""The single-scale sub-loop: serial against parallel, and against its numpy twin.
 
-Each timed round starts from an identical copy of the loop state, so rounds do the
-same work; the compiled loop and ``tests/naive.py::clean_loop`` (the numpy baseline)
-run on the same arrays in the same process.  ``extra_info`` holds the time per
-iteration, the bytes it touches and the peak memory of the set-up.
+The active set is the ``active`` pixels of largest ``|value|`` of a 1024 x 1024 field
+smoothed by the 8 px scale; each timed round starts from an identical copy of it and
+takes the same components.  Serial and parallel paths and the numpy twin
+(``tests/naive.py::scale_loop``; a local numpy reference when the twin is absent) run on
+the same arrays in the same process; ``extra_info`` holds the time per component and
+per component and active pixel.  `skyscale.kernels.scale_loop.PARALLEL_MIN_ACTIVE` is
+where the parallel path starts to pay.
 
     python -m pytest benchmarks/bench_kernels.py
-    python -m pytest benchmarks/bench_kernels.py -k "iteration and 1024"
+    python -m pytest benchmarks/bench_kernels.py -k "parallel and 40000"
 """
 
 import numpy as np
 import pytest
 
-from conftest import DTYPES, SCALE_SETS, THREADS, clone_state
-from skyscale.kernels import tile_maxima
+from conftest import DTYPES, THREADS
+from skyscale._threads import thread_limit
+from skyscale.kernels import scale_loop
 from skyscale.minor import Engine
-from skyscale.sweep import PeakMemory
-from tests import naive
 
-#: Image size of the kernel suite (the loop's cost does not depend on it much).
+try:
+    from tests.naive import scale_loop as numpy_scale_loop
+except ImportError:            # the twin is being written: a plain numpy reference here
+    numpy_scale_loop = None
+
+#: Image size of the kernel suite.
 SIZE = 1024
-#: Iterations per timed round: compiled loop, numpy twin.
-ENGINE_ITERATIONS = 200
-NUMPY_ITERATIONS = 5
+#: Active-set sizes: below, near and above the parallel threshold.
+ACTIVE = (4000, 40000, 400000)
+#: Components per timed round: compiled loop, numpy twin.
+ITERATIONS = 100
+NUMPY_ITERATIONS = 10
 
 
-def _state(field, n_scales, dtype, threads):
-    dirty, psf = field(SIZE)
-    with PeakMemory() as mem:
-        e = Engine(psf, SCALE_SETS[n_scales], image_shape=dirty.shape, dtype=dtype,
-                   threads=threads)
-        state = e.loop_state(dirty)
-    return e, state, mem
+def reference_scale_loop(values, ys, xs, beam, *, beam_peak, gain, level, max_iter):
+    """Plain numpy Hogbom iterations over an active set (the loop written out)."""
+    cy, cx = (beam.shape[0] - 1) // 2, (beam.shape[1] - 1) // 2
+    idx, flux = [], []
+    for _ in range(max_iter):
+        j = int(np.argmax(np.abs(values)))
+        if abs(values[j]) <= level:
+            break
+        f = gain * float(values[j]) / beam_peak
+        values -= (f * beam[cy + ys - ys[j], cx + xs - xs[j]]).astype(values.dtype)
+        idx.append(j)
+        flux.append(f)
+    return np.array(idx, np.int64), np.array(flux)
 
 
-@pytest.mark.parametrize("threads", THREADS)
-@pytest.mark.parametrize("dtype", DTYPES)
-@pytest.mark.parametrize("n_scales", [1, 3, 5, 6])
-def test_iteration_compiled(benchmark, field, n_scales, dtype, threads):
-    e, state, mem = _state(field, n_scales, dtype, threads)
-    clone_state(state).iterate(5)                        # load the compiled code
-    result = benchmark.pedantic(lambda s: s.iterate(ENGINE_ITERATIONS),
-                                setup=lambda: ((clone_state(state),), {}), rounds=7)
-    benchmark.extra_info.update({
-        "per_iteration_us": benchmark.stats.stats.min / ENGINE_ITERATIONS * 1e6,
-        "bytes_per_iteration": state.bytes_per_iteration, "components": int(result[0].size),
-        "setup_traced_peak_mib": mem.traced_peak / 2**20})
+_cache = {}
 
 
-@pytest.mark.parametrize("dtype", DTYPES)
-@pytest.mark.parametrize("n_scales", [1, 3, 5, 6])
-def test_iteration_numpy_baseline(benchmark, field, n_scales, dtype):
-    e, state, mem = _state(field, n_scales, dtype, 1)
-
-    def run(s):
-        return naive.clean_loop(s.planes, s.mask, s.lim, e.response_scale, e.amp_scale,
-                                e.patches, e.patch_offset, e.patch_half, gain=e.loop_gain,
-                                floor=-1.0, peak_limit=np.inf, ref=0, delta=e.delta_index,
-                                max_iter=NUMPY_ITERATIONS)
-    benchmark.pedantic(run, setup=lambda: ((clone_state(state),), {}), rounds=3)
-    benchmark.extra_info.update({
-        "per_iteration_us": benchmark.stats.stats.min / NUMPY_ITERATIONS * 1e6,
-        "setup_traced_peak_mib": mem.traced_peak / 2**20})
+def _active(field, n_active, dtype):
+    key = (n_active, dtype)
+    if key not in _cache:
+        dirty, psf = field(SIZE)
+        e = Engine(psf, [0, 8], image_shape=dirty.shape, dtype=dtype, threads=1)
+        plane = e.smooth(dirty)[1]
+        order = np.argsort(np.abs(plane), axis=None)[::-1][:n_active]
+        ys, xs = np.unravel_index(np.sort(order), plane.shape)
+        _cache[key] = (plane[ys, xs].copy(), ys.astype(np.int64), xs.astype(np.int64),
+                       e.beams[1], float(e.beam_peaks[1]))
+    return _cache[key]
 
 
 @pytest.mark.parametrize("threads", THREADS)
+@pytest.mark.parametrize("path", ["serial", "parallel"])
 @pytest.mark.parametrize("dtype", DTYPES)
-@pytest.mark.parametrize("n_scales", [3, 6])
-def test_tile_maxima(benchmark, field, n_scales, dtype, threads):
-    e, state, _ = _state(field, n_scales, dtype, threads)
-    from skyscale._threads import thread_limit
+@pytest.mark.parametrize("n_active", ACTIVE)
+def test_scale_loop_compiled(benchmark, field, n_active, dtype, path, threads):
+    values, ys, xs, beam, peak = _active(field, n_active, dtype)
 
-    def run():
+    def run(v):
         with thread_limit(threads):
-            return tile_maxima(state.planes, state.mask, state.lim, e.response_scale, e.tile)
-    run()
-    benchmark.pedantic(run, rounds=10)
-    benchmark.extra_info["plane_pixels"] = int(state.planes.size)
+            return scale_loop(v, ys, xs, beam, beam_peak=peak, gain=0.1, level=0.0,
+                              max_iter=ITERATIONS, parallel=path == "parallel")
+    run(values.copy())                                      # load the compiled code
+    out = benchmark.pedantic(run, setup=lambda: ((values.copy(),), {}), rounds=5)
+    t = benchmark.stats.stats.min / max(out[0].size, 1)
+    benchmark.extra_info.update({"per_component_us": t * 1e6,
+                                 "per_component_pixel_ns": t / n_active * 1e9,
+                                 "components": int(out[0].size)})
+
+
+@pytest.mark.parametrize("dtype", DTYPES)
+@pytest.mark.parametrize("n_active", ACTIVE)
+def test_scale_loop_numpy_twin(benchmark, field, n_active, dtype):
+    values, ys, xs, beam, peak = _active(field, n_active, dtype)
+    twin = numpy_scale_loop or reference_scale_loop
+    out = benchmark.pedantic(lambda v: twin(v, ys, xs, beam, beam_peak=peak, gain=0.1,
+                                            level=0.0, max_iter=NUMPY_ITERATIONS),
+                             setup=lambda: ((values.copy(),), {}), rounds=3)
+    t = benchmark.stats.stats.min / NUMPY_ITERATIONS
+    compiled = scale_loop(values.copy(), ys, xs, beam, beam_peak=peak, gain=0.1, level=0.0,
+                          max_iter=NUMPY_ITERATIONS)
+    np.testing.assert_array_equal(np.asarray(out[0]), compiled[0])   # the same components
+    benchmark.extra_info.update({"per_component_us": t * 1e6,
+                                 "per_component_pixel_ns": t / n_active * 1e9,
+                                 "twin": "tests/naive.py" if numpy_scale_loop else "local"})

@@ -34,8 +34,3 @@ def field():
             _fields[key] = synthetic_field(n, seed=seed)
         return _fields[key]
     return get
-
-
-def clone_state(state):
-    """An independent copy of a `LoopState` (see `LoopState.copy`)."""
-    return state.copy()

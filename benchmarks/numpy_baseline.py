@@ -1,11 +1,23 @@
-"""A plain numpy multi-scale CLEAN: the baseline the compiled engine is compared with.
+"""The textbook multi-scale CLEAN in plain numpy: the baseline the engine is compared with.
 
-The same method as `skyscale.deconvolve` (same scale kernels, size-penalty weights and
-PSF patch, whose definitions are taken from skyscale), but every step is whole-array
-numpy: cross-term patches and smoothing by ``numpy.fft``, the minor-cycle iteration
-by ``tests/naive.py::clean_loop`` (a full search of every plane at every step, no
-tiles, no sub-region), the model by ``tests/naive.py::stamp_components`` and the
-residual ``dirty - PSF (*) model`` by ``numpy.fft``.  Single-threaded, as numpy is.
+Every iteration, as the method is usually written down (Cornwell 2008):
+
+1. for every scale ``k``, the penalised response ``w_k |R_k| / sqrt(B_kk(0))`` over the
+   mask (``R_k`` the residual smoothed by scale ``k``, ``B_kl = PSF (*) s_k (*) s_l``);
+   the largest over scales and pixels chooses the component;
+2. its flux ``gain * R_k(p) / B_kk(0)`` is added to the model;
+3. every scale's residual is updated over the whole image:
+   ``R_l -= flux * B_lk(. - p)``, with the cross terms kept at every offset between two
+   image pixels, so the residual is exact and no major cycle is needed.
+
+The engine's choices are taken over unchanged so that only the loop differs: its scale
+kernels, weights ``w_k`` and allowed centres (`skyscale.minor.Engine`).  The cross
+terms are made with ``numpy.fft``.  Single-threaded, as numpy is.
+
+References
+----------
+.. [1] Cornwell, T. J. 2008, IEEE J. Sel. Topics Signal Process. 2(5), 793.
+.. [2] Hogbom, J. A. 1974, A&AS 15, 417.
 """
 
 import time
@@ -13,108 +25,115 @@ import time
 import numpy as np
 from scipy.fft import next_fast_len
 
-from tests.naive import clean_loop, stamp_components
-from skyscale.precompute import patch_half_widths
-from skyscale.psf import check_psf, describe_psf
-from skyscale.scales import ScaleSet
-
-__all__ = ["convolve_same", "NumpyBeams", "numpy_deconvolve"]
+__all__ = ["cross_terms", "TextbookBeams", "textbook_clean"]
 
 
-def convolve_same(image, kernel):
-    """Linear convolution with a kernel centred at ``shape // 2``, cut to the image."""
-    ny, nx = image.shape
-    ky, kx = kernel.shape
-    s = (next_fast_len(ny + ky - 1, real=True), next_fast_len(nx + kx - 1, real=True))
-    full = np.fft.irfft2(np.fft.rfft2(image, s) * np.fft.rfft2(kernel, s), s)
-    return full[ky // 2:ky // 2 + ny, kx // 2:kx // 2 + nx]
+def _fft_conv_full(a, b):
+    s = [next_fast_len(x + y - 1, real=True) for x, y in zip(a.shape, b.shape)]
+    out = np.fft.irfft2(np.fft.rfft2(a, s) * np.fft.rfft2(b, s), s)
+    return out[:a.shape[0] + b.shape[0] - 1, :a.shape[1] + b.shape[1] - 1]
 
 
-class NumpyBeams:
-    """Cross-term patches and per-scale constants, computed with numpy.fft."""
+def cross_terms(psf, kernels, image_shape, dtype=np.float32):
+    """``B_kl = PSF (*) s_k (*) s_l`` at every offset ``|d| <= n - 1``: dict ``(k, l) ->
+    (2 ny - 1, 2 nx - 1)`` array, zero offset at ``(ny - 1, nx - 1)``, for ``k <= l``."""
+    ny, nx = image_shape
+    cy, cx = psf.shape[0] // 2, psf.shape[1] // 2
+    out = {}
+    for k in range(len(kernels)):
+        for l in range(k, len(kernels)):
+            kk = _fft_conv_full(np.asarray(kernels[k], float), np.asarray(kernels[l], float))
+            r = kk.shape[0] // 2
+            full = _fft_conv_full(np.asarray(psf, float), kk)
+            oy, ox = cy + r, cx + r                       # zero offset in ``full``
+            out[k, l] = np.ascontiguousarray(
+                full[oy - (ny - 1):oy + ny, ox - (nx - 1):ox + nx], dtype=dtype)
+    return out
 
-    def __init__(self, psf, scales, image_shape, *, size_penalty=0.6, psf_patch=None,
-                 dtype=np.float32):
+
+class TextbookBeams:
+    """Cross terms and per-scale constants of the textbook loop (numpy.fft)."""
+
+    def __init__(self, psf, kernels, image_shape, weights, dtype=np.float32):
         t0 = time.perf_counter()
-        self.dtype = np.dtype(dtype)
-        self.psf = check_psf(psf, image_shape, dtype=np.float64)
-        self.scales = ScaleSet(scales, image_shape=image_shape)
-        self.kernels = self.scales.kernels(np.float64)
-        self.info = describe_psf(self.psf, image_shape, patch_half=psf_patch)
-        radii = self.scales.support_radii
-        n = len(radii)
-        self.patch_half = patch_half_widths(radii, self.info.patch_half, image_shape)
-        self.patch_offset = np.zeros((n, n), dtype=np.int64)
-        py, px = self.psf.shape
-        pieces, pos, peaks = [], 0, np.zeros(n)
-        for k in range(n):
-            for l in range(k, n):
-                h = int(self.patch_half[k, l])
-                need = h + radii[k] + radii[l]
-                region = np.zeros((2 * need + 1, 2 * need + 1))
-                ya, yb = max(py // 2 - need, 0), min(py // 2 + need + 1, py)
-                xa, xb = max(px // 2 - need, 0), min(px // 2 + need + 1, px)
-                region[ya - py // 2 + need:yb - py // 2 + need,
-                       xa - px // 2 + need:xb - px // 2 + need] = self.psf[ya:yb, xa:xb]
-                both = convolve_same(convolve_same(region, self.kernels[k]), self.kernels[l])
-                patch = both[need - h:need + h + 1, need - h:need + h + 1]
-                pieces.append(patch.ravel())
-                self.patch_offset[k, l] = self.patch_offset[l, k] = pos
-                pos += patch.size
-                if k == l:
-                    peaks[k] = patch[h, h]
-        self.patches = np.concatenate(pieces).astype(self.dtype)
-        self.amp_scale = 1.0 / peaks
-        self.response_scale = self.scales.weights(size_penalty) / np.sqrt(peaks)
+        self.terms = cross_terms(psf, kernels, image_shape, dtype)
+        self.n = len(kernels)
+        self.peaks = np.array([float(self.terms[k, k][image_shape[0] - 1, image_shape[1] - 1])
+                               for k in range(self.n)])
+        self.response = np.asarray(weights, float) / np.sqrt(self.peaks)
         self.seconds = time.perf_counter() - t0
 
-    def limits(self, shape):
-        lim = np.empty((len(self.kernels), 4), dtype=np.int64)
-        for k, r in enumerate(self.scales.support_radii):
-            lim[k] = (r, shape[0] - r, r, shape[1] - r)
-        return lim
+    def term(self, k, l):
+        return self.terms[min(k, l), max(k, l)]
 
 
-def numpy_deconvolve(dirty, psf, scales, *, threshold, loop_gain=0.1, cycle_depth=0.2,
-                     max_components=20000, max_major_cycles=20, psf_patch=None,
-                     dtype=np.float32):
-    """Major and minor cycles in plain numpy, stopping at ``threshold`` (Jy/beam).
+def textbook_clean(dirty, beams, kernels, allowed, *, gain=0.1, level, max_iter,
+                   max_seconds=None, check_every=1, callback=None):
+    """Clean until the delta scale's peak |residual| in the mask is at most ``level``.
 
-    Returns a dict with the model, the residual, the peak per major cycle, the number
-    of components and the seconds of the precompute, the minor and the major cycles.
+    Parameters
+    ----------
+    dirty : (ny, nx) ndarray
+    beams : TextbookBeams
+    kernels : list of ndarray
+        Scale kernels (unit sum), smallest first; the first is the delta scale.
+    allowed : (n_scales, ny, nx) bool ndarray
+        Where each scale's components may be centred (`Engine.allowed(mask)`).
+    gain : float
+    level : float
+        Stop level of the delta scale's residual in the mask, Jy/beam.
+    max_iter : int
+    max_seconds : float, optional
+        Stop (labelled ``'time'``) after this long.
+
+    Returns
+    -------
+    dict
+        ``model``, ``residual``, ``components`` (count), ``per_scale`` (counts),
+        ``seconds``, ``precompute_seconds``, ``per_iteration_seconds``, ``stop``.
     """
-    t_start = time.perf_counter()
-    dt = np.dtype(dtype)
-    dirty = np.asarray(dirty, dtype=dt)
-    beams = NumpyBeams(psf, scales, dirty.shape, psf_patch=psf_patch, dtype=dt)
-    lim = beams.limits(dirty.shape)
-    mask = np.ones(dirty.shape, dtype=np.uint8)
-    model = np.zeros(dirty.shape, dtype=dt)
-    residual = dirty.copy()
-    peaks = [float(np.abs(residual).max())]
-    n_comp, t_minor, t_major = 0, 0.0, 0.0
-    delta = 0 if beams.scales.has_delta else -1
-    for _ in range(max_major_cycles):
-        if peaks[-1] <= threshold or n_comp >= max_components:
-            break
-        t0 = time.perf_counter()
-        planes = np.stack([convolve_same(residual.astype(np.float64), k) for k in beams.kernels]
-                          ).astype(dt)
-        start = float(np.abs(planes[0]).max())
-        floor = max(threshold, cycle_depth * start, beams.info.outside_level * start)
-        comps, *_ = clean_loop(planes, mask, lim, beams.response_scale, beams.amp_scale,
-                               beams.patches, beams.patch_offset, beams.patch_half,
-                               gain=loop_gain, floor=floor, peak_limit=1.1 * start, ref=0,
-                               delta=delta, max_iter=max_components - n_comp)
-        stamp_components(model, beams.kernels, *comps)
-        n_comp += comps[0].size
-        t1 = time.perf_counter()
-        residual = (dirty - convolve_same(model.astype(np.float64), beams.psf)).astype(dt)
-        t_major += time.perf_counter() - t1
-        t_minor += t1 - t0
-        peaks.append(float(np.abs(residual).max()))
-        if comps[0].size == 0:
-            break
-    return {"model": model, "residual": residual, "peaks": peaks, "components": n_comp,
-            "timings": {"precompute": beams.seconds, "minor": t_minor, "major": t_major},
-            "seconds": time.perf_counter() - t_start}
+    from scipy.signal import fftconvolve
+    t0 = time.perf_counter()
+    ny, nx = dirty.shape
+    n = beams.n
+    planes = np.stack([fftconvolve(dirty.astype(np.float64), np.asarray(k, float), mode="same")
+                       if k.size > 1 else dirty.astype(np.float64) * float(k.ravel()[0])
+                       for k in kernels]).astype(np.float32)
+    weight = np.stack([allowed[k] * beams.response[k] for k in range(n)]).astype(np.float32)
+    inside = allowed[0]
+    model = np.zeros((ny, nx))
+    counts = np.zeros(n, dtype=np.int64)
+    buf = np.empty((ny, nx), np.float32)
+    it = 0
+    stop = "max_iter"
+    while it < max_iter:
+        if it % check_every == 0:
+            if float(np.abs(planes[0][inside]).max()) <= level:
+                stop = "level"
+                break
+            if max_seconds is not None and time.perf_counter() - t0 > max_seconds:
+                stop = "time"
+                break
+        best, arg, kbest = -1.0, 0, 0
+        for k in range(n):
+            np.abs(planes[k], out=buf)
+            buf *= weight[k]
+            j = int(buf.argmax())
+            if buf.flat[j] > best:
+                best, arg, kbest = float(buf.flat[j]), j, k
+        y, x = divmod(arg, nx)
+        flux = gain * float(planes[kbest].flat[arg]) / beams.peaks[kbest]
+        r = kernels[kbest].shape[0] // 2
+        model[y - r:y + r + 1, x - r:x + r + 1] += flux * kernels[kbest]
+        for l in range(n):
+            b = beams.term(l, kbest)
+            planes[l] -= np.float32(flux) * b[ny - 1 - y:2 * ny - 1 - y, nx - 1 - x:2 * nx - 1 - x]
+        counts[kbest] += 1
+        it += 1
+        if callback is not None and it % 1000 == 0:
+            callback(it, time.perf_counter() - t0)
+    seconds = time.perf_counter() - t0
+    return {"model": model, "residual": planes[0], "components": it,
+            "per_scale": counts.tolist(), "seconds": seconds,
+            "precompute_seconds": beams.seconds, "per_iteration_seconds": seconds / max(it, 1),
+            "stop": stop}

@@ -1,18 +1,17 @@
-"""Side-by-side measurements for the speed targets of issue 5, in one process.
+"""Side-by-side measurements for the speed paragraph of issue 14, in one process.
 
     PYTHONPATH=engine python benchmarks/targets.py --out targets.json
 
-* per iteration: the compiled loop against the plain numpy twin
-  (``tests/naive.py::clean_loop``) on identical copies of one loop state;
-* end to end: `skyscale.deconvolve` against `numpy_baseline.numpy_deconvolve`, to the
-  same threshold on the same field: a shallow one (5 % of the peak: few components,
-  the FFTs dominate) and a deep one (3 x the robust noise: many components; the numpy
-  driver takes about 6 minutes);
-* threads: the iteration at 1 and 2 threads, interleaved run by run;
-* bandwidth: the iteration's time against the bytes it touches over a streaming copy.
+* the sub-loop: serial against parallel at 2 threads, on active sets below and above
+  `PARALLEL_MIN_ACTIVE` (a serial path where a parallel region costs more than its work);
+* the smoothing of every scale: the engine's `MultiConvolver` against one `Convolver`
+  per scale, and the transforms each makes (counted by a counting FFT backend);
+* the major cycle: the engine's `Convolver` on its ``~2N`` grid against a full linear
+  convolution on ``~3N`` (``scipy.signal.fftconvolve``), with a twice-size PSF.
 
-The exponents of the cost model come from ``skyscale bench`` (see README.md).
-Ratios are measured side by side because this machine is shared and noisy.
+The planner against runs it did not see is ``skyscale bench`` (validation table); the
+wall time against the textbook loop is ``depth_vs_textbook.py``.  Ratios are measured
+side by side because this machine is shared and noisy.
 """
 
 import argparse
@@ -29,123 +28,129 @@ for _p in (HERE, os.path.join(ROOT, "engine"), ROOT):
 
 import numpy as np  # noqa: E402
 
-import skyscale  # noqa: E402
-from conftest import clone_state  # noqa: E402
-from numpy_baseline import numpy_deconvolve  # noqa: E402
+from skyscale._threads import thread_limit  # noqa: E402
+from skyscale.fft import Convolver, MultiConvolver, get_backend  # noqa: E402
+from skyscale.kernels import scale_loop  # noqa: E402
+from skyscale.kernels.scale_loop import PARALLEL_MIN_ACTIVE  # noqa: E402
 from skyscale.minor import Engine  # noqa: E402
-from skyscale.sweep import (bandwidth_for, bandwidth_probe, measure_iterations,  # noqa: E402
-                            synthetic_field)
-from tests import naive  # noqa: E402
-
-#: Scales of the per-iteration and thread comparisons (6 scales of the sweep's ladder).
-SCALES_6 = [0, 4, 8, 16, 32, 64]
-#: Scales of the end-to-end comparison.
-SCALES_E2E = [0, 4, 8, 16, 32]
+from skyscale.sweep import synthetic_field  # noqa: E402
 
 
-def per_iteration(dirty, psf, scales, repeats, engine_iters=200, numpy_iters=10):
-    """Best time per iteration: compiled (1 and 2 threads) and numpy, same start state."""
-    e = Engine(psf, scales, image_shape=dirty.shape, threads=1)
-    state = e.loop_state(dirty)
-    clone_state(state).iterate(5)
-    best = {"compiled_1": np.inf, "compiled_2": np.inf, "numpy": np.inf}
+class CountingFFT:
+    """An FFT backend that counts its transforms (numpy.fft underneath)."""
+
+    name = "counting"
+
+    def __init__(self):
+        self.inner = get_backend("numpy")
+        self.forward = self.inverse = 0
+
+    def rfft2(self, a, s):
+        self.forward += 1
+        return self.inner.rfft2(a, s)
+
+    def irfft2(self, a, s):
+        self.inverse += 1
+        return self.inner.irfft2(a, s)
+
+
+def best(fn, repeats):
+    t = np.inf
     for _ in range(repeats):
-        for t in (1, 2):
-            e.threads = t
-            s = clone_state(state)
-            t0 = time.perf_counter()
-            s.iterate(engine_iters)
-            best[f"compiled_{t}"] = min(best[f"compiled_{t}"],
-                                        (time.perf_counter() - t0) / engine_iters)
-        s = clone_state(state)
         t0 = time.perf_counter()
-        naive.clean_loop(s.planes, s.mask, s.lim, e.response_scale, e.amp_scale, e.patches,
-                         e.patch_offset, e.patch_half, gain=e.loop_gain, floor=-1.0,
-                         peak_limit=np.inf, ref=0, delta=e.delta_index, max_iter=numpy_iters)
-        best["numpy"] = min(best["numpy"], (time.perf_counter() - t0) / numpy_iters)
-    return best
+        fn()
+        t = min(t, time.perf_counter() - t0)
+    return t
 
 
-def end_to_end(dirty, psf, scales, threshold):
-    """Wall seconds of the engine (all cores, 1 thread) and the numpy driver."""
-    out = {}
-    for label, threads in (("engine_all_cores", None), ("engine_1_thread", 1)):
-        t0 = time.perf_counter()
-        r = skyscale.deconvolve(dirty, psf, scales=scales, threshold=threshold,
-                                threads=threads, restore=False)
-        out[label] = {"seconds": time.perf_counter() - t0, "final_peak": r.history[-1].peak,
-                      "components": int(r.components.size), "timings": r.timings}
-    t0 = time.perf_counter()
-    n = numpy_deconvolve(dirty, psf, scales, threshold=threshold)
-    out["numpy"] = {"seconds": time.perf_counter() - t0, "final_peak": n["peaks"][-1],
-                    "components": n["components"], "timings": n["timings"]}
-    return out
+def sub_loop(n, repeats):
+    dirty, psf = synthetic_field(n)
+    e = Engine(psf, [0, 8], image_shape=dirty.shape, threads=1)
+    plane = e.smooth(dirty)[1]
+    order = np.argsort(np.abs(plane), axis=None)[::-1]
+    rows = []
+    for active in (4000, PARALLEL_MIN_ACTIVE, min(400000, plane.size)):
+        ys, xs = np.unravel_index(np.sort(order[:active]), plane.shape)
+        vals = plane[ys, xs].copy()
+        times = {}
+        for path in ("serial", "parallel"):
+            def run():
+                with thread_limit(2):
+                    scale_loop(vals.copy(), ys, xs, e.beams[1], beam_peak=e.beam_peaks[1],
+                               gain=0.1, level=0.0, max_iter=100, parallel=path == "parallel")
+            run()
+            times[path] = best(run, repeats)
+        rows.append({"active": active, "serial_s": times["serial"],
+                     "parallel_s": times["parallel"],
+                     "serial_over_parallel": times["serial"] / times["parallel"]})
+        print(f"sub-loop, {active} active pixels, 100 components, 2 threads: serial "
+              f"{times['serial'] * 1e3:.1f} ms, parallel {times['parallel'] * 1e3:.1f} ms: "
+              f"serial / parallel {rows[-1]['serial_over_parallel']:.2f}", flush=True)
+    return rows
+
+
+def smoothing(n, scales, repeats):
+    dirty, psf = synthetic_field(n)
+    kernels = Engine(psf, scales, image_shape=dirty.shape, threads=1).kernels
+    counter = CountingFFT()
+    multi = MultiConvolver(kernels, dirty.shape, backend=counter)
+    counter.forward = counter.inverse = 0
+    multi(dirty)
+    counts = {"multi": (counter.forward, counter.inverse)}
+    singles = [Convolver(k, dirty.shape, backend=counter) for k in kernels if k.size > 1]
+    counter.forward = counter.inverse = 0
+    for c in singles:
+        c(dirty)
+    counts["separate"] = (counter.forward, counter.inverse)
+    fft = get_backend("auto", threads=1)
+    multi = MultiConvolver(kernels, dirty.shape, backend=fft)
+    singles = [Convolver(k, dirty.shape, backend=fft) for k in kernels if k.size > 1]
+    multi(dirty)
+    [c(dirty) for c in singles]
+    t_multi = best(lambda: multi(dirty), repeats)
+    t_sep = best(lambda: [c(dirty) for c in singles], repeats)
+    print(f"smoothing {n}^2 by {scales}: one forward and {counts['multi'][1]} inverse "
+          f"transforms ({t_multi * 1e3:.0f} ms) against {counts['separate'][0]} forward and "
+          f"{counts['separate'][1]} inverse ({t_sep * 1e3:.0f} ms): x{t_sep / t_multi:.2f}",
+          flush=True)
+    return {"size": n, "scales": scales, "transforms": counts, "multi_s": t_multi,
+            "separate_s": t_sep, "separate_over_multi": t_sep / t_multi}
+
+
+def major(n, repeats):
+    from scipy.signal import fftconvolve
+    dirty, psf = synthetic_field(n)
+    model = np.zeros(dirty.shape)
+    model[::37, ::41] = 1.0
+    conv = Convolver(psf, dirty.shape, backend=get_backend("auto", threads=1))
+    conv(model)
+    psf64 = psf.astype(np.float64)
+
+    def full():
+        return fftconvolve(model, psf64, mode="full")[n:2 * n, n:2 * n]
+    diff = float(np.abs(conv(model, out_dtype=np.float64) - full()).max())
+    t_conv = best(lambda: conv(model), repeats)
+    t_full = best(full, repeats)
+    print(f"major cycle {n}^2, PSF {psf.shape}: grid {conv.fshape} in {t_conv * 1e3:.0f} ms "
+          f"against the full linear convolution (grid ~{3 * n - 1}) in {t_full * 1e3:.0f} ms: "
+          f"x{t_full / t_conv:.2f}; largest difference {diff:.2g}", flush=True)
+    return {"size": n, "grid": list(conv.fshape), "full_grid": 3 * n - 1, "convolver_s": t_conv,
+            "full_s": t_full, "full_over_convolver": t_full / t_conv, "max_difference": diff}
 
 
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--size", type=int, default=1024, help="field of the numpy comparisons")
-    ap.add_argument("--bw-size", type=int, default=2048,
-                    help="field of the bandwidth and thread comparisons")
+    ap.add_argument("--size", type=int, default=1024)
     ap.add_argument("--repeats", type=int, default=5)
-    ap.add_argument("--threshold-fraction", type=float, default=0.05,
-                    help="shallow end-to-end threshold, a fraction of the dirty peak")
-    ap.add_argument("--noise-multiple", type=float, default=3.0,
-                    help="deep end-to-end threshold, a multiple of the robust noise")
-    ap.add_argument("--skip-end-to-end", action="store_true")
     ap.add_argument("--out", help="write the numbers here as JSON")
     args = ap.parse_args(argv)
     res = {"command": "PYTHONPATH=engine python benchmarks/targets.py " + " ".join(
-        argv if argv is not None else sys.argv[1:]), "cores": os.cpu_count()}
-    Engine(synthetic_field(64)[1], [0, 4]).loop_state(synthetic_field(64)[0]).iterate(3)
-
-    dirty, psf = synthetic_field(args.size)
-    it = per_iteration(dirty, psf, SCALES_6, args.repeats)
-    res["per_iteration"] = dict(it, size=args.size, scales=SCALES_6,
-                                numpy_over_compiled_1=it["numpy"] / it["compiled_1"],
-                                numpy_over_compiled_2=it["numpy"] / it["compiled_2"])
-    print(f"per iteration {args.size}^2, 6 scales: compiled {it['compiled_1'] * 1e6:.1f} us "
-          f"(1 thread), {it['compiled_2'] * 1e6:.1f} us (2), numpy {it['numpy'] * 1e3:.2f} ms: "
-          f"x{res['per_iteration']['numpy_over_compiled_1']:.0f} (1 thread), "
-          f"x{res['per_iteration']['numpy_over_compiled_2']:.0f} (2)", flush=True)
-    if not args.skip_end_to_end:
-        levels = {"shallow": args.threshold_fraction * float(np.abs(dirty).max()),
-                  "deep": args.noise_multiple * skyscale.robust_noise(dirty)}
-        res["end_to_end"] = {}
-        for name, thr in levels.items():
-            e2e = end_to_end(dirty, psf, SCALES_E2E, thr)
-            e2e["threshold"] = thr
-            for k in ("engine_all_cores", "engine_1_thread"):
-                e2e[f"numpy_over_{k}"] = e2e["numpy"]["seconds"] / e2e[k]["seconds"]
-            res["end_to_end"][name] = e2e
-            print(f"end to end ({name}) {args.size}^2 to {thr:.4g} Jy/beam, scales {SCALES_E2E}: "
-                  f"{e2e['engine_all_cores']['components']} components; engine "
-                  f"{e2e['engine_all_cores']['seconds']:.2f} s (all cores, peak "
-                  f"{e2e['engine_all_cores']['final_peak']:.4g}), "
-                  f"{e2e['engine_1_thread']['seconds']:.2f} s (1 thread), numpy "
-                  f"{e2e['numpy']['seconds']:.1f} s (peak {e2e['numpy']['final_peak']:.4g}): "
-                  f"x{e2e['numpy_over_engine_all_cores']:.1f} (all cores), "
-                  f"x{e2e['numpy_over_engine_1_thread']:.1f} (1 thread)", flush=True)
-    del dirty, psf
-    probe = bandwidth_probe(threads=(1, 2))
-    res["bandwidth"] = probe
-    for n in sorted({args.size, args.bw_size}):
-        d, p = synthetic_field(n)
-        e = Engine(p, SCALES_6, image_shape=d.shape, threads=1)
-        rows = measure_iterations(e, d, iterations=200, repeats=args.repeats + 2,
-                                  thread_counts=(1, 2))
-        for r in rows:
-            r["bandwidth"] = bandwidth_for(probe, r["working_set"], r["threads"])
-            r["bandwidth_bound_s"] = r["bytes_per_iteration"] / r["bandwidth"]
-            r["over_bandwidth_bound"] = r["iteration_s"] / r["bandwidth_bound_s"]
-        speedup = rows[0]["iteration_s"] / rows[1]["iteration_s"]
-        res[f"threads_and_bandwidth_{n}"] = {"rows": rows, "speedup_2_over_1": speedup}
-        print(f"{n}^2, 6 scales: iteration {rows[0]['iteration_s'] * 1e6:.1f} us (1 thread), "
-              f"{rows[1]['iteration_s'] * 1e6:.1f} us (2): speedup {speedup:.2f}; "
-              f"{rows[0]['bytes_per_iteration'] / 1e3:.0f} kB touched per iteration, "
-              f"x{rows[0]['over_bandwidth_bound']:.1f} (1 thread) and "
-              f"x{rows[1]['over_bandwidth_bound']:.1f} (2) the bandwidth-bound time", flush=True)
-        del e, d, p
+        argv if argv is not None else sys.argv[1:]), "cores": os.cpu_count(),
+        "load": list(os.getloadavg())}
+    res["sub_loop"] = sub_loop(args.size, args.repeats)
+    res["smoothing"] = smoothing(args.size, [0, 4, 8, 16, 32], args.repeats)
+    res["major"] = major(args.size, args.repeats)
+    res["load_after"] = list(os.getloadavg())
     if args.out:
         with open(args.out, "w") as fh:
             json.dump(res, fh, indent=1, default=float)

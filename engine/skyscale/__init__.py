@@ -20,7 +20,8 @@ from .beam import (Beam, beam_area, beam_kernel, fit_beam, jy_per_beam_to_jy_per
                    jy_per_pixel_to_jy_per_beam, restore)
 from .cycles import deconvolve, run_cycles
 from .detect import Detection, detect_emission
-from .cost import InsufficientMemoryError, Plan, check_fits_memory, max_affordable_scales, plan_run
+from .planner import (InsufficientMemoryError, Plan, check_fits_memory, max_affordable_scales,
+                      plan_run)
 from .fitsio import (FitsImage, cell_size_arcsec, check_same_grid, read_image, write_image,
                      write_table_csv)
 from .job import run_files

@@ -11,6 +11,8 @@ import os
 import re
 import sys
 
+import numpy as np
+
 __all__ = ["register", "cmd_bench", "cmd_plan", "show_plan", "show_bench", "plot_bench",
            "BENCH_FILES", "BENCH_SIZE_PX"]
 
@@ -49,24 +51,17 @@ def _shape(text):
     return (ny, int(m.group(2)) if m.group(2) else ny)
 
 
-def _mix(text):
-    from .cost import SCALE_MIXES
-    return text if text in SCALE_MIXES else _floats(text)
-
-
 def register(subparsers):
     """Add ``bench`` and ``plan`` to an argparse subparsers object."""
-    b = subparsers.add_parser("bench", help="measure what scales, image size, sub-region and "
-                              "threads cost on this machine, and fit the cost model")
+    b = subparsers.add_parser("bench", help="measure what scales, image size and threads cost "
+                              "on this machine, and fit the cost model")
     b.add_argument("--out", required=True, help="output directory for bench.json and bench.png")
-    b.add_argument("--sizes", type=_int_list, default=[512, 1024],
-                   help="image sizes, comma-separated [512,1024]")
-    b.add_argument("--max-scales", type=int, default=8, help="scales 1 .. this many [8]")
-    b.add_argument("--iterations", type=int, default=200,
-                   help="minor-cycle iterations timed per point [200]")
-    b.add_argument("--repeats", type=int, default=3, help="identical timed runs, best kept [3]")
-    b.add_argument("--threads", type=_int_list, help="thread counts of the thread sweep "
-                   "[1 .. all cores]")
+    b.add_argument("--sizes", type=_int_list, default=[512, 1024, 2048],
+                   help="image sizes, comma-separated [512,1024,2048]")
+    b.add_argument("--components", type=int, default=1500,
+                   help="components of the minor cycle timed per point [1500]")
+    b.add_argument("--threads", type=_int_list, help="thread counts of the thread probes "
+                   "[1 and all cores]")
     b.add_argument("--calibration", help="write the fitted coefficients here [the default "
                    "calibration file, which skyscale plan and run then use]")
     b.add_argument("--no-calibration", action="store_true", help="do not write a calibration")
@@ -79,21 +74,30 @@ def register(subparsers):
 
     p = subparsers.add_parser("plan", help="predict time and memory of a run before it starts")
     p.add_argument("dirty", nargs="?", help="dirty image, FITS (or give --size)")
-    p.add_argument("psf", nargs="?", help="PSF, FITS (measured for its patch)")
+    p.add_argument("psf", nargs="?", help="PSF, FITS (its shape is used)")
     p.add_argument("--size", type=_shape, help="image size N or NYxNX instead of FITS files")
     p.add_argument("--psf-size", type=_shape, help="PSF size with --size [twice the image]")
     p.add_argument("--scales", type=_floats, default=[0.0, 4.0, 8.0, 16.0],
                    help="scale diameters in pixels, comma-separated [0,4,8,16]")
     p.add_argument("--max-components", type=int, default=20000, help="component budget [20000]")
-    p.add_argument("--major-cycles", type=int, help="major cycles to count [20, the budget]")
+    p.add_argument("--max-major-cycles", type=int, default=20, help="major-cycle budget [20]")
+    p.add_argument("--noise-threshold", type=float, help="stop multiple of the noise, for the "
+                   "dynamic range of a FITS dirty image [3]")
+    p.add_argument("--threshold", type=float, default=0.0, help="stop level, Jy/beam [0]")
+    p.add_argument("--dynamic-range", type=float, help="peak over stop level [measured from the "
+                   "dirty image, else 1000]")
+    p.add_argument("--mask-fraction", type=float, default=1.0,
+                   help="fraction of the image where components may go [1]")
+    for name, what in (("components", "components the run will take"),
+                       ("sub-loops", "sub-loops (single-scale rounds) the run will run"),
+                       ("major-cycles", "major cycles the run will need"),
+                       ("active-pixels", "mean active pixels per sub-loop")):
+        p.add_argument(f"--{name}", type=float, help=f"{what}, when known from an earlier "
+                       "run of the field [estimated]")
     p.add_argument("--threads", type=int, help="threads [all cores]")
-    p.add_argument("--psf-patch", type=int, help="PSF patch half-width, pixels [measured from "
-                   "the PSF, else 12]")
     p.add_argument("--dtype", choices=("float32", "float64"), default="float32",
                    help="working precision [float32]")
     p.add_argument("--memory", type=float, help="memory available, GiB [what is free now]")
-    p.add_argument("--scale-mix", type=_mix, help="how components spread over the scales: "
-                   "uniform, smallest, largest, or one fraction per scale [uniform]")
     p.add_argument("--calibration", help="calibration file [the default one, else built-in]")
     p.add_argument("--warm-process", action="store_true", help="the run is not the first "
                    "of its process (a pipeline's later fields): no start-up counted")
@@ -112,12 +116,12 @@ def _console():
 # ---------------------------------------------------------------------------- plan
 def cmd_plan(args):
     """``skyscale plan``: print the predicted cost of a run."""
-    from .cost import plan_run
+    from .planner import plan_run
     if args.size is not None and args.dirty:
         raise ValueError("give either FITS files or --size, not both")
     if args.size is None and not args.dirty:
         raise ValueError("give the dirty image and PSF (FITS), or --size N for an image size")
-    psf = None
+    psf = dirty = None
     if args.size is not None:
         shape = args.size
         psf = args.psf_size or (2 * shape[0], 2 * shape[1])
@@ -126,14 +130,21 @@ def cmd_plan(args):
         if not args.psf:
             raise ValueError(f"dirty is {args.dirty!r} but the PSF is missing; give both FITS "
                              "files")
-        shape = read_image(args.dirty, name="dirty").data.shape
-        psf = read_image(args.psf, name="psf").data
+        dirty = read_image(args.dirty, name="dirty").data
+        shape = dirty.shape
+        psf = read_image(args.psf, name="psf").data.shape
     memory = None if args.memory is None else int(args.memory * 2**30)
+    known = {k: (None if getattr(args, a) is None else
+                 (float if k == "active_pixels" else int)(getattr(args, a)))
+             for k, a in (("components", "components"), ("rounds", "sub_loops"),
+                          ("major_cycles", "major_cycles"), ("active_pixels", "active_pixels"))}
     plan = plan_run(shape, psf, args.scales, max_components=args.max_components,
-                    threads=args.threads, psf_patch=args.psf_patch, dtype=args.dtype,
-                    memory_available=memory, major_cycles=args.major_cycles,
-                    scale_mix=args.scale_mix, calibration=args.calibration,
-                    fresh_process=not args.warm_process)
+                    max_major_cycles=args.max_major_cycles, threads=args.threads,
+                    dtype=args.dtype, memory_available=memory, calibration=args.calibration,
+                    fresh_process=not args.warm_process, dirty=dirty,
+                    dynamic_range=args.dynamic_range, threshold=args.threshold,
+                    noise_threshold=args.noise_threshold, mask_fraction=args.mask_fraction,
+                    **known)
     if args.json:
         print(json.dumps(plan.as_dict(), indent=2))
     elif not getattr(args, "quiet", False):
@@ -165,19 +176,22 @@ def show_plan(plan):
     t.add_row("image / PSF", f"{plan.image_shape[0]} x {plan.image_shape[1]} / "
               f"{plan.psf_shape[0]} x {plan.psf_shape[1]}")
     t.add_row("scales (px)", ", ".join(f"{s:g}" for s in plan.scales))
-    t.add_row("PSF patch", f"{plan.psf_patch} px ({plan.psf_patch_source})")
     t.add_row("threads, dtype", f"{plan.threads}, {plan.dtype}")
+    c = plan.counts
+    t.add_row("counts", f"{c['major_cycles']} major cycles, {c['rounds']} sub-loops, "
+              f"{c['components']} components, {c['active_pixels']:.0f} active pixels per "
+              "sub-loop")
     t.add_row("start-up", _t(plan.startup_seconds) + (" (first run of the process)"
                                                       if plan.startup_seconds else ""))
     t.add_row("precompute", _t(plan.precompute_seconds))
-    lo, hi = plan.iteration_seconds_range
-    t.add_row("per iteration", f"{_t(plan.iteration_seconds)} ({_t(lo)} .. {_t(hi)})")
-    t.add_row("minor cycles", f"{_t(plan.minor_seconds)} for {plan.max_components} components"
-              f" and {plan.major_cycles} cycles")
-    t.add_row("major cycles", f"{_t(plan.major_total_seconds)} ({_t(plan.major_seconds)} each "
-              "after the first)")
+    t.add_row("per sub-loop update", _t(plan.round_seconds))
+    t.add_row("minor cycles", f"{_t(plan.minor_seconds)} (sub-loop iterations "
+              f"{_t(plan.loop_seconds)})")
+    t.add_row("major cycles", f"{_t(plan.major_total_seconds)} ({_t(plan.major_seconds)} each, "
+              "with the statistics)")
     t.add_row("total", _t(plan.total_seconds))
-    t.add_row("peak memory", f"{_b(plan.memory_bytes)} (at {plan.memory_phase})")
+    t.add_row("peak memory", f"{_b(plan.memory_bytes)} (at {plan.memory_phase}; the engine's "
+              f"own account {_b(plan.engine_memory_bytes)})")
     t.add_row("memory available", _b(plan.memory_available))
     t.add_row("fits", "yes" if plan.fits else "[bold red]NO: will not fit[/]")
     out.print(t)
@@ -189,12 +203,11 @@ def show_plan(plan):
 # --------------------------------------------------------------------------- bench
 def cmd_bench(args):
     """``skyscale bench``: run the sweep, print tables, write bench.json and bench.png."""
-    from .cost import save_calibration, default_calibration_path
     from ._atomic import atomic_write_bytes
+    from .calibration import default_calibration_path, save_calibration
     from .sweep import run_sweep
-    if args.max_scales < 1 or args.iterations < 1 or args.repeats < 1:
-        raise ValueError(f"--max-scales {args.max_scales}, --iterations {args.iterations}, "
-                         f"--repeats {args.repeats}: each must be at least 1")
+    if args.components < 1:
+        raise ValueError(f"--components {args.components}: give at least 1")
     paths = {k: os.path.join(args.out, v) for k, v in BENCH_FILES.items()}
     clash = [p for p in paths.values() if os.path.exists(p)]
     if clash and not args.overwrite:
@@ -212,9 +225,8 @@ def cmd_bench(args):
     if status is not None:
         status.start()
     try:
-        sweep = run_sweep(args.sizes, args.max_scales, iterations=args.iterations,
-                          repeats=args.repeats, thread_counts=args.threads, quick=args.quick,
-                          validate=not args.no_validate, callback=progress)
+        sweep = run_sweep(args.sizes, components=args.components, thread_counts=args.threads,
+                          quick=args.quick, validate=not args.no_validate, callback=progress)
     finally:
         if status is not None:
             status.stop()
@@ -244,95 +256,53 @@ def _jsonable(value):
     return float(value)
 
 
-def _ratio(a, b):
-    return f"{a / b:.2f}" if b else "-"
+def _scales(values):
+    return ",".join(f"{s:g}" for s in values)
 
 
 def show_bench(sweep, out=None):
-    """Print the sweep's tables: points, other sweeps, exponents, targets, validation."""
+    """Print the sweep's tables: points against the model, exponents, coefficients and
+    the planner against runs it did not see."""
     from rich.table import Table
     out = out or _console()
-    out.print("streaming copy (read + write): " + ", ".join(
-        f"{p['bytes'] >> 20} MiB, {p['threads']} thread(s): {p['bandwidth'] / 1e9:.1f} GB/s"
-        for p in sorted(sweep["bandwidth"], key=lambda p: (p["threads"], p["bytes"]))))
-    t = Table(title="what scales cost: measured (fitted model), 1 thread, float32")
-    for c in ("size", "scales (px)", "precompute s", "iteration us", "planner us",
-              "kB/iter", "x bw-bound", "major s", "peak MiB", "RSS+ MiB"):
+    m = sweep["machine"]
+    out.print(f"load average at the start {m['load'][0]:.1f}, at the end "
+              f"{m.get('load_after', [float('nan')])[0]:.1f} ({m['cores']} cores)")
+    t = Table(title="what scales cost: measured (model), 1 thread, float32")
+    for c in ("size", "scales (px)", "precompute s", "sub-loop update ms", "sub-loops s",
+              "major ms", "statistics ms", "peak MiB", "engine's own MiB", "RSS+ MiB"):
         t.add_column(c, justify="right")
     for r in sweep["points"]:
-        m = r["model"]
-        t.add_row(str(r["size"]), ",".join(f"{s:g}" for s in r["scales"]),
-                  f"{r['precompute_s']:.3f} ({m['precompute_s']:.3f})",
-                  f"{r['iteration_s'] * 1e6:.1f} ({m['iteration_s'] * 1e6:.1f})",
-                  f"{m['planner_iteration_s'] * 1e6:.1f}",
-                  f"{r['bytes_per_iteration'] / 1e3:.0f}",
-                  _ratio(r["iteration_s"], m["bandwidth_bound_s"]),
-                  f"{r['major_s']:.3f} ({m['major_s']:.3f})",
-                  f"{r['traced_peak'] / 2**20:.0f} ({m['memory'] / 2**20:.0f})",
-                  f"{r['rss_increase'] / 2**20:.0f}")
+        md = r["model"]
+        t.add_row(str(r["size"]), _scales(r["scales"]),
+                  f"{r['precompute_s']:.3f} ({md['precompute_s']:.3f})",
+                  f"{r['round_s'] * 1e3:.1f} ({md['round_s'] * 1e3:.1f})",
+                  f"{md['loops_measured_s']:.3f} ({md['loops_s']:.3f})",
+                  f"{r['major_s'] * 1e3:.1f} ({md['major_s'] * 1e3:.1f})",
+                  f"{r['stats_s'] * 1e3:.1f} ({md['stats_s'] * 1e3:.1f})",
+                  f"{r['traced_peak'] / 2**20:.0f} ({md['memory'] / 2**20:.0f})",
+                  f"{r['engine_memory'] / 2**20:.0f}", f"{r['rss_increase'] / 2**20:.0f}")
     out.print(t)
-    t = Table(title="iteration time against touched area, sub-region and threads")
-    for c in ("sweep", "setting", "scales (px)", "iteration us", "pixels rescanned", "x bw"):
-        t.add_column(c, justify="right")
-    for r in sweep["patch_points"]:
-        t.add_row("PSF patch", f"{r['psf_patch']} px", ",".join(f"{s:g}" for s in r["scales"]),
-                  f"{r['iteration_s'] * 1e6:.1f}", f"{r['scan_pixels']:.0f}", "")
-    for r in sweep["region_points"]:
-        t.add_row("sub-region", f"{r['region_shape'][0]} x {r['region_shape'][1]}",
-                  ",".join(f"{s:g}" for s in r["scales"]), f"{r['iteration_s'] * 1e6:.1f}",
-                  f"{r['scan_pixels']:.0f}", "")
-    for r in sweep["thread_points"]:
-        t.add_row("threads", str(r["threads"]), ",".join(f"{s:g}" for s in r["scales"]),
-                  f"{r['iteration_s'] * 1e6:.1f}", f"{r['scan_pixels']:.0f}",
-                  f"{r.get('bandwidth_ratio', float('nan')):.2f}")
-    out.print(t)
-    ex = sweep["summary"]["exponents"]
     t = Table(title="fitted exponents")
     t.add_column("relation")
     t.add_column("exponent", justify="right")
-    j = ex["iteration_joint"]
-    t.add_row("iteration ~ N_s^p A^q (A: pixels touched per plane)",
-              f"p {j['exponents'][0]:.3f}, q {j['exponents'][1]:.3f}")
-    for n, v in ex["iteration_vs_scales_ladder"].items():
-        t.add_row(f"iteration ~ N_s^p, scale ladder, {n} px (patches grow too)", f"{v:.3f}")
-    if "iteration_vs_scales_fixed_largest" in ex:
-        t.add_row("iteration ~ N_s^p, fixed largest scale",
-                  f"{ex['iteration_vs_scales_fixed_largest']:.3f}")
-    for k, v in ex["iteration_vs_image_area"].items():
-        t.add_row(f"iteration ~ (image area)^p, {k} scales, whole-image region", f"{v:.3f}")
-    if "iteration_vs_region_area" in ex:
-        t.add_row("iteration ~ (sub-region area)^p", f"{ex['iteration_vs_region_area']:.3f}")
-    for n, v in ex["precompute_vs_scales_ladder"].items():
-        t.add_row(f"precompute ~ N_s^p, scale ladder, {n} px", f"{v:.3f}")
-    q = ex.get("precompute_quadratic_fixed_largest")
-    if q:
-        t.add_row("precompute = a + b N_s + c N_s^2, fixed largest scale (s)",
-                  f"a {q['a']:.3g}, b {q['b']:.3g}, c {q['c']:.3g}")
-    for n, v in ex["memory_vs_scales_ladder"].items():
-        t.add_row(f"peak memory ~ N_s^p, scale ladder, {n} px", f"{v:.3f}")
+    for name, values in sweep["summary"]["exponents"].items():
+        for key, v in values.items():
+            t.add_row(f"{name.replace('_', ' ')}, {key}", f"{v:.3f}")
     out.print(t)
     cal = sweep["calibration"]
-    out.print("cost model coefficients (s): " + "; ".join(
+    out.print("cost model coefficients: " + "; ".join(
         f"{sec} " + ", ".join(f"{k} {v:.3g}" for k, v in cal[sec].items())
-        for sec in ("iteration", "precompute", "minor_overhead", "major", "setup", "threads",
-                    "memory")))
+        for sec in ("fft", "precompute", "round", "loop", "major", "stats", "counts",
+                    "threads", "memory", "startup")))
     out.print("relative misfit per family, rms (largest): " + ", ".join(
         f"{k} {v['rms']:.0%} ({v['max']:.0%})" for k, v in cal["fit"].items()))
-    t = Table(title="targets")
-    for c in ("target", "limit", "measured", "met", "where"):
-        t.add_column(c)
-    for g in sweep["summary"]["targets"]:
-        met = {True: "yes", False: "[bold red]MISSED[/]", None: "not measured"}[g["met"]]
-        val = "-" if g["measured"] is None else f"{g['measured']:.3g}"
-        sign = "<=" if g["kind"] == "max" else ">="
-        t.add_row(g["what"], f"{sign} {g['limit']}", val, met, g["where"])
-    out.print(t)
     for v in sweep["validation"]:
-        t = Table(title=f"planner against a real run: {v['image_shape'][0]} x "
-                  f"{v['image_shape'][1]}, scales {v['scales']}, {v['components']} components,"
-                  f" {v['major_cycles']} major cycles, {v.get('threads', 1)} thread(s) "
-                  "(predicted / measured)")
-        t.add_column("assumed mix")
+        t = Table(title=f"planner against a run it did not see: {v['field']}, scales "
+                  f"{_scales(v['scales'])}, {v['threads']} thread(s): {v['components']} "
+                  f"components, {v['rounds']} sub-loops, {v['major_cycles']} major cycles, "
+                  f"stop {v['stop_reason']} (predicted / measured)")
+        t.add_column("counts")
         for k in v["measured"]:
             t.add_column(k, justify="right")
         for label, ratios in v["ratios"].items():
@@ -342,8 +312,8 @@ def show_bench(sweep, out=None):
 
 
 def plot_bench(sweep):
-    """bench.png as PNG bytes: time and memory against the number of scales, one line per
-    image size, with the fitted cost model; and iteration time against the sub-region."""
+    """bench.png as PNG bytes: precompute, sub-loop update and peak memory against the
+    number of scales, one line per image size, with the model; the FFT law."""
     try:
         from matplotlib.backends.backend_agg import FigureCanvasAgg
         from matplotlib.figure import Figure
@@ -353,52 +323,40 @@ def plot_bench(sweep):
                  layout="constrained")
     FigureCanvasAgg(fig)
     axes = fig.subplots(2, 2)
-    ladder = [r for r in sweep["points"] if r.get("series") == "ladder"]
-    sizes = sorted({r["size"] for r in ladder})
-    colours = [f"C{i}" for i in range(len(sizes))]
-    panels = [(axes[0, 0], "iteration_s", 1e6, "per iteration (us)"),
-              (axes[0, 1], "precompute_s", 1.0, "precompute (s)"),
-              (axes[1, 0], "traced_peak", 2.0 ** -20, "peak memory (MiB)")]
-    model_key = {"iteration_s": "iteration_s", "precompute_s": "precompute_s",
-                 "traced_peak": "memory"}
-    for ax, key, unit, label in panels:
-        for n, col in zip(sizes, colours):
-            rows = sorted((r for r in ladder if r["size"] == n), key=lambda r: r["n_scales"])
+    pts = sweep["points"]
+    sizes = sorted({r["size"] for r in pts})
+    panels = [(axes[0, 0], "precompute_s", "precompute_s", 1.0, "precompute (s)"),
+              (axes[0, 1], "round_s", "round_s", 1e3, "sub-loop update (ms)"),
+              (axes[1, 0], "traced_peak", "memory", 2.0 ** -20, "peak memory (MiB)")]
+    for ax, key, mkey, unit, label in panels:
+        for i, n in enumerate(sizes):
+            rows = sorted((r for r in pts if r["size"] == n), key=lambda r: r["n_scales"])
             ns = [r["n_scales"] for r in rows]
-            ax.plot(ns, [r[key] * unit for r in rows], "o", color=col, label=f"{n} px measured")
-            ax.plot(ns, [r["model"][model_key[key]] * unit for r in rows], "-", color=col,
+            ax.plot(ns, [r[key] * unit for r in rows], "o", color=f"C{i}",
+                    label=f"{n} px measured")
+            ax.plot(ns, [r["model"][mkey] * unit for r in rows], "-", color=f"C{i}",
                     label=f"{n} px model")
-            if key == "iteration_s":
-                ax.plot(ns, [r["model"]["planner_iteration_s"] * unit for r in rows], ":",
-                        color=col, label=f"{n} px planner (uniform mix)")
-                ax.plot(ns, [r["model"]["bandwidth_bound_s"] * unit for r in rows], "--",
-                        color=col, alpha=0.5, label=f"{n} px bandwidth bound")
             if key == "traced_peak":
-                ax.plot(ns, [r["rss_increase"] * unit for r in rows], "x", color=col,
-                        label=f"{n} px resident set increase")
+                ax.plot(ns, [r["engine_memory"] * unit for r in rows], ":", color=f"C{i}",
+                        label=f"{n} px engine's own account")
         ax.set_yscale("log")
-        ax.set_xlabel("number of scales (ladder " + ", ".join(
-            f"{s:g}" for s in sweep["settings"]["ladder"]) + " px)")
+        ax.set_xlabel("number of scales")
         ax.set_ylabel(label)
         ax.grid(alpha=0.3)
         ax.legend(fontsize=7)
     ax = axes[1, 1]
-    reg = sweep["region_points"]
-    if reg:
-        cal = sweep["calibration"]["iteration"]
-        area = [r["region_area"] for r in reg]
-        ax.plot(area, [r["iteration_s"] * 1e6 for r in reg], "o", color="C0", label="measured")
-        ax.plot(area, [(cal["fixed"] + cal["per_pixel"] * r["scan_pixels"] + cal["per_row"] *
-                        r["n_scales"] * -(-r["region_shape"][0] // r["tile"])) * 1e6
-                       for r in reg], "-", color="C0", label="model")
-        ax.set_xscale("log")
-        ax.set_yscale("log")
-        ax.set_title(f"{reg[0]['size']} px image, scales " +
-                     ",".join(f"{s:g}" for s in reg[0]["scales"]), fontsize=9)
-        ax.legend(fontsize=7)
-    ax.set_xlabel("minor-cycle sub-region area (pixels)")
-    ax.set_ylabel("per iteration (us)")
+    f = sorted(sweep["fft"], key=lambda r: r["grid"][0] * r["grid"][1])
+    work = [r["grid"][0] * r["grid"][1] * np.log2(r["grid"][0] * r["grid"][1]) for r in f]
+    law = sweep["calibration"]["fft"]
+    ax.plot(work, [r["seconds"] for r in f], "o", color="C0", label="measured")
+    ax.plot(work, [law["coefficient"] * w ** law["exponent"] for w in work], "-", color="C0",
+            label=f"model, exponent {law['exponent']:.2f}")
+    ax.set_xscale("log")
+    ax.set_yscale("log")
+    ax.set_xlabel("FFT work S log2 S")
+    ax.set_ylabel("one real FFT (s)")
     ax.grid(alpha=0.3)
+    ax.legend(fontsize=7)
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=_DPI)
     return buf.getvalue()

@@ -236,11 +236,10 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
             raise InputError(f"{labels['scales']}: {exc}") from None
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            from .cost import max_affordable_scales
+            from .planner import max_affordable_scales
             afford = max_affordable_scales(data.shape, psf.data, scales_px,
                                            max_components=merged["max_components"],
-                                           threads=merged["threads"],
-                                           psf_patch=merged["psf_patch"])
+                                           threads=merged["threads"])
             scale_warnings = check_scales(scales_px, data, psf.data, cell_arcsec=cell,
                                           max_affordable_scales=len(afford.scales))
     mask = build_mask(merged, dirty, data.shape, labels)
@@ -253,10 +252,11 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
         kw = {} if merged["auto_mask_sigma"] is None else {"sigma": merged["auto_mask_sigma"]}
         auto = AutoMask(scales_px, fit_beam(psf.data).major, **kw)
     beam = None if merged["beam"] is None else restoring_beam(merged, cell, labels["beam"])
-    from .cost import check_fits_memory, plan_run
+    from .planner import check_fits_memory, plan_run
     plan = plan_run(data.shape, psf.data, scales_px,
                     max_components=merged["max_components"], threads=merged["threads"],
-                    psf_patch=merged["psf_patch"])
+                    max_major_cycles=merged["max_major_cycles"], dirty=data,
+                    threshold=merged["threshold"], noise_threshold=merged["noise_threshold"])
     check_fits_memory(plan)
     extra_kw = {} if initial is None else {"model": initial}
     with warnings.catch_warnings(record=True) as caught:

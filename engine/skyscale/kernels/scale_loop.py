@@ -37,8 +37,10 @@ SCALE_LOOP_STOP_CODES = {
 }
 
 #: Active sets smaller than this run serially: a parallel region costs more than the
-#: work (measured in benchmarks/bench_kernels.py).
-PARALLEL_MIN_ACTIVE = 40000
+#: work.  On the 2-core development machine the parallel pass was slower at every size
+#: measured (serial / parallel 0.46 at 400,000 pixels, benchmarks/targets.py), so only
+#: very large sets, where many cores can share the pass, take it.
+PARALLEL_MIN_ACTIVE = 1_000_000
 
 #: Pixels per chunk of the parallel pass (fixed, so chunking never depends on threads).
 CHUNK = 8192
