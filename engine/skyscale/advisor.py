@@ -131,11 +131,11 @@ def _spaced(first, largest, steps):
 
 def _costs(shape, psf, chosen, fuller):
     """Predicted time and memory of the two sets, or the reason they are unknown."""
-    from .cost import plan_run
+    from .planner import plan_run
     try:
         small = plan_run(shape, psf if psf is not None else (2 * shape[0], 2 * shape[1]),
                          chosen)
-        big = plan_run(shape, small.psf_shape, fuller, psf_patch=small.psf_patch)
+        big = plan_run(shape, small.psf_shape, fuller)
     except (ValueError, TypeError) as exc:
         return {}, f"their cost was not predicted ({exc})"
     costs = {"seconds": small.total_seconds, "bytes": small.memory_bytes,

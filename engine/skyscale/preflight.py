@@ -150,7 +150,7 @@ def plan_from_headers(dirty_path, psf_path, params):
     shapes = read_shape(dirty_path, name="dirty"), read_shape(psf_path, name="psf")
     if None in shapes:
         return
-    from .cost import check_fits_memory, plan_run
+    from .planner import check_fits_memory, plan_run
     from .scales import ScaleSet
     try:
         ScaleSet(scales)
@@ -161,7 +161,7 @@ def plan_from_headers(dirty_path, psf_path, params):
         try:
             plan = plan_run(shapes[0], shapes[1], [float(s) for s in scales],
                             max_components=params["max_components"],
-                            threads=params["threads"], psf_patch=params["psf_patch"])
+                            threads=params["threads"])
         except InputError:
             return                   # refused with the option's own name after reading
     check_fits_memory(plan)
