@@ -16,7 +16,9 @@ from .cycles import deconvolve
 from .fitsio import (cell_size_arcsec, check_same_grid, provenance_history, read_image,
                      write_image, write_table_csv)
 
-__all__ = ["RUN_DEFAULTS", "OUTPUT_NAMES", "run_files", "component_rows"]
+__all__ = ["RUN_DEFAULTS", "OUTPUT_NAMES", "run_files", "component_rows", "merge_params",
+           "scales_in_pixels", "restoring_beam", "deconvolve_options",
+           "build_mask"]
 
 logger = logging.getLogger(__name__)
 
@@ -69,7 +71,29 @@ def component_rows(components, wcs=None):
     return rows
 
 
-def _scales_in_pixels(params, cell, dirty, psf, reasons):
+def merge_params(params):
+    """Return `RUN_DEFAULTS` updated with ``params`` (None keeps the default).
+
+    Raises
+    ------
+    ValueError
+        If ``params`` holds a key that is not a run parameter.
+    """
+    merged = dict(RUN_DEFAULTS)
+    merged.update({k: v for k, v in (params or {}).items() if v is not None or k not in merged})
+    unknown = sorted(set(merged) - set(RUN_DEFAULTS))
+    if unknown:
+        raise ValueError(f"unknown run parameters {unknown}; valid ones are "
+                         f"{', '.join(sorted(RUN_DEFAULTS))}")
+    return merged
+
+
+def scales_in_pixels(params, cell, dirty, psf, reasons):
+    """Scale diameters in pixels from merged run parameters.
+
+    ``'auto'`` asks the advisor on ``dirty`` and ``psf`` and appends its reasons to
+    ``reasons``; arcsec scales are divided by ``cell``.
+    """
     scales = params["scales"]
     if isinstance(scales, str) and scales == "auto":
         from .advisor import suggest_scales
@@ -88,7 +112,55 @@ def _scales_in_pixels(params, cell, dirty, psf, reasons):
     return values
 
 
-def _build_mask(params, image, shape):
+def restoring_beam(params, cell):
+    """The user's restoring beam (``params['beam']``, arcsec and degrees) or None."""
+    if params["beam"] is None:
+        return None
+    maj, mnr, pa = params["beam"]
+    if cell is None:
+        raise ValueError("beam is given in arcsec but the image has no celestial WCS")
+    return Beam.from_sky(maj, mnr, pa, cell)
+
+
+def deconvolve_options(params, psf, cell, scales_px, mask=None, beam=None):
+    """Keyword arguments of `deconvolve` for one image from merged run parameters.
+
+    Parameters
+    ----------
+    params : dict
+        Merged run parameters (`merge_params`).
+    psf : (py, px) ndarray
+        The image's PSF (the automatic mask takes its beam width from it).
+    cell : float or None
+        Cell size, arcsec.
+    scales_px : list of float
+        Scale diameters in pixels (`scales_in_pixels`).
+    mask : (ny, nx) bool ndarray, optional
+    beam : Beam, optional
+        Restoring beam; default the fit to the PSF.
+
+    Returns
+    -------
+    dict
+        Everything but the image, the PSF and the callback.
+    """
+    auto = None
+    if params["auto_mask"]:
+        from .beam import fit_beam
+        from .masks import AutoMask
+        kw = {} if params["auto_mask_sigma"] is None else {"sigma": params["auto_mask_sigma"]}
+        auto = AutoMask(scales_px, fit_beam(psf).major, **kw)
+    return dict(scales=scales_px, loop_gain=params["loop_gain"], threshold=params["threshold"],
+                noise_threshold=params["noise_threshold"],
+                max_components=params["max_components"],
+                max_major_cycles=params["max_major_cycles"], cycle_depth=params["cycle_depth"],
+                mask=mask, size_penalty=params["size_penalty"],
+                scale_shape=params["scale_shape"], psf_patch=params["psf_patch"],
+                threads=params["threads"], cell_arcsec=cell, beam=beam, auto_mask=auto)
+
+
+def build_mask(params, image, shape):
+    """The mask from ``params['mask']`` and ``params['mask_regions']`` (their overlap), or None."""
     mask = None
     if params.get("mask"):
         from .masks import load_mask
@@ -123,12 +195,7 @@ def run_files(dirty_path, psf_path, out_dir, params=None, *, callback=None, inpu
     report : dict
         The JSON report as written.
     """
-    merged = dict(RUN_DEFAULTS)
-    merged.update({k: v for k, v in (params or {}).items() if v is not None or k not in merged})
-    unknown = sorted(set(merged) - set(RUN_DEFAULTS))
-    if unknown:
-        raise ValueError(f"unknown run parameters {unknown}; valid ones are "
-                         f"{', '.join(sorted(RUN_DEFAULTS))}")
+    merged = merge_params(params)
     start = _dt.datetime.now(_dt.timezone.utc)
     dirty = read_image(dirty_path, name="dirty")
     psf = read_image(psf_path, name="psf")
@@ -141,7 +208,7 @@ def run_files(dirty_path, psf_path, out_dir, params=None, *, callback=None, inpu
             raise FileExistsError(f"{clash[0]} exists; choose another output directory or "
                                   "pass --overwrite (overwrite=True)")
     reasons = []
-    scales_px = _scales_in_pixels(merged, cell, dirty.data, psf.data, reasons)
+    scales_px = scales_in_pixels(merged, cell, dirty.data, psf.data, reasons)
     scale_warnings = []
     if not reasons:   # the user's own set: check it against the rules of thumb
         from .advisor import check_scales
@@ -154,19 +221,8 @@ def run_files(dirty_path, psf_path, out_dir, params=None, *, callback=None, inpu
                                            psf_patch=merged["psf_patch"])
             scale_warnings = check_scales(scales_px, dirty.data, psf.data, cell_arcsec=cell,
                                           max_affordable_scales=len(afford.scales))
-    mask = _build_mask(merged, dirty, dirty.data.shape)
-    auto = None
-    if merged["auto_mask"]:
-        from .beam import fit_beam
-        from .masks import AutoMask
-        kw = {} if merged["auto_mask_sigma"] is None else {"sigma": merged["auto_mask_sigma"]}
-        auto = AutoMask(scales_px, fit_beam(psf.data).major, **kw)
-    beam = None
-    if merged["beam"] is not None:
-        maj, mnr, pa = merged["beam"]
-        if cell is None:
-            raise ValueError("beam is given in arcsec but the image has no celestial WCS")
-        beam = Beam.from_sky(maj, mnr, pa, cell)
+    mask = build_mask(merged, dirty, dirty.data.shape)
+    beam = restoring_beam(merged, cell)
     from .cost import check_fits_memory, plan_run
     plan = plan_run(dirty.data.shape, psf.data, scales_px,
                     max_components=merged["max_components"], threads=merged["threads"],
@@ -174,14 +230,9 @@ def run_files(dirty_path, psf_path, out_dir, params=None, *, callback=None, inpu
     check_fits_memory(plan)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        result = deconvolve(
-            dirty.data, psf.data, scales=scales_px, loop_gain=merged["loop_gain"],
-            threshold=merged["threshold"], noise_threshold=merged["noise_threshold"],
-            max_components=merged["max_components"], max_major_cycles=merged["max_major_cycles"],
-            cycle_depth=merged["cycle_depth"], mask=mask, size_penalty=merged["size_penalty"],
-            scale_shape=merged["scale_shape"], psf_patch=merged["psf_patch"],
-            threads=merged["threads"], cell_arcsec=cell, beam=beam, auto_mask=auto,
-            callback=callback)
+        result = deconvolve(dirty.data, psf.data,
+                            **deconvolve_options(merged, psf.data, cell, scales_px, mask, beam),
+                            callback=callback)
     result.warnings.extend(scale_warnings)
     result.warnings.extend(str(w.message) for w in caught)
     end = _dt.datetime.now(_dt.timezone.utc)
