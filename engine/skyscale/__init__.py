@@ -18,6 +18,7 @@ from .advisor import (EmissionExtent, ScaleChoiceWarning, ScaleSuggestion, check
 from .beam import (Beam, beam_area, beam_kernel, fit_beam, jy_per_beam_to_jy_per_pixel,
                    jy_per_pixel_to_jy_per_beam, restore)
 from .cycles import deconvolve, run_cycles
+from .cube import CubeResult, deconvolve_cube
 from .cost import InsufficientMemoryError, Plan, check_fits_memory, max_affordable_scales, plan_run
 from .fitsio import (FitsImage, cell_size_arcsec, check_same_grid, read_image, write_image,
                      write_table_csv)
@@ -40,7 +41,7 @@ except PackageNotFoundError:  # running from a source tree
 
 __all__ = [
     "__version__",
-    "deconvolve", "run_cycles", "Engine", "MinorCycleResult",
+    "deconvolve", "run_cycles", "Engine", "MinorCycleResult", "deconvolve_cube", "CubeResult",
     "ImagePlaneOperator", "FunctionOperator", "ResidualOperator",
     "DeconvolutionResult", "CycleRecord", "COMPONENT_DTYPE", "STOP_REASONS",
     "ScaleSet", "SCALE_SHAPES", "scale_kernel", "size_penalty_weights",
