@@ -259,3 +259,79 @@ def test_command_line_writes_the_cubes_and_the_report(data, reference, cluster, 
     assert report["scales"]["chosen"] == "given, fixed for every plane"
     assert main(["--quiet", "cube", str(data["cube"]), str(data["psf"]), "--out", str(out),
                  "--scheduler", cluster.scheduler.address]) == 2   # no clobbering
+
+
+def test_a_plane_that_fails_leaves_the_run_unfinished_and_resumable(data, cluster, tmp_path,
+                                                                   capsys):
+    cube, psf, _, _ = write_cube(tmp_path, nplanes=NPLANES)
+    with fits.open(psf, mode="update") as h:       # plane 3: a PSF peak off the centre
+        h[0].data[0, 3, 10, 10] = 2.0
+    with pytest.warns(UserWarning, match="not at the centre"):
+        result = skyscale.deconvolve_cube(cube, psf, tmp_path / "out", PARAMS, client=cluster,
+                                          plane_timeout=TIMEOUT)
+    assert not result.complete and result.failed == [3]
+    assert sorted(result.computed) == [0, 1, 2, 4, 5]
+    assert "psf peak is at (10, 10)" in result.report["planes"][3]["error"]
+    assert (tmp_path / "out" / "report-unfinished.json").exists()
+    assert not (tmp_path / "out" / "model.fits").exists()
+    code = main(["--quiet", "cube", str(cube), str(psf), "--out", str(tmp_path / "out"),
+                 "--scales", "0,4", "--max-components", "300", "--max-major-cycles", "5",
+                 "--threads", "1", "--scheduler", cluster.scheduler.address])
+    err = capsys.readouterr().err
+    assert code == 1 and "1 planes failed" in err and "rerun the same command" in err
+
+
+def test_auto_scales_are_chosen_once_on_the_brightest_plane(data, cluster, tmp_path):
+    result = skyscale.deconvolve_cube(data["cube"], data["psf"], tmp_path / "out",
+                                      dict(PARAMS, scales="auto"), client=cluster,
+                                      plane_timeout=TIMEOUT)
+    peaks = np.abs(data["dirty"]).max(axis=(1, 2))
+    scales = result.report["scales"]
+    assert scales["reference_plane"] == int(np.argmax(peaks))
+    assert scales["chosen"].startswith("advisor") and scales["reasons"]
+    suggested = skyscale.suggest_scales(data["dirty"][int(np.argmax(peaks))],
+                                        data["psfs"][int(np.argmax(peaks))], cell_arcsec=2.0)
+    assert scales["pixels"] == [float(p) for p in suggested.pixels]
+
+
+def test_tls_cluster_as_the_readme_says(data, reference, tmp_path):
+    """A TLS scheduler and worker on loopback; the command line finds its certificate in
+    Dask's configuration variables, as the README tells users to set them."""
+    import shutil
+    import subprocess
+    import sys
+    if shutil.which("openssl") is None:
+        pytest.skip("openssl is needed to make a test certificate")
+    cert, key = tmp_path / "cert.pem", tmp_path / "key.pem"
+    subprocess.run(["openssl", "req", "-x509", "-newkey", "rsa:2048", "-nodes", "-keyout",
+                    str(key), "-out", str(cert), "-days", "1", "-subj", "/CN=127.0.0.1",
+                    "-addext", "subjectAltName=IP:127.0.0.1"], check=True, timeout=60,
+                   capture_output=True)
+    from distributed.security import Security
+    sec = Security(tls_ca_file=str(cert), tls_scheduler_cert=str(cert),
+                   tls_scheduler_key=str(key), tls_worker_cert=str(cert),
+                   tls_worker_key=str(key), tls_client_cert=str(cert), tls_client_key=str(key),
+                   require_encryption=True)
+    lc = distributed.LocalCluster(n_workers=1, threads_per_worker=1, processes=True,
+                                  host="127.0.0.1", protocol="tls", security=sec,
+                                  dashboard_address="127.0.0.1:0",
+                                  worker_dashboard_address=None, env={"NUMBA_NUM_THREADS": "1"})
+    try:
+        address = lc.scheduler_address
+        assert address.startswith("tls://127.0.0.1:")
+        env = dict(os.environ, DASK_DISTRIBUTED__COMM__TLS__CA_FILE=str(cert),
+                   DASK_DISTRIBUTED__COMM__TLS__CLIENT__CERT=str(cert),
+                   DASK_DISTRIBUTED__COMM__TLS__CLIENT__KEY=str(key),
+                   PYTHONPATH=os.pathsep.join(p for p in sys.path if p))
+        out = tmp_path / "out"
+        proc = subprocess.run(
+            [sys.executable, "-m", "skyscale.cli", "--quiet", "cube", str(data["cube"]),
+             str(data["psf"]), "--out", str(out), "--scales", "0,4", "--max-components", "300",
+             "--max-major-cycles", "5", "--threads", "1", "--scheduler", address,
+             "--connect-timeout", "30"], env=env, timeout=TIMEOUT, capture_output=True,
+            text=True)
+        assert proc.returncode == 0, proc.stderr
+        assert np.array_equal(cube_data(out / "restored.fits")[0],
+                              reference["serial"]["restored"])
+    finally:
+        lc.close(timeout=TIMEOUT)

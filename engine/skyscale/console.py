@@ -19,29 +19,40 @@ def say(text):
     _out.print(text)
 
 
-class RunProgress:
-    """Progress of a run: one line per major cycle with components and peak residual."""
+class _Bar:
+    """A rich progress bar with one task, shown only on a terminal."""
+
+    first = ""
 
     def __init__(self, enabled=True):
-        self.enabled = enabled and sys.stdout.isatty()
+        self.enabled = enabled
         self._progress = None
         self._task = None
-        self._total = 0
-        self._cycle = 0
 
     def __enter__(self):
-        if self.enabled:
+        if self.enabled and sys.stdout.isatty():
             self._progress = Progress(SpinnerColumn(), TextColumn("{task.description}"),
                                       BarColumn(), TextColumn("{task.fields[info]}"),
                                       TimeElapsedColumn(), console=_out, transient=False)
             self._progress.__enter__()
-            self._task = self._progress.add_task("major cycle 0", total=None, info="")
+            self._task = self._progress.add_task(self.first, total=None, info="")
         return self
 
     def __exit__(self, *exc):
         if self._progress is not None:
             self._progress.__exit__(*exc)
         return False
+
+
+class RunProgress(_Bar):
+    """Progress of a run: one line per major cycle with components and peak residual."""
+
+    first = "major cycle 0"
+
+    def __init__(self, enabled=True):
+        super().__init__(enabled)
+        self._total = 0
+        self._cycle = 0
 
     def update(self, event):
         """Callback for `skyscale.deconvolve`: take one progress event."""
@@ -60,28 +71,10 @@ class RunProgress:
                                   info=info)
 
 
-class CubeProgress:
+class CubeProgress(_Bar):
     """Progress of a cube run: planes done and running, time left; the dashboard address."""
 
-    def __init__(self, enabled=True):
-        self.enabled = enabled
-        self._bar = enabled and sys.stdout.isatty()
-        self._progress = None
-        self._task = None
-
-    def __enter__(self):
-        if self._bar:
-            self._progress = Progress(SpinnerColumn(), TextColumn("{task.description}"),
-                                      BarColumn(), TextColumn("{task.fields[info]}"),
-                                      TimeElapsedColumn(), console=_out, transient=False)
-            self._progress.__enter__()
-            self._task = self._progress.add_task("planes", total=None, info="starting")
-        return self
-
-    def __exit__(self, *exc):
-        if self._progress is not None:
-            self._progress.__exit__(*exc)
-        return False
+    first = "planes"
 
     def update(self, event):
         """Callback for `skyscale.deconvolve_cube`: take one progress event."""
@@ -99,19 +92,15 @@ class CubeProgress:
         if self._progress is None:
             return
         eta = event.get("eta_s")
-        left = "" if eta is None else f", about {_duration(eta)} left"
+        if eta is None:
+            left = ""
+        elif eta >= 90:
+            left = f", about {eta / 60:.1f} min left"
+        else:
+            left = f", about {eta:.0f} s left"
         info = f"{event['done']}/{event['total']} done, {event['running']} running{left}"
         self._progress.update(self._task, total=event["total"], completed=event["done"],
                               info=info)
-
-
-def _duration(seconds):
-    seconds = int(round(seconds))
-    if seconds < 60:
-        return f"{seconds} s"
-    if seconds < 3600:
-        return f"{seconds // 60} min {seconds % 60:02d} s"
-    return f"{seconds // 3600} h {seconds % 3600 // 60:02d} min"
 
 
 def cube_summary(result):

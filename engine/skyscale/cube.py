@@ -130,6 +130,19 @@ def _choose_scales(merged, cube, psf, cell):
     return [float(s) for s in scales], reasons, reference
 
 
+def _plane_memory(merged, cubef, psff, scales_px):
+    """Predicted peak memory of one plane's run (the cost model) and the memory free."""
+    from .cost import plan_run
+    try:
+        plan = plan_run(cubef.plane_shape, psff.plane_shape, scales_px,
+                        max_components=merged["max_components"], threads=merged["threads"] or 1,
+                        psf_patch=merged["psf_patch"])
+    except ValueError as exc:   # sizing only: the plane itself reports the problem
+        logger.info("no memory plan for the planes: %s", exc)
+        return {}
+    return {"plane_bytes": plan.memory_bytes, "memory_bytes": plan.memory_available}
+
+
 def _resume(record, outputs, log):
     """Load the record and check every finished plane's bytes; return the planes kept."""
     entries = record.load()
@@ -287,9 +300,12 @@ def deconvolve_cube(cube, psf, out_dir, params=None, *, client=None, scheduler=N
         _notify(callback, stage="plane", plane=index, status=status, done=finished,
                 running=running, total=total, eta_s=eta, elapsed_s=elapsed)
 
+    sizing = {}
+    if client is None and scheduler is None:
+        sizing = _plane_memory(merged, cubef, psff, scales_px)
     try:
         with cube_client(client, scheduler, threads=merged["threads"], workers=workers,
-                         timeout=timeout) as (cl, info):
+                         timeout=timeout, **sizing) as (cl, info):
             _notify(callback, stage="cluster", total=total, reused=len(reused), **info.as_dict())
             for index in reused:
                 _notify(callback, stage="plane", plane=index, status="reused",

@@ -93,7 +93,9 @@ class CubeFile:
         if not 0 <= index < self.nplanes:
             raise IndexError(f"plane {index} is outside the cube's {self.nplanes} planes")
         if self._hdul is None:
-            self._hdul = fits.open(self.path, memmap=True, lazy_load_hdus=True)
+            # Without memmap a section reads only its own bytes; a memory map would keep
+            # every plane read so far resident (file pages, but counted against us).
+            self._hdul = fits.open(self.path, memmap=False, lazy_load_hdus=True)
         key = [0] * (len(self.shape) - 2)
         if self.plane_axis is not None:
             key[self.plane_axis] = index
