@@ -9,7 +9,8 @@ Serial and cluster runs alternate ``--repeat`` times and the best of each is kep
 because the machine's load drifts; the client's peak memory is the worst of them.
 
 * planes per minute: a serial loop in this process (read a plane, `skyscale.deconvolve`,
-  1 thread and all cores), and `skyscale.deconvolve_cube` on a local cluster of
+  1 thread and all cores), the same at 1 thread in a fresh process with the local
+  workers' malloc settings (`skyscale.cluster.WORKER_MALLOC`), and `skyscale.deconvolve_cube` on a local cluster of
   ``cores`` workers x 1 thread (cluster start-up timed apart);
 * the scheduler overhead per task: worker-slot seconds of a cube run not spent inside
   `deconvolve` per plane, and the round trip of an empty task carrying a plane;
@@ -88,6 +89,18 @@ def serial(cube, psf, threads):
     return time.perf_counter() - t0
 
 
+def serial_tuned(cube, psf):
+    """`serial` at 1 thread in a fresh process with the local workers' malloc settings."""
+    from skyscale.cluster import WORKER_MALLOC
+    code = ("import sys; sys.path[:0] = sys.argv[1:3]; from cube_throughput import serial; "
+            "serial(sys.argv[3], sys.argv[4], 1); print(serial(sys.argv[3], sys.argv[4], 1))")
+    out = subprocess.run([sys.executable, "-c", code, str(ROOT / "engine"),
+                          str(ROOT / "benchmarks"), str(cube), str(psf)], check=True,
+                         timeout=1200, capture_output=True, text=True,
+                         env=dict(os.environ, **WORKER_MALLOC))
+    return float(out.stdout.split()[-1])
+
+
 def client_time_per_plane(cube, psf, out, repeat=8):
     """Seconds the client spends per plane outside the cluster: read 2 planes, write 3."""
     from skyscale.cubefits import CubeOutput, open_cube
@@ -157,9 +170,10 @@ def main(argv=None):
                 run = {"planes": n, "cube_bytes": cube.stat().st_size + psf.stat().st_size}
                 run["client_s_per_plane"] = client_time_per_plane(cube, psf, tmp / f"c{n}")
                 run["serial_all_threads_s"] = serial(cube, psf, cores)
-                serial_s, cluster_s, peaks, overheads = [], [], [], []
+                serial_s, tuned_s, cluster_s, peaks, overheads = [], [], [], [], []
                 for rep in range(args.repeat):      # interleaved, best of: the load drifts
                     serial_s.append(serial(cube, psf, 1))
+                    tuned_s.append(serial_tuned(cube, psf))
                     with PeakRSS() as mem:
                         t1 = time.perf_counter()
                         res = skyscale.deconvolve_cube(cube, psf, tmp / f"c{n}" / f"out{rep}",
@@ -171,10 +185,12 @@ def main(argv=None):
                     if cluster_s[-1] == min(cluster_s):
                         run["compute_in_tasks_s"] = compute
                 run["serial_1_thread_s"] = min(serial_s)
+                run["serial_1_thread_worker_malloc_s"] = min(tuned_s)
                 run["cluster_s"] = min(cluster_s)
                 run["client_peak_above_baseline_bytes"] = max(peaks)
                 run["overhead_s_per_task"] = min(overheads)
-                for key in ("serial_1_thread", "serial_all_threads", "cluster"):
+                for key in ("serial_1_thread", "serial_1_thread_worker_malloc",
+                            "serial_all_threads", "cluster"):
                     run[f"{key}_planes_per_min"] = 60.0 * n / run[f"{key}_s"]
                 results["runs"].append(run)
                 print(json.dumps(run), flush=True)

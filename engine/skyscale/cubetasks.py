@@ -137,13 +137,14 @@ def stream_planes(client, todo, read, task_args, *, on_result, on_skip, on_failu
                 if fut.key not in running:
                     continue
                 fut, index = running.pop(fut.key)
-                if fut.status == "finished":
-                    on_result(index, fut.result())
-                    status = "done"
-                else:
-                    exc = fut.exception()
+                try:    # a result lost with its worker is computed again: wait, bounded
+                    output = fut.result(timeout=plane_timeout)
+                except Exception as exc:  # noqa: BLE001 - the plane fails, the others go on
                     on_failure(index, f"{type(exc).__name__}: {exc}")
                     status = "failed"
+                else:
+                    on_result(index, output)
+                    status = "done"
                 fut.release()
                 slots = _slots(client, slots)
                 on_progress(index, status, min(len(running), slots))
