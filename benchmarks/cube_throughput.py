@@ -10,8 +10,9 @@ because the machine's load drifts; the client's peak memory is the worst of them
 
 * planes per minute: a serial loop in this process (read a plane, `skyscale.deconvolve`,
   1 thread and all cores), the same at 1 thread in a fresh process with the local
-  workers' malloc settings (`skyscale.cluster.WORKER_MALLOC`), and `skyscale.deconvolve_cube` on a local cluster of
-  ``cores`` workers x 1 thread (cluster start-up timed apart);
+  workers' malloc settings (`skyscale.cluster.WORKER_MALLOC`), and
+  `skyscale.deconvolve_cube` on the local cluster that ``skyscale cube`` starts
+  (``cores`` workers x 1 thread; its start-up timed apart);
 * the scheduler overhead per task: worker-slot seconds of a cube run not spent inside
   `deconvolve` per plane, and the round trip of an empty task carrying a plane;
 * the client's own time per plane (read two planes, write and hash three), which
@@ -21,6 +22,7 @@ because the machine's load drifts; the client's peak memory is the worst of them
 """
 
 import argparse
+import contextlib
 import json
 import os
 import subprocess
@@ -144,8 +146,8 @@ def main(argv=None):
                     help="interleaved repeats of serial and cluster runs, best kept [3]")
     ap.add_argument("--out", help="write the figures as JSON here")
     args = ap.parse_args(argv)
-    import distributed
     import skyscale
+    from skyscale.cluster import cube_client
     counts = [int(v) for v in args.planes.split(",")]
     cores = len(os.sched_getaffinity(0))
     results = {"size": args.size, "cores": cores, "params": PARAMS, "runs": []}
@@ -154,12 +156,8 @@ def main(argv=None):
         warm = make_cube(tmp / "warm", 2, 64)
         serial(*warm, 1)                                          # compile here
         t0 = time.perf_counter()
-        lc = distributed.LocalCluster(n_workers=cores, threads_per_worker=1, host="127.0.0.1",
-                                      dashboard_address="127.0.0.1:0",
-                                      worker_dashboard_address=None,
-                                      env={"NUMBA_NUM_THREADS": "1"})
-        client = distributed.Client(lc, timeout=60, set_as_default=False)
-        client.wait_for_workers(cores, timeout=60)
+        stack = contextlib.ExitStack()
+        client, _ = stack.enter_context(cube_client(workers=cores, threads=1, timeout=60))
         results["cluster_start_s"] = time.perf_counter() - t0
         try:
             skyscale.deconvolve_cube(*warm, tmp / "warm" / "out", PARAMS, client=client,
@@ -195,8 +193,7 @@ def main(argv=None):
                 results["runs"].append(run)
                 print(json.dumps(run), flush=True)
         finally:
-            client.close(timeout=60)
-            lc.close(timeout=60)
+            stack.close()
     last = results["runs"][-1]
     t_plane = last["compute_in_tasks_s"] / last["planes"]
     t_task = t_plane + max(last["overhead_s_per_task"], 0.0)

@@ -224,7 +224,11 @@ def cmd_cube(args):
     from .cube import deconvolve_cube
     from . import console
     params = _params(args)
-    if not args.debug:   # the scheduler's and workers' own logs
+    if not args.debug:   # the scheduler's and workers' own logs (set once dask configured them)
+        try:
+            import distributed  # noqa: F401
+        except ImportError:
+            pass                 # deconvolve_cube says how to install it
         logging.getLogger("distributed").setLevel(logging.ERROR)
     with console.CubeProgress(enabled=not args.quiet) as progress:
         try:
