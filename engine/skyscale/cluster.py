@@ -105,6 +105,13 @@ def plane_threads(threads=None):
     return max(1, int(numba.config.NUMBA_NUM_THREADS) // slots)
 
 
+def _ignore_interrupt():
+    """In a local worker: leave Ctrl-C to the client, which closes the cluster itself."""
+    import signal
+    with contextlib.suppress(ValueError):   # not the main thread: nothing to change
+        signal.signal(signal.SIGINT, signal.SIG_IGN)
+
+
 @contextlib.contextmanager
 def _worker_malloc():
     """Spawn workers with `WORKER_MALLOC`: glibc reads it at process start, so it has to
@@ -204,6 +211,7 @@ def cube_client(client=None, scheduler=None, *, threads=None, workers=None, time
         own = Client(cluster, timeout=timeout, set_as_default=False)
         try:
             own.wait_for_workers(n, timeout=timeout)
+            own.run(_ignore_interrupt)
             yield own, _info(own, "local", t)
         finally:
             own.close(timeout=timeout)
