@@ -30,6 +30,10 @@ TIMEOUT = 120   # seconds: no single wait in these tests lasts longer
 @pytest.fixture(scope="module")
 def cluster():
     """Two worker processes, one thread each, on loopback; closed after the module."""
+    from conftest import gaussian_psf
+    psf = gaussian_psf(32, sigma=2.0)     # compile here first: workers load the cache
+    skyscale.deconvolve(psf[16:48, 16:48].copy(), psf, scales=PARAMS["scales"],
+                        max_components=5, threads=1)
     lc = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
                                   host="127.0.0.1", dashboard_address="127.0.0.1:0",
                                   worker_dashboard_address=None,
