@@ -22,6 +22,7 @@ from .cycles import deconvolve, run_cycles
 from .detect import Detection, detect_emission
 from .planner import (InsufficientMemoryError, Plan, check_fits_memory, max_affordable_scales,
                       plan_run)
+from .cube import CubeResult, deconvolve_cube
 from .fitsio import (FitsImage, cell_size_arcsec, check_same_grid, read_image, write_image,
                      write_table_csv)
 from .job import run_files
@@ -47,7 +48,7 @@ except PackageNotFoundError:  # running from a source tree
 
 __all__ = [
     "__version__", "InputError", "mask_nonfinite",
-    "deconvolve", "run_cycles", "Engine", "MinorCycleResult",
+    "deconvolve", "run_cycles", "Engine", "MinorCycleResult", "deconvolve_cube", "CubeResult",
     "ImagePlaneOperator", "FunctionOperator", "ResidualOperator",
     "DeconvolutionResult", "CycleRecord", "COMPONENT_DTYPE", "STOP_REASONS",
     "ScaleSet", "SCALE_SHAPES", "scale_kernel", "size_penalty_weights",

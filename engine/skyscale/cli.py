@@ -187,6 +187,24 @@ def build_parser():
     _add_global_flags(suggest)
     suggest.set_defaults(func=cmd_suggest)
 
+    cube = sub.add_parser("cube", help="deconvolve a FITS cube plane by plane on Dask "
+                          "distributed (a local cluster by default)",
+                          description="Deconvolve every plane of a cube with its own PSF plane "
+                          "and the options of 'run'; --threads is the threads per plane. "
+                          "Rerunning the same command after an interruption resumes it.")
+    cube.add_argument("cube", help="FITS cube, Jy/beam (3 axes, or 4 with a degenerate one)")
+    cube.add_argument("psf", help="FITS PSF cube on the same spectral axis, or one PSF for all")
+    cube.add_argument("--out", required=True, help="output directory")
+    _add_run_options(cube)
+    c = cube.add_argument_group("cluster")
+    c.add_argument("--scheduler", metavar="ADDRESS", help="address of a running Dask scheduler, "
+                   "e.g. tcp://10.0.0.5:8786 [a local cluster on 127.0.0.1]")
+    c.add_argument("--workers", type=int, help="worker processes of the local cluster "
+                   "[cores / threads, fewer if memory is short]")
+    c.add_argument("--connect-timeout", type=float, default=30.0,
+                   help="seconds to wait for the scheduler or the local workers [30]")
+    cube.set_defaults(func=cmd_cube)
+
     try:
         from . import cli_cost
         cli_cost.register(sub)
@@ -308,6 +326,34 @@ def cmd_demo(args):
         from . import console
         console.say(f"demo finished: the results are in {os.path.abspath(args.out)}")
     return code
+
+
+def cmd_cube(args):
+    from .cube import deconvolve_cube
+    from . import console
+    params = _params(args)
+    if not args.debug:   # the scheduler's and workers' own logs (set once dask configured them)
+        try:
+            import distributed  # noqa: F401
+        except ImportError:
+            pass                 # deconvolve_cube says how to install it
+        logging.getLogger("distributed").setLevel(logging.ERROR)
+    with console.CubeProgress(enabled=not args.quiet) as progress:
+        try:
+            result = deconvolve_cube(args.cube, args.psf, args.out, params,
+                                     scheduler=args.scheduler, workers=args.workers,
+                                     timeout=args.connect_timeout, callback=progress.update)
+        except KeyboardInterrupt:
+            print(f"skyscale: interrupted; the finished planes are kept in {args.out}, rerun "
+                  "the same command to resume", file=sys.stderr)
+            return 1
+    if not args.quiet:
+        console.cube_summary(result)
+    if not result.complete:
+        print(f"skyscale: {len(result.failed)} planes failed ({result.written['report']}); "
+              "rerun the same command to try them again", file=sys.stderr)
+        return 1
+    return 0
 
 
 def cmd_suggest(args):

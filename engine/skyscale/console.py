@@ -9,7 +9,7 @@ from rich.console import Console
 from rich.progress import BarColumn, Progress, SpinnerColumn, TextColumn, TimeElapsedColumn
 from rich.table import Table
 
-__all__ = ["RunProgress", "summary", "show_suggestion", "show_check", "say"]
+__all__ = ["RunProgress", "CubeProgress", "cube_summary", "summary", "show_suggestion", "show_check", "say"]
 
 _out = Console(stderr=False, highlight=False)
 
@@ -19,29 +19,40 @@ def say(text):
     _out.print(text)
 
 
-class RunProgress:
-    """Progress of a run: one line per major cycle with components and peak residual."""
+class _Bar:
+    """A rich progress bar with one task, shown only on a terminal."""
+
+    first = ""
 
     def __init__(self, enabled=True):
-        self.enabled = enabled and sys.stdout.isatty()
+        self.enabled = enabled
         self._progress = None
         self._task = None
-        self._total = 0
-        self._cycle = 0
 
     def __enter__(self):
-        if self.enabled:
+        if self.enabled and sys.stdout.isatty():
             self._progress = Progress(SpinnerColumn(), TextColumn("{task.description}"),
                                       BarColumn(), TextColumn("{task.fields[info]}"),
                                       TimeElapsedColumn(), console=_out, transient=False)
             self._progress.__enter__()
-            self._task = self._progress.add_task("major cycle 0", total=None, info="")
+            self._task = self._progress.add_task(self.first, total=None, info="")
         return self
 
     def __exit__(self, *exc):
         if self._progress is not None:
             self._progress.__exit__(*exc)
         return False
+
+
+class RunProgress(_Bar):
+    """Progress of a run: one line per major cycle with components and peak residual."""
+
+    first = "major cycle 0"
+
+    def __init__(self, enabled=True):
+        super().__init__(enabled)
+        self._total = 0
+        self._cycle = 0
 
     def update(self, event):
         """Callback for `skyscale.deconvolve`: take one progress event."""
@@ -58,6 +69,63 @@ class RunProgress:
                     f"peak {event['peak']:.4g} Jy/beam (minor cycle)")
             self._progress.update(self._task, description=f"major cycle {self._cycle + 1}",
                                   info=info)
+
+
+class CubeProgress(_Bar):
+    """Progress of a cube run: planes done and running, time left; the dashboard address."""
+
+    first = "planes"
+
+    def update(self, event):
+        """Callback for `skyscale.deconvolve_cube`: take one progress event."""
+        if not self.enabled:
+            return
+        if event.get("stage") == "cluster":
+            where = {"local": "local cluster", "address": "scheduler", "client": "client"}
+            _out.print(f"{where.get(event['kind'], event['kind'])} {event['address']}: "
+                       f"{event['workers']} workers, {event['slots']} planes at a time; "
+                       f"dashboard {event['dashboard']}")
+            if event.get("reused"):
+                _out.print(f"resuming: {event['reused']} of {event['total']} planes were "
+                           "finished before")
+            return
+        if self._progress is None:
+            return
+        eta = event.get("eta_s")
+        if eta is None:
+            left = ""
+        elif eta >= 90:
+            left = f", about {eta / 60:.1f} min left"
+        else:
+            left = f", about {eta:.0f} s left"
+        info = f"{event['done']}/{event['total']} done, {event['running']} running{left}"
+        self._progress.update(self._task, total=event["total"], completed=event["done"],
+                              info=info)
+
+
+def cube_summary(result):
+    """The end-of-run table of a cube: plane counts, the common beam, the outputs."""
+    rep = result.report
+    t = Table(title="cube", show_header=False)
+    t.add_column("what")
+    t.add_column("value")
+    counts = rep["counts"]
+    t.add_row("planes", f"{counts['planes']}: {counts['computed']} computed, {counts['reused']} "
+              f"resumed, {counts['skipped']} skipped, {counts['failed']} failed")
+    t.add_row("scales (px)", ", ".join(f"{s:g}" for s in rep["scales"]["pixels"])
+              + f" ({rep['scales']['chosen']})")
+    b = result.common_beam
+    t.add_row("restoring beam", f"{b.major:.3g} x {b.minor:.3g} px, PA {b.pa:.1f} deg "
+              f"({rep['restoring_beam']['source']})")
+    for p in rep["planes"]:
+        if p["status"] == "skipped":
+            t.add_row(f"plane {p['plane']} skipped", p.get("reason", ""))
+        elif p["status"] == "failed":
+            t.add_row(f"plane {p['plane']} failed", p.get("error", ""))
+    t.add_row("time", f"{rep['timings_s']['total']:.2f} s")
+    _out.print(t)
+    for kind, path in result.written.items():
+        _out.print(f"  {kind:12s} {path}")
 
 
 def summary(result, written, report, elapsed):

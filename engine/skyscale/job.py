@@ -17,11 +17,14 @@ from .cycles import deconvolve
 from .fitsio import (cell_size_arcsec, check_same_grid, provenance_history, read_image,
                      write_image, write_table_csv)
 from .options import coerce_params, option_label
-from .preflight import (OUTPUT_NAMES, build_mask, check_units, initial_model,
-                        plan_from_headers, prepare_out, resume_inputs, restoring_beam)
+from .preflight import OUTPUT_NAMES, check_units, initial_model, plan_from_headers, prepare_out
+from .preflight import build_mask as _build_mask
+from .preflight import restoring_beam as _restoring_beam
+from .preflight import resume_inputs
 from .report import file_sha256
 
 __all__ = ["RUN_DEFAULTS", "OUTPUT_NAMES", "run_files", "run_images", "merge_params",
+           "scales_in_pixels", "restoring_beam", "build_mask", "deconvolve_options",
            "component_rows", "resume_inputs"]
 
 from .levels import DEFAULT_EXTENDED_DEPTH
@@ -108,6 +111,62 @@ def _scales_in_pixels(params, cell, dirty, psf, reasons, label):
                              "WCS to convert them; give scales in pixels")
         return [v / cell for v in values]
     return values
+
+
+def scales_in_pixels(params, cell, dirty, psf, reasons, label="scales"):
+    """Scale diameters in pixels from merged run parameters (``'auto'`` asks the advisor
+    and appends its reasons to ``reasons``; arcsec scales are divided by ``cell``)."""
+    return _scales_in_pixels(params, cell, dirty, psf, reasons, label)
+
+
+def restoring_beam(params, cell, label="beam"):
+    """The user's restoring beam (``params['beam']``, arcsec and degrees) or None."""
+    return None if params["beam"] is None else _restoring_beam(params, cell, label)
+
+
+def build_mask(params, image, shape, labels=None):
+    """The user mask from ``params['mask']`` and ``params['mask_regions']`` (their
+    overlap), or None; refused when it allows no pixel."""
+    labels = labels or {k: option_label(k, None) for k in RUN_DEFAULTS}
+    return _build_mask(params, image, shape, labels)
+
+
+def deconvolve_options(params, psf, cell, scales_px, mask=None, beam=None):
+    """Keyword arguments of `deconvolve` for one image from merged run parameters.
+
+    Parameters
+    ----------
+    params : dict
+        Merged run parameters (`merge_params`).
+    psf : (py, px) ndarray
+        The image's PSF (the automatic mask takes its beam width from it).
+    cell : float or None
+        Cell size, arcsec.
+    scales_px : list of float
+        Scale diameters in pixels (`scales_in_pixels`).
+    mask : (ny, nx) bool ndarray, optional
+    beam : Beam, optional
+        Restoring beam; default the fit to the PSF.
+
+    Returns
+    -------
+    dict
+        Everything but the image, the PSF, the operator, the model and the callback.
+    """
+    auto = None
+    if params["auto_mask"]:
+        from .beam import fit_beam
+        from .masks import AutoMask
+        kw = {} if params["auto_mask_sigma"] is None else {"sigma": params["auto_mask_sigma"]}
+        auto = AutoMask(scales_px, fit_beam(psf).major, **kw)
+    return dict(scales=scales_px, loop_gain=params["loop_gain"], threshold=params["threshold"],
+                noise_threshold=params["noise_threshold"],
+                max_components=params["max_components"],
+                max_major_cycles=params["max_major_cycles"], cycle_depth=params["cycle_depth"],
+                mask=mask, size_penalty=params["size_penalty"],
+                extended_depth=params["extended_depth"], scale_shape=params["scale_shape"],
+                psf_patch=params["psf_patch"], threads=params["threads"], cell_arcsec=cell,
+                beam=beam, auto_mask=auto)
 
 
 def run_files(dirty_path, psf_path, out_dir, params=None, *, callback=None, inputs_extra=None,
@@ -245,13 +304,7 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
     mask = build_mask(merged, dirty, data.shape, labels)
     if blank is not None:
         mask = ~blank if mask is None else (mask & ~blank)
-    auto = None
-    if merged["auto_mask"]:
-        from .beam import fit_beam
-        from .masks import AutoMask
-        kw = {} if merged["auto_mask_sigma"] is None else {"sigma": merged["auto_mask_sigma"]}
-        auto = AutoMask(scales_px, fit_beam(psf.data).major, **kw)
-    beam = None if merged["beam"] is None else restoring_beam(merged, cell, labels["beam"])
+    beam = restoring_beam(merged, cell, labels["beam"])
     from .planner import check_fits_memory, plan_run
     plan = plan_run(data.shape, psf.data, scales_px,
                     max_components=merged["max_components"], threads=merged["threads"],
@@ -261,15 +314,8 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
     extra_kw = {} if initial is None else {"model": initial}
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        result = deconvolve(
-            data, psf.data, scales=scales_px, loop_gain=merged["loop_gain"],
-            threshold=merged["threshold"], noise_threshold=merged["noise_threshold"],
-            max_components=merged["max_components"], max_major_cycles=merged["max_major_cycles"],
-            cycle_depth=merged["cycle_depth"], mask=mask, size_penalty=merged["size_penalty"],
-            extended_depth=merged["extended_depth"],
-            scale_shape=merged["scale_shape"], psf_patch=merged["psf_patch"],
-            threads=merged["threads"], cell_arcsec=cell, beam=beam, auto_mask=auto,
-            operator=operator, callback=callback, **extra_kw)
+        result = deconvolve(data, psf.data, operator=operator, callback=callback, **extra_kw,
+                            **deconvolve_options(merged, psf.data, cell, scales_px, mask, beam))
     result.warnings.extend(notes + scale_warnings)
     result.warnings.extend(str(w.message) for w in caught)
     if blank is not None:
