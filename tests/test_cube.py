@@ -275,7 +275,7 @@ def test_a_plane_that_fails_leaves_the_run_unfinished_and_resumable(data, cluste
                                           plane_timeout=TIMEOUT)
     assert not result.complete and result.failed == [3]
     assert sorted(result.computed) == [0, 1, 2, 4, 5]
-    assert "psf peak is at (10, 10)" in result.report["planes"][3]["error"]
+    assert "psf peak is at [y, x] (10, 10)" in result.report["planes"][3]["error"]
     assert (tmp_path / "out" / "report-unfinished.json").exists()
     assert not (tmp_path / "out" / "model.fits").exists()
     code = main(["--quiet", "cube", str(cube), str(psf), "--out", str(tmp_path / "out"),

@@ -331,7 +331,7 @@ def cmd_demo(args):
 def cmd_cube(args):
     from .cube import deconvolve_cube
     from . import console
-    params = _params(args)
+    params, _ = _params(args)
     if not args.debug:   # the scheduler's and workers' own logs (set once dask configured them)
         try:
             import distributed  # noqa: F401
