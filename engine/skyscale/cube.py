@@ -33,7 +33,7 @@ from .cuberecord import RECORD_NAME, RunRecord
 from .cubetasks import finite_reason, stream_planes
 from .fitsio import provenance_history
 from .job import build_mask, merge_params, restoring_beam, scales_in_pixels
-from .report import _beam, _machine, _software, write_report
+from .report import beam_record, machine_record, software_record, write_report
 
 __all__ = ["CUBE_OUTPUTS", "CubeResult", "deconvolve_cube"]
 
@@ -354,7 +354,7 @@ def _cube_report(*, cubef, psff, merged, scales_px, reasons, reference, beams, c
         row = {"plane": i, "status": "failed" if i in state["failed"] else "not run"}
         if cubef.spectral is not None:
             row["spectral"] = float(cubef.spectral[i])
-        row["beam"] = _beam(beams[min(i, psff.nplanes - 1)], cell)
+        row["beam"] = beam_record(beams[min(i, psff.nplanes - 1)], cell)
         entry = record.planes.get(i)
         if entry is not None:
             row["status"] = entry["status"]
@@ -370,7 +370,7 @@ def _cube_report(*, cubef, psff, merged, scales_px, reasons, reference, beams, c
         "schema_version": 1, "kind": "cube", "complete": complete,
         "created_utc": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
         "start_utc": start.isoformat(timespec="seconds"),
-        "software": _software(), "machine": _machine(None),
+        "software": software_record(), "machine": machine_record(None),
         "inputs": {"cube": cubef.identity(), "psf": psff.identity()},
         "cube": {"shape": list(cubef.shape), "planes": cubef.nplanes,
                  "plane_shape": list(cubef.plane_shape), "spectral_axis": cubef.spectral_type,
@@ -380,7 +380,7 @@ def _cube_report(*, cubef, psff, merged, scales_px, reasons, reference, beams, c
                    "chosen": "advisor, once, on the brightest plane" if reference is not None
                    else "given, fixed for every plane",
                    "reference_plane": reference, "reasons": reasons},
-        "restoring_beam": {"common": _beam(common, cell), "source": beam_source,
+        "restoring_beam": {"common": beam_record(common, cell), "source": beam_source,
                            "plane": beam_plane},
         "cluster": info.as_dict(),
         "counts": {"planes": cubef.nplanes, "done": len(done),

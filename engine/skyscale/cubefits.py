@@ -26,7 +26,7 @@ import numpy as np
 from astropy.io import fits
 from astropy.wcs import WCS, FITSFixedWarning
 
-from .fitsio import _sky_pa, cell_size_arcsec, check_same_grid
+from .fitsio import sky_position_angle, cell_size_arcsec, check_same_grid
 
 __all__ = ["PLANE_DTYPE", "SPECTRAL_TOLERANCE", "CubeFile", "open_cube", "check_psf_cube",
            "CubeOutput", "plane_digest"]
@@ -238,7 +238,7 @@ def _output_header(like, bunit, beam, history):
         cell = cell_size_arcsec(like.wcs)
         header["BMAJ"] = (beam.major * cell / 3600.0, "[deg] restoring beam FWHM, major axis")
         header["BMIN"] = (beam.minor * cell / 3600.0, "[deg] restoring beam FWHM, minor axis")
-        header["BPA"] = (_sky_pa(beam.pa, like.wcs), "[deg] restoring beam angle, east of north")
+        header["BPA"] = (sky_position_angle(beam.pa, like.wcs), "[deg] restoring beam angle, east of north")
     header["DATE"] = (_dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%S"),
                       "file created (UTC)")
     for line in history:

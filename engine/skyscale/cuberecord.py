@@ -13,7 +13,7 @@ import json
 import logging
 import os
 
-from .report import _plain
+from .report import plain_json
 
 __all__ = ["RECORD_NAME", "RECORD_VERSION", "RunRecord"]
 
@@ -51,7 +51,7 @@ class RunRecord:
 
     def __init__(self, out_dir, identity):
         self.path = os.path.join(out_dir, RECORD_NAME)
-        self.identity = _plain(dict(identity, record_version=RECORD_VERSION))
+        self.identity = plain_json(dict(identity, record_version=RECORD_VERSION))
         self.planes = {}
         self._fh = None
 
@@ -96,7 +96,7 @@ class RunRecord:
 
     def add(self, entry):
         """Append one finished plane (a dict with at least ``plane`` and ``status``)."""
-        entry = _plain(entry)
+        entry = plain_json(entry)
         if self._fh is None:
             self._fh = open(self.path, "a", encoding="utf-8")
         self._fh.write(json.dumps(entry, allow_nan=False) + "\n")

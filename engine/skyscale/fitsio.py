@@ -41,7 +41,7 @@ from .beam import Beam, _wrap_pa
 
 __all__ = ["FitsImage", "HISTORY_WIDTH", "SQUARE_RTOL", "GRID_RTOL", "RESERVED_KEYWORDS",
            "read_image", "read_shape", "cell_size_arcsec", "check_same_grid", "write_image",
-           "provenance_history", "write_table_csv"]
+           "provenance_history", "write_table_csv", "sky_position_angle"]
 
 #: Characters of text one HISTORY card holds.
 HISTORY_WIDTH = 72
@@ -146,7 +146,7 @@ def _orientation(cel):
     return _sky_matrix(cel) / cell_size_arcsec(cel)
 
 
-def _sky_pa(pa_pixel, cel):
+def sky_position_angle(pa_pixel, cel):
     t = math.radians(pa_pixel)
     east, north = _orientation(cel) @ np.array([-math.sin(t), math.cos(t)])
     return _wrap_pa(math.degrees(math.atan2(east, north)))
@@ -569,7 +569,7 @@ def write_image(path, data, *, like=None, bunit, beam=None, history=(), extra=No
         cell = cell_size_arcsec(wcs)
         header["BMAJ"] = (beam.major * cell / 3600.0, "[deg] restoring beam FWHM, major axis")
         header["BMIN"] = (beam.minor * cell / 3600.0, "[deg] restoring beam FWHM, minor axis")
-        header["BPA"] = (_sky_pa(beam.pa, wcs), "[deg] restoring beam angle, east of north")
+        header["BPA"] = (sky_position_angle(beam.pa, wcs), "[deg] restoring beam angle, east of north")
     for key, value in (extra or {}).items():
         if str(key).upper() in RESERVED_KEYWORDS or str(key).upper().startswith("NAXIS"):
             raise ValueError(f"extra sets the reserved keyword {key!r}; use the bunit=, "

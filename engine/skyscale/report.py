@@ -28,7 +28,8 @@ import numpy as np
 
 from ._atomic import atomic_write_bytes
 
-__all__ = ["REPORT_SCHEMA_VERSION", "build_report", "file_sha256", "write_report"]
+__all__ = ["REPORT_SCHEMA_VERSION", "build_report", "file_sha256", "write_report", "beam_record",
+           "machine_record", "software_record", "plain_json"]
 
 log = logging.getLogger(__name__)
 
@@ -46,7 +47,7 @@ _CHUNK_BYTES = 1 << 20
 _GAUSS_AREA = math.pi / (4.0 * math.log(2.0))
 
 
-def _plain(value):
+def plain_json(value):
     """Return ``value`` as plain JSON-ready Python (recursively).
 
     numpy scalars and arrays become Python numbers and lists, Quantities become
@@ -65,32 +66,32 @@ def _plain(value):
         value = float(value)
         return value if math.isfinite(value) else None
     if isinstance(value, (complex, np.complexfloating)):
-        return {"real": _plain(value.real), "imag": _plain(value.imag)}
+        return {"real": plain_json(value.real), "imag": plain_json(value.imag)}
     if hasattr(value, "unit") and hasattr(value, "value") and hasattr(value, "to"):
-        return {"value": _plain(np.asarray(value.value)), "unit": str(value.unit)}
+        return {"value": plain_json(np.asarray(value.value)), "unit": str(value.unit)}
     if isinstance(value, np.ndarray):
         if value.dtype.names:
-            return [{name: _plain(row[name]) for name in value.dtype.names}
+            return [{name: plain_json(row[name]) for name in value.dtype.names}
                     for row in value.ravel()]
-        return _plain(value.tolist())
+        return plain_json(value.tolist())
     if isinstance(value, np.generic):
-        return _plain(value.item())
+        return plain_json(value.item())
     if isinstance(value, Mapping):
-        return {str(k): _plain(v) for k, v in value.items()}
+        return {str(k): plain_json(v) for k, v in value.items()}
     if isinstance(value, (list, tuple)):
-        return [_plain(v) for v in value]
+        return [plain_json(v) for v in value]
     if isinstance(value, (set, frozenset)):
-        return sorted((_plain(v) for v in value), key=repr)
+        return sorted((plain_json(v) for v in value), key=repr)
     if isinstance(value, os.PathLike):
         return os.fspath(value)
     if isinstance(value, enum.Enum):
-        return _plain(value.value)
+        return plain_json(value.value)
     if isinstance(value, (datetime.datetime, datetime.date)):
         return value.isoformat()
     if callable(getattr(value, "as_dict", None)):
-        return _plain(value.as_dict())
+        return plain_json(value.as_dict())
     if dataclasses.is_dataclass(value) and not isinstance(value, type):
-        return _plain(dataclasses.asdict(value))
+        return plain_json(dataclasses.asdict(value))
     kind = value if hasattr(value, "__qualname__") else type(value)
     name = f"{getattr(kind, '__module__', '?')}.{kind.__qualname__}"
     log.debug("report: %s recorded by its name only", name)
@@ -105,7 +106,7 @@ def _version(distribution):
         return "not installed"
 
 
-def _software():
+def software_record():
     """Versions of Python, skyscale and its dependencies, without importing them."""
     skyscale = _version("skyscale")
     versions = {"skyscale": "unknown" if skyscale == "not installed" else skyscale,
@@ -114,7 +115,7 @@ def _software():
     return versions
 
 
-def _machine(threads):
+def machine_record(threads):
     """Platform, CPU counts and the thread count in use."""
     if threads is None and "numba" in sys.modules:      # only if already loaded
         try:
@@ -176,7 +177,7 @@ def _check_inputs(inputs):
         if not isinstance(info, Mapping):
             raise TypeError(f"inputs[{name!r}] is {info!r}; pass a dict with keys "
                             '"path", "shape" and "sha256"')
-        out[str(name)] = _plain(dict(info))
+        out[str(name)] = plain_json(dict(info))
     return out
 
 
@@ -221,7 +222,7 @@ def _residual_stats(result):
             "robust_noise": noise, "unit": "Jy/beam"}
 
 
-def _beam(beam, cell):
+def beam_record(beam, cell):
     if beam is None:
         return None
     major, minor, pa = float(beam.major), float(beam.minor), float(beam.pa)
@@ -244,7 +245,7 @@ def _scale_noise(result):
             for s, n, lv, p in zip(result.scales, noise, result.scale_levels,
                                    result.scale_peaks)]
     return {"unit": "Jy/beam", "per_scale": rows,
-            "measured_where": _plain(getattr(result, "noise_region", None))}
+            "measured_where": plain_json(getattr(result, "noise_region", None))}
 
 
 def build_report(result, *, inputs=None, parameters=None, cell_arcsec=None,
@@ -307,7 +308,7 @@ def build_report(result, *, inputs=None, parameters=None, cell_arcsec=None,
                         "of parameter name -> value (or None)")
 
     model = np.asarray(result.model)
-    history = [_plain(rec) for rec in result.history]
+    history = [plain_json(rec) for rec in result.history]
     final = _residual_stats(result)
     final.update(model_flux=float(np.sum(model, dtype=np.float64)),
                  model_flux_unit="Jy",
@@ -317,29 +318,29 @@ def build_report(result, *, inputs=None, parameters=None, cell_arcsec=None,
         "schema_version": REPORT_SCHEMA_VERSION,
         "created_utc": datetime.datetime.now(datetime.timezone.utc)
                                .isoformat(timespec="seconds"),
-        "software": _software(),
-        "machine": _machine(threads),
+        "software": software_record(),
+        "machine": machine_record(threads),
         "inputs": inputs,
         "image": {"shape": list(model.shape), "dtype": str(model.dtype),
                   "cell_arcsec": cell},
-        "parameters": _plain(dict(parameters)),
-        "timings_s": _plain(dict(getattr(result, "timings", None) or {})),
+        "parameters": plain_json(dict(parameters)),
+        "timings_s": plain_json(dict(getattr(result, "timings", None) or {})),
         "history": history,
         "per_scale": _per_scale(result, cell),
         "final": final,
         "stop": {"reason": str(result.stop_reason),
                  "description": str(getattr(result, "stop_description",
                                             result.stop_reason)),
-                 "active_scales_px": _plain(getattr(result, "active_scales", None)),
+                 "active_scales_px": plain_json(getattr(result, "active_scales", None)),
                  "rollbacks": int(getattr(result, "rollbacks", 0) or 0),
                  "sub_loops": int(getattr(result, "sub_loops", 0) or 0),
                  "rejected_sub_loops": int(getattr(result, "rejected_sub_loops", 0) or 0)},
         "scale_noise": _scale_noise(result),
-        "beam": _beam(getattr(result, "beam", None), cell),
+        "beam": beam_record(getattr(result, "beam", None), cell),
         "warnings": [str(w) for w in (getattr(result, "warnings", None) or [])],
-        "major_cycle": _plain(dict(major_cycle)) if major_cycle is not None
+        "major_cycle": plain_json(dict(major_cycle)) if major_cycle is not None
         else {"operator": "not recorded"},
-        "extra": _plain(dict(extra)) if extra is not None else {},
+        "extra": plain_json(dict(extra)) if extra is not None else {},
     }
     log.debug("report built: %d components, %d history records",
               final["components"], len(history))
@@ -394,7 +395,7 @@ def write_report(path, report, *, overwrite=False):
     if not isinstance(report, Mapping):
         raise TypeError(f"report is a {type(report).__name__}; pass the dict from "
                         "build_report")
-    text = json.dumps(_plain(dict(report)), indent=2, allow_nan=False) + "\n"
+    text = json.dumps(plain_json(dict(report)), indent=2, allow_nan=False) + "\n"
     path = pathlib.Path(atomic_write_bytes(path, text.encode("utf-8"), overwrite=overwrite))
     log.info("report written to %s", path)
     return path
