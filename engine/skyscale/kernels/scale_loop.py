@@ -64,21 +64,26 @@ def _subtract_and_scan(values, ys, xs, beam, cy, cx, f, y0, x0, lo, hi):
 
 
 @numba.njit(**JIT_OPTIONS)
+def _stop_code(arg, best, level, it, max_iter):
+    """0 to go on, else the `SCALE_LOOP_STOP_CODES` key that ends the loop."""
+    if arg < 0:
+        return 2
+    if best <= level:
+        return 3
+    if it >= max_iter:
+        return 1
+    return 0
+
+
+@numba.njit(**JIT_OPTIONS)
 def _scale_loop_serial(values, ys, xs, beam, cy, cx, inv_peak, gain, level, max_iter,
                        out_idx, out_flux, stats):
     n = values.shape[0]
     best, arg = _subtract_and_scan(values, ys, xs, beam, cy, cx, 0.0, 0, 0, 0, n)
     it = 0
-    reason = 1
     while True:
-        if arg < 0:
-            reason = 2
-            break
-        if best <= level:
-            reason = 3
-            break
-        if it >= max_iter:
-            reason = 1
+        reason = _stop_code(arg, best, level, it, max_iter)
+        if reason:
             break
         f = gain * float(values[arg]) * inv_peak
         out_idx[it] = arg
@@ -115,14 +120,8 @@ def _scale_loop_parallel(values, ys, xs, beam, cy, cx, inv_peak, gain, level, ma
             if carg[c] >= 0 and cbest[c] > best:
                 best = cbest[c]
                 arg = carg[c]
-        if arg < 0:
-            reason = 2
-            break
-        if best <= level:
-            reason = 3
-            break
-        if it >= max_iter:
-            reason = 1
+        reason = _stop_code(arg, best, level, it, max_iter)
+        if reason:
             break
         f = gain * float(values[arg]) * inv_peak
         out_idx[it] = arg
