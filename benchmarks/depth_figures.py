@@ -14,6 +14,7 @@ and compares the result with the truth:
 
     PYTHONPATH=engine python benchmarks/depth_figures.py --sizes 512,1024 \\
         --dynamic-ranges 1e3,1e4,1e5 --largest 16,32 --out depth.json
+    PYTHONPATH=engine python benchmarks/depth_figures.py --demo
 
 Targets (issue "Multi-scale at depth"): flux >= 0.99, |mean_em| <= 0.3, peak_em <= 3.5,
 off_rms <= 1.15, stop 'noise' or 'threshold', at most one rollback, finite >= 0.6.
@@ -48,12 +49,26 @@ def ladder(largest):
     return out
 
 
-def measure(n, dynamic_range, largest, seed=0, threads=None):
+def demo_field():
+    """The bundled demo observation as a field: dirty, PSF, true sky and its noise."""
+    from astropy.io import fits
+    data = os.path.join(HERE, "..", "demo_data")
+    dirty = fits.getdata(os.path.join(data, "dirty.fits")).astype(np.float32)
+    psf = fits.getdata(os.path.join(data, "psf.fits")).astype(np.float32)
+    sky = fits.getdata(os.path.join(data, "true_sky.fits")).astype(np.float64)
+    op = skyscale.ImagePlaneOperator(dirty, psf, dtype=np.float64)
+    sigma = float(op(sky).std())      # dirty - PSF (*) truth: the noise alone
+    return {"dirty": dirty, "psf": psf, "sky": sky, "sigma": sigma}
+
+
+def measure(n, dynamic_range, largest, seed=0, threads=None, field=None, scales=None):
     """Run one field and return its figures (see the module docstring)."""
-    f = invented_field(n, largest_scale=largest, dynamic_range=dynamic_range, seed=seed)
+    f = field or invented_field(n, largest_scale=largest, dynamic_range=dynamic_range,
+                                seed=seed)
     sky, sigma = f["sky"], f["sigma"]
+    scales = scales or ladder(largest)
     t0 = time.perf_counter()
-    r = skyscale.deconvolve(f["dirty"], f["psf"], scales=ladder(largest), noise_threshold=3,
+    r = skyscale.deconvolve(f["dirty"], f["psf"], scales=scales, noise_threshold=3,
                             mask="auto", max_components=400000, max_major_cycles=40,
                             threads=threads)
     seconds = time.perf_counter() - t0
@@ -64,7 +79,7 @@ def measure(n, dynamic_range, largest, seed=0, threads=None):
     res = r.residual.astype(np.float64) / sigma
     return {
         "size": n, "dynamic_range": dynamic_range, "largest_scale": largest,
-        "scales": ladder(largest), "stop": r.stop_reason, "rollbacks": r.rollbacks,
+        "scales": list(scales), "stop": r.stop_reason, "rollbacks": r.rollbacks,
         "flux": float(r.model.sum() / sky.sum()),
         "mean_em": float(res[inside].mean()), "peak_em": float(np.abs(res[inside]).max()),
         "off_rms": float(res[far].std()), "finite": float(finite / r.model.sum()),
@@ -93,8 +108,16 @@ def main(argv=None):
     ap.add_argument("--seed", type=int, default=0)
     ap.add_argument("--threads", type=int)
     ap.add_argument("--out")
+    ap.add_argument("--demo", action="store_true",
+                    help="the bundled demo observation (scales 0, 4, 8, 16, 32) instead")
     args = ap.parse_args(argv)
     rows = []
+    if args.demo:
+        row = measure(256, None, 32, field=demo_field(), scales=[0, 4, 8, 16, 32],
+                      threads=args.threads)
+        row["missed"] = verdict(row)
+        print(json.dumps(row, default=float, indent=1))
+        return
     for n in map(int, args.sizes.split(",")):
         for largest in map(int, args.largest.split(",")):
             for dr in map(float, args.dynamic_ranges.split(",")):
