@@ -81,8 +81,8 @@ def major_vs_minor(repeat, threads):
     }
     out["major_over_minor"] = out["major_cycle_s"] / out["minor_cycles_s"]
     # a whole demo run as `skyscale demo --from-visibilities` does it (after the warm-up)
-    mask = skyscale.AutoMask(SCALES, skyscale.fit_beam(psf).major)
-    run = skyscale.deconvolve(dirty, psf, scales=SCALES, noise_threshold=3.0, auto_mask=mask,
+    mask = skyscale.EmissionMask(SCALES, skyscale.fit_beam(psf).major)
+    run = skyscale.deconvolve(dirty, psf, scales=SCALES, noise_threshold=3.0, emission_mask=mask,
                               operator=op, restore=False, threads=threads)
     out["whole_run"] = {"major_cycles": len(run.history) - 1,
                         "components": int(run.components.size),

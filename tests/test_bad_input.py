@@ -212,7 +212,7 @@ def files(tmp_path_factory):
     open(other["a_file"], "w").write("x")
     for name, text in (("bad_toml", "[run]\nloop_gain = 0.1\nscales = [0, 4\n"),
                        ("text_gain", "[run]\nloop_gain = \"fast\"\n"),
-                       ("bad_bool", "[run]\nauto_mask = \"maybe\"\n"),
+                       ("bad_bool", "[run]\nemission_mask = \"maybe\"\n"),
                        ("unknown", "[run]\nloop_gian = 0.1\n")):
         other[name] = str(d / f"{name}.toml")
         open(other[name], "w").write(text)
@@ -261,7 +261,7 @@ CLI_CASES = [
     ("missing-file", ["nowhere.fits", "{psf}"], "nowhere.fits does not exist"),
     ("config-syntax", ["--config", "{bad_toml}"], "bad_toml.toml is not valid TOML"),
     ("config-text-number", ["--config", "{text_gain}"], "loop_gain in "),
-    ("config-bad-bool", ["--config", "{bad_bool}"], "auto_mask in "),
+    ("config-bad-bool", ["--config", "{bad_bool}"], "emission_mask in "),
     ("config-unknown", ["--config", "{unknown}"], "unknown options ['loop_gian']"),
     ("config-missing", ["--config", "nowhere.toml"], "--config nowhere.toml does not exist"),
     ("resume-without-model", ["--resume", "{a_file}"], "--resume"),
@@ -306,8 +306,8 @@ def test_a_process_prints_no_traceback_without_debug_and_one_with_it(files):
 # -------------------------------------------------- values read as meant (config and CLI)
 
 @pytest.mark.parametrize("given, expected", [
-    (dict(auto_mask="false"), dict(auto_mask=False)),
-    (dict(auto_mask="Yes"), dict(auto_mask=True)),
+    (dict(emission_mask="false"), dict(emission_mask=False)),
+    (dict(emission_mask="Yes"), dict(emission_mask=True)),
     (dict(plots=0), dict(plots=False)),
     (dict(loop_gain="0.1"), dict(loop_gain=0.1)),
     (dict(max_components="200"), dict(max_components=200)),
@@ -343,14 +343,14 @@ def test_scales_with_a_unit_and_a_contrary_scale_unit_are_refused():
 def test_config_values_as_text_reach_the_run(files, tmp_path):
     import json
     cfg = tmp_path / "run.toml"
-    cfg.write_text('[run]\nauto_mask = "false"\nloop_gain = "0.2"\nmax_components = "40"\n'
+    cfg.write_text('[run]\nemission_mask = "false"\nloop_gain = "0.2"\nmax_components = "40"\n'
                    'scales = "0 4"\nthreshold = "0.5mJy"\nplots = "no"\n')
-    assert load_config(str(cfg))["auto_mask"] == "false"
+    assert load_config(str(cfg))["emission_mask"] == "false"
     out = tmp_path / "o"
     assert main(["--quiet", "run", files["dirty"], files["psf"], "--out", str(out),
                  "--config", str(cfg)]) == 0
     p = json.load(open(out / "report.json"))["parameters"]
-    assert (p["auto_mask"], p["loop_gain"], p["max_components"]) == (False, 0.2, 40)
+    assert (p["emission_mask"], p["loop_gain"], p["max_components"]) == (False, 0.2, 40)
     assert p["scales"] == [0.0, 4.0] and p["threshold"] == pytest.approx(5e-4)
     assert not (out / "mask.fits").exists() and not (out / "panels.png").exists()
 

@@ -61,7 +61,7 @@ def test_report_says_what_happened(demo_run):
     assert rep["stop"]["reason"]
     assert len(rep["history"]) >= 2
     assert sum(r["components"] for r in rep["per_scale"]) == rep["final"]["components"]
-    assert rep["parameters"]["auto_mask"] is True
+    assert rep["parameters"]["emission_mask"] is True
 
 
 def test_figures_are_pngs_of_the_documented_size(demo_run):

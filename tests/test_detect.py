@@ -8,7 +8,7 @@ import pytest
 from astropy.convolution import Gaussian2DKernel
 from scipy import ndimage
 
-from skyscale import AutoMask
+from skyscale import EmissionMask
 from skyscale.detect import (FWHM_PER_SIGMA, detect_emission, emission_free_noise,
                              smoothed_images, smoothing_ladder)
 from skyscale.noise import robust_noise
@@ -83,9 +83,9 @@ def test_extended_source_gains_with_smoothing():
     assert by[16.0].gain == pytest.approx(predicted, rel=0.15)
 
 
-def test_automask_calls_the_one_detection_routine():
+def test_emission_mask_calls_the_one_detection_routine():
     dirty, _ = make_field("disk", 60, 2.0, 256, seed=3)
-    am = AutoMask([0, 8, 16, 32], BEAM)
+    am = EmissionMask([0, 8, 16, 32], BEAM)
     mask = am.update(dirty)
     found = detect_emission(dirty.astype(np.float32), BEAM, [0, 4, 8, 16])
     assert list(am.noise.values()) == pytest.approx(list(found.noise))

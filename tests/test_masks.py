@@ -10,7 +10,7 @@ from astropy.wcs import WCS
 from scipy import ndimage
 from scipy.signal import fftconvolve
 
-from skyscale.masks import (REGION_SHAPES, AutoMask, auto_mask, load_mask, parse_regions,
+from skyscale.masks import (REGION_SHAPES, EmissionMask, emission_mask, load_mask, parse_regions,
                             regions_to_mask)
 
 N = 128
@@ -220,9 +220,9 @@ def test_load_mask_errors_and_warnings(tmp_path):
 
 # ------------------------------------------------------------------ automatic mask
 @pytest.mark.parametrize("disk_snr, blob_snr", [(10, 15), (40, 60)])
-def test_auto_mask_captures_the_flux_without_bloating(disk_snr, blob_snr):
+def test_emission_mask_captures_the_flux_without_bloating(disk_snr, blob_snr):
     sky, seen, image = synthetic_field(disk_snr, blob_snr)
-    m = auto_mask(image, [0, 4, 8, 16, 32], FWHM)
+    m = emission_mask(image, [0, 4, 8, 16, 32], FWHM)
     # Truth we built: the flux is the true sky's; the true area is where the
     # beam-convolved true sky exceeds 1% of its peak.
     true_area = np.count_nonzero(seen > 0.01 * seen.max())
@@ -231,25 +231,25 @@ def test_auto_mask_captures_the_flux_without_bloating(disk_snr, blob_snr):
 
 
 @pytest.mark.parametrize("seed", [11, 12])
-def test_auto_mask_stays_empty_on_noise(seed):
+def test_emission_mask_stays_empty_on_noise(seed):
     rng = np.random.default_rng(seed)
     for noise in (rng.standard_normal((256, 256)), correlated_noise(rng, 256)):
-        assert auto_mask(noise, [0, 4, 8, 16, 32], FWHM).mean() < 0.005
+        assert emission_mask(noise, [0, 4, 8, 16, 32], FWHM).mean() < 0.005
     # ... while a threshold far too low does fill with noise: the threshold is real.
     with pytest.warns(UserWarning, match="below 3"):
-        assert auto_mask(noise, [0, 4, 8, 16, 32], FWHM, sigma=1.0).mean() > 0.05
+        assert emission_mask(noise, [0, 4, 8, 16, 32], FWHM, sigma=1.0).mean() > 0.05
 
 
 def test_large_scales_find_faint_broad_emission():
     sky, seen, image = synthetic_field(3.0, 3.0, point_snr=0.0, seed=4)
-    delta_only = auto_mask(image, [0], FWHM)
-    multi = auto_mask(image, [0, 8, 16, 32], FWHM)
+    delta_only = emission_mask(image, [0], FWHM)
+    multi = emission_mask(image, [0, 8, 16, 32], FWHM)
     assert sky[delta_only].sum() < 0.3 * sky.sum()
     assert sky[multi].sum() > 0.7 * sky.sum()
 
 
 def test_noise_is_measured_per_smoothed_scale():
-    am = AutoMask([0, 8, 16, 32], FWHM)
+    am = EmissionMask([0, 8, 16, 32], FWHM)
     am.update(correlated_noise(np.random.default_rng(8), 256))
     assert am.noise[0] == pytest.approx(1.0, rel=0.05)
     for s in (8, 16, 32):
@@ -265,10 +265,10 @@ def test_small_islands_dropped_and_growth_is_a_disk_dilation():
     image = 0.1 * rng.standard_normal((N, N))
     image[20, 20] = 50.0                              # one hot pixel: not beam-shaped
     image += 30 * fftconvolve(np.pad([[1.0]], ((90, 37), (90, 37))), beam_kernel(), "same")
-    bare = auto_mask(image, [0], FWHM, grow_beams=0.0)
+    bare = emission_mask(image, [0], FWHM, grow_beams=0.0)
     assert not bare[20, 20] and bare[90, 90]
-    assert auto_mask(image, [0], FWHM, grow_beams=0.0, min_island_beams=0.0)[20, 20]
-    grown = auto_mask(image, [0], FWHM, grow_beams=1.0)
+    assert emission_mask(image, [0], FWHM, grow_beams=0.0, min_island_beams=0.0)[20, 20]
+    grown = emission_mask(image, [0], FWHM, grow_beams=1.0)
     r = int(FWHM)
     yy, xx = np.mgrid[-r:r + 1, -r:r + 1]
     # reference library: scipy.ndimage.binary_dilation
@@ -278,7 +278,7 @@ def test_small_islands_dropped_and_growth_is_a_disk_dilation():
 
 def test_model_and_previous_pixels_are_never_removed():
     _, _, image = synthetic_field(20, 30, n=256)
-    am = AutoMask([0, 8, 16], FWHM)
+    am = EmissionMask([0, 8, 16], FWHM)
     first = am.update(image)
     assert first.any()
     noise = np.random.default_rng(6).standard_normal(image.shape)
@@ -286,7 +286,7 @@ def test_model_and_previous_pixels_are_never_removed():
     model[5, 250] = 0.1
     second = am.update(noise, model=model)            # previous defaults to the last mask
     assert second[first].all() and second[5, 250]
-    explicit = auto_mask(noise, [0, 8, 16], FWHM, previous=first)
+    explicit = emission_mask(noise, [0, 8, 16], FWHM, previous=first)
     np.testing.assert_array_equal(explicit, first)
     am.reset()
     assert not am.update(noise).any()
@@ -295,36 +295,36 @@ def test_model_and_previous_pixels_are_never_removed():
 def test_negative_emission_only_on_request():
     image = -30 * fftconvolve(np.pad([[1.0]], ((64, 63), (64, 63))), beam_kernel(), "same")
     image += 0.5 * np.random.default_rng(7).standard_normal(image.shape)
-    assert not auto_mask(image, [0, 8], FWHM).any()
-    assert auto_mask(image, [0, 8], FWHM, include_negative=True)[64, 64]
+    assert not emission_mask(image, [0, 8], FWHM).any()
+    assert emission_mask(image, [0, 8], FWHM, include_negative=True)[64, 64]
 
 
 def test_one_shot_equals_the_class_and_quantities_are_accepted():
     _, _, image = synthetic_field(10, 15)
-    a = auto_mask(image, [0, 8, 16], FWHM, sigma=4.0)
-    b = AutoMask([16, 0, 8], FWHM, sigma=4.0).update(image)
+    a = emission_mask(image, [0, 8, 16], FWHM, sigma=4.0)
+    b = EmissionMask([16, 0, 8], FWHM, sigma=4.0).update(image)
     np.testing.assert_array_equal(a, b)
-    am = AutoMask([0, 16, 32] * u.arcsec, 9.0 * u.arcsec, cell_arcsec=CELL_ARCSEC)
+    am = EmissionMask([0, 16, 32] * u.arcsec, 9.0 * u.arcsec, cell_arcsec=CELL_ARCSEC)
     assert am.scales == (0.0, 8.0, 16.0) and am.beam_fwhm_px == pytest.approx(4.5)
     from skyscale.beam import Beam
-    assert AutoMask([0], Beam(5.0, 4.0, 10.0)).beam_fwhm_px == pytest.approx(np.sqrt(20.0))
+    assert EmissionMask([0], Beam(5.0, 4.0, 10.0)).beam_fwhm_px == pytest.approx(np.sqrt(20.0))
     with warnings.catch_warnings():
         warnings.simplefilter("error")
-        assert not auto_mask(np.zeros((N, N)), [0, 4], FWHM).any()
+        assert not emission_mask(np.zeros((N, N)), [0, 4], FWHM).any()
 
 
-def test_auto_mask_errors_are_clear():
+def test_emission_mask_errors_are_clear():
     with pytest.raises(ValueError, match=r"scales is \[\]; give at least one"):
-        AutoMask([], FWHM)
+        EmissionMask([], FWHM)
     with pytest.raises(ValueError, match=r"scales is \[0.0, -4.0\]"):
-        AutoMask([0, -4], FWHM)
+        EmissionMask([0, -4], FWHM)
     with pytest.raises(ValueError, match=r"beam_fwhm_px is 0.0; it must be a finite number > 0"):
-        AutoMask([0], 0)
+        EmissionMask([0], 0)
     with pytest.raises(ValueError, match=r"sigma is -1.0"):
-        AutoMask([0], FWHM, sigma=-1)
+        EmissionMask([0], FWHM, sigma=-1)
     with pytest.raises(ValueError, match="cell_arcsec is None"):
-        AutoMask([0], 9 * u.arcsec)
-    am = AutoMask([0, 4], FWHM)
+        EmissionMask([0], 9 * u.arcsec)
+    am = EmissionMask([0, 4], FWHM)
     with pytest.raises(ValueError, match=r"model has shape \(4, 4\) but residual has \(128, 128\)"):
         am.update(np.zeros((N, N)), model=np.zeros((4, 4)))
     am.update(np.zeros((N, N)))
@@ -336,9 +336,9 @@ def test_auto_mask_errors_are_clear():
 
 def test_names_stay_importable_from_the_old_module_paths():
     import skyscale
-    from skyscale import automask, mask_file, masks, regions
-    assert masks.AutoMask is automask.AutoMask is skyscale.AutoMask
-    assert masks.auto_mask is automask.auto_mask is skyscale.auto_mask
+    from skyscale import mask_emission, mask_file, masks, regions
+    assert masks.EmissionMask is mask_emission.EmissionMask is skyscale.EmissionMask
+    assert masks.emission_mask is mask_emission.emission_mask is skyscale.emission_mask
     assert masks.load_mask is mask_file.load_mask is skyscale.load_mask
     assert masks.regions_to_mask is regions.regions_to_mask is skyscale.regions_to_mask
     assert masks.parse_regions is regions.parse_regions

@@ -16,7 +16,7 @@ pytest.importorskip("ducc0")
 
 import skyscale  # noqa: E402
 from skyscale.cli import main as cli_main  # noqa: E402
-from skyscale.masks import AutoMask  # noqa: E402
+from skyscale.masks import EmissionMask  # noqa: E402
 from skyscale.noise import robust_noise  # noqa: E402
 from skyscale.visfile import read_visibilities, write_visibilities  # noqa: E402
 from skyscale.visibility import VisibilityOperator, largest_cell_arcsec  # noqa: E402
@@ -361,8 +361,8 @@ SCALES = [0, 4, 8, 16, 32]
 
 
 def _run(dirty, psf, operator=None):
-    mask = AutoMask(SCALES, skyscale.fit_beam(psf).major)
-    return skyscale.deconvolve(dirty, psf, scales=SCALES, noise_threshold=3.0, auto_mask=mask,
+    mask = EmissionMask(SCALES, skyscale.fit_beam(psf).major)
+    return skyscale.deconvolve(dirty, psf, scales=SCALES, noise_threshold=3.0, emission_mask=mask,
                                operator=operator, restore=False)
 
 

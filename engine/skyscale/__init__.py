@@ -27,7 +27,7 @@ from .fitsio import (FitsImage, cell_size_arcsec, check_same_grid, read_image, w
                      write_table_csv)
 from .job import run_files
 from .job_vis import run_visibilities
-from .masks import AutoMask, auto_mask, load_mask, regions_to_mask
+from .masks import EmissionMask, emission_mask, load_mask, regions_to_mask
 from .minor import Engine, MinorCycleResult
 from .noise import robust_noise
 from .plots import plot_convergence, plot_panels
@@ -59,7 +59,7 @@ __all__ = [
     "jy_per_beam_to_jy_per_pixel",
     "FitsImage", "read_image", "write_image", "cell_size_arcsec", "check_same_grid",
     "write_table_csv", "run_files",
-    "AutoMask", "auto_mask", "load_mask", "regions_to_mask",
+    "EmissionMask", "emission_mask", "load_mask", "regions_to_mask",
     "build_report", "write_report", "file_sha256", "plot_convergence", "plot_panels",
     "VisibilityOperator", "VisibilityData", "read_visibilities", "write_visibilities",
     "imaging_weights", "WEIGHTINGS", "run_visibilities",

@@ -34,7 +34,7 @@ NUMBER_RULES = {
                       hint="a half-width in pixels, or leave it out for automatic"),
     "threads": dict(low=1, integer=True, allow_none=True, hint="or leave it out for all cores"),
     "cell_arcsec": dict(low=0.0, low_open=True, allow_none=True, hint="the pixel size in arcsec"),
-    "auto_mask_sigma": dict(low=0.0, low_open=True, allow_none=True,
+    "emission_mask_sigma": dict(low=0.0, low_open=True, allow_none=True,
                             hint="a multiple of the robust noise such as 5"),
 }
 
@@ -307,7 +307,7 @@ def check_run_options(dirty, psf, *, scales, loop_gain, threshold, noise_thresho
     dirty, psf, scales, loop_gain, threshold, noise_threshold, max_components,
     max_major_cycles, cycle_depth, mask, size_penalty, scale_shape, psf_patch, threads,
     fft, dtype, cell_arcsec, restore, beam, extended_depth, scale_loop_depth, model
-        As given to `deconvolve`.  A ``mask`` that is ``'auto'`` or an `AutoMask` is
+        As given to `deconvolve`.  A ``mask`` that is ``'auto'`` or an `EmissionMask` is
         left to the engine; an array mask is checked here.
 
     Returns
@@ -346,7 +346,7 @@ def check_run_options(dirty, psf, *, scales, loop_gain, threshold, noise_thresho
     if isinstance(mask, str):
         check_choice(mask, "mask", ("auto",))
         mask = None
-    elif mask is not None and hasattr(mask, "update"):     # an AutoMask
+    elif mask is not None and hasattr(mask, "update"):     # an EmissionMask
         mask = None
     user_mask = None
     if mask is not None:

@@ -101,9 +101,9 @@ def _add_run_options(p):
     m.add_argument("--mask-regions", help="regions where components may go, e.g. "
                    "'circle 120 130 15; box 10 20 50 60' (see skyscale.regions); with --mask "
                    "the two are intersected [none]")
-    m.add_argument("--auto-mask", action="store_true", default=None,
+    m.add_argument("--emission-mask", action="store_true", default=None,
                    help="renew an automatic mask at each major cycle [off]")
-    m.add_argument("--auto-mask-sigma",
+    m.add_argument("--emission-mask-sigma",
                    help="automatic-mask level, multiples of the robust noise [5]")
     o = p.add_argument_group("run")
     o.add_argument("--threads", help="threads for kernels and FFTs [all cores]")
@@ -308,8 +308,8 @@ def cmd_demo(args):
         args.scales = [0, 4, 8, 16, 32]
     if args.noise_threshold is None and args.threshold is None and args.config is None:
         args.noise_threshold = 3.0
-    if args.auto_mask is None and args.mask is None and args.config is None:
-        args.auto_mask = True
+    if args.emission_mask is None and args.mask is None and args.config is None:
+        args.emission_mask = True
     vis = None
     if args.from_visibilities:
         import json

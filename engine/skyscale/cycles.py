@@ -281,7 +281,7 @@ def deconvolve(dirty, psf, *, scales=(0, 4, 8, 16), loop_gain=0.1, threshold=0.0
                model=None, size_penalty=DEFAULT_SIZE_PENALTY,
                scale_loop_depth=DEFAULT_SCALE_LOOP_DEPTH, scale_shape="paraboloid",
                psf_patch=None, threads=None, fft="auto", dtype=None, cell_arcsec=None,
-               operator=None, restore=True, beam=None, auto_mask=None, callback=None):
+               operator=None, restore=True, beam=None, emission_mask=None, callback=None):
     """Multi-scale CLEAN of a dirty image with its PSF, with image-plane major cycles.
 
     Parameters
@@ -313,9 +313,9 @@ def deconvolve(dirty, psf, *, scales=(0, 4, 8, 16), loop_gain=0.1, threshold=0.0
     cycle_depth : float
         Each minor cycle cleans every scale to this fraction of its starting peak
         (never below its stop level); default 0.2.
-    mask : (ny, nx) bool ndarray, 'auto', AutoMask or None
+    mask : (ny, nx) bool ndarray, 'auto', EmissionMask or None
         Where components may go; default everywhere.  ``'auto'`` selects the automatic
-        mask renewed after every major cycle (an `AutoMask` instance gives its options).
+        mask renewed after every major cycle (an `EmissionMask` instance gives its options).
     model : (ny, nx) ndarray, optional
         Start from this model (Jy/pixel), for example one written by an earlier run.
     size_penalty : float
@@ -341,8 +341,8 @@ def deconvolve(dirty, psf, *, scales=(0, 4, 8, 16), loop_gain=0.1, threshold=0.0
         Fit the restoring beam (or use ``beam``) and make ``result.restored``.
     beam : Beam, optional
         Restoring beam to use instead of the fit.
-    auto_mask : AutoMask, optional
-        Same as ``mask=AutoMask(...)``, combined with an array ``mask`` (intersection).
+    emission_mask : EmissionMask, optional
+        Same as ``mask=EmissionMask(...)``, combined with an array ``mask`` (intersection).
     callback : callable, optional
         Progress: called with dicts, ``stage`` 'major' or 'minor'.
 
@@ -377,14 +377,14 @@ def deconvolve(dirty, psf, *, scales=(0, 4, 8, 16), loop_gain=0.1, threshold=0.0
     >>> (int(r.components["y"][0]), int(r.components["x"][0])), round(float(r.model.sum()), 2)
     ((19, 14), 2.0)
     """
-    from .masks import AutoMask
+    from .masks import EmissionMask
     if isinstance(scales, str):       # 'auto': the advisor's set; its reasons in parameters
         from .advisor import resolve_scales
         scales, scale_reasons = resolve_scales(scales, dirty, psf, cell_arcsec=cell_arcsec)
         del resolve_scales
     params = {k: v for k, v in locals().items()
               if k not in ("dirty", "psf", "mask", "model", "operator", "callback", "beam",
-                           "auto_mask", "AutoMask")}
+                           "emission_mask", "EmissionMask")}
     # --- input checks (issue 12): every option is checked in _validate.check_run_options ---
     from ._validate import check_run_options
     early = check_run_options(
@@ -405,9 +405,9 @@ def deconvolve(dirty, psf, *, scales=(0, 4, 8, 16), loop_gain=0.1, threshold=0.0
         if mask != "auto":
             raise InputError(f"mask is {mask!r}; give 'auto', a boolean array or None")
         mask = None
-        auto_mask = auto_mask or "auto"
-    elif isinstance(mask, AutoMask):
-        auto_mask, mask = mask, None
+        emission_mask = emission_mask or "auto"
+    elif isinstance(mask, EmissionMask):
+        emission_mask, mask = mask, None
     engine = Engine(psf, scales, image_shape=dirty_arr.shape, scale_shape=scale_shape,
                     size_penalty=size_penalty, loop_gain=loop_gain,
                     scale_loop_depth=scale_loop_depth, dtype=dt, threads=threads, fft=fft,
@@ -445,12 +445,12 @@ def deconvolve(dirty, psf, *, scales=(0, 4, 8, 16), loop_gain=0.1, threshold=0.0
             logger.warning(note)
             warnings.warn(note, stacklevel=2)
     updater = None
-    if auto_mask is not None:
-        if isinstance(auto_mask, str):
+    if emission_mask is not None:
+        if isinstance(emission_mask, str):
             from .beam import fit_beam
             b = beam if beam is not None else fit_beam(engine.psf)
-            auto_mask = AutoMask(engine.scales.pixels, 0.5 * (b.major + b.minor))
-        updater = _auto_mask_updater(auto_mask, user_mask, box)
+            emission_mask = EmissionMask(engine.scales.pixels, 0.5 * (b.major + b.minor))
+        updater = _emission_mask_updater(emission_mask, user_mask, box)
     result = run_cycles(engine, operator, dirty=dirty_arr, model=model, mask=mask,
                         threshold=threshold, noise_threshold=noise_threshold,
                         extended_depth=extended_depth, max_components=max_components,
@@ -465,19 +465,19 @@ def deconvolve(dirty, psf, *, scales=(0, 4, 8, 16), loop_gain=0.1, threshold=0.0
     return result
 
 
-def _auto_mask_updater(auto_mask, user_mask, box):
+def _emission_mask_updater(emission_mask, user_mask, box):
     """The automatic mask after each major cycle: inside ``box`` (where the residual is
     exact) when given, intersected with the user's mask."""
-    if hasattr(auto_mask, "reset"):
-        auto_mask.reset()
+    if hasattr(emission_mask, "reset"):
+        emission_mask.reset()
 
     def update(residual, model, previous, noise=None):   # the mask keeps its own pixels
         if box is None:
-            m = auto_mask.update(residual, model=model, noise=noise)
+            m = emission_mask.update(residual, model=model, noise=noise)
         else:
             (y0, y1), (x0, x1) = box
             m = np.zeros(residual.shape, dtype=bool)
-            m[y0:y1, x0:x1] = auto_mask.update(residual[y0:y1, x0:x1],
+            m[y0:y1, x0:x1] = emission_mask.update(residual[y0:y1, x0:x1],
                                                model=model[y0:y1, x0:x1], noise=noise)
         return m if user_mask is None else (m & user_mask)
     return update

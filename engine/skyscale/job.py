@@ -48,8 +48,8 @@ RUN_DEFAULTS = {
     "psf_patch": None,
     "mask": None,
     "mask_regions": None,
-    "auto_mask": False,
-    "auto_mask_sigma": None,
+    "emission_mask": False,
+    "emission_mask_sigma": None,
     "threads": None,
     "beam": None,
     "plots": True,
@@ -154,11 +154,11 @@ def deconvolve_options(params, psf, cell, scales_px, mask=None, beam=None):
         Everything but the image, the PSF, the operator, the model and the callback.
     """
     auto = None
-    if params["auto_mask"]:
+    if params["emission_mask"]:
         from .beam import fit_beam
-        from .masks import AutoMask
-        kw = {} if params["auto_mask_sigma"] is None else {"sigma": params["auto_mask_sigma"]}
-        auto = AutoMask(scales_px, fit_beam(psf).major, **kw)
+        from .masks import EmissionMask
+        kw = {} if params["emission_mask_sigma"] is None else {"sigma": params["emission_mask_sigma"]}
+        auto = EmissionMask(scales_px, fit_beam(psf).major, **kw)
     return dict(scales=scales_px, loop_gain=params["loop_gain"], threshold=params["threshold"],
                 noise_threshold=params["noise_threshold"],
                 max_components=params["max_components"],
@@ -166,7 +166,7 @@ def deconvolve_options(params, psf, cell, scales_px, mask=None, beam=None):
                 mask=mask, size_penalty=params["size_penalty"],
                 extended_depth=params["extended_depth"], scale_shape=params["scale_shape"],
                 psf_patch=params["psf_patch"], threads=params["threads"], cell_arcsec=cell,
-                beam=beam, auto_mask=auto)
+                beam=beam, emission_mask=auto)
 
 
 def run_files(dirty_path, psf_path, out_dir, params=None, *, callback=None, inputs_extra=None,

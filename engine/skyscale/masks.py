@@ -7,12 +7,12 @@ importable from ``skyscale.masks``:
 - `skyscale.regions`: region text (circles and boxes, in pixels or on the sky), with
   its syntax;
 - `skyscale.mask_file`: masks from FITS files or arrays;
-- `skyscale.automask`: the automatic mask, on `skyscale.detect`.
+- `skyscale.mask_emission`: the automatic mask, on `skyscale.detect`.
 """
 
-from .automask import AutoMask, auto_mask
+from .mask_emission import EmissionMask, emission_mask
 from .mask_file import load_mask
 from .regions import ANGLE_UNITS, REGION_EXAMPLE, REGION_SHAPES, parse_regions, regions_to_mask
 
 __all__ = ["REGION_SHAPES", "ANGLE_UNITS", "REGION_EXAMPLE", "load_mask", "parse_regions",
-           "regions_to_mask", "AutoMask", "auto_mask"]
+           "regions_to_mask", "EmissionMask", "emission_mask"]

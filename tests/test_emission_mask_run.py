@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 
-from skyscale import AutoMask, deconvolve, fit_beam
+from skyscale import EmissionMask, deconvolve, fit_beam
 from tests.conftest import NOISE, extended_field, gaussian_psf, observe
 
 
@@ -21,14 +21,14 @@ def field_with_edge_artefacts():
     return sky, psf, dirty
 
 
-def test_auto_mask_is_no_worse_and_recovers_more_flux(field_with_edge_artefacts):
+def test_emission_mask_is_no_worse_and_recovers_more_flux(field_with_edge_artefacts):
     sky, psf, dirty = field_with_edge_artefacts
     scales = [0, 4, 8, 16, 32]
     kw = dict(scales=scales, threshold=3 * NOISE, max_components=30000, max_major_cycles=40,
               restore=False)
     plain = deconvolve(dirty, psf, **kw)
-    auto = AutoMask(scales, fit_beam(psf).major)
-    masked = deconvolve(dirty, psf, auto_mask=auto, **kw)
+    auto = EmissionMask(scales, fit_beam(psf).major)
+    masked = deconvolve(dirty, psf, emission_mask=auto, **kw)
     emission = observe(sky, psf) > 0.02 * observe(sky, psf).max()
     peak_plain = np.abs(plain.residual[emission]).max()
     peak_masked = np.abs(masked.residual[emission]).max()

@@ -19,7 +19,7 @@ from scipy import ndimage
 from ._validate import as_image
 from .detect import detect_emission
 
-__all__ = ["AutoMask", "auto_mask"]
+__all__ = ["EmissionMask", "emission_mask"]
 
 logger = logging.getLogger(__name__)
 
@@ -43,7 +43,7 @@ def _positive(value, name, *, allow_zero=False, cell_arcsec=None):
     return value
 
 
-class AutoMask:
+class EmissionMask:
     """A mask that follows the significant emission in the residual, scale by scale.
 
     Parameters
@@ -89,7 +89,7 @@ class AutoMask:
     >>> rng = np.random.default_rng(0)
     >>> residual = rng.normal(0, 1, (128, 128)).astype(np.float32)
     >>> residual[60:68, 60:68] += 20
-    >>> m = AutoMask([0, 8], beam_fwhm_px=4).update(residual)
+    >>> m = EmissionMask([0, 8], beam_fwhm_px=4).update(residual)
     >>> bool(m[64, 64]), bool(m[5, 5])
     (True, False)
     """
@@ -219,8 +219,8 @@ class AutoMask:
         return mask
 
 
-def auto_mask(residual, scales, beam_fwhm_px, *, model=None, previous=None, **options):
-    """One-shot automatic mask: ``AutoMask(scales, beam_fwhm_px, **options).update(...)``.
+def emission_mask(residual, scales, beam_fwhm_px, *, model=None, previous=None, **options):
+    """One-shot automatic mask: ``EmissionMask(scales, beam_fwhm_px, **options).update(...)``.
 
     Parameters
     ----------
@@ -231,9 +231,9 @@ def auto_mask(residual, scales, beam_fwhm_px, *, model=None, previous=None, **op
     beam_fwhm_px : float, Quantity or Beam
         Beam FWHM in pixels.
     model, previous : (ny, nx) array_like, optional
-        Pixels always kept (see `AutoMask.update`).
+        Pixels always kept (see `EmissionMask.update`).
     **options
-        Keyword options of `AutoMask` (sigma, grow_beams, min_island_beams, ...).
+        Keyword options of `EmissionMask` (sigma, grow_beams, min_island_beams, ...).
 
     Returns
     -------
@@ -242,8 +242,8 @@ def auto_mask(residual, scales, beam_fwhm_px, *, model=None, previous=None, **op
     Examples
     --------
     >>> import numpy as np
-    >>> bool(auto_mask(np.zeros((64, 64)), [0, 4], 3.0).any())
+    >>> bool(emission_mask(np.zeros((64, 64)), [0, 4], 3.0).any())
     False
     """
-    return AutoMask(scales, beam_fwhm_px, **options).update(residual, model=model,
+    return EmissionMask(scales, beam_fwhm_px, **options).update(residual, model=model,
                                                             previous=previous)
