@@ -365,11 +365,11 @@ def test_deconvolve_with_auto_scales():
 
 
 def test_command_line_auto_uses_the_same_function(tmp_path):
-    from skyscale.job import _scales_in_pixels, RUN_DEFAULTS
+    from skyscale.job import scales_in_pixels, RUN_DEFAULTS
     dirty, _ = make_field("disk", 24, 30, 96, seed=11)
     psf = gaussian_psf(192)[:192, :192]
     reasons = []
-    px = _scales_in_pixels(dict(RUN_DEFAULTS, scales="auto"), None, dirty, psf, reasons,
+    px = scales_in_pixels(dict(RUN_DEFAULTS, scales="auto"), None, dirty, psf, reasons,
                            "--scales")
     assert (tuple(px), reasons) == resolve_scales("auto", dirty, psf)
 

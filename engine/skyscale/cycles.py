@@ -19,7 +19,8 @@ from ._threads import thread_limit
 from ._validate import InputError, as_image, resolve_dtype
 from .levels import DEFAULT_EXTENDED_DEPTH, allowed_peak, scale_levels
 from .minor import DEFAULT_SCALE_LOOP_DEPTH, DEFAULT_SIZE_PENALTY, Engine
-from .operators import ImagePlaneOperator, as_operator, exact_box, exact_region
+from .operators import (ImagePlaneOperator, as_operator, describe_operator, exact_box,
+                        exact_region)
 from .result import COMPONENT_DTYPE, CycleRecord, DeconvolutionResult
 
 __all__ = ["deconvolve", "run_cycles", "masked_stats"]
@@ -52,7 +53,12 @@ def _notify(callback, **event):
         callback(event)
 
 
-def _progress(engine, peaks, levels):
+def _level_stop(noise_threshold, levels, threshold):
+    """'noise' when a noise multiple set some scale's level, else 'threshold'."""
+    return "noise" if noise_threshold is not None and np.any(levels > threshold) else "threshold"
+
+
+def _progress(peaks, levels):
     """The largest penalised response relative to its level: what cleaning still has to do."""
     return float(np.max(peaks / np.maximum(levels, 1e-30)))
 
@@ -135,9 +141,10 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
     exact = getattr(user_operator, "exact", True)
     centres = (model != 0).astype(np.uint8)
 
-    def stats(residual, model, mask, previous=None):
+    def stats(residual, model, mask, previous=None, planes=None):
         region = None if exact else exact_region(shape, model, offsets)
-        state = engine.measure(residual, mask, noise_region=region, previous=previous)
+        state = engine.measure(residual, mask, noise_region=region, previous=previous,
+                               planes=planes)
         inside = mask if region is None else (region if mask is None else mask & region)
         peak, rms = masked_stats(residual, inside)
         levels = scale_levels(state.noise, threshold=threshold, noise_threshold=noise_threshold,
@@ -148,7 +155,7 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
     state, region, peak, rms, levels = stats(residual, model, mask)
     if mask_updater is not None:
         mask = mask_updater(residual, centres, mask, noise=float(state.noise[0]))
-        state, region, peak, rms, levels = stats(residual, model, mask)
+        state, region, peak, rms, levels = stats(residual, model, mask, planes=state.planes)
     flux0 = float(model.sum(dtype=np.float64))
     history = [CycleRecord(0, 0, peak, rms, flux0, scale_peaks=state.peaks.tolist())]
     _notify(callback, stage="major", cycle=0, components=0, peak=peak, rms=rms)
@@ -159,15 +166,14 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
     stagnant = 0
     depth = cycle_depth
     retries = rollbacks = rounds = rejected = 0
-    progress = _progress(engine, state.peaks, levels)
+    progress = _progress(state.peaks, levels)
     try:
         for cycle in range(1, max_major_cycles + 1):
             if mask is not None and not mask.any():
                 stop = "empty_mask"
                 break
             if np.all(state.peaks <= levels):
-                stop = "noise" if noise_threshold is not None and np.any(levels > threshold) \
-                    else "threshold"
+                stop = _level_stop(noise_threshold, levels, threshold)
                 break
             if n_comp >= max_components:
                 stop = "max_components"
@@ -186,7 +192,7 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
                 stop = {"empty": "empty_mask", "max_components": "max_components"}.get(
                     mc.stop_reason, "no_progress")
                 if mc.stop_reason == "threshold":
-                    stop = "noise" if noise_threshold is not None else "threshold"
+                    stop = _level_stop(noise_threshold, levels, threshold)
                 break
             new_residual = as_image(operator(mc.model), "residual returned by the operator",
                                     dtype=np.float64, allow_nan=True)
@@ -222,7 +228,7 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
             if mask_updater is not None:
                 mask = mask_updater(residual, centres, mask, noise=float(new_state.noise[0]))
                 new_state, new_region, new_peak, new_rms, new_levels = stats(
-                    residual, model, mask, state)
+                    residual, model, mask, state, planes=new_state.planes)
             state, region, peak, rms, levels = (new_state, new_region, new_peak, new_rms,
                                                 new_levels)
             history.append(CycleRecord(cycle, n_comp, peak, rms, flux,
@@ -231,10 +237,9 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
             _notify(callback, stage="major", cycle=cycle, components=n_comp, peak=peak,
                     rms=rms, flux=flux, minor_stop=mc.stop_reason)
             if mc.stop_reason == "threshold" and np.all(state.peaks <= levels * LEVEL_SLACK):
-                stop = "noise" if noise_threshold is not None and np.any(levels > threshold) \
-                    else "threshold"
+                stop = _level_stop(noise_threshold, levels, threshold)
                 break
-            new_progress = _progress(engine, state.peaks, levels)
+            new_progress = _progress(state.peaks, levels)
             stagnant = stagnant + 1 if new_progress > 0.99 * progress else 0
             progress = new_progress
             if stagnant >= 3:
@@ -243,8 +248,7 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
         else:
             stop = "max_major_cycles"
         if stop in ("max_major_cycles", "max_components") and np.all(state.peaks <= levels):
-            stop = "noise" if noise_threshold is not None and np.any(levels > threshold) \
-                else "threshold"
+            stop = _level_stop(noise_threshold, levels, threshold)
         elif stop == "max_major_cycles" and n_comp >= max_components:
             stop = "max_components"
     except KeyboardInterrupt:
@@ -412,16 +416,12 @@ def deconvolve(dirty, psf, *, scales=(0, 4, 8, 16), loop_gain=0.1, threshold=0.0
                     size_penalty=size_penalty, loop_gain=loop_gain,
                     scale_loop_depth=scale_loop_depth, dtype=dt, threads=threads, fft=fft,
                     cell_arcsec=cell_arcsec, psf_patch=psf_patch)
-    describe = getattr(operator, "describe", None)
-    params["operator"] = (describe() if callable(describe) else
-                          {"operator": "ImagePlaneOperator" if operator is None
-                           else type(operator).__name__})
     if operator is None:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")   # said once below, in words, with the region
             operator = ImagePlaneOperator(dirty_arr, engine.psf, fft=engine.fft, dtype=dt)
-    else:
-        operator = as_operator(operator, dirty_arr.shape, dt)
+    params["operator"] = describe_operator(operator)
+    operator = as_operator(operator, dirty_arr.shape, dt)
     user_mask = None if mask is None else np.asarray(mask, dtype=bool)
     notes = []
     box = None

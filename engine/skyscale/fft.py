@@ -167,7 +167,7 @@ def _complex(precision):
     return np.complex64 if np.dtype(precision) == np.float32 else np.complex128
 
 
-def _wrapped_kernel(kernel, image_shape):
+def _wrapped_kernel(kernel, image_shape, fshape=None):
     """The kernel's offsets that can matter for an image, and the FFT shape they need.
 
     ``out[q] = sum_p image[p] * kernel[q - p + c]`` only uses offsets ``|q - p| <= n - 1``
@@ -175,7 +175,8 @@ def _wrapped_kernel(kernel, image_shape):
     (cut to ``n - 1``), a circular convolution of length ``L >= n + max(a, b)`` has no
     wrap-around on the image: ``L`` about ``2 n`` for a PSF twice the image's size,
     ``1.5 n`` for one of the image's size, ``n + r`` for a scale kernel of radius ``r``.
-    Returns the kernel wrapped onto that grid (offset 0 at index 0) and the grid's shape.
+    Returns the kernel wrapped onto that grid (offset 0 at index 0) and the grid's shape;
+    ``fshape`` gives a grid of its own (at least that large, as for several kernels).
     """
     kernel = np.asarray(kernel, dtype=np.float64)
     lo, hi, shape = [], [], []
@@ -186,6 +187,8 @@ def _wrapped_kernel(kernel, image_shape):
         lo.append(a)
         hi.append(b)
         shape.append(next_fast_len(int(n + max(a, b)), real=True))
+    if fshape is not None:
+        shape = list(fshape)
     cy, cx = kernel.shape[0] // 2, kernel.shape[1] // 2
     cut = kernel[cy - lo[0]:cy + hi[0] + 1, cx - lo[1]:cx + hi[1] + 1]
     wrapped = np.zeros(shape, dtype=np.float64)
@@ -265,10 +268,7 @@ class MultiConvolver:
             if k.size == 1:
                 self._kf.append(float(k[0, 0]))
                 continue
-            wrapped = np.zeros(self.fshape, dtype=np.float64)
-            c = k.shape[0] // 2
-            wrapped[:k.shape[0], :k.shape[1]] = k
-            wrapped = np.roll(wrapped, (-c, -c), axis=(0, 1))
+            wrapped, _ = _wrapped_kernel(k, self.image_shape, self.fshape)
             self._kf.append(self.backend.rfft2(wrapped, self.fshape).astype(
                 _complex(self.precision)))
 

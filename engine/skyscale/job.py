@@ -78,16 +78,6 @@ def component_rows(components, wcs=None):
     return rows
 
 
-def _describe_operator(operator, psf, dirty):
-    """What ran the major cycles, for the report."""
-    if operator is None:
-        exact = all(p >= 2 * n - 1 for p, n in zip(psf.shape, dirty.shape))
-        return {"operator": "ImagePlaneOperator", "residual": "dirty - PSF (*) model by FFT",
-                "exact": bool(exact)}
-    describe = getattr(operator, "describe", None)
-    return describe() if callable(describe) else {"operator": type(operator).__name__}
-
-
 def merge_params(params, sources=None):
     """`RUN_DEFAULTS` updated with ``params``, read as a user would write them
     (`skyscale.options.coerce_params`); unknown keys are refused."""
@@ -97,7 +87,9 @@ def merge_params(params, sources=None):
     return merged
 
 
-def _scales_in_pixels(params, cell, dirty, psf, reasons, label):
+def scales_in_pixels(params, cell, dirty, psf, reasons, label="scales"):
+    """Scale diameters in pixels from merged run parameters (``'auto'`` asks the advisor
+    and appends its reasons to ``reasons``; arcsec scales are divided by ``cell``)."""
     scales = params["scales"]
     if isinstance(scales, str):     # 'auto': the same advisor call as deconvolve's
         from .advisor import resolve_scales
@@ -111,12 +103,6 @@ def _scales_in_pixels(params, cell, dirty, psf, reasons, label):
                              "WCS to convert them; give scales in pixels")
         return [v / cell for v in values]
     return values
-
-
-def scales_in_pixels(params, cell, dirty, psf, reasons, label="scales"):
-    """Scale diameters in pixels from merged run parameters (``'auto'`` asks the advisor
-    and appends its reasons to ``reasons``; arcsec scales are divided by ``cell``)."""
-    return _scales_in_pixels(params, cell, dirty, psf, reasons, label)
 
 
 def restoring_beam(params, cell, label="beam"):
@@ -284,7 +270,7 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
             blank = None
     initial = initial_model(resume_from, dirty) if resume_from else None
     reasons = []
-    scales_px = _scales_in_pixels(merged, cell, data, psf.data, reasons, labels["scales"])
+    scales_px = scales_in_pixels(merged, cell, data, psf.data, reasons, labels["scales"])
     scale_warnings = []
     if not reasons:   # the user's own set: check it against the rules of thumb
         from .advisor import check_scales
@@ -328,7 +314,7 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
     if resume_from:
         inputs["resumed_from"] = {"path": os.path.abspath(
             os.path.join(resume_from, OUTPUT_NAMES["model"]))}
-    major = _describe_operator(operator, psf.data, dirty.data)
+    major = result.parameters["operator"]
     with incomplete_marker(out_dir):
         written, report = _write_outputs(result, dirty, psf, names, record, start, end, plan,
                                          reasons, inputs, cell, ow, extra_images, major)

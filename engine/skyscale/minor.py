@@ -30,7 +30,7 @@ from ._threads import thread_limit
 from ._validate import NUMBER_RULES, InputError, as_image, check_number, resolve_dtype
 from .fft import Convolver, MultiConvolver, get_backend
 from .kernels import scale_loop, stamp_components
-from .levels import allowed_peak, scale_levels
+from .levels import DEFAULT_EXTENDED_DEPTH, allowed_peak, scale_levels
 from .noise import scale_noise
 from .precompute import plan_memory, scale_beams
 from .psf import check_psf, describe_psf
@@ -280,7 +280,7 @@ class Engine:
         return np.array([float(np.abs(p[a]).max()) if a.any() else 0.0
                          for p, a in zip(planes, allowed)])
 
-    def measure(self, residual, mask=None, noise_region=None, previous=None):
+    def measure(self, residual, mask=None, noise_region=None, previous=None, planes=None):
         """Smooth ``residual`` by every scale; return peaks and noise as a `ScaleState`.
 
         Noise is measured outside ``mask`` (grown by each scale's radius), inside
@@ -288,11 +288,14 @@ class Engine:
         clipping of what emission is left (`skyscale.noise.scale_noise`, which also
         high-passes the residual so that broad emission the mask missed cannot inflate
         the smallest scale's noise).  ``previous`` (a `ScaleState`) supplies the
-        smallest scale's noise when too little of the image is left to measure it.
+        smallest scale's noise when too little of the image is left to measure it;
+        ``planes``, this residual already smoothed (a new mask, the same residual), saves
+        the smoothing.
         """
         residual = np.asarray(residual)
-        with thread_limit(self.threads):
-            planes = self.smooth(residual)
+        if planes is None:
+            with thread_limit(self.threads):
+                planes = self.smooth(residual)
         allowed = self.allowed(None if mask is None else np.asarray(mask, dtype=bool))
         sigma, used, how = scale_noise(planes, self.scales.support_radii, mask=mask,
                                        region=noise_region, ratios=np.sqrt(self.beam_peaks),
@@ -303,7 +306,8 @@ class Engine:
 
     # --------------------------------------------------------------- the cycle
     def minor_cycle(self, residual, model=None, *, mask=None, threshold=0.0,
-                    noise_threshold=None, extended_depth=0.5, cycle_depth=0.2,
+                    noise_threshold=None, extended_depth=DEFAULT_EXTENDED_DEPTH,
+                    cycle_depth=0.2,
                     max_components=20000, callback=None, noise_region=None, state=None):
         """Clean ``residual`` down to this cycle's floors and return the updated model.
 
@@ -320,7 +324,8 @@ class Engine:
         noise_threshold : float, optional
             Stop each scale at this multiple of its own noise (see `scale_levels`).
         extended_depth : float
-            Inside a mask, finite scales stop at this fraction of the noise multiple.
+            Inside a mask, the largest scale stops at this fraction of the noise
+            multiple (`skyscale.levels.scale_levels`); default 0.25.
         cycle_depth : float
             Each scale is cleaned down to this fraction of its peak at the cycle's
             start (never below its stop level); default 0.2.

@@ -49,8 +49,13 @@ def robust_noise(image, mask=None):
     data = data[np.isfinite(data)]
     if data.size == 0:
         return 0.0
+    return _mad_sigma(data)[0]
+
+
+def _mad_sigma(data):
+    """``(1.4826 MAD, median)`` of a non-empty 1-D float64 array."""
     med = np.median(data)
-    return float(MAD_TO_SIGMA * np.median(np.abs(data - med)))
+    return float(MAD_TO_SIGMA * np.median(np.abs(data - med))), med
 
 
 #: Pixels farther than this many robust sigmas from the median are emission, not noise,
@@ -119,8 +124,7 @@ def emission_free_noise(image, *, exclude=None, region=None, border=0, passes=3)
     for _ in range(max(int(passes), 1)):
         if data.size == 0:
             return 0.0, 0
-        med = np.median(data)
-        sigma = float(MAD_TO_SIGMA * np.median(np.abs(data - med)))
+        sigma, med = _mad_sigma(data)
         if sigma == 0.0:
             break
         inside = np.abs(data - med) <= CLIP_SIGMA * sigma

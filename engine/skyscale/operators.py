@@ -22,7 +22,7 @@ from .fft import Convolver, get_backend
 from .psf import check_psf
 
 __all__ = ["ResidualOperator", "ImagePlaneOperator", "FunctionOperator", "as_operator",
-           "exact_box", "exact_region"]
+           "describe_operator", "exact_box", "exact_region"]
 
 logger = logging.getLogger(__name__)
 
@@ -88,6 +88,11 @@ class ImagePlaneOperator:
             return None
         return {"exact_offsets": self.exact_offsets, "psf_edge_level": self.edge_level}
 
+    def describe(self):
+        """What this operator is, for reports."""
+        return {"operator": "ImagePlaneOperator", "residual": "dirty - PSF (*) model by FFT",
+                "exact": bool(self.exact)}
+
     def __call__(self, model):
         model = np.asarray(model, dtype=self.dtype)
         return self.dirty - self._conv(model, out_dtype=self.dtype)
@@ -113,6 +118,12 @@ class FunctionOperator:
             raise InputError(f"the operator returned a residual of shape {out.shape}, "
                              f"expected the image's {self.shape}; return one image per model")
         return out
+
+
+def describe_operator(operator):
+    """What ran the major cycles: the operator's own ``describe()`` dict, else its class."""
+    describe = getattr(operator, "describe", None)
+    return describe() if callable(describe) else {"operator": type(operator).__name__}
 
 
 def as_operator(operator, shape, dtype=np.float32):

@@ -76,6 +76,15 @@ def _stop_code(arg, best, level, it, max_iter):
 
 
 @numba.njit(**JIT_OPTIONS)
+def _record(values, arg, gain, inv_peak, out_idx, out_flux, it):
+    """Store component ``it`` at active index ``arg``; return its flux."""
+    f = gain * float(values[arg]) * inv_peak
+    out_idx[it] = arg
+    out_flux[it] = f
+    return f
+
+
+@numba.njit(**JIT_OPTIONS)
 def _scale_loop_serial(values, ys, xs, beam, cy, cx, inv_peak, gain, level, max_iter,
                        out_idx, out_flux, stats):
     n = values.shape[0]
@@ -85,9 +94,7 @@ def _scale_loop_serial(values, ys, xs, beam, cy, cx, inv_peak, gain, level, max_
         reason = _stop_code(arg, best, level, it, max_iter)
         if reason:
             break
-        f = gain * float(values[arg]) * inv_peak
-        out_idx[it] = arg
-        out_flux[it] = f
+        f = _record(values, arg, gain, inv_peak, out_idx, out_flux, it)
         it += 1
         best, arg = _subtract_and_scan(values, ys, xs, beam, cy, cx, f, ys[arg], xs[arg], 0, n)
     stats[0] = best
@@ -123,9 +130,7 @@ def _scale_loop_parallel(values, ys, xs, beam, cy, cx, inv_peak, gain, level, ma
         reason = _stop_code(arg, best, level, it, max_iter)
         if reason:
             break
-        f = gain * float(values[arg]) * inv_peak
-        out_idx[it] = arg
-        out_flux[it] = f
+        f = _record(values, arg, gain, inv_peak, out_idx, out_flux, it)
         it += 1
         y0 = ys[arg]
         x0 = xs[arg]
