@@ -66,43 +66,75 @@ def _scales(text):
         raise argparse.ArgumentTypeError(str(exc)) from None
 
 
-def _add_run_options(p):
+#: The demo's own settings, on top of `skyscale.job.RUN_DEFAULTS` (its --help shows them;
+#: a --config file and the command line override them).
+DEMO_SETTINGS = {"scales": [0, 4, 8, 16, 32], "emission_mask": True}
+
+
+def _shown(defaults):
+    """How the defaults of the run options read in --help, from the values themselves."""
+    nu, thr = defaults["noise_threshold"], float(defaults["threshold"])
+    return {"scales": ",".join(f"{float(v):g}" for v in defaults["scales"]),
+            "scale_unit": defaults["scale_unit"], "scale_shape": defaults["scale_shape"],
+            "loop_gain": f"{defaults['loop_gain']:g}", "threshold": f"{thr:g}",
+            "noise_threshold": "off" if nu is None else f"{nu:g}",
+            "max_components": str(defaults["max_components"]),
+            "max_major_cycles": str(defaults["max_major_cycles"]),
+            "cycle_depth": f"{defaults['cycle_depth']:g}",
+            "size_penalty": f"{defaults['size_penalty']:g}",
+            "extended_depth": f"{defaults['extended_depth']:g}",
+            "emission_mask": "on" if defaults["emission_mask"] else "off",
+            "nonfinite": defaults["nonfinite"]}
+
+
+def _add_run_options(p, defaults=None):
     # Values are read by skyscale.options (the same reader as the TOML file), so every
-    # option takes text here and a bad value gets one line naming it.
+    # option takes text here and a bad value gets one line naming it.  The bracketed
+    # defaults come from the values the command uses (RUN_DEFAULTS, or the demo's).
+    from .job import RUN_DEFAULTS
+    d = _shown(defaults or RUN_DEFAULTS)
     g = p.add_argument_group("deconvolution")
     g.add_argument("--scales", help="scale diameters, 0 = delta, separated by commas or "
                    "spaces (0,4,16), in pixels or with a unit (0,8arcsec,16arcsec); 'auto' "
-                   "asks the scale advisor [0,4,8,16]")
+                   f"asks the scale advisor [{d['scales']}]")
     g.add_argument("--scale-unit", help="unit of --scales: pixel, or arcsec through the WCS "
-                   "[pixel]")
+                   f"[{d['scale_unit']}]")
     g.add_argument("--scale-shape", help="scale kernel shape: paraboloid or gaussian "
-                   "[paraboloid]")
-    g.add_argument("--loop-gain", help="fraction of a component taken per step, in (0, 1] [0.1]")
+                   f"[{d['scale_shape']}]")
+    g.add_argument("--loop-gain", help="fraction of a component taken per step, in (0, 1] "
+                   f"[{d['loop_gain']}]")
     g.add_argument("--threshold", help="stop at this peak residual, Jy/beam; a unit may be "
-                   "written (0.1mJy) [0]")
-    g.add_argument("--noise-threshold", help="stop at this multiple of the robust noise "
-                   "(1.4826 MAD), e.g. 3 or 3sigma [off]")
-    g.add_argument("--max-components", help="component budget, >= 1 [20000]")
-    g.add_argument("--max-major-cycles", help="major-cycle budget, >= 1 [20]")
+                   "written (0.1mJy).  Given without --noise-threshold it is a fixed level "
+                   "and the noise stop is off; given with it, each scale stops at the larger "
+                   f"of the two [{d['threshold']}]")
+    g.add_argument("--noise-threshold", help="stop each scale at this multiple of its own "
+                   "measured noise (robust, 1.4826 MAD, where there is no emission), e.g. 3 "
+                   f"or 3sigma; 'off' for no noise stop [{d['noise_threshold']}]")
+    g.add_argument("--max-components", help=f"component budget, >= 1 [{d['max_components']}]")
+    g.add_argument("--max-major-cycles", help=f"major-cycle budget, >= 1 [{d['max_major_cycles']}]")
     g.add_argument("--cycle-depth",
-                   help="each minor cycle cleans to this fraction of its start peak [0.2]")
+                   help=f"each minor cycle cleans to this fraction of its start peak [{d['cycle_depth']}]")
     g.add_argument("--size-penalty", help="bias toward small scales, weight 1 - p s/s_max, "
-                   "p in [0, 1) [0.3]")
+                   f"p in [0, 1) [{d['size_penalty']}]")
     g.add_argument("--extended-depth", help="inside a mask, finite scales stop at this "
-                   "fraction of the noise multiple, in (0, 1] [0.25]")
+                   f"fraction of the noise multiple, in (0, 1] [{d['extended_depth']}]")
     g.add_argument("--psf-patch", help="no longer used (minor cycles subtract whole scale "
                    "beams); accepted with a warning")
     g.add_argument("--beam", help="restoring beam MAJOR,MINOR,PA: FWHMs in arcsec (or with "
                    "a unit: 0.0012deg) and degrees east of north [fitted to the PSF]")
     g.add_argument("--nonfinite", help="NaN/inf pixels in the dirty image: refuse, or mask "
-                   "(leave them out of cleaning, blank in the outputs) [refuse]")
+                   f"(leave them out of cleaning, blank in the outputs) [{d['nonfinite']}]")
     m = p.add_argument_group("masks")
     m.add_argument("--mask", help="FITS mask on the image grid, non-zero = may clean [none]")
     m.add_argument("--mask-regions", help="regions where components may go, e.g. "
                    "'circle 120 130 15; box 10 20 50 60' (see skyscale.regions); with --mask "
                    "the two are intersected [none]")
     m.add_argument("--emission-mask", action="store_true", default=None,
-                   help="renew an automatic mask at each major cycle [off]")
+                   help="renew an automatic mask at each major cycle [" + d["emission_mask"] +
+                   ("; --mask or --mask-regions without this option turn it off"
+                    if d["emission_mask"] == "on" else "") + "]")
+    m.add_argument("--no-emission-mask", dest="emission_mask", action="store_false",
+                   default=None, help="no automatic mask")
     m.add_argument("--emission-mask-sigma",
                    help="automatic-mask level, multiples of the robust noise [5]")
     o = p.add_argument_group("run")
@@ -139,7 +171,7 @@ def _add_visibility_options(p, *, demo=False):
 def _add_global_flags(group):
     """--quiet and --debug are also accepted after the command."""
     group.add_argument("--quiet", action="store_true", default=argparse.SUPPRESS,
-                       help="no progress bars or tables")
+                       help="no progress bars or tables (warnings still go to stderr)")
     group.add_argument("--debug", action="store_true", default=argparse.SUPPRESS,
                        help="full tracebacks and debug logs")
 
@@ -152,7 +184,8 @@ def build_parser():
                                           for k, v in EXIT_CODES.items()))
     parser.add_argument("--version", action="version", version=f"skyscale {__version__}")
     parser.add_argument("--debug", action="store_true", help="full tracebacks and debug logs")
-    parser.add_argument("--quiet", action="store_true", help="no progress bars or tables")
+    parser.add_argument("--quiet", action="store_true",
+                        help="no progress bars or tables (warnings still go to stderr)")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
     sub.required = True
 
@@ -168,9 +201,13 @@ def build_parser():
     _add_visibility_options(run)
     run.set_defaults(func=cmd_run)
 
-    demo = sub.add_parser("demo", help="run the whole job on the bundled demo observation")
+    from .job import RUN_DEFAULTS
+    demo = sub.add_parser("demo", help="run the whole job on the bundled demo observation",
+                          description="Run the whole job on the bundled demo observation, "
+                          "with the demo's own settings (shown in brackets); a --config "
+                          "file and the options given here override them.")
     demo.add_argument("--out", default="demo-out", help="output directory [demo-out]")
-    _add_run_options(demo)
+    _add_run_options(demo, dict(RUN_DEFAULTS, **DEMO_SETTINGS))
     _add_visibility_options(demo, demo=True)
     demo.set_defaults(func=cmd_demo)
 
@@ -213,26 +250,39 @@ def build_parser():
     return parser
 
 
-def _params(args, base=None):
-    """Run options from --config, then the command line; and where each came from."""
+def _params(args, base=None, base_source="the resumed run's report"):
+    """Run options from ``base``, then --config, then the command line; and where each
+    came from.  A threshold given (in the file or here) without a noise threshold drops
+    the base's noise threshold: it is a fixed level (`skyscale.job.merge_params`)."""
     from .job import RUN_DEFAULTS
     from .options import load_config
-    params, sources = dict(base or {}), {k: "the resumed run's report" for k in base or {}}
+    params, sources = dict(base or {}), {k: base_source for k in base or {}}
+    later = {}
     if getattr(args, "config", None):
         table = load_config(args.config)
-        params.update(table)
+        later.update(table)
         sources.update({k: args.config for k in table})
     for key in RUN_DEFAULTS:
         value = getattr(args, key, None)
         if value is not None:
-            params[key] = value
+            later[key] = value
             sources[key] = "cli"
+    if "threshold" in later and "noise_threshold" not in later:
+        params.pop("noise_threshold", None)
+    if base_source == _DEMO_SOURCE and ("mask" in later or "mask_regions" in later) \
+            and "emission_mask" not in later:
+        params.pop("emission_mask", None)       # the user's mask replaces the demo's
+    params.update(later)
     return params, sources
 
 
-def _execute(args, dirty, psf, out, base=None, resume=None, visibilities=None):
+_DEMO_SOURCE = "the demo's settings"
+
+
+def _execute(args, dirty, psf, out, base=None, resume=None, visibilities=None,
+             base_source="the resumed run's report"):
     from . import console
-    params, sources = _params(args, base)
+    params, sources = _params(args, base, base_source)
     if resume and os.path.abspath(out) == os.path.abspath(resume):
         params["overwrite"], sources["overwrite"] = True, "cli"
     with console.RunProgress(enabled=not args.quiet) as progress:
@@ -250,6 +300,8 @@ def _execute(args, dirty, psf, out, base=None, resume=None, visibilities=None):
                 robust=0.0 if args.robust is None else args.robust, epsilon=args.accuracy,
                 callback=progress.update)
         elapsed = time.perf_counter() - t0
+    warned = getattr(args, "warning_log", None)
+    console.warn_all(result.warnings, warned)     # stderr, quiet or not; once each
     if not args.quiet:
         console.summary(result, written, report, elapsed)
     if result.stop_reason == "interrupted":
@@ -304,12 +356,6 @@ def cmd_run(args):
 
 def cmd_demo(args):
     data = demo_data_dir()
-    if args.scales is None and args.config is None:
-        args.scales = [0, 4, 8, 16, 32]
-    if args.noise_threshold is None and args.threshold is None and args.config is None:
-        args.noise_threshold = 3.0
-    if args.emission_mask is None and args.mask is None and args.config is None:
-        args.emission_mask = True
     vis = None
     if args.from_visibilities:
         import json
@@ -321,7 +367,7 @@ def cmd_demo(args):
         raise ValueError("--weighting, --robust and --accuracy apply with --from-visibilities "
                          "only")
     code = _execute(args, os.path.join(data, "dirty.fits"), os.path.join(data, "psf.fits"),
-                    args.out, visibilities=vis)
+                    args.out, visibilities=vis, base=DEMO_SETTINGS, base_source=_DEMO_SOURCE)
     if not args.quiet:
         from . import console
         console.say(f"demo finished: the results are in {os.path.abspath(args.out)}")
@@ -403,7 +449,9 @@ def main(argv=None):
                         format="%(levelname)s %(name)s: %(message)s")
     if not args.debug:
         import warnings
-        warnings.simplefilter("ignore")  # warnings go into the report instead
+        warnings.simplefilter("ignore")  # the engine logs them too, and they go in the report
+    from . import console
+    args.warning_log = console.WarningLog.install(debug=args.debug)
     # SIGTERM (a batch system's stop) is handled as Ctrl-C: stop after the current step.
     try:
         previous = signal.signal(signal.SIGTERM, _raise_interrupt)
@@ -431,6 +479,7 @@ def main(argv=None):
               "with --debug for the traceback)", file=sys.stderr)
         return EXIT_FAILED
     finally:
+        args.warning_log.uninstall()
         if previous is not None:
             signal.signal(signal.SIGTERM, previous)
 

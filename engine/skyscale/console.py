@@ -3,13 +3,15 @@
 Only the command line uses this module; the engine reports through callbacks.
 """
 
+import logging
 import sys
 
 from rich.console import Console
 from rich.progress import BarColumn, Progress, SpinnerColumn, TextColumn, TimeElapsedColumn
 from rich.table import Table
 
-__all__ = ["RunProgress", "CubeProgress", "cube_summary", "summary", "show_suggestion", "show_check", "say"]
+__all__ = ["RunProgress", "CubeProgress", "cube_summary", "summary", "show_suggestion",
+           "show_check", "say", "warn", "warn_all", "WarningLog", "stop_words"]
 
 _out = Console(stderr=False, highlight=False)
 
@@ -17,6 +19,94 @@ _out = Console(stderr=False, highlight=False)
 def say(text):
     """Print one line to the terminal."""
     _out.print(text)
+
+
+def _one_line(text):
+    return " ".join(str(text).split())
+
+
+def warn(text):
+    """Print a warning to stderr, on one line (shown with --quiet too)."""
+    print(f"skyscale: warning: {_one_line(text)}", file=sys.stderr, flush=True)
+
+
+class WarningLog(logging.Handler):
+    """Shows the engine's logged warnings on stderr as they happen, once each.
+
+    ``said`` holds what was shown, so `warn_all` does not repeat it after the run.
+    """
+
+    def __init__(self):
+        super().__init__(level=logging.WARNING)
+        self.said = set()
+        self._logger = None
+        self._saved = None
+        self._filtered = []
+
+    @classmethod
+    def install(cls, debug=False):
+        """Attach a new handler to the ``skyscale`` logger; `uninstall` undoes it."""
+        handler = cls()
+        log = logging.getLogger("skyscale")
+        handler._logger, handler._saved = log, (log.level, log.propagate)
+        log.addHandler(handler)
+        if debug:    # debug logs still reach the root handler; warnings only through here
+            log.setLevel(logging.DEBUG)
+            for h in logging.getLogger().handlers:
+                h.addFilter(handler._not_mine)
+                handler._filtered.append(h)
+        else:
+            log.setLevel(logging.WARNING)
+            log.propagate = False
+        return handler
+
+    @staticmethod
+    def _not_mine(record):
+        return not (record.name.startswith("skyscale") and record.levelno == logging.WARNING)
+
+    def uninstall(self):
+        """Detach the handler and restore the logger as it was."""
+        if self._logger is not None:
+            self._logger.removeHandler(self)
+            self._logger.setLevel(self._saved[0])
+            self._logger.propagate = self._saved[1]
+            for h in self._filtered:
+                h.removeFilter(self._not_mine)
+            self._logger = None
+
+    def emit(self, record):
+        if record.levelno != logging.WARNING:
+            return          # errors are raised and said by the command line itself
+        try:
+            text = _one_line(record.getMessage())
+        except Exception:   # noqa: BLE001 - a bad log call must not stop a run
+            self.handleError(record)
+            return
+        if text not in self.said:
+            self.said.add(text)
+            warn(text)
+
+
+def warn_all(warnings, shown=None):
+    """Print each warning not yet shown by ``shown`` (a `WarningLog`), to stderr."""
+    said = shown.said if shown is not None else set()
+    for w in warnings or ():
+        text = _one_line(w)
+        if text not in said:
+            said.add(text)
+            warn(text)
+
+
+def stop_words(result, report=None):
+    """Why the run stopped, in a sentence with the stop level it used."""
+    rule = ((report or {}).get("parameters") or {}).get("stop_rule")
+    reason = result.stop_reason
+    text = result.stop_description
+    if reason in ("noise", "threshold") and rule:
+        return f"every scale reached its stop level: {rule}"
+    if reason in ("max_components", "max_major_cycles", "no_progress") and rule:
+        return f"{text}, before every scale reached its stop level ({rule})"
+    return text
 
 
 class _Bar:
@@ -33,7 +123,8 @@ class _Bar:
         if self.enabled and sys.stdout.isatty():
             self._progress = Progress(SpinnerColumn(), TextColumn("{task.description}"),
                                       BarColumn(), TextColumn("{task.fields[info]}"),
-                                      TimeElapsedColumn(), console=_out, transient=False)
+                                      TimeElapsedColumn(), console=_out, transient=False,
+                                      redirect_stderr=sys.stderr.isatty())
             self._progress.__enter__()
             self._task = self._progress.add_task(self.first, total=None, info="")
         return self
@@ -153,7 +244,7 @@ def summary(result, written, report, elapsed):
     s = Table(title="run", show_header=False)
     s.add_column("what")
     s.add_column("value")
-    s.add_row("stop reason", f"{result.stop_reason}: {result.stop_description}")
+    s.add_row("stop reason", f"{result.stop_reason}: {stop_words(result, report)}")
     s.add_row("major cycles", f"{len(result.history) - 1} ({getattr(result, 'sub_loops', 0)} "
               f"sub-loops, {getattr(result, 'rollbacks', 0)} rollbacks)")
     s.add_row("peak residual", f"{last.peak:.4g} Jy/beam")
@@ -164,8 +255,8 @@ def summary(result, written, report, elapsed):
     tm = result.timings
     s.add_row("time", f"precompute {tm.get('precompute', 0):.2f} s, minor {tm.get('minor', 0):.2f} s,"
               f" major {tm.get('major', 0):.2f} s, total {elapsed:.2f} s")
-    for w in result.warnings[:5]:
-        s.add_row("warning", w)
+    if result.warnings:       # each was said on stderr when it arose (warn, WarningLog)
+        s.add_row("warnings", f"{len(result.warnings)}, on stderr and in report.json")
     _out.print(s)
     for kind, path in written.items():
         _out.print(f"  {kind:12s} {path}")

@@ -428,12 +428,15 @@ def deconvolve(dirty, psf, *, scales=(0, 4, 8, 16), loop_gain=0.1, threshold=0.0
     if not getattr(operator, "exact", True):
         box = exact_box(dirty_arr.shape, operator.exact_offsets)
         (y0, y1), (x0, x1) = box
+        (py, px), (ny, nx) = engine.psf.shape, dirty_arr.shape
+        dy, dx = operator.exact_offsets
         notes.append(
-            f"the PSF {engine.psf.shape} is smaller than twice the image {dirty_arr.shape}: "
-            f"the residual is exact only within {operator.exact_offsets} pixels (dy, dx) of "
-            f"each component; components are confined to rows {y0}..{y1 - 1} and columns "
-            f"{x0}..{x1 - 1}" + (" and the mask" if user_mask is not None else "") +
-            ", and the noise and the stop are measured where the residual is exact")
+            f"the PSF ({py} x {px} pixels) is smaller than twice the image ({ny} x {nx}): "
+            f"the residual is exact only within {dy} pixels in y and {dx} in x of each "
+            f"component, so components are kept to rows {y0} to {y1 - 1} and columns {x0} to "
+            f"{x1 - 1} (0-based)" + (" and the mask" if user_mask is not None else "") +
+            ", and the noise and the stop are measured where the residual is exact; a PSF "
+            f"of {2 * ny} x {2 * nx} pixels makes it exact everywhere")
         inner = np.zeros(dirty_arr.shape, dtype=bool)
         inner[y0:y1, x0:x1] = True
         if user_mask is None:

@@ -17,13 +17,15 @@ from .cycles import deconvolve
 from .fitsio import (cell_size_arcsec, check_same_grid, provenance_history, read_image,
                      write_image, write_table_csv)
 from .options import coerce_params, option_label
-from .preflight import OUTPUT_NAMES, check_units, initial_model, plan_from_headers, prepare_out
+from .preflight import (OUTPUT_NAMES, check_units, initial_model, plan_from_headers,
+                        prepare_out, previous_outputs)
 from .preflight import build_mask as _build_mask
 from .preflight import restoring_beam as _restoring_beam
 from .preflight import resume_inputs
 from .report import file_sha256
 
-__all__ = ["RUN_DEFAULTS", "OUTPUT_NAMES", "run_files", "run_images", "merge_params",
+__all__ = ["RUN_DEFAULTS", "DEFAULT_NOISE_THRESHOLD", "OUTPUT_NAMES", "run_files",
+           "run_images", "merge_params", "stop_rule", "exact_residual_cards",
            "scales_in_pixels", "restoring_beam", "build_mask", "deconvolve_options",
            "component_rows", "resume_inputs"]
 
@@ -32,14 +34,20 @@ from .minor import DEFAULT_SIZE_PENALTY
 
 logger = logging.getLogger(__name__)
 
-#: Every run parameter with its default (the keys a configuration file may hold).
+#: Default stop of a file-level run: each scale at this multiple of its own measured noise.
+DEFAULT_NOISE_THRESHOLD = 3.0
+
+#: Every run parameter with its default (the keys a configuration file may hold).  A run
+#: stops at `DEFAULT_NOISE_THRESHOLD` times the noise unless told otherwise: a
+#: ``threshold`` given without ``noise_threshold`` is a fixed level with no noise stop
+#: (`merge_params`), and ``noise_threshold = "off"`` turns the noise stop off.
 RUN_DEFAULTS = {
     "scales": [0, 4, 8, 16],
     "scale_unit": "pixel",
     "scale_shape": "paraboloid",
     "loop_gain": 0.1,
     "threshold": 0.0,
-    "noise_threshold": None,
+    "noise_threshold": DEFAULT_NOISE_THRESHOLD,
     "max_components": 20000,
     "max_major_cycles": 20,
     "cycle_depth": 0.2,
@@ -80,11 +88,35 @@ def component_rows(components, wcs=None):
 
 def merge_params(params, sources=None):
     """`RUN_DEFAULTS` updated with ``params``, read as a user would write them
-    (`skyscale.options.coerce_params`); unknown keys are refused."""
+    (`skyscale.options.coerce_params`); unknown keys are refused.
+
+    A ``threshold`` given without ``noise_threshold`` (None counts as not given) is a
+    fixed level: the default noise stop is then off.  ``noise_threshold`` ``"off"``
+    turns the noise stop off; a merged dict merged again gives the same dict.
+    """
+    given = {k: v for k, v in (params or {}).items() if v is not None}
     merged = dict(RUN_DEFAULTS)
-    merged.update(coerce_params({k: v for k, v in (params or {}).items() if v is not None},
-                                sources or {}))
+    merged.update(coerce_params(given, sources or {}))
+    if "threshold" in given and "noise_threshold" not in given:
+        merged["noise_threshold"] = None
     return merged
+
+
+def stop_rule(params):
+    """The stop level of merged run parameters, in words (for the report and the console)."""
+    threshold, nu = float(params["threshold"]), params["noise_threshold"]
+    if nu is None and threshold > 0:
+        return (f"every scale stops at the fixed threshold {threshold:g} Jy/beam, no noise "
+                "stop (a threshold given without a noise threshold)")
+    if nu is None:
+        return ("no stop level (threshold 0, noise stop off): cleans until a budget is spent "
+                "or cleaning stalls")
+    deeper = "; inside a mask larger scales go deeper (extended_depth " \
+             f"{params['extended_depth']:g})"
+    if threshold > 0:
+        return (f"each scale stops at the larger of {threshold:g} Jy/beam and {nu:g} x its "
+                "own measured noise" + deeper)
+    return f"each scale stops at {nu:g} x its own measured noise" + deeper
 
 
 def scales_in_pixels(params, cell, dirty, psf, reasons, label="scales"):
@@ -257,6 +289,7 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
     names.update({k: os.path.join(out_dir, v[0]) for k, v in extra_images.items()})
     ow = merged["overwrite"]
     prepare_out(out_dir, names, ow, "--out" if sources else "out_dir")
+    previous = previous_outputs(out_dir) if ow else []     # read before report.json is replaced
     notes = []
     check_units(dirty, notes)
     cell = cell_size_arcsec(dirty.wcs) if dirty.wcs is not None else cell_arcsec
@@ -297,33 +330,99 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
                     max_major_cycles=merged["max_major_cycles"], dirty=data,
                     threshold=merged["threshold"], noise_threshold=merged["noise_threshold"])
     check_fits_memory(plan)
+    for note in notes + scale_warnings:      # said before the run, as the engine's own
+        logger.warning(note)
     extra_kw = {} if initial is None else {"model": initial}
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         result = deconvolve(data, psf.data, operator=operator, callback=callback, **extra_kw,
                             **deconvolve_options(merged, psf.data, cell, scales_px, mask, beam))
-    result.warnings.extend(notes + scale_warnings)
-    result.warnings.extend(str(w.message) for w in caught)
+    for text in notes + scale_warnings + [str(w.message) for w in caught]:
+        if text not in result.warnings:      # the engine logs and warns the same words
+            result.warnings.append(text)
     if blank is not None:
         for img in (result.residual, result.restored):
             if img is not None:
                 img[blank] = np.nan
     end = _dt.datetime.now(_dt.timezone.utc)
-    record = dict(merged, scales=scales_px, psf_patch=result.parameters.get("psf_patch"))
+    record = dict(merged, scales=scales_px, psf_patch=result.parameters.get("psf_patch"),
+                  stop_rule=stop_rule(merged))
     inputs = dict(inputs or {})
     if resume_from:
         inputs["resumed_from"] = {"path": os.path.abspath(
             os.path.join(resume_from, OUTPUT_NAMES["model"]))}
     major = result.parameters["operator"]
+    keep = [v["path"] for v in inputs.values() if isinstance(v, dict) and "path" in v]
+    keep += [merged["mask"]] if merged["mask"] else []
     with incomplete_marker(out_dir):
         written, report = _write_outputs(result, dirty, psf, names, record, start, end, plan,
-                                         reasons, inputs, cell, ow, extra_images, major)
+                                         reasons, inputs, cell, ow, extra_images, major,
+                                         stale=(previous, keep))
     return result, written, report
 
 
+def exact_residual_cards(result):
+    """FITS keywords and HISTORY lines saying how far ``result.residual`` is exact.
+
+    Only for the image-plane operator (its ``describe()`` says ``exact``); other
+    operators give nothing.  ``EXACTRES`` is T when the residual is exact everywhere;
+    otherwise ``EXACTDY`` and ``EXACTDX`` give how many pixels from each component (in
+    y and x) it is exact, and ``EXACTREG`` the 0-based rows and columns where it is
+    exact for this model (`skyscale.operators.exact_region`).
+
+    Returns
+    -------
+    cards : dict
+        ``key -> (value, comment)`` for `write_image`'s ``extra``.
+    history : list of str
+    """
+    import textwrap
+    from .operators import exact_region
+    op = (getattr(result, "parameters", None) or {}).get("operator") or {}
+    if "exact" not in op:
+        return {}, []
+    if op["exact"]:
+        return ({"EXACTRES": (True, "residual exact everywhere (PSF 2x image)")},
+                ["skyscale residual exact everywhere: the PSF covers every offset between "
+                 "two image pixels"])
+    dy, dx = (int(v) for v in op["exact_within_px"])
+    region = exact_region(result.model.shape, result.model, (dy, dx))
+    if region is None:
+        return ({"EXACTRES": (True, "no components: residual = dirty image")},
+                ["skyscale residual exact everywhere: there are no components"])
+    rows, cols = np.nonzero(region.any(axis=1))[0], np.nonzero(region.any(axis=0))[0]
+    where = f"rows {rows[0]}..{rows[-1]}, columns {cols[0]}..{cols[-1]}"
+    cards = {"EXACTRES": (False, "residual exact only near comps, see EXACTDY"),
+             "EXACTDY": (dy, "[pixel] exact this far from comps in y"),
+             "EXACTDX": (dx, "[pixel] exact this far from comps in x"),
+             "EXACTREG": (where, "0-based pixels, residual exact")}
+    words = (f"skyscale residual exact only within {dy} pixels in y and {dx} in x of "
+             f"every component (the PSF, {' x '.join(str(v) for v in op['psf_shape'])} "
+             f"pixels, is smaller than twice the image): for this model on {where} "
+             "(0-based); farther out it misses the PSF sidelobes beyond the PSF's edge")
+    return cards, textwrap.wrap(words, width=72, subsequent_indent="  ")
+
+
+def _remove_stale(previous, keep, written, out_dir):
+    """Remove the earlier run's outputs that this run did not write; return their names."""
+    mine = {os.path.realpath(p) for p in written.values()}
+    keep = {os.path.realpath(p) for p in keep}
+    removed = []
+    for path in previous:
+        real = os.path.realpath(path)
+        if real in mine or real in keep or not os.path.isfile(path):
+            continue
+        os.unlink(path)
+        removed.append(os.path.relpath(path, out_dir))
+    if removed:
+        logger.info("--overwrite: removed the earlier run's %s", ", ".join(removed))
+    return removed
+
+
 def _write_outputs(result, dirty, psf, names, record, start, end, plan, reasons,
-                   inputs, cell, ow, extra_images, major):
+                   inputs, cell, ow, extra_images, major, stale=((), ())):
     history = provenance_history(record, start, end)
+    exact_cards, exact_history = exact_residual_cards(result)
     written = {kind: write_image(names[kind], image.data, like=image, bunit=image.bunit,
                                  history=history, overwrite=ow)
                for kind, (_, image) in extra_images.items()}
@@ -332,7 +431,8 @@ def _write_outputs(result, dirty, psf, names, record, start, end, plan, reasons,
                              history=history, overwrite=ow),
         "residual": write_image(names["residual"], result.residual, like=dirty,
                                 bunit="Jy/beam", beam=result.beam if dirty.wcs else None,
-                                history=history, overwrite=ow),
+                                history=history + exact_history, extra=exact_cards,
+                                overwrite=ow),
         "restored": write_image(names["restored"], result.restored, like=dirty,
                                 bunit="Jy/beam", beam=result.beam if dirty.wcs else None,
                                 history=history, overwrite=ow),
@@ -353,8 +453,13 @@ def _write_outputs(result, dirty, psf, names, record, start, end, plan, reasons,
         except ImportError as exc:
             result.warnings.append(f"figures skipped: {exc}")
     from .report import build_report, write_report
-    extra = {"start": start.isoformat(), "end": end.isoformat(), "outputs": written,
+    out_dir = os.path.dirname(names["report"]) or "."
+    removed = _remove_stale(stale[0], stale[1], dict(written, report=names["report"]), out_dir)
+    extra = {"start": start.isoformat(), "end": end.isoformat(),
+             "outputs": dict(written, report=names["report"]),
              "plan": plan.as_dict() if hasattr(plan, "as_dict") else dict(plan)}
+    if removed:
+        extra["removed_earlier_outputs"] = removed
     if reasons:
         extra["scale_reasons"] = reasons
     report = build_report(result, inputs=inputs, parameters=record, cell_arcsec=cell,

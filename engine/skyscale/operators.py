@@ -74,12 +74,13 @@ class ImagePlaneOperator:
         #: Largest |PSF| on the PSF's border: bounds the sidelobe omitted beyond it.
         self.edge_level = float(np.abs(edge).max())
         if not self.exact:
+            dy, dx = self.exact_offsets
             warnings.warn(
-                f"psf {self.psf.shape} is smaller than twice the image {self.dirty.shape}: "
-                f"residuals are exact only within {self.exact_offsets} pixels (dy, dx) of each "
-                f"component; farther away PSF sidelobes beyond the PSF's edge (|PSF| up to "
+                f"the PSF ({py} x {px} pixels) is smaller than twice the image ({ny} x {nx}): "
+                f"residuals are exact only within {dy} pixels in y and {dx} in x of each "
+                f"component; farther away the PSF sidelobes beyond its edge (|PSF| up to "
                 f"{self.edge_level:.3g} at its border) are taken as zero. Give a PSF of "
-                f"{2 * ny} x {2 * nx} for an exact residual", stacklevel=2)
+                f"{2 * ny} x {2 * nx} pixels for an exact residual", stacklevel=2)
 
     @property
     def approximation(self):
@@ -90,8 +91,13 @@ class ImagePlaneOperator:
 
     def describe(self):
         """What this operator is, for reports."""
-        return {"operator": "ImagePlaneOperator", "residual": "dirty - PSF (*) model by FFT",
-                "exact": bool(self.exact)}
+        out = {"operator": "ImagePlaneOperator", "residual": "dirty - PSF (*) model by FFT",
+               "exact": bool(self.exact)}
+        if not self.exact:
+            out.update(exact_within_px=[int(v) for v in self.exact_offsets],
+                       psf_shape=[int(v) for v in self.psf.shape],
+                       psf_edge_level=self.edge_level)
+        return out
 
     def __call__(self, model):
         model = np.asarray(model, dtype=self.dtype)

@@ -11,7 +11,7 @@ import re
 
 from ._validate import NUMBER_RULES, InputError, check_number
 
-__all__ = ["RUN_OPTION_KINDS", "parse_bool", "parse_number", "parse_flux", "parse_sigma",
+__all__ = ["RUN_OPTION_KINDS", "OFF_WORDS", "parse_bool", "parse_number", "parse_flux", "parse_sigma",
            "parse_scales",
            "parse_beam", "coerce_option", "coerce_params", "option_label", "load_config"]
 
@@ -25,6 +25,9 @@ RUN_OPTION_KINDS = {
     "threads": "integer", "beam": "beam", "plots": "bool", "overwrite": "bool",
     "nonfinite": ("refuse", "mask"),
 }
+
+#: Words that turn the noise stop off (``--noise-threshold off``, ``noise_threshold = "off"``).
+OFF_WORDS = ("off", "none", "no", "false")
 
 _TRUE = {"true", "yes", "on", "1"}
 _FALSE = {"false", "no", "off", "0"}
@@ -102,8 +105,14 @@ def parse_flux(value, label):
     _fail(label, value, "give a flux density in Jy/beam such as 1e-4, 0.1mJy or 100uJy")
 
 
-def parse_sigma(value, label):
-    """A multiple of the robust noise: a number, or a number followed by "sigma"."""
+def parse_sigma(value, label, *, allow_off=False):
+    """A multiple of the robust noise: a number, or a number followed by "sigma".
+
+    With ``allow_off``, one of `OFF_WORDS` (or False) gives None: no noise stop.
+    """
+    if allow_off and (value is False or (isinstance(value, str)
+                                         and value.strip().lower() in OFF_WORDS)):
+        return None
     if not isinstance(value, str):
         return value
     number, unit = _split_value(value)
@@ -113,7 +122,8 @@ def parse_sigma(value, label):
         where = "--threshold" if label.startswith("--") else "threshold"
         _fail(label, value, f"a flux density goes in the absolute threshold: use {where} "
                             f"{value.strip()} (this option is a multiple of the noise, e.g. 3)")
-    _fail(label, value, "give a multiple of the robust noise such as 3 (or 3sigma)")
+    _fail(label, value, "give a multiple of the robust noise such as 3 (or 3sigma)" +
+          (", or off for no noise stop" if allow_off else ""))
 
 
 def _angle_token(token, label, given):
@@ -229,7 +239,9 @@ def coerce_option(name, value, source=None):
     if kind == "flux":
         value = parse_flux(value, label)
     elif kind == "sigma":
-        value = parse_sigma(value, label)
+        value = parse_sigma(value, label, allow_off=name == "noise_threshold")
+        if value is None:
+            return None
     else:
         value = parse_number(value, label, integer=kind == "integer")
     rule = dict(NUMBER_RULES.get(name, {}))

@@ -17,7 +17,8 @@ from .beam import Beam
 from .fitsio import check_same_grid, read_image, read_shape
 from .options import RUN_OPTION_KINDS
 
-__all__ = ["BEAM_MIN_PIXELS", "OUTPUT_NAMES", "prepare_out", "plan_from_headers",
+__all__ = ["BEAM_MIN_PIXELS", "OUTPUT_NAMES", "prepare_out", "previous_outputs",
+           "plan_from_headers",
            "build_mask", "check_mask_grid", "check_units", "restoring_beam",
            "resume_inputs", "initial_model"]
 
@@ -140,6 +141,33 @@ def prepare_out(out_dir, names, overwrite, label):
     if clash:
         raise FileExistsError(f"{clash[0]} exists; choose another output directory or "
                               "pass --overwrite (overwrite=True)")
+
+
+def previous_outputs(out_dir):
+    """skyscale's own outputs already in ``out_dir``: candidates for removal on overwrite.
+
+    The files of `OUTPUT_NAMES` that exist, and those the folder's ``report.json`` lists
+    as its run's outputs (for example the ``dirty.fits`` of a visibility run) when they
+    lie in the folder itself.  Nothing else: a user's own files are never listed.
+    """
+    import json
+    found = [os.path.join(out_dir, n) for n in OUTPUT_NAMES.values()
+             if os.path.isfile(os.path.join(out_dir, n))]
+    try:
+        with open(os.path.join(out_dir, OUTPUT_NAMES["report"]), encoding="utf-8") as fh:
+            listed = json.load(fh)["extra"]["outputs"].values()
+    except (OSError, ValueError, KeyError, TypeError, AttributeError):
+        listed = ()
+    here = os.path.realpath(out_dir)
+    for path in listed:
+        if not isinstance(path, str):
+            continue
+        name = os.path.basename(path)
+        local = os.path.join(out_dir, name)
+        if os.path.realpath(os.path.dirname(os.path.abspath(path))) == here and \
+                os.path.isfile(local) and local not in found:
+            found.append(local)
+    return found
 
 
 def plan_from_headers(dirty_path, psf_path, params):
