@@ -102,6 +102,7 @@ def test_written_table_has_one_row_per_pixel_and_scale(run):
     assert counts.max() > 1                      # the bright point source is hit repeatedly
     rows = list(csv.DictReader(open(path)))
     assert len(rows) == pairs.shape[1] < comps.size
+    assert report["final"]["component_table_rows"] == len(rows)
     # Read as a pipeline would: numpy and astropy.table see the same columns.
     arr = np.genfromtxt(path, delimiter=",", names=True, dtype=None, encoding="utf-8")
     tab = Table.read(path, format="ascii.csv")

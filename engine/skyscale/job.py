@@ -369,11 +369,13 @@ def _write_outputs(result, dirty, psf, names, record, start, end, plan, reasons,
         except ImportError as exc:
             result.warnings.append(f"figures skipped: {exc}")
     from .report import build_report, write_report
-    extra = {"start": start.isoformat(), "end": end.isoformat(), "outputs": written,
+    extra = {"outputs": written,
              "plan": plan.as_dict() if hasattr(plan, "as_dict") else dict(plan)}
     if reasons:
         extra["scale_reasons"] = reasons
     report = build_report(result, inputs=inputs, parameters=record, cell_arcsec=cell,
-                          threads=record["threads"], extra=extra, major_cycle=major)
+                          threads=record["threads"], extra=extra, major_cycle=major,
+                          started=start, deconvolved=end,
+                          finished=_dt.datetime.now(_dt.timezone.utc))
     written["report"] = write_report(names["report"], report, overwrite=ow)
     return written, report

@@ -8,6 +8,11 @@ become ``None`` so that the file is strict JSON that any reader accepts.
 The report holds summaries, not images: per-cycle history, per-scale counts and
 flux, final residual statistics and the restoring beam.  The component table and the
 images belong in their own files (FITS).
+
+Every figure carries its unit: in its key (``_px``, ``_arcsec``, ``_deg``, ``_jy``,
+``_s``), beside it (``unit``) or, for the per-cycle history, in the report's ``units``.
+A None (JSON null) means "not applicable" (no mask, no cell size); where a default
+stood for a value (all cores, the emission mask's sigma) the value used is recorded.
 """
 
 import dataclasses
@@ -27,14 +32,50 @@ from collections.abc import Mapping
 import numpy as np
 
 from ._atomic import atomic_write_bytes
+from .component_table import merge_components
 
 __all__ = ["REPORT_SCHEMA_VERSION", "build_report", "file_sha256", "write_report", "beam_record",
-           "machine_record", "software_record", "plain_json"]
+           "machine_record", "software_record", "plain_json", "threads_in_effect",
+           "REPORT_UNITS"]
 
 log = logging.getLogger(__name__)
 
 #: Version of the report layout; raised whenever a key is renamed or removed.
-REPORT_SCHEMA_VERSION = 1
+#: 2: ``per_scale`` rows say ``scale_px`` and ``flux_jy`` (were ``scale``, ``flux``).
+REPORT_SCHEMA_VERSION = 2
+
+#: Units of the report's figures whose key does not name one (``units`` in the report).
+REPORT_UNITS = {
+    "image.shape": "pixel (ny, nx)",
+    "history.peak": "Jy/beam (peak |residual| where the run measured it: in the mask "
+                    "when there is one, and where the residual is exact)",
+    "history.rms": "Jy/beam (same region as history.peak)",
+    "history.flux": "Jy (total model flux)",
+    "history.scale_peaks": "Jy/beam, one per scale in the order of scales.pixels",
+    "history.components": "count (cumulative)",
+    "history.minor_iterations": "count",
+    "final.components": "count of iterations (components.csv merges those at the same "
+                        "pixel and scale)",
+    "final.component_table_rows": "count of rows of components.csv (one per pixel and "
+                                  "scale)",
+    "per_scale.components": "count of iterations",
+    "per_scale.flux_fraction": "fraction of the total model flux",
+    "stop.sub_loops": "count",
+    "machine.threads": "threads (the Numba kernels' count in effect)",
+}
+
+#: Where each timing of ``timings_s`` was spent.
+_TIMING_NOTES = {
+    "precompute": "scale beams and their transforms (inside the deconvolution)",
+    "minor": "minor cycles",
+    "major": "major cycles: the residual recomputed from the model",
+    "other": "everything else from the start to the end of the deconvolution: reading "
+             "and checking the inputs, planning, set-up, noise measurements and mask "
+             "updates between cycles, restoring",
+    "outputs": "writing the images, the component table and the figures "
+               "(report.json itself is written after)",
+    "total": "start to end of the run: precompute + minor + major + other + outputs",
+}
 
 #: Distributions whose versions the report records (looked up, never imported).
 _DEPENDENCIES = ("numpy", "numba", "scipy", "astropy", "pyfftw", "rich",
@@ -133,6 +174,42 @@ def machine_record(threads):
             "threads": threads}
 
 
+def threads_in_effect(engine):
+    """Threads a run's engine used: Numba's count and its FFT backend's.
+
+    Parameters
+    ----------
+    engine : skyscale.minor.Engine
+        The engine of the run (``threads`` as requested, ``fft`` its backend).
+
+    Returns
+    -------
+    dict
+        ``numba`` (the count `skyscale._threads.thread_limit` sets for the kernels),
+        ``fft_backend`` (``'pyfftw'``, ``'numpy'`` or the injected backend's name) and
+        ``fft_threads`` (numpy.fft runs on one thread; None when a backend does not say).
+    """
+    from ._threads import resolve_threads
+    fft = engine.fft
+    name = str(getattr(fft, "name", type(fft).__name__))
+    n = 1 if name == "numpy" else getattr(fft, "threads", None)
+    return {"numba": int(resolve_threads(engine.threads)), "fft_backend": name,
+            "fft_threads": None if n is None else int(n)}
+
+
+def _threads_record(result, threads, parameters):
+    """The threads in effect (from the result, else the caller's count) and the request."""
+    requested = parameters.get("threads")
+    out = {"requested": "all cores (not set)" if requested is None else plain_json(requested)}
+    used = getattr(result, "threads", None)
+    if isinstance(used, Mapping):
+        out.update(plain_json(dict(used)))
+    else:
+        out["numba"] = threads if threads is not None else machine_record(None)["threads"]
+        out["fft_backend"] = out["fft_threads"] = "not recorded"
+    return out
+
+
 def _check_result(result):
     needed = ("model", "residual", "components", "stop_reason", "history", "scales")
     missing = [name for name in needed if not hasattr(result, name)]
@@ -183,19 +260,20 @@ def _check_inputs(inputs):
 
 def _per_scale(result, cell):
     """Per-scale counts and flux, including any scale found only in the table."""
-    rows = [dict(row, listed=True) for row in result.per_scale()]
+    rows = [{"scale_px": row["scale"], "components": row["components"],
+             "flux_jy": row["flux"], "listed": True} for row in result.per_scale()]
     comps = result.components
-    listed = {np.float32(row["scale"]) for row in rows}
+    listed = {np.float32(row["scale_px"]) for row in rows}
     for s in np.unique(comps["scale"]) if len(comps) else ():
         if np.float32(s) not in listed:                   # inconsistent, but report it
             sel = comps["scale"] == s
-            rows.append({"scale": float(s), "components": int(sel.sum()),
-                         "flux": float(comps["flux"][sel].sum()), "listed": False})
+            rows.append({"scale_px": float(s), "components": int(sel.sum()),
+                         "flux_jy": float(comps["flux"][sel].sum()), "listed": False})
     total = float(np.sum(comps["flux"])) if len(comps) else 0.0
     for row in rows:
-        row["flux_fraction"] = row["flux"] / total if total != 0.0 else None
+        row["flux_fraction"] = row["flux_jy"] / total if total != 0.0 else None
         if cell is not None:
-            row["scale_arcsec"] = row["scale"] * cell
+            row["scale_arcsec"] = row["scale_px"] * cell
     return rows
 
 
@@ -218,23 +296,93 @@ def _residual_stats(result):
         peak = float(np.max(np.abs(values)))
         rms = float(np.sqrt(np.mean(values * values)))
     noise = robust_noise(residual, mask if region == "mask" else None)
+    whole = residual[np.isfinite(residual)]
+    where = (f"inside the mask ({int(mask.sum())} pixels)" if region == "mask"
+             else "the whole image (no mask)")
     return {"peak_residual": peak, "rms_residual": rms, "region": region,
+            "measured_in": where,
+            "peak_residual_image": float(np.max(np.abs(whole))) if whole.size else None,
             "robust_noise": noise, "unit": "Jy/beam"}
 
 
-def beam_record(beam, cell):
+def beam_record(beam, cell, source=None):
+    """A restoring beam's FWHMs (pixels, and arcsec with a cell size), angle and area.
+
+    ``pa_deg`` is measured from +y (north) towards -x (east), as `skyscale.beam.Beam`;
+    ``source`` (optional text) says where the beam came from.
+    """
     if beam is None:
         return None
     major, minor, pa = float(beam.major), float(beam.minor), float(beam.pa)
     out = {"major_px": major, "minor_px": minor, "pa_deg": pa,
+           "pa_from": "+y (north) towards -x (east)",
            "area_px": _GAUSS_AREA * major * minor}
     if cell is not None:
         out["major_arcsec"] = major * cell
         out["minor_arcsec"] = minor * cell
+        out["area_arcsec2"] = out["area_px"] * cell * cell
+    if source is not None:
+        out["source"] = str(source)
     return out
 
 
-def _scale_noise(result):
+def _scales_record(result, cell, requested_unit):
+    """The scales used: pixels, arcsec (with the cell size) and the unit they were given in."""
+    pixels = [float(s) for s in result.scales]
+    return {"pixels": pixels,
+            "arcsec": [s * cell for s in pixels] if cell is not None else None,
+            "cell_arcsec": cell,
+            "requested_unit": "pixel" if requested_unit is None else str(requested_unit)}
+
+
+def _emission_mask_record(result, cell):
+    """The emission mask's detection level: sigma multiple and, per scale, Jy/beam."""
+    em = getattr(result, "emission_mask", None)
+    if em is None or not hasattr(em, "sigma"):
+        return {"used": False}
+    sigma = float(em.sigma)
+    fraction = float(getattr(em, "smooth_fraction", float("nan")))
+    rows = []
+    for s, n in sorted((getattr(em, "noise", None) or {}).items()):
+        row = {"scale_px": float(s), "smoothing_fwhm_px": fraction * float(s),
+               "noise_jy_per_beam": float(n), "level_jy_per_beam": sigma * float(n)}
+        if cell is not None:
+            row["scale_arcsec"] = float(s) * cell
+        rows.append(row)
+    mask = getattr(result, "mask", None)
+    return {"used": True, "sigma": sigma,
+            "sigma_unit": "multiples of the robust noise of the residual smoothed at each scale",
+            "per_scale": rows,
+            "levels_measured": "at the last mask update (after the last accepted major cycle)"
+            if rows else "not measured: the mask was never updated",
+            "beam_fwhm_px": plain_json(getattr(em, "beam_fwhm_px", None)),
+            "grow_beams": plain_json(getattr(em, "grow_beams", None)),
+            "min_island_beams": plain_json(getattr(em, "min_island_beams", None)),
+            "mask_pixels": None if mask is None else int(np.count_nonzero(mask))}
+
+
+def _seconds(a, b):
+    return max(0.0, (b - a).total_seconds())
+
+
+def _timings(result, started, deconvolved, finished):
+    """Cycle timings, and with the clock times the rest of the run, adding up to the total."""
+    timings = {k: float(v) for k, v in (getattr(result, "timings", None) or {}).items()}
+    notes = {k: _TIMING_NOTES[k] for k in timings if k in _TIMING_NOTES}
+    if started is None or finished is None:
+        notes["total"] = "not recorded (the caller gave no start and end time)"
+        return timings, notes
+    total = _seconds(started, finished)
+    if deconvolved is not None:
+        inside = sum(timings.get(k, 0.0) for k in ("precompute", "minor", "major"))
+        timings["other"] = max(0.0, _seconds(started, deconvolved) - inside)
+        timings["outputs"] = _seconds(deconvolved, finished)
+    timings["total"] = total
+    notes.update({k: _TIMING_NOTES[k] for k in ("other", "outputs", "total") if k in timings})
+    return timings, notes
+
+
+def _scale_noise(result, cell):
     """Per-scale noise, stop level and final peak (Jy/beam), and where noise was measured."""
     noise = getattr(result, "scale_noise", None)
     if noise is None:
@@ -244,12 +392,16 @@ def _scale_noise(result):
              "active": float(s) in active}
             for s, n, lv, p in zip(result.scales, noise, result.scale_levels,
                                    result.scale_peaks)]
+    if cell is not None:
+        for row in rows:
+            row["scale_arcsec"] = row["scale_px"] * cell
     return {"unit": "Jy/beam", "per_scale": rows,
             "measured_where": plain_json(getattr(result, "noise_region", None))}
 
 
 def build_report(result, *, inputs=None, parameters=None, cell_arcsec=None,
-                 threads=None, extra=None, major_cycle=None):
+                 threads=None, extra=None, major_cycle=None, started=None, deconvolved=None,
+                 finished=None):
     """Summarise a run as a JSON-ready dict.
 
     Parameters
@@ -264,23 +416,37 @@ def build_report(result, *, inputs=None, parameters=None, cell_arcsec=None,
     cell_arcsec : float or Quantity, optional
         Pixel size in arcseconds; adds angular scale sizes and beam widths.
     threads : int, optional
-        Threads used; default the Numba thread count if Numba is already loaded.
+        Numba threads used, when ``result.threads`` does not say (a result of
+        `skyscale.deconvolve` does); default the Numba thread count if Numba is loaded.
     extra : dict, optional
         Anything else the caller wants kept; stored under ``"extra"``.
     major_cycle : dict, optional
         Which residual operator ran the major cycles and how (for example
         ``VisibilityOperator.describe()``); stored under ``"major_cycle"``, which says
         ``{"operator": "not recorded"}`` when this is not given.
+    started, deconvolved, finished : datetime, optional
+        When the run started, when the deconvolution (restoring included) ended and
+        when the outputs were written.  With ``started`` and ``finished``,
+        ``timings_s`` gains ``total`` (and, with ``deconvolved``, ``other`` and
+        ``outputs``) so that the timings add up to the run's time.
 
     Returns
     -------
     report : dict
         Plain Python values only.  Top-level keys: ``schema_version``, ``created_utc``,
-        ``software``, ``machine``, ``inputs``, ``image``, ``parameters``, ``timings_s``,
-        ``history``, ``per_scale``, ``final``, ``stop``, ``beam``, ``warnings``,
-        ``major_cycle``, ``extra``.  ``final`` holds ``peak_residual`` and ``rms_residual`` (Jy/beam,
-        inside the mask when there is one), ``robust_noise``, ``model_flux`` (Jy),
-        ``components`` and ``major_cycles``.
+        ``software``, ``machine``, ``threads``, ``inputs``, ``image``, ``scales``,
+        ``parameters``, ``timings_s``, ``timings_about``, ``clock_utc``, ``history``,
+        ``per_scale``, ``final``, ``stop``, ``scale_noise``, ``emission_mask``,
+        ``beam``, ``warnings``, ``major_cycle``, ``units``, ``extra``.  ``final`` holds
+        ``peak_residual`` and ``rms_residual`` (Jy/beam, inside the mask when there is
+        one: ``region`` and ``measured_in`` say), ``peak_residual_image`` (the whole
+        image), ``robust_noise``, ``model_flux`` (Jy), ``components`` and
+        ``major_cycles``.  ``scales`` gives the scales in pixels and arcsec,
+        ``threads`` the Numba and FFT threads in effect, ``emission_mask`` its
+        detection level (sigma multiple and Jy/beam per scale).  In ``parameters``
+        the scales are in pixels (``scale_unit`` says so; ``scales.requested_unit``
+        keeps the unit they were given in), and ``threads`` and
+        ``emission_mask_sigma``, when unset, hold the values in effect.
 
     Raises
     ------
@@ -308,23 +474,47 @@ def build_report(result, *, inputs=None, parameters=None, cell_arcsec=None,
                         "of parameter name -> value (or None)")
 
     model = np.asarray(result.model)
+    params = plain_json(dict(parameters))
+    thread_rec = _threads_record(result, threads, params)
+    requested_unit = params.get("scale_unit")
+    listed = params.get("scales")
+    if "scale_unit" in params and isinstance(listed, list) and \
+            len(listed) == len(result.scales) and \
+            np.allclose(np.asarray(listed, dtype=float), np.asarray(result.scales, dtype=float)):
+        params["scale_unit"] = "pixel"                   # the values listed are pixels
+    if "threads" in params and params["threads"] is None and \
+            isinstance(thread_rec.get("numba"), int):
+        params["threads"] = thread_rec["numba"]
+    em = _emission_mask_record(result, cell)
+    if params.get("emission_mask_sigma", 0) is None and em["used"]:
+        params["emission_mask_sigma"] = em["sigma"]
+    timings, timing_notes = _timings(result, started, deconvolved, finished)
+    machine = machine_record(thread_rec["numba"] if isinstance(thread_rec.get("numba"), int)
+                             else threads)
     history = [plain_json(rec) for rec in result.history]
     final = _residual_stats(result)
     final.update(model_flux=float(np.sum(model, dtype=np.float64)),
                  model_flux_unit="Jy",
                  components=int(len(result.components)),
+                 component_table_rows=int(merge_components(result.components).size),
                  major_cycles=sum(1 for rec in history if rec.get("cycle", 0) > 0))
     report = {
         "schema_version": REPORT_SCHEMA_VERSION,
         "created_utc": datetime.datetime.now(datetime.timezone.utc)
                                .isoformat(timespec="seconds"),
         "software": software_record(),
-        "machine": machine_record(threads),
+        "machine": machine,
+        "threads": thread_rec,
         "inputs": inputs,
         "image": {"shape": list(model.shape), "dtype": str(model.dtype),
                   "cell_arcsec": cell},
-        "parameters": plain_json(dict(parameters)),
-        "timings_s": plain_json(dict(getattr(result, "timings", None) or {})),
+        "scales": _scales_record(result, cell, requested_unit),
+        "parameters": params,
+        "timings_s": plain_json(timings),
+        "timings_about": timing_notes,
+        "clock_utc": {name: t.isoformat() for name, t in (
+            ("start", started), ("deconvolved", deconvolved), ("outputs_written", finished))
+            if t is not None},
         "history": history,
         "per_scale": _per_scale(result, cell),
         "final": final,
@@ -335,11 +525,16 @@ def build_report(result, *, inputs=None, parameters=None, cell_arcsec=None,
                  "rollbacks": int(getattr(result, "rollbacks", 0) or 0),
                  "sub_loops": int(getattr(result, "sub_loops", 0) or 0),
                  "rejected_sub_loops": int(getattr(result, "rejected_sub_loops", 0) or 0)},
-        "scale_noise": _scale_noise(result),
-        "beam": beam_record(getattr(result, "beam", None), cell),
+        "scale_noise": _scale_noise(result, cell),
+        "emission_mask": em,
+        "beam": beam_record(getattr(result, "beam", None), cell,
+                            source=None if "beam" not in params else
+                            ("given by the user" if params["beam"] is not None
+                             else "fitted to the PSF")),
         "warnings": [str(w) for w in (getattr(result, "warnings", None) or [])],
         "major_cycle": plain_json(dict(major_cycle)) if major_cycle is not None
         else {"operator": "not recorded"},
+        "units": dict(REPORT_UNITS),
         "extra": plain_json(dict(extra)) if extra is not None else {},
     }
     log.debug("report built: %d components, %d history records",
