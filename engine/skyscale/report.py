@@ -33,6 +33,8 @@ import numpy as np
 
 from ._atomic import atomic_write_bytes
 from .component_table import merge_components
+from .report_run import (REPORT_UNITS, emission_mask_record, scales_record, threads_in_effect,
+                         timings_record)
 
 __all__ = ["REPORT_SCHEMA_VERSION", "build_report", "file_sha256", "write_report", "beam_record",
            "machine_record", "software_record", "plain_json", "threads_in_effect",
@@ -43,39 +45,6 @@ log = logging.getLogger(__name__)
 #: Version of the report layout; raised whenever a key is renamed or removed.
 #: 2: ``per_scale`` rows say ``scale_px`` and ``flux_jy`` (were ``scale``, ``flux``).
 REPORT_SCHEMA_VERSION = 2
-
-#: Units of the report's figures whose key does not name one (``units`` in the report).
-REPORT_UNITS = {
-    "image.shape": "pixel (ny, nx)",
-    "history.peak": "Jy/beam (peak |residual| where the run measured it: in the mask "
-                    "when there is one, and where the residual is exact)",
-    "history.rms": "Jy/beam (same region as history.peak)",
-    "history.flux": "Jy (total model flux)",
-    "history.scale_peaks": "Jy/beam, one per scale in the order of scales.pixels",
-    "history.components": "count (cumulative)",
-    "history.minor_iterations": "count",
-    "final.components": "count of iterations (components.csv merges those at the same "
-                        "pixel and scale)",
-    "final.component_table_rows": "count of rows of components.csv (one per pixel and "
-                                  "scale)",
-    "per_scale.components": "count of iterations",
-    "per_scale.flux_fraction": "fraction of the total model flux",
-    "stop.sub_loops": "count",
-    "machine.threads": "threads (the Numba kernels' count in effect)",
-}
-
-#: Where each timing of ``timings_s`` was spent.
-_TIMING_NOTES = {
-    "precompute": "scale beams and their transforms (inside the deconvolution)",
-    "minor": "minor cycles",
-    "major": "major cycles: the residual recomputed from the model",
-    "other": "everything else from the start to the end of the deconvolution: reading "
-             "and checking the inputs, planning, set-up, noise measurements and mask "
-             "updates between cycles, restoring",
-    "outputs": "writing the images, the component table and the figures "
-               "(report.json itself is written after)",
-    "total": "start to end of the run: precompute + minor + major + other + outputs",
-}
 
 #: Distributions whose versions the report records (looked up, never imported).
 _DEPENDENCIES = ("numpy", "numba", "scipy", "astropy", "pyfftw", "rich",
@@ -172,29 +141,6 @@ def machine_record(threads):
             "python_implementation": platform.python_implementation(),
             "cpu_count": os.cpu_count(), "cpu_count_usable": usable,
             "threads": threads}
-
-
-def threads_in_effect(engine):
-    """Threads a run's engine used: Numba's count and its FFT backend's.
-
-    Parameters
-    ----------
-    engine : skyscale.minor.Engine
-        The engine of the run (``threads`` as requested, ``fft`` its backend).
-
-    Returns
-    -------
-    dict
-        ``numba`` (the count `skyscale._threads.thread_limit` sets for the kernels),
-        ``fft_backend`` (``'pyfftw'``, ``'numpy'`` or the injected backend's name) and
-        ``fft_threads`` (numpy.fft runs on one thread; None when a backend does not say).
-    """
-    from ._threads import resolve_threads
-    fft = engine.fft
-    name = str(getattr(fft, "name", type(fft).__name__))
-    n = 1 if name == "numpy" else getattr(fft, "threads", None)
-    return {"numba": int(resolve_threads(engine.threads)), "fft_backend": name,
-            "fft_threads": None if n is None else int(n)}
 
 
 def _threads_record(result, threads, parameters):
@@ -326,62 +272,6 @@ def beam_record(beam, cell, source=None):
     return out
 
 
-def _scales_record(result, cell, requested_unit):
-    """The scales used: pixels, arcsec (with the cell size) and the unit they were given in."""
-    pixels = [float(s) for s in result.scales]
-    return {"pixels": pixels,
-            "arcsec": [s * cell for s in pixels] if cell is not None else None,
-            "cell_arcsec": cell,
-            "requested_unit": "pixel" if requested_unit is None else str(requested_unit)}
-
-
-def _emission_mask_record(result, cell):
-    """The emission mask's detection level: sigma multiple and, per scale, Jy/beam."""
-    em = getattr(result, "emission_mask", None)
-    if em is None or not hasattr(em, "sigma"):
-        return {"used": False}
-    sigma = float(em.sigma)
-    fraction = float(getattr(em, "smooth_fraction", float("nan")))
-    rows = []
-    for s, n in sorted((getattr(em, "noise", None) or {}).items()):
-        row = {"scale_px": float(s), "smoothing_fwhm_px": fraction * float(s),
-               "noise_jy_per_beam": float(n), "level_jy_per_beam": sigma * float(n)}
-        if cell is not None:
-            row["scale_arcsec"] = float(s) * cell
-        rows.append(row)
-    mask = getattr(result, "mask", None)
-    return {"used": True, "sigma": sigma,
-            "sigma_unit": "multiples of the robust noise of the residual smoothed at each scale",
-            "per_scale": rows,
-            "levels_measured": "at the last mask update (after the last accepted major cycle)"
-            if rows else "not measured: the mask was never updated",
-            "beam_fwhm_px": plain_json(getattr(em, "beam_fwhm_px", None)),
-            "grow_beams": plain_json(getattr(em, "grow_beams", None)),
-            "min_island_beams": plain_json(getattr(em, "min_island_beams", None)),
-            "mask_pixels": None if mask is None else int(np.count_nonzero(mask))}
-
-
-def _seconds(a, b):
-    return max(0.0, (b - a).total_seconds())
-
-
-def _timings(result, started, deconvolved, finished):
-    """Cycle timings, and with the clock times the rest of the run, adding up to the total."""
-    timings = {k: float(v) for k, v in (getattr(result, "timings", None) or {}).items()}
-    notes = {k: _TIMING_NOTES[k] for k in timings if k in _TIMING_NOTES}
-    if started is None or finished is None:
-        notes["total"] = "not recorded (the caller gave no start and end time)"
-        return timings, notes
-    total = _seconds(started, finished)
-    if deconvolved is not None:
-        inside = sum(timings.get(k, 0.0) for k in ("precompute", "minor", "major"))
-        timings["other"] = max(0.0, _seconds(started, deconvolved) - inside)
-        timings["outputs"] = _seconds(deconvolved, finished)
-    timings["total"] = total
-    notes.update({k: _TIMING_NOTES[k] for k in ("other", "outputs", "total") if k in timings})
-    return timings, notes
-
-
 def _scale_noise(result, cell):
     """Per-scale noise, stop level and final peak (Jy/beam), and where noise was measured."""
     noise = getattr(result, "scale_noise", None)
@@ -485,10 +375,10 @@ def build_report(result, *, inputs=None, parameters=None, cell_arcsec=None,
     if "threads" in params and params["threads"] is None and \
             isinstance(thread_rec.get("numba"), int):
         params["threads"] = thread_rec["numba"]
-    em = _emission_mask_record(result, cell)
+    em = emission_mask_record(result, cell)
     if params.get("emission_mask_sigma", 0) is None and em["used"]:
         params["emission_mask_sigma"] = em["sigma"]
-    timings, timing_notes = _timings(result, started, deconvolved, finished)
+    timings, timing_notes = timings_record(result, started, deconvolved, finished)
     machine = machine_record(thread_rec["numba"] if isinstance(thread_rec.get("numba"), int)
                              else threads)
     history = [plain_json(rec) for rec in result.history]
@@ -508,7 +398,7 @@ def build_report(result, *, inputs=None, parameters=None, cell_arcsec=None,
         "inputs": inputs,
         "image": {"shape": list(model.shape), "dtype": str(model.dtype),
                   "cell_arcsec": cell},
-        "scales": _scales_record(result, cell, requested_unit),
+        "scales": scales_record(result, cell, requested_unit),
         "parameters": params,
         "timings_s": plain_json(timings),
         "timings_about": timing_notes,
