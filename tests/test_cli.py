@@ -98,7 +98,8 @@ def test_run_with_options_and_config(tmp_path):
     assert rep["final"]["components"] <= 30
     assert not (out / "panels.png").exists()
     rows = (out / "components.csv").read_text().splitlines()
-    assert rows[0].split(",") == ["y", "x", "ra_deg", "dec_deg", "scale_px", "flux_jy"]
+    assert rows[0].split(",") == ["y", "x", "ra_deg", "dec_deg", "scale_px", "scale_arcsec",
+                                  "flux_jy", "merged_iterations"]
 
 
 @pytest.mark.parametrize("argv, text", [

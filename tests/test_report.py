@@ -13,7 +13,7 @@ import types
 import numpy as np
 import pytest
 
-from skyscale.report import (REPORT_SCHEMA_VERSION, build_report, file_sha256,
+from skyscale.report import (REPORT_SCHEMA_VERSION, REPORT_UNITS, build_report, file_sha256,
                              write_report)
 from skyscale.result import CycleRecord, DeconvolutionResult, empty_components
 
@@ -131,12 +131,12 @@ def test_per_scale_counts_match_the_component_table():
     comps = result.components
     # Reference: numpy.unique on the component table itself.
     scales, counts = np.unique(comps["scale"], return_counts=True)
-    assert {r["scale"]: r["components"] for r in rows} == dict(zip(scales.tolist(),
+    assert {r["scale_px"]: r["components"] for r in rows} == dict(zip(scales.tolist(),
                                                                    counts.tolist()))
     for row in rows:
-        sel = comps["scale"] == np.float32(row["scale"])
-        assert math.isclose(row["flux"], float(comps["flux"][sel].sum()))
-        assert row["scale_arcsec"] == pytest.approx(row["scale"] * 2.0)
+        sel = comps["scale"] == np.float32(row["scale_px"])
+        assert math.isclose(row["flux_jy"], float(comps["flux"][sel].sum()))
+        assert row["scale_arcsec"] == pytest.approx(row["scale_px"] * 2.0)
         assert row["listed"] is True
     assert sum(r["flux_fraction"] for r in rows) == pytest.approx(1.0)
 
@@ -187,7 +187,7 @@ def test_empty_run():
     result = DeconvolutionResult(np.zeros((4, 4)), np.zeros((4, 4)), empty_components(),
                                  "empty_mask", scales=(0.0,))
     report = build_report(result)
-    assert report["per_scale"] == [{"scale": 0.0, "components": 0, "flux": 0.0,
+    assert report["per_scale"] == [{"scale_px": 0.0, "components": 0, "flux_jy": 0.0,
                                     "listed": True, "flux_fraction": None}]
     assert report["final"]["components"] == 0 and report["history"] == []
     json.dumps(report, allow_nan=False)
@@ -248,3 +248,159 @@ def test_write_report_round_trip_and_refuses_overwrite(tmp_path):
 def test_write_report_missing_folder(tmp_path):
     with pytest.raises(FileNotFoundError, match="folder"):
         write_report(tmp_path / "nope" / "report.json", {})
+
+
+# --- what a user reads in a run's report: values used, with units ---------------------
+
+def test_timings_add_up_to_the_run():
+    import datetime as dt
+    t0 = dt.datetime(2026, 1, 1, tzinfo=dt.timezone.utc)
+    result = make_result()                          # precompute 0.01, minor 0.2, major 0.05
+    report = build_report(result, started=t0, deconvolved=t0 + dt.timedelta(seconds=2),
+                          finished=t0 + dt.timedelta(seconds=3.5))
+    tm = report["timings_s"]
+    # Reference: datetime arithmetic (standard library) on the clock times given.
+    assert tm["total"] == pytest.approx(3.5)
+    assert tm["outputs"] == pytest.approx(1.5)
+    assert tm["other"] == pytest.approx(2.0 - 0.26)
+    parts = ("precompute", "minor", "major", "other", "outputs")
+    assert math.fsum(tm[k] for k in parts) == pytest.approx(tm["total"])
+    assert set(report["timings_about"]) == set(tm)
+    assert report["clock_utc"]["start"] == t0.isoformat()
+    # Without clock times the report says the total is not recorded (no silent gap).
+    bare = build_report(result)
+    assert "total" not in bare["timings_s"] and "not recorded" in bare["timings_about"]["total"]
+
+
+def test_threads_and_units_are_recorded_for_a_bare_result():
+    report = build_report(make_result(), threads=3, parameters={"threads": None})
+    assert report["threads"]["numba"] == 3 and report["machine"]["threads"] == 3
+    assert report["parameters"]["threads"] == 3          # the count in effect, not null
+    assert report["threads"]["requested"].startswith("all cores")
+    for key in REPORT_UNITS:                             # every unit names a real field
+        section, field = key.split(".")
+        assert section in report
+
+
+def test_summary_labels_where_the_peak_is_measured_and_gives_arcsec(monkeypatch):
+    import io
+
+    import astropy.units as u
+    from rich.console import Console
+
+    from skyscale import console
+
+    buf = io.StringIO()
+    monkeypatch.setattr(console, "_out", Console(file=buf, width=200, highlight=False))
+    result = make_result()
+    result.beam.major = 5.0
+    report = build_report(result, cell_arcsec=0.5)
+    console.summary(result, {"components": "c.csv"}, report, 1.0)
+    text = buf.getvalue()
+    # Reference: astropy.units with a 0.5 arcsec/pixel scale: 5 px = 2.5 arcsec, 3 px = 1.5.
+    scale = u.pixel_scale(0.5 * u.arcsec / u.pixel)
+    major = (5.0 * u.pixel).to_value(u.arcsec, scale)
+    minor = (3.0 * u.pixel).to_value(u.arcsec, scale)
+    assert f"5 x 3 px = {major:.3g} x {minor:.3g} arcsec" in text
+    assert f"4, {(4.0 * u.pixel).to_value(u.arcsec, scale):.3g}" in text   # scale 4 px
+    assert "peak residual (in the mask)" in text and "0.07 Jy/beam" in text
+    assert "peak residual (whole image)" in text and "0.2 Jy/beam" in text
+    assert "rows: the 9 components merged by pixel and scale" in text
+    buf = io.StringIO()
+    monkeypatch.setattr(console, "_out", Console(file=buf, width=200, highlight=False))
+    bare = make_result(with_mask=False)
+    console.summary(bare, {}, build_report(bare), 1.0)
+    text = buf.getvalue()
+    assert "peak residual (whole image)" in text and "0.2 Jy/beam" in text
+    assert "peak residual (in the mask)" not in text and "arcsec" not in text
+
+
+@pytest.fixture(scope="module")
+def small_runs(tmp_path_factory):
+    from smallfits import write_small_pair
+
+    from skyscale.job import run_files
+    folder = tmp_path_factory.mktemp("report_runs")
+    dirty, psf = write_small_pair(str(folder))
+    runs = {}
+    for name, params in (("arcsec", {"scales": "0,8arcsec", "emission_mask": True}),
+                         ("one_thread", {"scales": [0, 4], "emission_mask": True,
+                                         "emission_mask_sigma": 7.0, "threads": 1})):
+        params = dict(params, max_components=200, noise_threshold=3.0, plots=False)
+        runs[name] = run_files(dirty, psf, str(folder / name), params) + (str(folder / name),)
+    return dirty, runs
+
+
+def test_report_of_a_run_gives_scales_and_beam_in_pixels_and_arcsec(small_runs):
+    import astropy.units as u
+    from astropy.io import fits
+    from astropy.wcs import WCS
+    from astropy.wcs.utils import proj_plane_pixel_scales
+
+    dirty, runs = small_runs
+    result, _, report, out = runs["arcsec"]
+    # Reference: the cell size from astropy's WCS of the dirty image, and astropy.units.
+    cell = (proj_plane_pixel_scales(WCS(fits.getheader(dirty))) * u.deg).to_value(u.arcsec)
+    assert cell[0] == pytest.approx(cell[1])
+    scale = u.pixel_scale(cell[0] * u.arcsec / u.pixel)
+    rep = json.load(open(os.path.join(out, "report.json")))
+    assert rep == json.loads(json.dumps(report))
+    assert rep["image"]["cell_arcsec"] == pytest.approx(cell[0])
+    assert rep["scales"]["pixels"] == pytest.approx([0.0, (8 * u.arcsec).to_value(u.pixel,
+                                                                                 scale)])
+    assert rep["scales"]["arcsec"] == pytest.approx([0.0, 8.0])
+    assert rep["scales"]["requested_unit"] == "arcsec"
+    # The parameters list pixels and now say so (they said 'arcsec' beside pixels).
+    assert rep["parameters"]["scale_unit"] == "pixel"
+    assert rep["parameters"]["scales"] == pytest.approx(rep["scales"]["pixels"])
+    beam = rep["beam"]
+    assert beam["major_arcsec"] == pytest.approx(
+        (beam["major_px"] * u.pixel).to_value(u.arcsec, scale))
+    assert beam["area_arcsec2"] == pytest.approx(
+        beam["area_px"] * (1 * u.pixel).to_value(u.arcsec, scale) ** 2)
+    assert beam["source"] == "fitted to the PSF"
+    assert [r["scale_arcsec"] for r in rep["per_scale"]] == pytest.approx([0.0, 8.0])
+    # The peak residual says where it was measured, and the whole image's is beside it.
+    residual = fits.getdata(os.path.join(out, "residual.fits")).astype(np.float64)
+    mask = fits.getdata(os.path.join(out, "mask.fits")) > 0
+    final = rep["final"]
+    assert final["region"] == "mask" and str(int(mask.sum())) in final["measured_in"]
+    assert final["peak_residual"] == pytest.approx(float(np.abs(residual[mask]).max()))
+    assert final["peak_residual_image"] == pytest.approx(float(np.abs(residual).max()))
+
+
+def test_report_of_a_run_gives_the_threads_and_mask_level_in_effect(small_runs):
+    import numba
+
+    _, runs = small_runs
+    for name, requested, sigma in (("arcsec", None, 5.0), ("one_thread", 1, 7.0)):
+        result, _, rep, out = runs[name]
+        threads = rep["threads"]
+        # Reference: numba's own thread count (NUMBA_NUM_THREADS is what "all cores"
+        # means to numba), and FFTW's default of one thread per CPU (os.cpu_count).
+        expect = numba.config.NUMBA_NUM_THREADS if requested is None else requested
+        assert threads["numba"] == expect == rep["parameters"]["threads"]
+        assert rep["machine"]["threads"] == expect
+        if threads["fft_backend"] == "pyfftw":
+            assert threads["fft_threads"] == (os.cpu_count() if requested is None
+                                              else requested)
+        else:
+            assert threads["fft_backend"] == "numpy" and threads["fft_threads"] == 1
+        # The emission mask's level: the sigma used (EmissionMask's documented default
+        # 5, or the option) and, per scale, the level in Jy/beam = sigma x noise.
+        em = rep["emission_mask"]
+        assert em["used"] is True and em["sigma"] == sigma
+        assert rep["parameters"]["emission_mask_sigma"] == sigma
+        assert [r["scale_px"] for r in em["per_scale"]] == pytest.approx(result.scales)
+        for row in em["per_scale"]:
+            assert row["level_jy_per_beam"] == pytest.approx(sigma * row["noise_jy_per_beam"])
+        # The unsmoothed scale's noise against astropy's MAD-based standard deviation of
+        # the final residual outside the mask (Rousseeuw & Croux 1993: 1.4826 MAD).
+        from astropy.stats import mad_std
+        outside = result.residual[~result.mask].astype(np.float64)
+        assert em["per_scale"][0]["noise_jy_per_beam"] == pytest.approx(mad_std(outside),
+                                                                        rel=0.15)
+        assert em["mask_pixels"] == int(result.mask.sum())
+        tm = rep["timings_s"]
+        assert math.fsum(tm[k] for k in ("precompute", "minor", "major", "other",
+                                         "outputs")) == pytest.approx(tm["total"])

@@ -219,47 +219,86 @@ def cube_summary(result):
         _out.print(f"  {kind:12s} {path}")
 
 
+def _beam_text(beam, cell):
+    """A restoring beam in pixels and, with a cell size, in arcsec."""
+    text = f"{beam.major:.3g} x {beam.minor:.3g} px"
+    if cell:
+        text += f" = {beam.major * cell:.3g} x {beam.minor * cell:.3g} arcsec"
+    return text + f", PA {beam.pa:.1f} deg"
+
+
 def summary(result, written, report, elapsed):
-    """The end-of-run tables: per-scale components and flux, residual, timings, outputs."""
-    t = Table(title="components per scale")
-    t.add_column("scale (px)", justify="right")
+    """The end-of-run tables: per-scale components and flux, residual, timings, outputs.
+
+    Scales and the beam are given in pixels and, where the report has a cell size, in
+    arcsec; the peak residual says where it was measured (``report['final']``).
+    """
+    report = report or {}
+    cell = (report.get("image") or {}).get("cell_arcsec")
+    levels = getattr(result, "scale_levels", None)
+    t = Table(title="components per scale" + (" (noise, stop level and peak left in "
+                                              "Jy/beam)" if levels is not None else ""))
+    t.add_column("scale (px, arcsec)" if cell else "scale (px)", justify="right")
     t.add_column("components", justify="right")
     t.add_column("flux (Jy)", justify="right")
-    levels = getattr(result, "scale_levels", None)
     if levels is not None:
-        t.add_column("noise (Jy/beam)", justify="right")
+        t.add_column("noise", justify="right")
         t.add_column("stop level", justify="right")
         t.add_column("peak left", justify="right")
     for i, row in enumerate(result.per_scale()):
-        cells = [f"{row['scale']:g}", str(row["components"]), f"{row['flux']:.5g}"]
+        scale = f"{row['scale']:g}" + (f", {row['scale'] * cell:.3g}" if cell else "")
+        cells = [scale, str(row["components"]), f"{row['flux']:.5g}"]
         if levels is not None:
             peak = result.scale_peaks[i]
             cells += [f"{result.scale_noise[i]:.3g}", f"{levels[i]:.3g}",
                       f"{peak:.3g}" + (" (active)" if result.scales[i] in
                                         (result.active_scales or ()) else "")]
         t.add_row(*cells)
-    t.add_row("all", str(result.components.size), f"{float(result.model.sum()):.5g}")
+    t.add_row("all", str(result.components.size),
+              f"{float(result.model.sum()):.5g}")
     _out.print(t)
     last = result.history[-1]
+    final = report.get("final") or {}
     s = Table(title="run", show_header=False)
     s.add_column("what")
     s.add_column("value")
     s.add_row("stop reason", f"{result.stop_reason}: {stop_words(result, report)}")
     s.add_row("major cycles", f"{len(result.history) - 1} ({getattr(result, 'sub_loops', 0)} "
               f"sub-loops, {getattr(result, 'rollbacks', 0)} rollbacks)")
-    s.add_row("peak residual", f"{last.peak:.4g} Jy/beam")
-    s.add_row("rms residual", f"{last.rms:.4g} Jy/beam")
+    if final.get("peak_residual") is not None:
+        inside = final.get("region") == "mask"
+        where = "in the mask" if inside else "whole image"
+        s.add_row(f"peak residual ({where})", f"{final['peak_residual']:.4g} Jy/beam")
+        if inside and final.get("peak_residual_image") is not None:
+            s.add_row("peak residual (whole image)",
+                      f"{final['peak_residual_image']:.4g} Jy/beam")
+        s.add_row(f"rms residual ({where})", f"{final['rms_residual']:.4g} Jy/beam")
+    else:                                   # no report: the last cycle's own figures
+        where = "in the mask" if result.mask is not None else "whole image"
+        s.add_row(f"peak residual ({where})", f"{last.peak:.4g} Jy/beam")
+        s.add_row(f"rms residual ({where})", f"{last.rms:.4g} Jy/beam")
     if result.beam is not None:
-        b = result.beam
-        s.add_row("restoring beam", f"{b.major:.3g} x {b.minor:.3g} px, PA {b.pa:.1f} deg")
-    tm = result.timings
-    s.add_row("time", f"precompute {tm.get('precompute', 0):.2f} s, minor {tm.get('minor', 0):.2f} s,"
-              f" major {tm.get('major', 0):.2f} s, total {elapsed:.2f} s")
+        s.add_row("restoring beam", _beam_text(result.beam, cell))
+    tm = report.get("timings_s") or result.timings
+    total = tm.get("total", elapsed)
+    parts = [f"{k} {tm[k]:.2f} s" for k in ("precompute", "minor", "major", "other", "outputs")
+             if k in tm]
+    s.add_row("time", ", ".join(parts + [f"total {total:.2f} s"]))
+    threads = report.get("threads") or {}
+    if isinstance(threads.get("numba"), int):
+        fft = threads.get("fft_threads")
+        s.add_row("threads", f"{threads['numba']} (kernels)" + (
+            f", {fft} ({threads.get('fft_backend')} FFTs)" if isinstance(fft, int) else ""))
     if result.warnings:       # each was said on stderr when it arose (warn, WarningLog)
         s.add_row("warnings", f"{len(result.warnings)}, on stderr and in report.json")
     _out.print(s)
+    rows = final.get("component_table_rows")
     for kind, path in written.items():
-        _out.print(f"  {kind:12s} {path}")
+        note = ""
+        if kind == "components" and rows is not None:
+            note = (f" ({rows} rows: the {result.components.size} components merged by "
+                    "pixel and scale)")
+        _out.print(f"  {kind:12s} {path}{note}")
 
 
 def show_suggestion(suggestion):

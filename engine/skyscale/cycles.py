@@ -465,6 +465,8 @@ def deconvolve(dirty, psf, *, scales=(0, 4, 8, 16), loop_gain=0.1, threshold=0.0
         from .beam import fit_beam, restore as restore_image
         result.beam = beam if beam is not None else fit_beam(engine.psf)
         result.restored = restore_image(result.model, result.residual, result.beam)
+    from .report_run import threads_in_effect
+    result.emission_mask, result.threads = emission_mask, threads_in_effect(engine)
     return result
 
 

@@ -13,6 +13,7 @@ import numpy as np
 
 from ._atomic import incomplete_marker
 from ._validate import InputError, mask_nonfinite
+from .component_table import merge_components
 from .cycles import deconvolve
 from .fitsio import (cell_size_arcsec, check_same_grid, provenance_history, read_image,
                      write_image, write_table_csv)
@@ -27,7 +28,7 @@ from .report import file_sha256
 __all__ = ["RUN_DEFAULTS", "DEFAULT_NOISE_THRESHOLD", "OUTPUT_NAMES", "run_files",
            "run_images", "merge_params", "stop_rule", "exact_residual_cards",
            "scales_in_pixels", "restoring_beam", "build_mask", "deconvolve_options",
-           "component_rows", "resume_inputs"]
+           "component_rows", "component_fields", "resume_inputs"]
 
 from .levels import DEFAULT_EXTENDED_DEPTH
 from .minor import DEFAULT_SIZE_PENALTY
@@ -68,22 +69,38 @@ RUN_DEFAULTS = {
 
 
 
-def component_rows(components, wcs=None):
-    """Rows for the component table: y, x, RA and Dec (degrees) where a WCS exists."""
+def component_rows(components, wcs=None, cell_arcsec=None):
+    """Rows for ``components.csv``: one per distinct pixel and scale (flux summed).
+
+    Components at the same pixel and scale are merged (`merge_components`); each row
+    holds y, x, RA and Dec (degrees, where a WCS exists), the scale in pixels and in
+    arcsec (where ``cell_arcsec`` is known), the summed flux (Jy) and
+    ``merged_iterations``, the number of iterations merged into it.
+    """
+    merged = merge_components(components)
     rows = []
-    if wcs is not None and components.size:
-        sky = wcs.pixel_to_world_values(components["x"].astype(float),
-                                        components["y"].astype(float))
+    if wcs is not None and merged.size:
+        sky = wcs.pixel_to_world_values(merged["x"].astype(float), merged["y"].astype(float))
         ra, dec = np.atleast_1d(sky[0]), np.atleast_1d(sky[1])
-    for i, c in enumerate(components):
+    for i, c in enumerate(merged):
         row = {"y": int(c["y"]), "x": int(c["x"])}
         if wcs is not None:
             row["ra_deg"] = f"{ra[i]:.7f}"
             row["dec_deg"] = f"{dec[i]:.7f}"
         row["scale_px"] = f"{float(c['scale']):g}"
-        row["flux_jy"] = f"{float(c['flux']):.6e}"
+        if cell_arcsec is not None:
+            row["scale_arcsec"] = f"{float(c['scale']) * cell_arcsec:.6g}"
+        row["flux_jy"] = f"{float(c['flux']):.9e}"
+        row["merged_iterations"] = int(c["iterations"])
         rows.append(row)
     return rows
+
+
+def component_fields(wcs=None, cell_arcsec=None):
+    """Column names of ``components.csv``, in order (see `component_rows`)."""
+    return (["y", "x"] + (["ra_deg", "dec_deg"] if wcs is not None else []) + ["scale_px"]
+            + (["scale_arcsec"] if cell_arcsec is not None else [])
+            + ["flux_jy", "merged_iterations"])
 
 
 def merge_params(params, sources=None):
@@ -440,10 +457,9 @@ def _write_outputs(result, dirty, psf, names, record, start, end, plan, reasons,
     if result.mask is not None:
         written["mask"] = write_image(names["mask"], result.mask.astype(np.float32), like=dirty,
                                       bunit="", history=history, overwrite=ow)
-    rows = component_rows(result.components, dirty.wcs)
-    fields = ["y", "x"] + (["ra_deg", "dec_deg"] if dirty.wcs is not None else []) + \
-        ["scale_px", "flux_jy"]
-    written["components"] = write_table_csv(names["components"], rows, fields, overwrite=ow)
+    rows = component_rows(result.components, dirty.wcs, cell)
+    written["components"] = write_table_csv(names["components"], rows,
+                                            component_fields(dirty.wcs, cell), overwrite=ow)
     if record["plots"]:
         try:
             from .plots import plot_convergence, plot_panels
@@ -455,14 +471,15 @@ def _write_outputs(result, dirty, psf, names, record, start, end, plan, reasons,
     from .report import build_report, write_report
     out_dir = os.path.dirname(names["report"]) or "."
     removed = _remove_stale(stale[0], stale[1], dict(written, report=names["report"]), out_dir)
-    extra = {"start": start.isoformat(), "end": end.isoformat(),
-             "outputs": dict(written, report=names["report"]),
+    extra = {"outputs": dict(written, report=names["report"]),
              "plan": plan.as_dict() if hasattr(plan, "as_dict") else dict(plan)}
     if removed:
         extra["removed_earlier_outputs"] = removed
     if reasons:
         extra["scale_reasons"] = reasons
     report = build_report(result, inputs=inputs, parameters=record, cell_arcsec=cell,
-                          threads=record["threads"], extra=extra, major_cycle=major)
+                          threads=record["threads"], extra=extra, major_cycle=major,
+                          started=start, deconvolved=end,
+                          finished=_dt.datetime.now(_dt.timezone.utc))
     written["report"] = write_report(names["report"], report, overwrite=ow)
     return written, report

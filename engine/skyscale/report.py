@@ -8,6 +8,11 @@ become ``None`` so that the file is strict JSON that any reader accepts.
 The report holds summaries, not images: per-cycle history, per-scale counts and
 flux, final residual statistics and the restoring beam.  The component table and the
 images belong in their own files (FITS).
+
+Every figure carries its unit: in its key (``_px``, ``_arcsec``, ``_deg``, ``_jy``,
+``_s``), beside it (``unit``) or, for the per-cycle history, in the report's ``units``.
+A None (JSON null) means "not applicable" (no mask, no cell size); where a default
+stood for a value (all cores, the emission mask's sigma) the value used is recorded.
 """
 
 import dataclasses
@@ -27,14 +32,19 @@ from collections.abc import Mapping
 import numpy as np
 
 from ._atomic import atomic_write_bytes
+from .component_table import merge_components
+from .report_run import (REPORT_UNITS, emission_mask_record, scales_record, threads_in_effect,
+                         timings_record)
 
 __all__ = ["REPORT_SCHEMA_VERSION", "build_report", "file_sha256", "write_report", "beam_record",
-           "machine_record", "software_record", "plain_json"]
+           "machine_record", "software_record", "plain_json", "threads_in_effect",
+           "REPORT_UNITS"]
 
 log = logging.getLogger(__name__)
 
 #: Version of the report layout; raised whenever a key is renamed or removed.
-REPORT_SCHEMA_VERSION = 1
+#: 2: ``per_scale`` rows say ``scale_px`` and ``flux_jy`` (were ``scale``, ``flux``).
+REPORT_SCHEMA_VERSION = 2
 
 #: Distributions whose versions the report records (looked up, never imported).
 _DEPENDENCIES = ("numpy", "numba", "scipy", "astropy", "pyfftw", "rich",
@@ -133,6 +143,19 @@ def machine_record(threads):
             "threads": threads}
 
 
+def _threads_record(result, threads, parameters):
+    """The threads in effect (from the result, else the caller's count) and the request."""
+    requested = parameters.get("threads")
+    out = {"requested": "all cores (not set)" if requested is None else plain_json(requested)}
+    used = getattr(result, "threads", None)
+    if isinstance(used, Mapping):
+        out.update(plain_json(dict(used)))
+    else:
+        out["numba"] = threads if threads is not None else machine_record(None)["threads"]
+        out["fft_backend"] = out["fft_threads"] = "not recorded"
+    return out
+
+
 def _check_result(result):
     needed = ("model", "residual", "components", "stop_reason", "history", "scales")
     missing = [name for name in needed if not hasattr(result, name)]
@@ -183,19 +206,20 @@ def _check_inputs(inputs):
 
 def _per_scale(result, cell):
     """Per-scale counts and flux, including any scale found only in the table."""
-    rows = [dict(row, listed=True) for row in result.per_scale()]
+    rows = [{"scale_px": row["scale"], "components": row["components"],
+             "flux_jy": row["flux"], "listed": True} for row in result.per_scale()]
     comps = result.components
-    listed = {np.float32(row["scale"]) for row in rows}
+    listed = {np.float32(row["scale_px"]) for row in rows}
     for s in np.unique(comps["scale"]) if len(comps) else ():
         if np.float32(s) not in listed:                   # inconsistent, but report it
             sel = comps["scale"] == s
-            rows.append({"scale": float(s), "components": int(sel.sum()),
-                         "flux": float(comps["flux"][sel].sum()), "listed": False})
+            rows.append({"scale_px": float(s), "components": int(sel.sum()),
+                         "flux_jy": float(comps["flux"][sel].sum()), "listed": False})
     total = float(np.sum(comps["flux"])) if len(comps) else 0.0
     for row in rows:
-        row["flux_fraction"] = row["flux"] / total if total != 0.0 else None
+        row["flux_fraction"] = row["flux_jy"] / total if total != 0.0 else None
         if cell is not None:
-            row["scale_arcsec"] = row["scale"] * cell
+            row["scale_arcsec"] = row["scale_px"] * cell
     return rows
 
 
@@ -218,23 +242,37 @@ def _residual_stats(result):
         peak = float(np.max(np.abs(values)))
         rms = float(np.sqrt(np.mean(values * values)))
     noise = robust_noise(residual, mask if region == "mask" else None)
+    whole = residual[np.isfinite(residual)]
+    where = (f"inside the mask ({int(mask.sum())} pixels)" if region == "mask"
+             else "the whole image (no mask)")
     return {"peak_residual": peak, "rms_residual": rms, "region": region,
+            "measured_in": where,
+            "peak_residual_image": float(np.max(np.abs(whole))) if whole.size else None,
             "robust_noise": noise, "unit": "Jy/beam"}
 
 
-def beam_record(beam, cell):
+def beam_record(beam, cell, source=None):
+    """A restoring beam's FWHMs (pixels, and arcsec with a cell size), angle and area.
+
+    ``pa_deg`` is measured from +y (north) towards -x (east), as `skyscale.beam.Beam`;
+    ``source`` (optional text) says where the beam came from.
+    """
     if beam is None:
         return None
     major, minor, pa = float(beam.major), float(beam.minor), float(beam.pa)
     out = {"major_px": major, "minor_px": minor, "pa_deg": pa,
+           "pa_from": "+y (north) towards -x (east)",
            "area_px": _GAUSS_AREA * major * minor}
     if cell is not None:
         out["major_arcsec"] = major * cell
         out["minor_arcsec"] = minor * cell
+        out["area_arcsec2"] = out["area_px"] * cell * cell
+    if source is not None:
+        out["source"] = str(source)
     return out
 
 
-def _scale_noise(result):
+def _scale_noise(result, cell):
     """Per-scale noise, stop level and final peak (Jy/beam), and where noise was measured."""
     noise = getattr(result, "scale_noise", None)
     if noise is None:
@@ -244,12 +282,16 @@ def _scale_noise(result):
              "active": float(s) in active}
             for s, n, lv, p in zip(result.scales, noise, result.scale_levels,
                                    result.scale_peaks)]
+    if cell is not None:
+        for row in rows:
+            row["scale_arcsec"] = row["scale_px"] * cell
     return {"unit": "Jy/beam", "per_scale": rows,
             "measured_where": plain_json(getattr(result, "noise_region", None))}
 
 
 def build_report(result, *, inputs=None, parameters=None, cell_arcsec=None,
-                 threads=None, extra=None, major_cycle=None):
+                 threads=None, extra=None, major_cycle=None, started=None, deconvolved=None,
+                 finished=None):
     """Summarise a run as a JSON-ready dict.
 
     Parameters
@@ -264,23 +306,37 @@ def build_report(result, *, inputs=None, parameters=None, cell_arcsec=None,
     cell_arcsec : float or Quantity, optional
         Pixel size in arcseconds; adds angular scale sizes and beam widths.
     threads : int, optional
-        Threads used; default the Numba thread count if Numba is already loaded.
+        Numba threads used, when ``result.threads`` does not say (a result of
+        `skyscale.deconvolve` does); default the Numba thread count if Numba is loaded.
     extra : dict, optional
         Anything else the caller wants kept; stored under ``"extra"``.
     major_cycle : dict, optional
         Which residual operator ran the major cycles and how (for example
         ``VisibilityOperator.describe()``); stored under ``"major_cycle"``, which says
         ``{"operator": "not recorded"}`` when this is not given.
+    started, deconvolved, finished : datetime, optional
+        When the run started, when the deconvolution (restoring included) ended and
+        when the outputs were written.  With ``started`` and ``finished``,
+        ``timings_s`` gains ``total`` (and, with ``deconvolved``, ``other`` and
+        ``outputs``) so that the timings add up to the run's time.
 
     Returns
     -------
     report : dict
         Plain Python values only.  Top-level keys: ``schema_version``, ``created_utc``,
-        ``software``, ``machine``, ``inputs``, ``image``, ``parameters``, ``timings_s``,
-        ``history``, ``per_scale``, ``final``, ``stop``, ``beam``, ``warnings``,
-        ``major_cycle``, ``extra``.  ``final`` holds ``peak_residual`` and ``rms_residual`` (Jy/beam,
-        inside the mask when there is one), ``robust_noise``, ``model_flux`` (Jy),
-        ``components`` and ``major_cycles``.
+        ``software``, ``machine``, ``threads``, ``inputs``, ``image``, ``scales``,
+        ``parameters``, ``timings_s``, ``timings_about``, ``clock_utc``, ``history``,
+        ``per_scale``, ``final``, ``stop``, ``scale_noise``, ``emission_mask``,
+        ``beam``, ``warnings``, ``major_cycle``, ``units``, ``extra``.  ``final`` holds
+        ``peak_residual`` and ``rms_residual`` (Jy/beam, inside the mask when there is
+        one: ``region`` and ``measured_in`` say), ``peak_residual_image`` (the whole
+        image), ``robust_noise``, ``model_flux`` (Jy), ``components`` and
+        ``major_cycles``.  ``scales`` gives the scales in pixels and arcsec,
+        ``threads`` the Numba and FFT threads in effect, ``emission_mask`` its
+        detection level (sigma multiple and Jy/beam per scale).  In ``parameters``
+        the scales are in pixels (``scale_unit`` says so; ``scales.requested_unit``
+        keeps the unit they were given in), and ``threads`` and
+        ``emission_mask_sigma``, when unset, hold the values in effect.
 
     Raises
     ------
@@ -308,23 +364,47 @@ def build_report(result, *, inputs=None, parameters=None, cell_arcsec=None,
                         "of parameter name -> value (or None)")
 
     model = np.asarray(result.model)
+    params = plain_json(dict(parameters))
+    thread_rec = _threads_record(result, threads, params)
+    requested_unit = params.get("scale_unit")
+    listed = params.get("scales")
+    if "scale_unit" in params and isinstance(listed, list) and \
+            len(listed) == len(result.scales) and \
+            np.allclose(np.asarray(listed, dtype=float), np.asarray(result.scales, dtype=float)):
+        params["scale_unit"] = "pixel"                   # the values listed are pixels
+    if "threads" in params and params["threads"] is None and \
+            isinstance(thread_rec.get("numba"), int):
+        params["threads"] = thread_rec["numba"]
+    em = emission_mask_record(result, cell)
+    if params.get("emission_mask_sigma", 0) is None and em["used"]:
+        params["emission_mask_sigma"] = em["sigma"]
+    timings, timing_notes = timings_record(result, started, deconvolved, finished)
+    machine = machine_record(thread_rec["numba"] if isinstance(thread_rec.get("numba"), int)
+                             else threads)
     history = [plain_json(rec) for rec in result.history]
     final = _residual_stats(result)
     final.update(model_flux=float(np.sum(model, dtype=np.float64)),
                  model_flux_unit="Jy",
                  components=int(len(result.components)),
+                 component_table_rows=int(merge_components(result.components).size),
                  major_cycles=sum(1 for rec in history if rec.get("cycle", 0) > 0))
     report = {
         "schema_version": REPORT_SCHEMA_VERSION,
         "created_utc": datetime.datetime.now(datetime.timezone.utc)
                                .isoformat(timespec="seconds"),
         "software": software_record(),
-        "machine": machine_record(threads),
+        "machine": machine,
+        "threads": thread_rec,
         "inputs": inputs,
         "image": {"shape": list(model.shape), "dtype": str(model.dtype),
                   "cell_arcsec": cell},
-        "parameters": plain_json(dict(parameters)),
-        "timings_s": plain_json(dict(getattr(result, "timings", None) or {})),
+        "scales": scales_record(result, cell, requested_unit),
+        "parameters": params,
+        "timings_s": plain_json(timings),
+        "timings_about": timing_notes,
+        "clock_utc": {name: t.isoformat() for name, t in (
+            ("start", started), ("deconvolved", deconvolved), ("outputs_written", finished))
+            if t is not None},
         "history": history,
         "per_scale": _per_scale(result, cell),
         "final": final,
@@ -335,11 +415,16 @@ def build_report(result, *, inputs=None, parameters=None, cell_arcsec=None,
                  "rollbacks": int(getattr(result, "rollbacks", 0) or 0),
                  "sub_loops": int(getattr(result, "sub_loops", 0) or 0),
                  "rejected_sub_loops": int(getattr(result, "rejected_sub_loops", 0) or 0)},
-        "scale_noise": _scale_noise(result),
-        "beam": beam_record(getattr(result, "beam", None), cell),
+        "scale_noise": _scale_noise(result, cell),
+        "emission_mask": em,
+        "beam": beam_record(getattr(result, "beam", None), cell,
+                            source=None if "beam" not in params else
+                            ("given by the user" if params["beam"] is not None
+                             else "fitted to the PSF")),
         "warnings": [str(w) for w in (getattr(result, "warnings", None) or [])],
         "major_cycle": plain_json(dict(major_cycle)) if major_cycle is not None
         else {"operator": "not recorded"},
+        "units": dict(REPORT_UNITS),
         "extra": plain_json(dict(extra)) if extra is not None else {},
     }
     log.debug("report built: %d components, %d history records",

@@ -89,6 +89,12 @@ class DeconvolutionResult:
         Where the noise was measured (``where``, ``pixels_used`` per scale).
     sub_loops, rejected_sub_loops : int
         Single-scale sub-loops run, and those undone because they raised the peak.
+    emission_mask : EmissionMask or None
+        The emission mask that followed the residual (its ``sigma`` and its last
+        per-scale ``noise``), or None when there was none.
+    threads : dict or None
+        Threads in effect during the run: ``numba`` (the kernels' count),
+        ``fft_backend`` and ``fft_threads``; None when nothing was cleaned.
     """
 
     model: np.ndarray
@@ -111,6 +117,8 @@ class DeconvolutionResult:
     noise_region: dict = None
     sub_loops: int = 0
     rejected_sub_loops: int = 0
+    emission_mask: object = None
+    threads: dict = None
 
     @property
     def stop_description(self):
