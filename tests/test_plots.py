@@ -166,6 +166,12 @@ def test_convergence_figure_content():
     assert ax.get_yscale() == "log"
     assert "Jy/beam" in ax.get_ylabel() and "components" in below.get_xlabel()
     assert "threshold" in fig.get_suptitle()
+    labels = [line.get_label() for line in ax.get_lines()]
+    assert "peak |residual| in the image" in labels            # make_result has no mask
+    masked = make_result()
+    masked.mask = mask_image()
+    labels = [line.get_label() for line in _convergence_figure(masked).axes[0].get_lines()]
+    assert "peak |residual| in the mask" in labels and "rms residual in the mask" in labels
     # Two major cycles -> two vertical boundary lines, at 4 and 6 components.
     vlines = [line for line in ax.get_lines() if np.ptp(line.get_xdata()) == 0
               and len(line.get_xdata()) == 2 and line.get_linestyle() == ":"]
@@ -447,6 +453,9 @@ def test_stop_level_of_the_delta_scale_is_drawn_at_its_value():
     lines = horizontal_lines(_convergence_figure(result).axes[0])
     assert lines["threshold (0.05 Jy/beam)"] == 0.05
     assert lines[label] == 0.03
+    result.parameters = {"threshold": 0.03}                    # the level is the threshold
+    lines = horizontal_lines(_convergence_figure(result).axes[0])
+    assert lines == {"stop level of the delta scale (0.03 Jy/beam, the threshold)": 0.03}
     # Without a delta scale no level applies to the unsmoothed peak: none is drawn.
     result = make_result()
     result.scales = (4.0, 8.0)

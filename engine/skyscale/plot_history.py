@@ -3,7 +3,8 @@
 Two panels sharing one x axis (components found, cumulative), both drawn from
 ``result.history`` with one point per major cycle (the first is the dirty image):
 
-* top: peak and rms residual inside the mask (Jy/beam, logarithmic), the stop level
+* top: peak and rms residual inside the mask, or the whole image without one
+  (Jy/beam, logarithmic), the stop level
   of the delta scale (``result.scale_levels``) and the absolute threshold when one
   was set, each a labelled horizontal line;
 * bottom: the flux each scale has found so far (Jy, `CycleRecord.scale_flux`), one
@@ -58,16 +59,20 @@ def _residual_axes(ax, result, history, threshold):
     for i, n in enumerate(n for n, c in zip(comps, cycles) if c > 0):
         ax.axvline(n, color="0.6", lw=0.8, ls=":", zorder=0,
                    label="end of a major cycle" if i == 0 else None)
-    ax.plot(comps, peak, "o-", color="tab:red", label="peak |residual| in the mask")
-    ax.plot(comps, rms, "s--", color="tab:blue", label="rms residual in the mask")
+    where = "in the mask" if getattr(result, "mask", None) is not None else "in the image"
+    ax.plot(comps, peak, "o-", color="tab:red", label=f"peak |residual| {where}")
+    ax.plot(comps, rms, "s--", color="tab:blue", label=f"rms residual {where}")
     lines = []
     level = _delta_level(result)
+    threshold = _threshold(result, threshold)
+    same = threshold is not None and level is not None and \
+        abs(threshold - level) <= 1e-6 * level
     if level is not None:
         ax.axhline(level, color="black", lw=1.2, ls="--",
-                   label=f"stop level of the delta scale ({fmt(level)} Jy/beam)")
+                   label=f"stop level of the delta scale ({fmt(level)} Jy/beam"
+                         + (", the threshold)" if same else ")"))
         lines.append(level)
-    threshold = _threshold(result, threshold)
-    if threshold is not None and (level is None or abs(threshold - level) > 1e-6 * level):
+    if threshold is not None and not same:
         ax.axhline(threshold, color="0.3", lw=1.0, ls="-.",
                    label=f"threshold ({fmt(threshold)} Jy/beam)")
         lines.append(threshold)
