@@ -157,7 +157,10 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
         mask = mask_updater(residual, centres, mask, noise=float(state.noise[0]))
         state, region, peak, rms, levels = stats(residual, model, mask, planes=state.planes)
     flux0 = float(model.sum(dtype=np.float64))
-    history = [CycleRecord(0, 0, peak, rms, flux0, scale_peaks=state.peaks.tolist())]
+    scale_index = {np.float32(s): i for i, s in enumerate(engine.scales.pixels)}
+    scale_flux = np.zeros(len(scale_index))    # components found by this run, per scale
+    history = [CycleRecord(0, 0, peak, rms, flux0, scale_peaks=state.peaks.tolist(),
+                           scale_flux=scale_flux.tolist())]
     _notify(callback, stage="major", cycle=0, components=0, peak=peak, rms=rms)
     tables = []
     warnings_seen = []
@@ -225,6 +228,8 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
             n_comp += mc.components.size
             flux = float(model.sum(dtype=np.float64))
             centres[mc.components["y"], mc.components["x"]] = 1
+            np.add.at(scale_flux, [scale_index[s] for s in mc.components["scale"]],
+                      mc.components["flux"])
             if mask_updater is not None:
                 mask = mask_updater(residual, centres, mask, noise=float(new_state.noise[0]))
                 new_state, new_region, new_peak, new_rms, new_levels = stats(
@@ -233,7 +238,8 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
                                                 new_levels)
             history.append(CycleRecord(cycle, n_comp, peak, rms, flux,
                                        int(mc.components.size), mc.stop_reason,
-                                       scale_peaks=state.peaks.tolist()))
+                                       scale_peaks=state.peaks.tolist(),
+                                       scale_flux=scale_flux.tolist()))
             _notify(callback, stage="major", cycle=cycle, components=n_comp, peak=peak,
                     rms=rms, flux=flux, minor_stop=mc.stop_reason)
             if mc.stop_reason == "threshold" and np.all(state.peaks <= levels * LEVEL_SLACK):

@@ -1,4 +1,4 @@
-"""PNG figures of a run: how the residual converged, and the images side by side.
+"""PNG figures of a run: the images side by side, and how the residual converged.
 
 matplotlib is optional (``pip install skyscale[plots]``) and is imported only inside
 the plotting functions.  Figures are drawn on a `matplotlib.figure.Figure` with the
@@ -6,7 +6,8 @@ Agg canvas, never through pyplot, so nothing global changes and no window opens.
 
 Both figures have a fixed size in pixels, so a pipeline can lay them out blind:
 
-* `plot_convergence`: `CONVERGENCE_SIZE_PX` = 800 x 500 (width x height);
+* `plot_convergence` (`skyscale.plot_history`): `CONVERGENCE_SIZE_PX` = 800 x 800
+  (width x height);
 * `plot_panels`: `PANELS_SIZE_PX` = 1000 x 900.
 
 Images are drawn with ``origin="lower"``: pixel ``[0, 0]`` at the bottom left, north
@@ -16,154 +17,28 @@ measured from +y (north) through -x (east), so its major axis points along
 """
 
 import functools
-import io
-import logging
-import pathlib
-import textwrap
 
 import numpy as np
 
+from ._figure import (DPI, check_result, figure_cell_arcsec, fmt, new_figure,
+                      refuse_existing, require_matplotlib, save_png, scale_colours,
+                      scale_label)
 from ._validate import as_image
-from ._atomic import atomic_write_bytes
+from .plot_history import (CONVERGENCE_SIZE_PX, _convergence_figure,  # noqa: F401
+                           plot_convergence)
 
 __all__ = ["CONVERGENCE_SIZE_PX", "DPI", "PANELS_SIZE_PX", "plot_convergence",
            "plot_panels"]
 
-log = logging.getLogger(__name__)
-
-#: Resolution of every figure, dots per inch.
-DPI = 100
-#: ``(width, height)`` in pixels of the convergence figure.
-CONVERGENCE_SIZE_PX = (800, 500)
 #: ``(width, height)`` in pixels of the four-panel figure.
 PANELS_SIZE_PX = (1000, 900)
 
 _IMAGE_CMAP = "inferno"
+_MODEL_CMAP = "gray"     # the scales' colours (tab10) show on it from black to white
 _RESIDUAL_CMAP = "RdBu_r"
 _MASK_COLOUR = "limegreen"
 _ASINH_A = 0.1           # asinh softening, a fraction of the display range
 _PERCENTILE = 99.5       # display interval of the dirty and restored images
-
-
-def _require_matplotlib():
-    """Import the matplotlib pieces used here, or say how to install them."""
-    try:
-        import matplotlib                                  # noqa: F401
-        from matplotlib.backends.backend_agg import FigureCanvasAgg
-        from matplotlib.figure import Figure
-        from matplotlib.patches import Ellipse
-    except ImportError as exc:
-        raise ImportError("plotting needs matplotlib, which is not installed; "
-                          "run: pip install skyscale[plots]") from exc
-    return Figure, FigureCanvasAgg, Ellipse
-
-
-def _new_figure(size_px):
-    Figure, FigureCanvasAgg, _ = _require_matplotlib()
-    fig = Figure(figsize=(size_px[0] / DPI, size_px[1] / DPI), dpi=DPI,
-                 layout="constrained")
-    FigureCanvasAgg(fig)
-    return fig
-
-
-def _save(fig, path, overwrite):
-    """Render ``fig`` to PNG bytes of the fixed size and write them atomically."""
-    buffer = io.BytesIO()
-    fig.savefig(buffer, format="png", dpi=DPI)
-    path = pathlib.Path(atomic_write_bytes(path, buffer.getvalue(), overwrite=overwrite))
-    log.info("figure written to %s", path)
-    return path
-
-
-def _refuse_existing(path, overwrite):
-    """Fail before drawing when the output would be refused anyway."""
-    path = pathlib.Path(path)
-    if path.exists() and not overwrite:
-        raise FileExistsError(f"path {str(path)!r} already exists; choose another "
-                              "path or pass overwrite=True")
-
-
-def _check_result(result, needed):
-    missing = [name for name in needed if not hasattr(result, name)]
-    if missing:
-        raise TypeError(f"result is a {type(result).__name__} without "
-                        f"{', '.join(missing)}; pass the DeconvolutionResult of a run")
-
-
-def _get(record, name):
-    return record[name] if isinstance(record, dict) else getattr(record, name)
-
-
-# --------------------------------------------------------------------------- convergence
-
-def _convergence_figure(result, threshold=None):
-    """Build (but do not save) the convergence figure."""
-    _check_result(result, ("history", "stop_reason"))
-    fig = _new_figure(CONVERGENCE_SIZE_PX)
-    ax = fig.add_subplot()
-    history = list(result.history)
-    comps = np.array([_get(r, "components") for r in history], dtype=float)
-    peak = np.array([_get(r, "peak") for r in history], dtype=float)
-    rms = np.array([_get(r, "rms") for r in history], dtype=float)
-    cycles = [int(_get(r, "cycle")) for r in history]
-
-    for i, (n, c) in enumerate((n, c) for n, c in zip(comps, cycles) if c > 0):
-        ax.axvline(n, color="0.6", lw=0.8, ls=":", zorder=0,
-                   label="end of a major cycle" if i == 0 else None)
-    ax.plot(comps, peak, "o-", color="tab:red", label="peak |residual|")
-    ax.plot(comps, rms, "s--", color="tab:blue", label="rms residual")
-    if threshold is not None:
-        ax.axhline(float(threshold), color="0.3", lw=1.0, ls="-.", label="threshold")
-
-    values = np.concatenate([peak, rms, [] if threshold is None else [float(threshold)]])
-    if np.any(np.isfinite(values) & (values > 0)):
-        ax.set_yscale("log", nonpositive="mask")
-    if not history:
-        ax.text(0.5, 0.5, "no major-cycle history recorded", transform=ax.transAxes,
-                ha="center", va="center", color="0.4")
-    else:
-        ax.legend(loc="upper right", fontsize=9, framealpha=0.9)
-    ax.set_xlabel("components found (cumulative)")
-    ax.set_ylabel("residual inside the mask (Jy/beam)")
-    ax.grid(True, which="major", alpha=0.3)
-    description = getattr(result, "stop_description", result.stop_reason)
-    ax.set_title(textwrap.fill(f"Stopped: {result.stop_reason} ({description})", 95),
-                 fontsize=11)
-    return fig
-
-
-def plot_convergence(result, path, *, threshold=None, overwrite=False):
-    """Write ``convergence.png``: peak and rms residual against components found.
-
-    One point per record of ``result.history`` (the first is the dirty image), a
-    logarithmic y axis in Jy/beam, a dotted vertical line where each major cycle
-    ended, and the stop reason in the title.  The PNG is `CONVERGENCE_SIZE_PX`
-    (800 x 500 pixels at `DPI` = 100).
-
-    Parameters
-    ----------
-    result : DeconvolutionResult
-    path : str or os.PathLike
-        Destination PNG.
-    threshold : float, optional
-        Absolute threshold (Jy/beam), drawn as a horizontal line.
-    overwrite : bool
-        Replace an existing file.  Default False: an existing file is refused.
-
-    Returns
-    -------
-    pathlib.Path
-        The path written.
-
-    Raises
-    ------
-    ImportError
-        If matplotlib is not installed.
-    FileExistsError
-        If ``path`` exists and ``overwrite`` is False.
-    """
-    _refuse_existing(path, overwrite)
-    return _save(_convergence_figure(result, threshold), path, overwrite)
 
 
 # --------------------------------------------------------------------------- panels
@@ -219,11 +94,11 @@ def _finite_limits(data, kind):
     return lo, hi
 
 
-def _norm(data, kind):
+def _norm(data, kind, softening=_ASINH_A):
     from astropy.visualization import AsinhStretch, ImageNormalize
 
     vmin, vmax = _finite_limits(data, kind)
-    stretch = _symmetric_asinh_class()() if kind == "residual" else AsinhStretch(_ASINH_A)
+    stretch = _symmetric_asinh_class()() if kind == "residual" else AsinhStretch(softening)
     return ImageNormalize(vmin=vmin, vmax=vmax, stretch=stretch, clip=False)
 
 
@@ -271,20 +146,106 @@ def _axis_labels(wcs):
 
 def _beam_ellipse(beam, shape):
     """A patch of the restoring beam in the bottom-left corner, in pixel coordinates."""
-    _, _, Ellipse = _require_matplotlib()
+    _, _, Ellipse = require_matplotlib()
     major, minor, pa = float(beam.major), float(beam.minor), float(beam.pa)
     margin = 0.5 * major + max(2.0, 0.03 * min(shape))
     return Ellipse((margin - 0.5, margin - 0.5), width=minor, height=major, angle=pa,
-                   facecolor="white", edgecolor="black", lw=1.0, alpha=0.9, zorder=5)
+                   facecolor="white", edgecolor="black", lw=1.0, alpha=0.9, zorder=5,
+                   label="restoring beam (FWHM)")
 
 
-def _fmt(value):
-    return f"{value:.3g}"
+def _beam_text(beam, cell):
+    """``'beam 4.68 x 4.29 px (9.36 x 8.58 arcsec), PA 79.2 deg'``."""
+    major, minor = float(beam.major), float(beam.minor)
+    text = f"beam {major:.3g} x {minor:.3g} px"
+    if cell is not None:
+        text += f" ({major * cell:.3g} x {minor * cell:.3g} arcsec)"
+    return text + f", PA {float(beam.pa):.3g} deg"
 
 
-def _panels_figure(dirty, result, wcs=None, mask=None):
+def _run_noise(result):
+    """The run's noise of the unsmoothed residual (Jy/beam): the delta scale's, or None."""
+    noise = getattr(result, "scale_noise", None)
+    scales = [float(s) for s in (getattr(result, "scales", ()) or ())]
+    if noise is None or 0.0 not in scales or len(noise) != len(scales):
+        return None
+    value = float(noise[scales.index(0.0)])
+    return value if np.isfinite(value) and value > 0 else None
+
+
+def _residual_title(residual, mask, noise):
+    """The residual panel's title: peak in the mask and in the whole image, and noise."""
+    finite = np.isfinite(residual)
+
+    def peak(sel):
+        return fmt(float(np.max(np.abs(residual[sel])))) if sel.any() else "n/a"
+
+    partial = mask is not None and mask.any() and not mask.all()
+    parts = ([f"{peak(finite & mask)} in the mask"] if partial else []) + \
+        [f"{peak(finite)} in the whole image"]
+    first = "Residual (Jy/beam)"
+    if noise is not None:
+        first += f": noise {fmt(noise)} (emission-free pixels)"
+    elif partial and (finite & ~mask).any():
+        rms = float(np.sqrt(np.mean(residual[finite & ~mask] ** 2)))
+        first += f": rms outside the mask {fmt(rms)}"
+    return f"{first}\npeak |residual| " + ", ".join(parts)
+
+
+def _model_view(model, beam):
+    """The model as drawn: smoothed by the restoring beam (Jy/beam) when there is one."""
+    if beam is None:
+        return model, "Jy/pixel"
+    from .beam import Beam, restore
+
+    smooth = restore(np.where(np.isfinite(model), model, 0.0).astype(np.float32), None,
+                     Beam(float(beam.major), float(beam.minor), float(beam.pa)))
+    return smooth, "Jy/beam (model (*) restoring beam)"
+
+
+def _model_softening(view, noise):
+    """asinh softening of the model panel: the run's noise as a fraction of the peak.
+
+    Flux down to about the noise level is drawn on the steep, linear part of the
+    stretch, so faint extended flux shows beside bright points; 1e-3 of the peak
+    without a noise, and never above the other panels' `_ASINH_A`.
+    """
+    _, vmax = _finite_limits(view, "model")
+    ratio = 1e-3 if noise is None else noise / vmax
+    return float(np.clip(ratio, 1e-4, _ASINH_A))
+
+
+def _stretched_ticks(norm):
+    """Colour-bar ticks of a strongly softened asinh: 0, then 1, 2, 5 x 10^k up to vmax."""
+    vmin, vmax = float(norm.vmin), float(norm.vmax)
+    low = max(vmin, vmax * float(norm.stretch.a))
+    ticks = [0.0] if vmin <= 0.0 else []
+    for k in range(int(np.floor(np.log10(low))), int(np.ceil(np.log10(vmax))) + 1):
+        ticks += [m * 10.0 ** k for m in (1, 2, 5) if low <= m * 10.0 ** k <= vmax]
+    return ticks
+
+
+def _mark_components(ax, components, scales, cell):
+    """Component positions, one colour per scale (largest drawn first); legend handles."""
+    handles = []
+    if components.size == 0:
+        return handles
+    scales = [float(s) for s in scales] or sorted({float(s) for s in components["scale"]})
+    colours = scale_colours(len(scales))
+    for k in range(len(scales) - 1, -1, -1):
+        sel = components[components["scale"] == np.float32(scales[k])]
+        if sel.size == 0:
+            continue
+        yx = np.unique(np.stack([sel["y"], sel["x"]], axis=1), axis=0)
+        handles.append(ax.scatter(yx[:, 1], yx[:, 0], s=9, marker="o", color=colours[k],
+                                  edgecolors="black", linewidths=0.3, zorder=4,
+                                  label=f"components at {scale_label(scales[k], cell)}"))
+    return handles[::-1]
+
+
+def _panels_figure(dirty, result, wcs=None, mask=None, cell_arcsec=None):
     """Build (but do not save) the four-panel figure."""
-    _check_result(result, ("model", "residual", "components", "restored", "beam"))
+    check_result(result, ("model", "residual", "components", "restored", "beam"))
     model = as_image(result.model, "result.model", dtype=np.float32, allow_nan=True)
     shape = model.shape
     dirty = as_image(dirty, "dirty", dtype=np.float32, allow_nan=True)
@@ -303,26 +264,32 @@ def _panels_figure(dirty, result, wcs=None, mask=None):
                              "pass a mask of the image's shape (or None)")
         mask = mask.astype(bool)
     wcs = _check_wcs(wcs, shape)
+    cell = figure_cell_arcsec(cell_arcsec, wcs, result)
     beam = result.beam
+    noise = _run_noise(result)
+    components = np.asarray(result.components)
 
-    finite_res = residual[np.isfinite(residual)]
-    res_peak = float(np.max(np.abs(finite_res))) if finite_res.size else float("nan")
-    res_title = f"Residual (peak {_fmt(res_peak)} Jy/beam)"
-    rest_title = "Restored image"
-    if beam is not None:
-        rest_title += (f" (beam {float(beam.major):.3g} x {float(beam.minor):.3g} px, "
-                       f"PA {float(beam.pa):.3g} deg)")
+    view, model_unit = _model_view(model, beam)
+    positions = np.unique(np.stack([components["y"], components["x"]], axis=1),
+                          axis=0).shape[0] if components.size else 0
+    model_title = ("Model smoothed by the restoring beam" if beam is not None else "Model") \
+        + (f"\n{components.size} components at {positions} positions, marked by scale"
+           if components.size else "\nno components")
+    rest_title = "Restored image" + ("" if beam is None else f"\n{_beam_text(beam, cell)}")
     panels = [
         ("Dirty image", dirty, "image", "Jy/beam (dirty beam)"),
-        (f"Model ({len(result.components)} components)", model, "model", "Jy/pixel"),
-        (res_title, residual, "residual", "Jy/beam (dirty beam)"),
+        (model_title, view, "model", model_unit),
+        (_residual_title(residual, mask, noise), residual, "residual",
+         "Jy/beam (dirty beam)"),
         (rest_title, restored, "image", "Jy/beam (restoring beam)"),
     ]
-    fig = _new_figure(PANELS_SIZE_PX)
+    fig = new_figure(PANELS_SIZE_PX)
+    handles = []
+    draw_mask = mask is not None and mask.any() and not mask.all()
     for i, (title, data, kind, unit) in enumerate(panels):
         kwargs = {"projection": wcs} if wcs is not None else {}
         ax = fig.add_subplot(2, 2, i + 1, **kwargs)
-        ax.set_title(title, fontsize=10)
+        ax.set_title(title, fontsize=9.5)
         if wcs is not None:
             ax.coords[0].set_ticks(number=4)
             ax.coords[1].set_ticks(number=5)
@@ -340,37 +307,61 @@ def _panels_figure(dirty, result, wcs=None, mask=None):
             ax.text(0.5, 0.5, "not computed", transform=ax.transAxes, ha="center",
                     va="center", color="0.4")
             continue
-        cmap = _RESIDUAL_CMAP if kind == "residual" else _IMAGE_CMAP
-        im = ax.imshow(data, origin="lower", cmap=cmap, norm=_norm(data, kind))
-        bar = fig.colorbar(im, ax=ax, fraction=0.05, pad=0.02)
+        cmap = {"residual": _RESIDUAL_CMAP, "model": _MODEL_CMAP}.get(kind, _IMAGE_CMAP)
+        softening = _model_softening(data, noise) if kind == "model" else _ASINH_A
+        im = ax.imshow(data, origin="lower", cmap=cmap, norm=_norm(data, kind, softening))
+        bar = fig.colorbar(im, ax=ax, fraction=0.05, pad=0.02,
+                           **({"ticks": _stretched_ticks(im.norm), "format": "%g"}
+                              if kind == "model" else {}))
         bar.set_label(unit, fontsize=9)
         bar.ax.tick_params(labelsize=8)
-        if mask is not None and mask.any() and not mask.all():
+        if draw_mask:
             ax.contour(mask.astype(np.float32), levels=[0.5], colors=_MASK_COLOUR,
                        linewidths=0.9)
+        if kind == "model":
+            handles += _mark_components(ax, components, result.scales, cell)
+            ax.set_xlim(-0.5, shape[1] - 0.5)
+            ax.set_ylim(-0.5, shape[0] - 0.5)
         if i == 3 and beam is not None:
-            ax.add_patch(_beam_ellipse(beam, shape))
+            handles.append(ax.add_patch(_beam_ellipse(beam, shape)))
+    if draw_mask:
+        from matplotlib.lines import Line2D
+        handles.insert(0, Line2D([], [], color=_MASK_COLOUR, lw=1.5,
+                                 label="mask (where components may go)"))
+    if handles:
+        legend = fig.legend(handles=handles, loc="outside lower center", fontsize=8,
+                            ncol=min(4, len(handles)), framealpha=0.9)
+        legend.get_frame().set_facecolor("0.85")
     return fig
 
 
-def plot_panels(dirty, result, path, *, wcs=None, mask=None, overwrite=False):
+def plot_panels(dirty, result, path, *, wcs=None, mask=None, cell_arcsec=None,
+                overwrite=False):
     """Write ``panels.png``: dirty, model, residual and restored images in a 2 x 2 grid.
 
-    Each panel has an asinh stretch (astropy `~astropy.visualization.AsinhStretch`
-    with ``a = 0.1``) and a colour bar in its unit.  The dirty and restored images
-    span their 0.25 to 99.75 percentiles; the model spans 0 to its maximum (Jy/pixel);
-    the residual is symmetric about zero with a zero-centred asinh and a diverging
-    colour map.  With a WCS the axes show sky coordinates, otherwise pixels.  The
-    mask is outlined in green; the restoring beam is drawn as a white ellipse in the
-    bottom-left corner of the restored panel.  The PNG is `PANELS_SIZE_PX`
-    (1000 x 900 pixels at `DPI` = 100).
+    Each panel has an asinh stretch (astropy `~astropy.visualization.AsinhStretch`)
+    and a colour bar in its unit.  The dirty and restored images span their 0.25 to
+    99.75 percentiles with ``a = 0.1``.  The model panel shows the model smoothed by
+    the restoring beam (Jy/beam; the model itself, Jy/pixel, without a beam) from 0
+    to its maximum, softened at the run's noise (``a`` = noise / maximum, between
+    1e-4 and 0.1; 1e-3 without a noise) so faint extended flux shows beside bright
+    points, with each component position marked in its scale's colour.  The
+    residual is symmetric about zero with a zero-centred asinh and a diverging colour
+    map; its title gives the peak |residual| inside the mask and in the whole image
+    and the run's noise (the delta scale's, else the rms outside the mask).  With a
+    WCS the axes show sky coordinates, otherwise pixels.  The mask is outlined in
+    green; the restoring beam is drawn as a white ellipse in the bottom-left corner
+    of the restored panel.  A legend below the panels names the mask outline, the
+    scales (pixels, and arcsec when the cell size is known) and the beam.  The PNG is
+    `PANELS_SIZE_PX` (1000 x 900 pixels at 100 dpi).
 
     Parameters
     ----------
     dirty : (ny, nx) array_like
         The dirty image, Jy/beam.
     result : DeconvolutionResult
-        The run's result (``model``, ``residual``, ``restored``, ``beam``).
+        The run's result (``model``, ``residual``, ``restored``, ``beam``,
+        ``components``, ``scales``, ``scale_noise``).
     path : str or os.PathLike
         Destination PNG.
     wcs : astropy.wcs.WCS, optional
@@ -378,6 +369,10 @@ def plot_panels(dirty, result, path, *, wcs=None, mask=None, overwrite=False):
         part).
     mask : (ny, nx) array of bool, optional
         Outlined on every panel when given (for the run's own, pass ``result.mask``).
+    cell_arcsec : float, optional
+        Pixel size in arcsec for the beam and scale labels.  Default: the WCS's square
+        cell, else the run's own (``result.parameters['cell_arcsec']``), else pixels
+        only.
     overwrite : bool
         Replace an existing file.  Default False: an existing file is refused.
 
@@ -395,5 +390,5 @@ def plot_panels(dirty, result, path, *, wcs=None, mask=None, overwrite=False):
     ValueError, TypeError
         If an image, the mask or the WCS does not fit the others.
     """
-    _refuse_existing(path, overwrite)
-    return _save(_panels_figure(dirty, result, wcs, mask), path, overwrite)
+    refuse_existing(path, overwrite)
+    return save_png(_panels_figure(dirty, result, wcs, mask, cell_arcsec), path, overwrite)

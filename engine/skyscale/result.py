@@ -43,6 +43,7 @@ class CycleRecord:
     minor_iterations: int = 0  #: components added by this cycle's minor cycle
     minor_stop: str = ""       #: why that minor cycle handed back
     scale_peaks: list = None   #: per-scale peak of the smoothed residual in the mask
+    scale_flux: list = None    #: per scale, flux (Jy) of the components found so far
 
     def as_dict(self):
         return dict(self.__dict__)
