@@ -20,7 +20,7 @@ leading ``-`` removes them.
 Positions are pixels or sky coordinates:
 
 - pixels: plain numbers, optionally ending in ``px``; 0-based, X = column, Y = row
-  (the numpy index is ``[Y, X]``);
+  (the numpy index is ``[Y, X]``; the centre of the first pixel is 0 0);
 - sky: longitude then latitude in the image's own celestial frame (RA, Dec for an
   equatorial WCS), as ``09h41m17.0s`` / ``+25d18m00s`` or in decimal with a unit,
   ``145.32deg`` / ``25.3deg``.  Both numbers of a position must be of the same kind.
@@ -30,6 +30,14 @@ Positions are pixels or sky coordinates:
 Anything on the sky needs the image's WCS.  A sky circle holds the pixels whose sky
 position is within ``R`` of the centre (great-circle distance); a sky box is the
 rectangle of pixel axes spanned by its two corners.
+
+Numbers without a unit are pixels, so a position in degrees written without ``deg`` is
+refused where it cannot be meant as pixels: when, read in degrees, it
+falls on the image, and either as pixels the shape selects no pixel of the image, or
+it has a fractional part and the whole image spans less than one degree in each sky
+coordinate (then the pixel positions that could be misread lie within one pixel, and
+whole-number pixels are never refused).  Writing ``px`` on a number always reads it as
+pixels.
 
 Example::
 
@@ -71,6 +79,7 @@ REGION_EXAMPLE = ("write e.g. 'circle 120 130 15', 'box 10 20 50 60', "
 
 _NUM = r"[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?"
 _PIXEL_RE = re.compile(rf"^({_NUM})(?:px)?$")
+_BARE_RE = re.compile(rf"^{_NUM}$")
 _UNIT_RE = re.compile(rf"^({_NUM})({'|'.join(ANGLE_UNITS)})$")
 _HMS_RE = re.compile(r"^\d+h\d+m(?:\d+\.?\d*|\.\d+)s$")
 _DMS_RE = re.compile(r"^[+-]?\d+d\d+m(?:\d+\.?\d*|\.\d+)s$")
@@ -85,6 +94,7 @@ class _Shape:
     values: tuple          # each value: ("px", float) or ("sky", Angle)
     text: str
     entry: int
+    bare: tuple = ()       # per value: True for a number written without any unit
 
 
 # ------------------------------------------------------------------ region text
@@ -159,7 +169,8 @@ def parse_regions(regions):
         if name == "circle" and float(getattr(values[2][1], "value", values[2][1])) < 0:
             raise ValueError(f"{where}: the radius {args[2]} is negative; give a size >= 0; "
                              f"{REGION_EXAMPLE}")
-        shapes.append(_Shape(name, include, values, text, k))
+        bare = tuple(bool(_BARE_RE.match(t)) for t in args)
+        shapes.append(_Shape(name, include, values, text, k, bare))
     return shapes
 
 
@@ -246,6 +257,92 @@ def _rasterise(shape_, shape, wcs):
     return out
 
 
+def _sky_span_deg(cel, shape):
+    """Extent of the image in its two sky coordinates, degrees (inf where unknown).
+
+    Sampled along the border; longitudes are taken relative to the centre's, so a
+    field across 0h is measured across it, and one holding a pole spans 360.
+    """
+    ny, nx = shape
+    t = np.linspace(0.0, 1.0, 65)
+    xs = np.concatenate([t * (nx - 1), np.full(65, nx - 1.0), t * (nx - 1), np.zeros(65),
+                         [(nx - 1) / 2]])
+    ys = np.concatenate([np.zeros(65), t * (ny - 1), np.full(65, ny - 1.0), t * (ny - 1),
+                         [(ny - 1) / 2]])
+    with warnings.catch_warnings(), np.errstate(invalid="ignore"):
+        warnings.simplefilter("ignore")
+        lon, lat = (np.asarray(v, float) for v in cel.pixel_to_world_values(xs, ys))
+    if not (np.all(np.isfinite(lon)) and np.all(np.isfinite(lat))):
+        return np.inf, np.inf                     # part of the image is off the sphere
+    rel = (lon - lon[-1] + 180.0) % 360.0 - 180.0
+    return float(np.ptp(rel)), float(np.ptp(lat))
+
+
+def _frame_words(cel):
+    names = list(wcs_to_celestial_frame(cel).representation_component_names)[:2]
+    return [{"ra": "RA", "dec": "Dec"}.get(n, n) for n in names]
+
+
+def _sky_text(cel, a, b, ta, tb):
+    text = f"'{ta}deg {tb}deg'"
+    if _frame_words(cel)[0] == "RA":
+        text += (f" or '{Angle(a, u.deg).to_string(unit=u.hourangle, sep='hms', precision=2)} "
+                 f"{Angle(b, u.deg).to_string(sep='dms', precision=1, alwayssign=True)}'")
+    return text
+
+
+def _degree_like(shape_, shape, wcs, selected):
+    """Why a position in plain numbers must be degrees, or None where it may be pixels.
+
+    The positions of a shape (a circle's centre, a box's corners), all written without
+    units (pixels by the syntax), are refused when, read as degrees in the image's
+    celestial frame, the shape falls on the image, and either read in pixels it selects
+    no pixel of the image, or a number has a fractional part and the image spans under
+    one degree in both sky coordinates (the pixel positions that could be misread then
+    lie within one pixel).  Without a celestial WCS nothing can be told and nothing is
+    refused.
+    """
+    starts = _POSITIONS[shape_.kind]
+    if wcs is None or not starts or not all(shape_.bare[i] and shape_.bare[i + 1]
+                                            for i in starts):
+        return None
+    try:
+        cel = _celestial_wcs(wcs, "")
+    except ValueError:
+        return None
+    pairs = [(shape_.values[i][1], shape_.values[i + 1][1]) for i in starts]
+    if not all(-360.0 <= a <= 360.0 and -90.0 <= b <= 90.0 for a, b in pairs):
+        return None                                # not longitudes and latitudes
+    with warnings.catch_warnings(), np.errstate(invalid="ignore"):
+        warnings.simplefilter("ignore")
+        where = [tuple(float(v) for v in cel.world_to_pixel_values(a, b)) for a, b in pairs]
+    xs, ys = [p[0] for p in where], [p[1] for p in where]
+    if _window(min(xs) - 0.5, max(xs) + 0.5, min(ys) - 0.5, max(ys) + 0.5, shape) is None:
+        return None                                # in degrees it is not on this image
+    lon_name, lat_name = _frame_words(cel)
+    if selected:
+        fractional = any(v != int(v) for pair in pairs for v in pair)
+        span = _sky_span_deg(cel, shape)
+        if not (fractional and span[0] < 1.0 and span[1] < 1.0):
+            return None                            # may well be meant as pixels
+        why = (f"the whole image spans less than a degree of {lon_name} and {lat_name}, so "
+               "pixels that happen to equal its own sky position are unlikely")
+    else:
+        why = "read as pixels the shape selects no pixel of the image"
+    words = shape_.text.split()[1:]
+    toks = [(words[i], words[i + 1]) for i in starts]
+    pos = (f"the position {toks[0][0]} {toks[0][1]} has" if len(toks) == 1 else
+           "the corners " + " and ".join(f"{ta} {tb}" for ta, tb in toks) + " have")
+    at = " and ".join(f"{lon_name} {a:g}, {lat_name} {b:g} (pixel x {x:.1f}, y {y:.1f})"
+                      for (a, b), (x, y) in zip(pairs, where))
+    sky = "; ".join(_sky_text(cel, a, b, ta, tb) for (a, b), (ta, tb) in zip(pairs, toks))
+    px = "; ".join(f"'{ta}px {tb}px'" for ta, tb in toks)
+    return (f"regions entry {shape_.entry} {shape_.text!r}: {pos} no unit, so it reads as "
+            f"pixels (0-based x = column, y = row), but it looks like degrees: as {at} it "
+            f"lies on this image, and {why}; for the sky write the unit, {sky}; for pixels "
+            f"write {px}")
+
+
 def regions_to_mask(regions, shape, wcs=None):
     """Turn region text into a boolean mask.
 
@@ -268,8 +365,10 @@ def regions_to_mask(regions, shape, wcs=None):
     Raises
     ------
     ValueError
-        For bad region text (see `parse_regions`), a bad ``shape``, or sky coordinates
-        without a celestial ``wcs``.
+        For bad region text (see `parse_regions`), a bad ``shape``, sky coordinates
+        without a celestial ``wcs``, or a position in plain numbers that can only be
+        degrees on this image (see the module docstring; the message gives it with a
+        unit, and in pixels with ``px``).
 
     Warns
     -----
@@ -291,6 +390,9 @@ def regions_to_mask(regions, shape, wcs=None):
     mask = np.zeros(shape, dtype=bool)
     for s in parse_regions(regions):
         pixels = _rasterise(s, shape, wcs)
+        why = _degree_like(s, shape, wcs, bool(pixels.any()))
+        if why:
+            raise ValueError(why)
         if not pixels.any():
             warnings.warn(f"regions entry {s.entry} {s.text!r} selects no pixel of the "
                           f"{shape[0]} x {shape[1]} image; check its position and size",
