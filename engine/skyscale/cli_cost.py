@@ -193,10 +193,16 @@ def show_plan(plan):
     t.add_row("peak memory", f"{_b(plan.memory_bytes)} (at {plan.memory_phase}; the engine's "
               f"own account {_b(plan.engine_memory_bytes)})")
     t.add_row("memory available", _b(plan.memory_available))
-    t.add_row("fits", "yes" if plan.fits else "[bold red]NO: will not fit[/]")
+    t.add_row("fits", "yes" if plan.fits else "[bold red]NO: will not fit[/] (what would: "
+              "below)")
     out.print(t)
     for m in plan.messages:
         out.print(f"  - {m}")
+    if plan.remedies:
+        out.print("  what would fit (predicted peak memory, the same model):")
+        for r in plan.remedies:
+            how = f"  [{r['option']}]" if r["option"] and r["fits"] else ""
+            out.print(f"    {'fits' if r['fits'] else 'no  '}  {r['text']}{how}")
     out.print(f"  coefficients: {plan.calibration}")
 
 
@@ -208,6 +214,10 @@ def cmd_bench(args):
     from .sweep import run_sweep
     if args.components < 1:
         raise ValueError(f"--components {args.components}: give at least 1")
+    if not args.quick:
+        from .cost import available_memory
+        from .remedies import check_bench_fits
+        check_bench_fits(args.sizes, available_memory(), validate=not args.no_validate)
     paths = {k: os.path.join(args.out, v) for k, v in BENCH_FILES.items()}
     clash = [p for p in paths.values() if os.path.exists(p)]
     if clash and not args.overwrite:
