@@ -463,6 +463,27 @@ def test_plan_command_reads_fits(tmp_path, capsys):
     assert "assumed" not in out["counts"]["how"]["major_cycles"]
 
 
+def test_plan_of_a_cube_plans_one_plane_and_the_cube_path(tmp_path, capsys):
+    # Arithmetic: with memory for one plane at once (the local cluster's 1.5 x rule) the
+    # planes run one after another: start-up once, then each plane's predicted time.
+    from astropy.io import fits
+    dirty, psf = synthetic_field(64, seed=4)
+    fits.writeto(tmp_path / "c.fits", np.stack([dirty] * 3))
+    fits.writeto(tmp_path / "p.fits", psf)
+    args = ["plan", str(tmp_path / "c.fits"), str(tmp_path / "p.fits"), "--scales", "0,4"]
+    assert main(args + ["--json"]) == 0
+    one = json.loads(capsys.readouterr().out)
+    assert one["image_shape"] == [64, 64] and one["threads"] == 1
+    gib = 2.0 * one["memory_bytes"] / 2**30
+    assert main(args + ["--json", "--memory", f"{gib!r}"]) == 0
+    plan = json.loads(capsys.readouterr().out)
+    line = next(m for m in plan["messages"] if m.startswith("a cube of 3 planes"))
+    assert "runs 1 worker(s) x 1 thread(s)" in line and "(3 plane(s) per worker)" in line
+    each = plan["total_seconds"] - plan["startup_seconds"]
+    from skyscale.cli_cost import _t
+    assert f"about {_t(plan['startup_seconds'] + 3 * each)} for the cube" in line
+
+
 def test_bench_quick_writes_table_json_figure_and_calibration(tmp_path, capsys):
     out = tmp_path / "bench"
     cal = tmp_path / "cal.json"

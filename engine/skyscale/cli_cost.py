@@ -73,7 +73,8 @@ def register(subparsers):
     b.set_defaults(func=cmd_bench)
 
     p = subparsers.add_parser("plan", help="predict time and memory of a run before it starts")
-    p.add_argument("dirty", nargs="?", help="dirty image, FITS (or give --size)")
+    p.add_argument("dirty", nargs="?", help="dirty image, FITS (or give --size); a cube is "
+                   "planned one plane at a time, as skyscale cube runs it")
     p.add_argument("psf", nargs="?", help="PSF, FITS (its shape is used)")
     p.add_argument("--size", type=_shape, help="image size N or NYxNX instead of FITS files")
     p.add_argument("--psf-size", type=_shape, help="PSF size with --size [twice the image]")
@@ -122,6 +123,7 @@ def cmd_plan(args):
     if args.size is None and not args.dirty:
         raise ValueError("give the dirty image and PSF (FITS), or --size N for an image size")
     psf = dirty = None
+    planes = 1
     if args.size is not None:
         shape = args.size
         psf = args.psf_size or (2 * shape[0], 2 * shape[1])
@@ -130,26 +132,64 @@ def cmd_plan(args):
         if not args.psf:
             raise ValueError(f"dirty is {args.dirty!r} but the PSF is missing; give both FITS "
                              "files")
-        dirty = read_image(args.dirty, name="dirty").data
-        shape = dirty.shape
-        psf = read_image(args.psf, name="psf").data.shape
+        planes = _planes(args.dirty)
+        if planes > 1:                   # a cube: plan one plane, as skyscale cube runs it
+            from .cubefits import open_cube
+            cube = open_cube(args.dirty, name="dirty")
+            dirty = cube.read_plane(0)
+            cube.close()
+            shape = dirty.shape
+            psf = (open_cube(args.psf, name="psf").plane_shape if _planes(args.psf) > 1
+                   else read_image(args.psf, name="psf").data.shape)
+        else:
+            dirty = read_image(args.dirty, name="dirty").data
+            shape = dirty.shape
+            psf = read_image(args.psf, name="psf").data.shape
     memory = None if args.memory is None else int(args.memory * 2**30)
     known = {k: (None if getattr(args, a) is None else
                  (float if k == "active_pixels" else int)(getattr(args, a)))
              for k, a in (("components", "components"), ("rounds", "sub_loops"),
                           ("major_cycles", "major_cycles"), ("active_pixels", "active_pixels"))}
+    threads = args.threads if planes == 1 else (args.threads or 1)   # cube: 1 a plane
     plan = plan_run(shape, psf, args.scales, max_components=args.max_components,
-                    max_major_cycles=args.max_major_cycles, threads=args.threads,
+                    max_major_cycles=args.max_major_cycles, threads=threads,
                     dtype=args.dtype, memory_available=memory, calibration=args.calibration,
                     fresh_process=not args.warm_process, dirty=dirty,
                     dynamic_range=args.dynamic_range, threshold=args.threshold,
                     noise_threshold=args.noise_threshold, mask_fraction=args.mask_fraction,
                     **known)
+    if planes > 1:
+        plan.messages.append(_cube_words(plan, planes, threads))
     if args.json:
         print(json.dumps(plan.as_dict(), indent=2))
     elif not getattr(args, "quiet", False):
         show_plan(plan)
     return 1 if args.require_fit and not plan.fits else 0
+
+
+def _planes(path):
+    """Planes of a FITS image (1 for a 2-D image), from its header alone."""
+    from astropy.io import fits
+    try:
+        header = fits.getheader(path)
+    except (OSError, ValueError):
+        return 1                         # read_image says what is wrong with it
+    dims = [int(header.get(f"NAXIS{i}", 1)) for i in range(3, int(header.get("NAXIS", 0)) + 1)]
+    return int(np.prod(dims)) if dims else 1
+
+
+def _cube_words(plan, planes, threads):
+    """The cube path with its figures: planes at once, workers, the whole cube's time."""
+    from .cluster import size_local_cluster
+    workers, per = size_local_cluster(threads, plane_bytes=plan.memory_bytes,
+                                      memory_bytes=plan.memory_available)
+    rounds = -(-planes // workers)
+    each = plan.total_seconds - plan.startup_seconds
+    return (f"a cube of {planes} planes: this plan is one plane (its dynamic range from the "
+            f"first); skyscale cube deconvolves the planes one per worker, and with "
+            f"{_b(plan.memory_bytes)} per plane the local cluster here runs {workers} "
+            f"worker(s) x {per} thread(s): about {_t(plan.startup_seconds + rounds * each)} for "
+            f"the cube ({rounds} plane(s) per worker); --threads is per plane [1]")
 
 
 def _t(seconds):
