@@ -488,8 +488,15 @@ def test_bench_quick_writes_table_json_figure_and_calibration(tmp_path, capsys):
     out = tmp_path / "bench"
     cal = tmp_path / "cal.json"
     assert main(["bench", "--quick", "--out", str(out), "--calibration", str(cal)]) == 0
-    text = capsys.readouterr().out
-    assert "fitted exponents" in text and "did not see" in text
+    text = " ".join(capsys.readouterr().out.split())
+    # the command line speaks to users: what was measured, what it means, where the
+    # calibration went; the developer's tables are in benchmarks/sweep_tables.py
+    assert "skyscale bench measured this machine" in text and "--quick: tiny images" in text
+    assert "what it means for your runs" in text and "each sub-loop update" in text
+    assert "run(s) the fit did not see" in text
+    assert f"Calibration written to {cal}: give it to skyscale plan --calibration" in text
+    for developer in ("fitted exponents", "cost model coefficients", "misfit", "MISSED"):
+        assert developer not in text
     data = json.loads((out / "bench.json").read_text())
     assert {"points", "fft", "runs", "calibration", "summary", "validation"} <= set(data)
     assert len(data["points"]) >= 4
@@ -497,3 +504,16 @@ def test_bench_quick_writes_table_json_figure_and_calibration(tmp_path, capsys):
     assert cost.load_calibration(str(cal))["round"] == data["calibration"]["round"]
     assert main(["bench", "--quick", "--out", str(out)]) == 2      # refuses to overwrite
     assert "exists" in capsys.readouterr().err
+    assert main(["bench", "--quick", "--out", str(tmp_path / "b2")]) == 0
+    text = " ".join(capsys.readouterr().out.split())
+    assert ("No calibration written (--quick): skyscale plan and run keep using "
+            f"{cost.load_calibration()['source']}") in text
+    import importlib.util
+    import os
+    path = os.path.join(os.path.dirname(__file__), "..", "benchmarks", "sweep_tables.py")
+    spec = importlib.util.spec_from_file_location("sweep_tables", path)
+    tables = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(tables)
+    assert tables.main([str(out / "bench.json")]) == 0
+    dev = capsys.readouterr().out
+    assert "fitted exponents" in dev and "cost model coefficients" in dev

@@ -294,9 +294,7 @@ def cmd_bench(args):
     except ImportError as exc:
         out.print(f"figure skipped: {exc}")
     if not quiet:
-        show_bench(sweep, out)
-        for p in written + ([cal_path] if cal_path else []):
-            out.print(f"  wrote {p}")
+        show_bench(sweep, out, calibration_path=cal_path, files=written)
     return 0
 
 
@@ -310,55 +308,85 @@ def _scales(values):
     return ",".join(f"{s:g}" for s in values)
 
 
-def show_bench(sweep, out=None):
-    """Print the sweep's tables: points against the model, exponents, coefficients and
-    the planner against runs it did not see."""
+def _and(values):
+    values = [str(v) for v in values]
+    return values[0] if len(values) == 1 else ", ".join(values[:-1]) + " and " + values[-1]
+
+
+def _typical_scales(n, measured):
+    """The scale set of the user table at size ``n``: 0,4,8,16 where the sweep measured
+    it, else the largest set it measured at that size."""
+    sets = [tuple(int(v) for v in r["scales"]) for r in measured if r["size"] == n]
+    return (0, 4, 8, 16) if (0, 4, 8, 16) in sets else max(sets, key=len)
+
+
+def show_bench(sweep, out=None, *, calibration_path=None, files=()):
+    """Print what ``skyscale bench`` measured and what it means for a user's runs.
+
+    The per-point tables, exponents and coefficients are for developers:
+    ``benchmarks/sweep_tables.py`` prints them from bench.json.
+    """
     from rich.table import Table
+    from . import cost
+    from .calibration import default_calibration_path, load_calibration
+    from .scales import ScaleSet
     out = out or _console()
-    m = sweep["machine"]
-    out.print(f"load average at the start {m['load'][0]:.1f}, at the end "
-              f"{m.get('load_after', [float('nan')])[0]:.1f} ({m['cores']} cores)")
-    t = Table(title="what scales cost: measured (model), 1 thread, float32")
-    for c in ("size", "scales (px)", "precompute s", "sub-loop update ms", "sub-loops s",
-              "major ms", "statistics ms", "peak MiB", "engine's own MiB", "RSS+ MiB"):
-        t.add_column(c, justify="right")
-    for r in sweep["points"]:
-        md = r["model"]
-        t.add_row(str(r["size"]), _scales(r["scales"]),
-                  f"{r['precompute_s']:.3f} ({md['precompute_s']:.3f})",
-                  f"{r['round_s'] * 1e3:.1f} ({md['round_s'] * 1e3:.1f})",
-                  f"{md['loops_measured_s']:.3f} ({md['loops_s']:.3f})",
-                  f"{r['major_s'] * 1e3:.1f} ({md['major_s'] * 1e3:.1f})",
-                  f"{r['stats_s'] * 1e3:.1f} ({md['stats_s'] * 1e3:.1f})",
-                  f"{r['traced_peak'] / 2**20:.0f} ({md['memory'] / 2**20:.0f})",
-                  f"{r['engine_memory'] / 2**20:.0f}", f"{r['rss_increase'] / 2**20:.0f}")
-    out.print(t)
-    t = Table(title="fitted exponents")
-    t.add_column("relation")
-    t.add_column("exponent", justify="right")
-    for name, values in sweep["summary"]["exponents"].items():
-        for key, v in values.items():
-            t.add_row(f"{name.replace('_', ' ')}, {key}", f"{v:.3f}")
-    out.print(t)
+    m, st, pts = sweep["machine"], sweep["settings"], sweep["points"]
+    sizes = sorted({r["size"] for r in pts})
+    threads = sorted({r.get("threads", 1) for r in sweep.get("fft_threads", [])})
+    out.print(f"skyscale bench measured this machine ({m['cores']} cores; load average "
+              f"{m['load'][0]:.1f} at the start, {m.get('load_after', [float('nan')])[0]:.1f} "
+              f"at the end) in {sweep['seconds']:.0f} s: each step of a run (precompute, "
+              "sub-loop update, major cycle, statistics, peak memory) on invented fields of "
+              f"{_and(sizes)} pixels square with {len(st['scale_sets'])} scale sets, "
+              f"FFTs on {len(sweep['fft'])} grid sizes, "
+              + (f"{_and(threads)} threads, " if threads else "")
+              + f"and {len(sweep['runs'])} whole runs that count sub-loops and major cycles.")
+    if st.get("quick"):
+        out.print("[bold]--quick[/]: tiny images and few components, a rough fit: a check "
+                  "that skyscale runs here, not figures to plan with.")
     cal = sweep["calibration"]
-    out.print("cost model coefficients: " + "; ".join(
-        f"{sec} " + ", ".join(f"{k} {v:.3g}" for k, v in cal[sec].items())
-        for sec in ("fft", "precompute", "round", "loop", "major", "stats", "counts",
-                    "threads", "memory", "startup")))
-    out.print("relative misfit per family, rms (largest): " + ", ".join(
-        f"{k} {v['rms']:.0%} ({v['max']:.0%})" for k, v in cal["fit"].items()))
-    for v in sweep["validation"]:
-        t = Table(title=f"planner against a run it did not see: {v['field']}, scales "
-                  f"{_scales(v['scales'])}, {v['threads']} thread(s): {v['components']} "
-                  f"components, {v['rounds']} sub-loops, {v['major_cycles']} major cycles, "
-                  f"stop {v['stop_reason']} (predicted / measured)")
-        t.add_column("counts")
-        for k in v["measured"]:
-            t.add_column(k, justify="right")
-        for label, ratios in v["ratios"].items():
-            t.add_row(label, *(("-" if r is None else f"{r:.2f}") for r in ratios.values()))
-        out.print(t)
-    out.print(f"sweep took {sweep['seconds']:.0f} s")
+    t = Table(title="what it means for your runs (the fitted model: 1 thread, float32, PSF "
+              "twice the image)")
+    for c in ("image", "scales (px)", "precompute", "each sub-loop update",
+              "each major cycle", "peak memory"):
+        t.add_column(c, justify="right")
+    for n in sizes:
+        sc = _typical_scales(n, pts)
+        g = cost.run_geometry((n, n), (2 * n, 2 * n), ScaleSet(sc).support_radii)
+        tm = cost.predict_times(g, cal)
+        t.add_row(f"{n} x {n}", _scales(sc), _t(tm["precompute"]), _t(tm["round"]),
+                  _t(tm["major"] + tm["stats"]), _b(cost.predict_memory(g, cal)["peak"]))
+    out.print(t)
+    out.print("A run takes about its precompute plus its number of sub-loops times one "
+              "update plus its major cycles; skyscale plan counts them for your image and "
+              "scales.")
+    ratios = sweep.get("summary", {}).get("validation_ratios", {})
+    if ratios:
+        def span(label, key):
+            v = ratios.get(label, {}).get(key) or []
+            return "-" if not v else (f"{v[0]:.2f}" if len(v) == 1 else
+                                      f"{min(v):.2f} to {max(v):.2f}")
+        out.print(f"Checked on {len(sweep['validation'])} run(s) the fit did not see: the "
+                  f"planner's total time was {span('model, run' + chr(39) + 's counts', 'total')}"
+                  f" x the measured with the runs' own counts and "
+                  f"{span('a priori', 'total')} x from the dynamic range alone; its peak "
+                  f"memory {span('a priori', 'memory')} x.")
+    if calibration_path:
+        same = os.path.abspath(calibration_path) == os.path.abspath(default_calibration_path())
+        out.print(f"Calibration written to {calibration_path}: "
+                  + ("skyscale plan and skyscale run use it from now on." if same else
+                     f"give it to skyscale plan --calibration {calibration_path}, or set "
+                     "SKYSCALE_COST_CALIBRATION to it."))
+    else:
+        why = "--quick" if st.get("quick") else "--no-calibration"
+        out.print(f"No calibration written ({why}): skyscale plan and run keep using "
+                  f"{load_calibration()['source']}.")
+    if files:
+        out.print("Wrote " + " and ".join(files) + "; the developer's tables (each point "
+                  "against the model, the exponents and coefficients of the fit) are in "
+                  "bench.json: PYTHONPATH=engine python benchmarks/sweep_tables.py "
+                  + files[0] + " prints them.")
 
 
 def plot_bench(sweep):
