@@ -257,6 +257,98 @@ def test_max_affordable_scales_stops_at_the_budget():
     assert none.scales == () and none.plan is None
 
 
+def test_a_run_that_does_not_fit_says_what_would_with_figures():
+    # Each remedy, applied, is a run the planner (which `run` obeys) says fits, with the
+    # peak the remedy quotes; the fewest changes: one more scale or 16 more pixels do not.
+    shape, psf, scales = (1024, 1024), (2048, 2048), [0, 4, 8, 16, 32]
+    p2 = cost.plan_run(shape, psf, scales[:2], dtype="float64", memory_available=1 << 40)
+    p3 = cost.plan_run(shape, psf, scales[:3], dtype="float64", memory_available=1 << 40)
+    budget = int(0.5 * (p2.memory_bytes + p3.memory_bytes) * cost.MEMORY_HEADROOM)
+    plan = cost.plan_run(shape, psf, scales, dtype="float64", memory_available=budget)
+    assert not plan.fits
+    got = {r["kind"]: r for r in plan.remedies}
+    assert set(got) >= {"scales", "dtype", "psf", "sub-region"}
+
+    def again(sh=shape, ps=psf, sc=scales, dtype="float64"):
+        return cost.plan_run(sh, ps, sc, dtype=dtype, memory_available=budget)
+    r = got["scales"]
+    assert r["fits"] and r["option"] == "--scales 0,4"
+    assert again(sc=[0, 4]).fits and not again(sc=[0, 4, 8]).fits
+    assert r["peak_bytes"] == again(sc=[0, 4]).memory_bytes
+    assert f"{r['peak_bytes'] / 2**30:.1f} GiB" in r["text"]
+    for kind, changed in (("dtype", again(dtype="float32")), ("psf", again(ps=shape))):
+        assert got[kind]["peak_bytes"] == changed.memory_bytes
+        assert got[kind]["fits"] == changed.fits
+    n = int(got["sub-region"]["text"].split("at most ")[1].split(" x ")[0])
+    assert again(sh=(n, n), ps=(2 * n, 2 * n)).fits
+    assert not again(sh=(n + 16, n + 16), ps=(2 * n + 32, 2 * n + 32)).fits
+    with pytest.raises(cost.InsufficientMemoryError) as err:
+        cost.check_fits_memory(plan)
+    assert "what would fit: fewer scales" in str(err.value) and "sub-region of at most" in \
+        str(err.value)
+    assert cost.plan_run(shape, psf, scales, memory_available=1 << 40).remedies == []
+
+
+def _refusal(plan):
+    with pytest.raises(cost.InsufficientMemoryError) as err:
+        cost.check_fits_memory(plan)
+    return str(err.value)
+
+
+def test_a_run_no_single_change_saves_is_offered_the_changes_together():
+    # Between the delta scale alone at float32 with a PSF the image's size and at float64
+    # with the PSF twice the size, only the changes together fit.
+    shape, psf, scales = (1024, 1024), (2048, 2048), [0, 4, 8, 16]
+
+    def peak(ps, sc, dtype):
+        return cost.plan_run(shape, ps, sc, dtype=dtype, memory_available=1 << 40).memory_bytes
+    both, alone = peak(shape, [0], "float32"), peak(psf, [0], "float64")
+    assert both < alone
+    budget = int(0.5 * (both + alone) * cost.MEMORY_HEADROOM)
+    plan = cost.plan_run(shape, psf, scales, dtype="float64", memory_available=budget)
+    got = {r["kind"]: r for r in plan.remedies}
+    assert not any(got[k]["fits"] for k in ("scales", "dtype", "psf"))
+    assert got["together"]["fits"] and got["together"]["peak_bytes"] == both
+    assert "float32 and a PSF the image's size together, with scales 0 px" in \
+        got["together"]["text"]
+    assert "what would fit: float32 and a PSF" in _refusal(plan)
+
+
+def test_bench_advice_names_sizes_whose_sweep_fits(monkeypatch):
+    from skyscale.remedies import BENCH_SIZE_LADDER
+    from skyscale.sweep import sweep_memory
+    avail = 16 * 2**30
+    plan = cost.plan_run((8192, 8192), (16384, 16384), [0, 4], memory_available=avail)
+    line = next(m for m in plan.messages if "larger than the calibrated sizes" in m)
+    sizes = [int(v) for v in line.split("--sizes ")[1].split()[0].split(",")]
+    assert sweep_memory(sizes)[0] * cost.MEMORY_HEADROOM <= avail
+    bigger = BENCH_SIZE_LADDER[BENCH_SIZE_LADDER.index(sizes[-1]) + 1]
+    assert sweep_memory([bigger // 4, bigger // 2, bigger])[0] * cost.MEMORY_HEADROOM > avail
+    for gib, words in ((6, "does not fit in the 6.0 GiB available (it reaches 2048 px)"),
+                       (1, "does not fit in the 1.0 GiB available;")):
+        small = cost.plan_run((8192, 8192), (16384, 16384), [0, 4],
+                              memory_available=gib * 2**30)
+        line = next(m for m in small.messages if "larger than the calibrated sizes" in m)
+        assert "--sizes" not in line and words in line
+
+
+def test_bench_refuses_sizes_that_do_not_fit_and_names_those_that_do(tmp_path, monkeypatch,
+                                                                    capsys):
+    import skyscale.sweep
+    from skyscale.sweep import sweep_memory
+
+    def never(*a, **k):
+        raise AssertionError("the sweep must not start")
+    monkeypatch.setattr(skyscale.sweep, "run_sweep", never)
+    monkeypatch.setattr(cost, "available_memory", lambda: 6 * 2**30)
+    assert main(["bench", "--sizes", "2048,4096,8192", "--out", str(tmp_path / "b")]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "--sizes 2048,4096,8192: the sweep's largest step" in err[0]
+    sizes = [int(v) for v in err[0].split("give --sizes ")[1].split()[0].split(",")]
+    assert sweep_memory(sizes)[0] * cost.MEMORY_HEADROOM <= 6 * 2**30
+    assert not (tmp_path / "b").exists()
+
+
 @pytest.mark.parametrize("kwargs,words", [
     (dict(image_shape=(0, 5)), "image_shape"),
     (dict(psf=(100, 100)), "smaller than the image"),
@@ -339,6 +431,10 @@ def test_plan_command(capsys):
     assert "planned run" in capsys.readouterr().out
     assert main(["plan", "--size", "256", "--memory", "0.0001", "--require-fit"]) == 1
     assert "will not fit" in capsys.readouterr().out
+    assert main(["plan", "--size", "1024", "--scales", "0,4,8,16,32", "--memory", "0.8"]) == 0
+    text = capsys.readouterr().out
+    assert "what would fit" in text and "fits  fewer scales: the smallest" in text
+    assert "[--scales 0," in text and "sub-region of at most" in text
     assert main(["plan", "--size", "256x512", "--psf-size", "512x1024", "--json"]) == 0
     assert json.loads(capsys.readouterr().out)["image_shape"] == [256, 512]
     assert main(["plan", "--size", "256", "--components", "100", "--sub-loops", "9",
@@ -367,12 +463,40 @@ def test_plan_command_reads_fits(tmp_path, capsys):
     assert "assumed" not in out["counts"]["how"]["major_cycles"]
 
 
+def test_plan_of_a_cube_plans_one_plane_and_the_cube_path(tmp_path, capsys):
+    # Arithmetic: with memory for one plane at once (the local cluster's 1.5 x rule) the
+    # planes run one after another: start-up once, then each plane's predicted time.
+    from astropy.io import fits
+    dirty, psf = synthetic_field(64, seed=4)
+    fits.writeto(tmp_path / "c.fits", np.stack([dirty] * 3))
+    fits.writeto(tmp_path / "p.fits", psf)
+    args = ["plan", str(tmp_path / "c.fits"), str(tmp_path / "p.fits"), "--scales", "0,4"]
+    assert main(args + ["--json"]) == 0
+    one = json.loads(capsys.readouterr().out)
+    assert one["image_shape"] == [64, 64] and one["threads"] == 1
+    gib = 2.0 * one["memory_bytes"] / 2**30
+    assert main(args + ["--json", "--memory", f"{gib!r}"]) == 0
+    plan = json.loads(capsys.readouterr().out)
+    line = next(m for m in plan["messages"] if m.startswith("a cube of 3 planes"))
+    assert "runs 1 worker(s) x 1 thread(s)" in line and "(3 plane(s) per worker)" in line
+    each = plan["total_seconds"] - plan["startup_seconds"]
+    from skyscale.cli_cost import _t
+    assert f"about {_t(plan['startup_seconds'] + 3 * each)} for the cube" in line
+
+
 def test_bench_quick_writes_table_json_figure_and_calibration(tmp_path, capsys):
     out = tmp_path / "bench"
     cal = tmp_path / "cal.json"
     assert main(["bench", "--quick", "--out", str(out), "--calibration", str(cal)]) == 0
-    text = capsys.readouterr().out
-    assert "fitted exponents" in text and "did not see" in text
+    text = " ".join(capsys.readouterr().out.split())
+    # the command line speaks to users: what was measured, what it means, where the
+    # calibration went; the developer's tables are in benchmarks/sweep_tables.py
+    assert "skyscale bench measured this machine" in text and "--quick: tiny images" in text
+    assert "what it means for your runs" in text and "each sub-loop update" in text
+    assert "run(s) the fit did not see" in text
+    assert f"Calibration written to {cal}: give it to skyscale plan --calibration" in text
+    for developer in ("fitted exponents", "cost model coefficients", "misfit", "MISSED"):
+        assert developer not in text
     data = json.loads((out / "bench.json").read_text())
     assert {"points", "fft", "runs", "calibration", "summary", "validation"} <= set(data)
     assert len(data["points"]) >= 4
@@ -380,3 +504,16 @@ def test_bench_quick_writes_table_json_figure_and_calibration(tmp_path, capsys):
     assert cost.load_calibration(str(cal))["round"] == data["calibration"]["round"]
     assert main(["bench", "--quick", "--out", str(out)]) == 2      # refuses to overwrite
     assert "exists" in capsys.readouterr().err
+    assert main(["bench", "--quick", "--out", str(tmp_path / "b2")]) == 0
+    text = " ".join(capsys.readouterr().out.split())
+    assert ("No calibration written (--quick): skyscale plan and run keep using "
+            f"{cost.load_calibration()['source']}") in text
+    import importlib.util
+    import os
+    path = os.path.join(os.path.dirname(__file__), "..", "benchmarks", "sweep_tables.py")
+    spec = importlib.util.spec_from_file_location("sweep_tables", path)
+    tables = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(tables)
+    assert tables.main([str(out / "bench.json")]) == 0
+    dev = capsys.readouterr().out
+    assert "fitted exponents" in dev and "cost model coefficients" in dev

@@ -162,6 +162,75 @@ def test_sky_coordinates_need_a_wcs():
         regions_to_mask("circle 10 10 10arcsec", (N, N), wcs=w)
 
 
+# ------------------------------------------------------------------ degrees without a unit
+def field_wcs(crval, cell_arcsec=CELL_ARCSEC, n=N):
+    """A SIN grid whose sky position (in degrees) is also a position inside the image."""
+    w = make_wcs(n)
+    w.wcs.crval = list(crval)                 # invented position
+    w.wcs.cdelt = [-cell_arcsec / 3600, cell_arcsec / 3600]
+    return w
+
+
+def test_plain_numbers_equal_to_the_images_sky_position_are_refused():
+    wcs = field_wcs([100.4, 60.2])            # 128 px of 2 arcsec: 0.07 x 0.14 deg of sky
+    # reference library: astropy.wcs gives the sky position of pixel (50.3, 70.6)
+    c = wcs.pixel_to_world(50.3, 70.6)
+    ra, dec = f"{c.ra.deg:.6f}", f"{c.dec.deg:.6f}"
+    assert 0 < float(ra) < N and 0 < float(dec) < N          # also a pixel of the image
+    with pytest.raises(ValueError, match="looks like degrees") as err:
+        regions_to_mask(f"circle {ra} {dec} 5", (N, N), wcs=wcs)
+    msg = str(err.value)
+    assert "entry 1" in msg and "0-based" in msg
+    assert f"'{ra}deg {dec}deg'" in msg and f"'{ra}px {dec}px'" in msg
+    assert "x 50.3, y 70.6" in msg                            # where it lies in degrees
+    # as the message says: with the unit it is the sky position, with px the pixels
+    sky = regions_to_mask(f"circle {ra}deg {dec}deg 5", (N, N), wcs=wcs)
+    assert sky[71, 50] and sky.sum() == regions_to_mask("circle 50.3 70.6 5", (N, N)).sum()
+    yy, xx = np.indices((N, N))
+    np.testing.assert_array_equal(          # analytic: pixel centres within the radius
+        regions_to_mask(f"circle {ra}px {dec}px 5", (N, N), wcs=wcs),
+        (xx - float(ra)) ** 2 + (yy - float(dec)) ** 2 <= 25)
+    # the hms/dms spelling offered in the message is the same sky position
+    alt = msg.split(" or '")[1].split("'")[0]
+    assert np.count_nonzero(regions_to_mask(f"circle {alt} 5", (N, N), wcs=wcs) ^ sky) <= 4
+    # a box whose corners are the image's sky positions, in plain degrees
+    a, b = wcs.pixel_to_world(20.2, 30.7), wcs.pixel_to_world(60.6, 45.1)
+    with pytest.raises(ValueError, match="the corners .* have no unit"):
+        regions_to_mask(f"box {a.ra.deg:.4f} {a.dec.deg:.4f} {b.ra.deg:.4f} {b.dec.deg:.4f}",
+                        (N, N), wcs=wcs)
+
+
+def test_degrees_that_select_no_pixel_are_refused_not_only_warned():
+    wcs = make_wcs()                          # RA 211.25, Dec -41.5: as pixels off the image
+    c = wcs.pixel_to_world(40, 60)
+    with pytest.raises(ValueError, match="selects no pixel of the image; for the sky write"):
+        regions_to_mask(f"circle {c.ra.deg:.5f} {c.dec.deg:.5f} 3", (N, N), wcs=wcs)
+    with pytest.warns(UserWarning, match="selects no pixel"):   # no WCS: cannot tell
+        regions_to_mask(f"circle {c.ra.deg:.5f} {c.dec.deg:.5f} 3", (N, N))
+
+
+def test_plausible_pixel_positions_are_never_refused():
+    yy, xx = np.indices((N, N))
+    # whole numbers are pixels even where they equal the sky position exactly
+    wcs = field_wcs([100.0, 60.0])
+    np.testing.assert_array_equal(regions_to_mask("circle 100 60 5", (N, N), wcs=wcs),
+                                  (xx - 100) ** 2 + (yy - 60) ** 2 <= 25)
+    # on a field of over a degree (128 px of 1 arcmin) a fractional match may be pixels
+    wide = field_wcs([100.4, 60.2], cell_arcsec=60.0)
+    c = wide.pixel_to_world(50.3, 70.6)
+    text = f"circle {c.ra.deg:.4f} {c.dec.deg:.4f} 5"
+    assert regions_to_mask(text, (N, N), wcs=wide).any()
+    # positions anywhere on the image that are not its own sky position, with or without
+    # fractions, pass on the image whose sky position is inside its pixel range
+    wcs = field_wcs([100.4, 60.2])
+    rng = np.random.default_rng(5)
+    for x, y in np.round(rng.uniform(0, N - 1, (40, 2)), 2):
+        np.testing.assert_array_equal(regions_to_mask(f"circle {x} {y} 4", (N, N), wcs=wcs),
+                                      (xx - x) ** 2 + (yy - y) ** 2 <= 16)
+    for text in ("box 99 59 101 61", "box 10.5 20.5 50.5 60.5", "all; -circle 100.5 60.5 2"):
+        assert regions_to_mask(text, (N, N), wcs=wcs).any()
+
+
 @pytest.mark.parametrize("text, pattern", [
     ("circel 1 2 3", r"entry 1 'circel 1 2 3': unknown shape 'circel'; valid shapes are"),
     ("circle 1 2 3; box 1 2 3", r"entry 2 'box 1 2 3': box takes 4 values, got 3"),

@@ -126,9 +126,15 @@ def _add_run_options(p, defaults=None):
                    f"(leave them out of cleaning, blank in the outputs) [{d['nonfinite']}]")
     m = p.add_argument_group("masks")
     m.add_argument("--mask", help="FITS mask on the image grid, non-zero = may clean [none]")
-    m.add_argument("--mask-regions", help="regions where components may go, e.g. "
-                   "'circle 120 130 15; box 10 20 50 60' (see skyscale.regions); with --mask "
-                   "the two are intersected [none]")
+    m.add_argument("--mask-regions", help="regions where components may go: "
+                   "shapes 'circle X Y R', 'box X1 Y1 X2 Y2' and 'all', separated by ';' "
+                   "or lines, applied in order ('-' before a shape removes it, '#' comments). "
+                   "Plain numbers are pixels, 0-based, X = column, Y = row (the array index is "
+                   "[Y, X]); 'px' may be written. Sky positions need a unit: 145.32deg "
+                   "25.3deg or 09h41m17s +25d18m00s, sizes 20arcsec, 1.5arcmin or 0.01deg. A "
+                   "position without a unit that can only be degrees on this image is refused. "
+                   "E.g. 'circle 120 130 15; -box 10 20 50 60' or 'circle 09h41m17s +25d18m00s "
+                   "30arcsec'; with --mask the two are intersected [none]")
     m.add_argument("--emission-mask", action="store_true", default=None,
                    help="renew an automatic mask at each major cycle [" + d["emission_mask"] +
                    ("; --mask or --mask-regions without this option turn it off"

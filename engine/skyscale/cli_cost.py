@@ -5,7 +5,6 @@
 """
 
 import argparse
-import io
 import json
 import os
 import re
@@ -13,14 +12,10 @@ import sys
 
 import numpy as np
 
-__all__ = ["register", "cmd_bench", "cmd_plan", "show_plan", "show_bench", "plot_bench",
-           "BENCH_FILES", "BENCH_SIZE_PX"]
+__all__ = ["register", "cmd_bench", "cmd_plan", "show_plan", "BENCH_FILES"]
 
 #: Files ``skyscale bench`` writes into ``--out``.
 BENCH_FILES = {"json": "bench.json", "figure": "bench.png"}
-#: ``(width, height)`` in pixels of bench.png.
-BENCH_SIZE_PX = (1200, 900)
-_DPI = 100
 
 
 def _int_list(text):
@@ -73,7 +68,8 @@ def register(subparsers):
     b.set_defaults(func=cmd_bench)
 
     p = subparsers.add_parser("plan", help="predict time and memory of a run before it starts")
-    p.add_argument("dirty", nargs="?", help="dirty image, FITS (or give --size)")
+    p.add_argument("dirty", nargs="?", help="dirty image, FITS (or give --size); a cube is "
+                   "planned one plane at a time, as skyscale cube runs it")
     p.add_argument("psf", nargs="?", help="PSF, FITS (its shape is used)")
     p.add_argument("--size", type=_shape, help="image size N or NYxNX instead of FITS files")
     p.add_argument("--psf-size", type=_shape, help="PSF size with --size [twice the image]")
@@ -122,6 +118,7 @@ def cmd_plan(args):
     if args.size is None and not args.dirty:
         raise ValueError("give the dirty image and PSF (FITS), or --size N for an image size")
     psf = dirty = None
+    planes = 1
     if args.size is not None:
         shape = args.size
         psf = args.psf_size or (2 * shape[0], 2 * shape[1])
@@ -130,26 +127,64 @@ def cmd_plan(args):
         if not args.psf:
             raise ValueError(f"dirty is {args.dirty!r} but the PSF is missing; give both FITS "
                              "files")
-        dirty = read_image(args.dirty, name="dirty").data
-        shape = dirty.shape
-        psf = read_image(args.psf, name="psf").data.shape
+        planes = _planes(args.dirty)
+        if planes > 1:                   # a cube: plan one plane, as skyscale cube runs it
+            from .cubefits import open_cube
+            cube = open_cube(args.dirty, name="dirty")
+            dirty = cube.read_plane(0)
+            cube.close()
+            shape = dirty.shape
+            psf = (open_cube(args.psf, name="psf").plane_shape if _planes(args.psf) > 1
+                   else read_image(args.psf, name="psf").data.shape)
+        else:
+            dirty = read_image(args.dirty, name="dirty").data
+            shape = dirty.shape
+            psf = read_image(args.psf, name="psf").data.shape
     memory = None if args.memory is None else int(args.memory * 2**30)
     known = {k: (None if getattr(args, a) is None else
                  (float if k == "active_pixels" else int)(getattr(args, a)))
              for k, a in (("components", "components"), ("rounds", "sub_loops"),
                           ("major_cycles", "major_cycles"), ("active_pixels", "active_pixels"))}
+    threads = args.threads if planes == 1 else (args.threads or 1)   # cube: 1 a plane
     plan = plan_run(shape, psf, args.scales, max_components=args.max_components,
-                    max_major_cycles=args.max_major_cycles, threads=args.threads,
+                    max_major_cycles=args.max_major_cycles, threads=threads,
                     dtype=args.dtype, memory_available=memory, calibration=args.calibration,
                     fresh_process=not args.warm_process, dirty=dirty,
                     dynamic_range=args.dynamic_range, threshold=args.threshold,
                     noise_threshold=args.noise_threshold, mask_fraction=args.mask_fraction,
                     **known)
+    if planes > 1:
+        plan.messages.append(_cube_words(plan, planes, threads))
     if args.json:
         print(json.dumps(plan.as_dict(), indent=2))
     elif not getattr(args, "quiet", False):
         show_plan(plan)
     return 1 if args.require_fit and not plan.fits else 0
+
+
+def _planes(path):
+    """Planes of a FITS image (1 for a 2-D image), from its header alone."""
+    from astropy.io import fits
+    try:
+        header = fits.getheader(path)
+    except (OSError, ValueError):
+        return 1                         # read_image says what is wrong with it
+    dims = [int(header.get(f"NAXIS{i}", 1)) for i in range(3, int(header.get("NAXIS", 0)) + 1)]
+    return int(np.prod(dims)) if dims else 1
+
+
+def _cube_words(plan, planes, threads):
+    """The cube path with its figures: planes at once, workers, the whole cube's time."""
+    from .cluster import size_local_cluster
+    workers, per = size_local_cluster(threads, plane_bytes=plan.memory_bytes,
+                                      memory_bytes=plan.memory_available)
+    rounds = -(-planes // workers)
+    each = plan.total_seconds - plan.startup_seconds
+    return (f"a cube of {planes} planes: this plan is one plane (its dynamic range from the "
+            f"first); skyscale cube deconvolves the planes one per worker, and with "
+            f"{_b(plan.memory_bytes)} per plane the local cluster here runs {workers} "
+            f"worker(s) x {per} thread(s): about {_t(plan.startup_seconds + rounds * each)} for "
+            f"the cube ({rounds} plane(s) per worker); --threads is per plane [1]")
 
 
 def _t(seconds):
@@ -193,10 +228,16 @@ def show_plan(plan):
     t.add_row("peak memory", f"{_b(plan.memory_bytes)} (at {plan.memory_phase}; the engine's "
               f"own account {_b(plan.engine_memory_bytes)})")
     t.add_row("memory available", _b(plan.memory_available))
-    t.add_row("fits", "yes" if plan.fits else "[bold red]NO: will not fit[/]")
+    t.add_row("fits", "yes" if plan.fits else "[bold red]NO: will not fit[/] (what would: "
+              "below)")
     out.print(t)
     for m in plan.messages:
         out.print(f"  - {m}")
+    if plan.remedies:
+        out.print("  what would fit (predicted peak memory, the same model):")
+        for r in plan.remedies:
+            how = f"  [{r['option']}]" if r["option"] and r["fits"] else ""
+            out.print(f"    {'fits' if r['fits'] else 'no  '}  {r['text']}{how}")
     out.print(f"  coefficients: {plan.calibration}")
 
 
@@ -205,9 +246,14 @@ def cmd_bench(args):
     """``skyscale bench``: run the sweep, print tables, write bench.json and bench.png."""
     from ._atomic import atomic_write_bytes
     from .calibration import default_calibration_path, save_calibration
+    from .cli_bench import plot_bench, show_bench
     from .sweep import run_sweep
     if args.components < 1:
         raise ValueError(f"--components {args.components}: give at least 1")
+    if not args.quick:
+        from .cost import available_memory
+        from .remedies import check_bench_fits
+        check_bench_fits(args.sizes, available_memory(), validate=not args.no_validate)
     paths = {k: os.path.join(args.out, v) for k, v in BENCH_FILES.items()}
     clash = [p for p in paths.values() if os.path.exists(p)]
     if clash and not args.overwrite:
@@ -244,9 +290,7 @@ def cmd_bench(args):
     except ImportError as exc:
         out.print(f"figure skipped: {exc}")
     if not quiet:
-        show_bench(sweep, out)
-        for p in written + ([cal_path] if cal_path else []):
-            out.print(f"  wrote {p}")
+        show_bench(sweep, out, calibration_path=cal_path, files=written)
     return 0
 
 
@@ -258,105 +302,3 @@ def _jsonable(value):
 
 def _scales(values):
     return ",".join(f"{s:g}" for s in values)
-
-
-def show_bench(sweep, out=None):
-    """Print the sweep's tables: points against the model, exponents, coefficients and
-    the planner against runs it did not see."""
-    from rich.table import Table
-    out = out or _console()
-    m = sweep["machine"]
-    out.print(f"load average at the start {m['load'][0]:.1f}, at the end "
-              f"{m.get('load_after', [float('nan')])[0]:.1f} ({m['cores']} cores)")
-    t = Table(title="what scales cost: measured (model), 1 thread, float32")
-    for c in ("size", "scales (px)", "precompute s", "sub-loop update ms", "sub-loops s",
-              "major ms", "statistics ms", "peak MiB", "engine's own MiB", "RSS+ MiB"):
-        t.add_column(c, justify="right")
-    for r in sweep["points"]:
-        md = r["model"]
-        t.add_row(str(r["size"]), _scales(r["scales"]),
-                  f"{r['precompute_s']:.3f} ({md['precompute_s']:.3f})",
-                  f"{r['round_s'] * 1e3:.1f} ({md['round_s'] * 1e3:.1f})",
-                  f"{md['loops_measured_s']:.3f} ({md['loops_s']:.3f})",
-                  f"{r['major_s'] * 1e3:.1f} ({md['major_s'] * 1e3:.1f})",
-                  f"{r['stats_s'] * 1e3:.1f} ({md['stats_s'] * 1e3:.1f})",
-                  f"{r['traced_peak'] / 2**20:.0f} ({md['memory'] / 2**20:.0f})",
-                  f"{r['engine_memory'] / 2**20:.0f}", f"{r['rss_increase'] / 2**20:.0f}")
-    out.print(t)
-    t = Table(title="fitted exponents")
-    t.add_column("relation")
-    t.add_column("exponent", justify="right")
-    for name, values in sweep["summary"]["exponents"].items():
-        for key, v in values.items():
-            t.add_row(f"{name.replace('_', ' ')}, {key}", f"{v:.3f}")
-    out.print(t)
-    cal = sweep["calibration"]
-    out.print("cost model coefficients: " + "; ".join(
-        f"{sec} " + ", ".join(f"{k} {v:.3g}" for k, v in cal[sec].items())
-        for sec in ("fft", "precompute", "round", "loop", "major", "stats", "counts",
-                    "threads", "memory", "startup")))
-    out.print("relative misfit per family, rms (largest): " + ", ".join(
-        f"{k} {v['rms']:.0%} ({v['max']:.0%})" for k, v in cal["fit"].items()))
-    for v in sweep["validation"]:
-        t = Table(title=f"planner against a run it did not see: {v['field']}, scales "
-                  f"{_scales(v['scales'])}, {v['threads']} thread(s): {v['components']} "
-                  f"components, {v['rounds']} sub-loops, {v['major_cycles']} major cycles, "
-                  f"stop {v['stop_reason']} (predicted / measured)")
-        t.add_column("counts")
-        for k in v["measured"]:
-            t.add_column(k, justify="right")
-        for label, ratios in v["ratios"].items():
-            t.add_row(label, *(("-" if r is None else f"{r:.2f}") for r in ratios.values()))
-        out.print(t)
-    out.print(f"sweep took {sweep['seconds']:.0f} s")
-
-
-def plot_bench(sweep):
-    """bench.png as PNG bytes: precompute, sub-loop update and peak memory against the
-    number of scales, one line per image size, with the model; the FFT law."""
-    try:
-        from matplotlib.backends.backend_agg import FigureCanvasAgg
-        from matplotlib.figure import Figure
-    except ImportError as exc:
-        raise ImportError("bench.png needs matplotlib; pip install skyscale[plots]") from exc
-    fig = Figure(figsize=(BENCH_SIZE_PX[0] / _DPI, BENCH_SIZE_PX[1] / _DPI), dpi=_DPI,
-                 layout="constrained")
-    FigureCanvasAgg(fig)
-    axes = fig.subplots(2, 2)
-    pts = sweep["points"]
-    sizes = sorted({r["size"] for r in pts})
-    panels = [(axes[0, 0], "precompute_s", "precompute_s", 1.0, "precompute (s)"),
-              (axes[0, 1], "round_s", "round_s", 1e3, "sub-loop update (ms)"),
-              (axes[1, 0], "traced_peak", "memory", 2.0 ** -20, "peak memory (MiB)")]
-    for ax, key, mkey, unit, label in panels:
-        for i, n in enumerate(sizes):
-            rows = sorted((r for r in pts if r["size"] == n), key=lambda r: r["n_scales"])
-            ns = [r["n_scales"] for r in rows]
-            ax.plot(ns, [r[key] * unit for r in rows], "o", color=f"C{i}",
-                    label=f"{n} px measured")
-            ax.plot(ns, [r["model"][mkey] * unit for r in rows], "-", color=f"C{i}",
-                    label=f"{n} px model")
-            if key == "traced_peak":
-                ax.plot(ns, [r["engine_memory"] * unit for r in rows], ":", color=f"C{i}",
-                        label=f"{n} px engine's own account")
-        ax.set_yscale("log")
-        ax.set_xlabel("number of scales")
-        ax.set_ylabel(label)
-        ax.grid(alpha=0.3)
-        ax.legend(fontsize=7)
-    ax = axes[1, 1]
-    f = sorted(sweep["fft"], key=lambda r: r["grid"][0] * r["grid"][1])
-    work = [r["grid"][0] * r["grid"][1] * np.log2(r["grid"][0] * r["grid"][1]) for r in f]
-    law = sweep["calibration"]["fft"]
-    ax.plot(work, [r["seconds"] for r in f], "o", color="C0", label="measured")
-    ax.plot(work, [law["coefficient"] * w ** law["exponent"] for w in work], "-", color="C0",
-            label=f"model, exponent {law['exponent']:.2f}")
-    ax.set_xscale("log")
-    ax.set_yscale("log")
-    ax.set_xlabel("FFT work S log2 S")
-    ax.set_ylabel("one real FFT (s)")
-    ax.grid(alpha=0.3)
-    ax.legend(fontsize=7)
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=_DPI)
-    return buf.getvalue()

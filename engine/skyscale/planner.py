@@ -54,6 +54,8 @@ class Plan:
     messages: list = field(default_factory=list)
     calibration: str = ""
     memory_terms: dict = field(default_factory=dict)
+    #: when it will not fit: what would, each with its peak (`skyscale.remedies`)
+    remedies: list = field(default_factory=list)
 
     def __getitem__(self, key):
         return getattr(self, key)
@@ -215,35 +217,44 @@ def plan_run(image_shape, psf, scales, *, max_components=20000, max_major_cycles
     major_each = t["major"] + t["stats"]
     major = counts["major_cycles"] * major_each + t["stats"]    # the dirty image's stats too
     big = cal.get("range", {}).get("max_image_pixels")
-    if big and image_shape[0] * image_shape[1] > 1.5 * big:
-        side = int(big ** 0.5)
-        messages.append(f"the image is larger than the calibrated sizes (up to {side} x "
-                        f"{side}); times are extrapolated: run skyscale bench --sizes with "
-                        "this size for a closer figure")
     mem = cost.predict_memory(geom, cal)
     avail = memory_available if memory_available is not None else cost.available_memory()
+    if big and image_shape[0] * image_shape[1] > 1.5 * big:
+        from .remedies import bench_advice
+        side = int(big ** 0.5)
+        messages.append(f"the image is larger than the calibrated sizes (up to {side} x "
+                        f"{side}); times are extrapolated: "
+                        + bench_advice(image_shape, side, avail, cal))
     fits = avail is None or mem["peak"] * cost.MEMORY_HEADROOM <= avail
+    remedies = []
     if avail is None:
         messages.append("the memory available is unknown; not checked")
     elif not fits:
+        from .remedies import memory_remedies
         messages.append(f"will not fit: needs about {_gib(mem['peak'])} (peak at "
                         f"{mem['peak_phase']}), {_gib(avail)} available")
+        remedies = memory_remedies(image_shape, psf_shape, sset.pixels,
+                                   itemsize=dt.itemsize, available=avail, calibration=cal,
+                                   scale_shape=scale_shape)
     startup = cal.get("startup", {"fixed": 0.0})["fixed"] if fresh_process else 0.0
     total = t["precompute"] + t["setup"] + minor + major + startup
     return Plan(image_shape, tuple(psf_shape), sset.pixels, threads, dt.name,
                 int(max_components), counts, t["precompute"], t["setup"], startup,
                 t["round"], loop, minor, major_each, major, total, mem["peak"],
                 mem["peak_phase"], int(mem["engine"]["total"]), avail, bool(fits), messages,
-                cal.get("source", ""), mem["terms"])
+                cal.get("source", ""), mem["terms"], remedies)
 
 
 def check_fits_memory(plan):
     """Raise `InsufficientMemoryError` (a ValueError and a MemoryError) if ``plan`` won't fit."""
     if not plan.fits:
+        fit = [r["text"] for r in plan.remedies if r["fits"]]
+        what = ("; what would fit: " + "; or ".join(fit) if fit else
+                "; nothing of the scales, precision, PSF or size alone would fit: "
+                + "; ".join(r["text"] for r in plan.remedies)) if plan.remedies else ""
         raise InsufficientMemoryError(
             f"the run needs about {_gib(plan.memory_bytes)} (predicted peak, at "
-            f"{plan.memory_phase}) but {_gib(plan.memory_available)} is available; use fewer "
-            "or smaller scales, a smaller image, a PSF the image's size instead of twice it, "
+            f"{plan.memory_phase}) but {_gib(plan.memory_available)} is available{what}; "
             "or free memory")
     return plan
 

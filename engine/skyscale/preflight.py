@@ -38,7 +38,8 @@ OUTPUT_NAMES = {
 def build_mask(params, image, shape, labels):
     """The user mask from ``--mask`` and ``--mask-regions`` (intersected), or None.
 
-    Refuses an all-zero mask, a region entry that selects no pixel, and a mask and
+    Refuses an all-zero mask, bad region text (also plain numbers that can only be
+    degrees on this image), a region entry that selects no pixel, and a mask and
     regions that do not overlap.
     """
     mask = None
@@ -53,7 +54,10 @@ def build_mask(params, image, shape, labels):
         from .masks import regions_to_mask
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
-            region = regions_to_mask(params["mask_regions"], shape, wcs=image.wcs)
+            try:
+                region = regions_to_mask(params["mask_regions"], shape, wcs=image.wcs)
+            except ValueError as exc:
+                raise InputError(f"{labels['mask_regions']}: {exc}") from None
         for w in caught:
             if "selects no pixel" in str(w.message):
                 raise InputError(f"{labels['mask_regions']}: {w.message} (positions are x y "

@@ -20,7 +20,7 @@ leading ``-`` removes them.
 Positions are pixels or sky coordinates:
 
 - pixels: plain numbers, optionally ending in ``px``; 0-based, X = column, Y = row
-  (the numpy index is ``[Y, X]``);
+  (the numpy index is ``[Y, X]``; the centre of the first pixel is 0 0);
 - sky: longitude then latitude in the image's own celestial frame (RA, Dec for an
   equatorial WCS), as ``09h41m17.0s`` / ``+25d18m00s`` or in decimal with a unit,
   ``145.32deg`` / ``25.3deg``.  Both numbers of a position must be of the same kind.
@@ -30,6 +30,14 @@ Positions are pixels or sky coordinates:
 Anything on the sky needs the image's WCS.  A sky circle holds the pixels whose sky
 position is within ``R`` of the centre (great-circle distance); a sky box is the
 rectangle of pixel axes spanned by its two corners.
+
+Numbers without a unit are pixels, so a position in degrees written without ``deg`` is
+refused where it cannot be meant as pixels: when, read in degrees, it
+falls on the image, and either as pixels the shape selects no pixel of the image, or
+it has a fractional part and the whole image spans less than one degree in each sky
+coordinate (then the pixel positions that could be misread lie within one pixel, and
+whole-number pixels are never refused).  Writing ``px`` on a number always reads it as
+pixels.
 
 Example::
 
@@ -71,6 +79,7 @@ REGION_EXAMPLE = ("write e.g. 'circle 120 130 15', 'box 10 20 50 60', "
 
 _NUM = r"[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?"
 _PIXEL_RE = re.compile(rf"^({_NUM})(?:px)?$")
+_BARE_RE = re.compile(rf"^{_NUM}$")
 _UNIT_RE = re.compile(rf"^({_NUM})({'|'.join(ANGLE_UNITS)})$")
 _HMS_RE = re.compile(r"^\d+h\d+m(?:\d+\.?\d*|\.\d+)s$")
 _DMS_RE = re.compile(r"^[+-]?\d+d\d+m(?:\d+\.?\d*|\.\d+)s$")
@@ -85,6 +94,7 @@ class _Shape:
     values: tuple          # each value: ("px", float) or ("sky", Angle)
     text: str
     entry: int
+    bare: tuple = ()       # per value: True for a number written without any unit
 
 
 # ------------------------------------------------------------------ region text
@@ -159,7 +169,8 @@ def parse_regions(regions):
         if name == "circle" and float(getattr(values[2][1], "value", values[2][1])) < 0:
             raise ValueError(f"{where}: the radius {args[2]} is negative; give a size >= 0; "
                              f"{REGION_EXAMPLE}")
-        shapes.append(_Shape(name, include, values, text, k))
+        bare = tuple(bool(_BARE_RE.match(t)) for t in args)
+        shapes.append(_Shape(name, include, values, text, k, bare))
     return shapes
 
 
@@ -268,8 +279,10 @@ def regions_to_mask(regions, shape, wcs=None):
     Raises
     ------
     ValueError
-        For bad region text (see `parse_regions`), a bad ``shape``, or sky coordinates
-        without a celestial ``wcs``.
+        For bad region text (see `parse_regions`), a bad ``shape``, sky coordinates
+        without a celestial ``wcs``, or a position in plain numbers that can only be
+        degrees on this image (see the module docstring; the message gives it with a
+        unit, and in pixels with ``px``).
 
     Warns
     -----
@@ -287,10 +300,14 @@ def regions_to_mask(regions, shape, wcs=None):
     >>> int(m.sum()), bool(m[10, 9]), bool(m[10, 10])
     (11, True, False)
     """
+    from .region_units import degree_like
     shape = check_shape(shape)
     mask = np.zeros(shape, dtype=bool)
     for s in parse_regions(regions):
         pixels = _rasterise(s, shape, wcs)
+        why = degree_like(s, shape, wcs, bool(pixels.any()))
+        if why:
+            raise ValueError(why)
         if not pixels.any():
             warnings.warn(f"regions entry {s.entry} {s.text!r} selects no pixel of the "
                           f"{shape[0]} x {shape[1]} image; check its position and size",

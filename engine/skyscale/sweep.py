@@ -35,7 +35,7 @@ from .operators import ImagePlaneOperator
 
 __all__ = ["SCALE_SETS", "DEFAULT_SIZES", "QUICK_SETTINGS", "synthetic_field", "PeakMemory",
            "cpu_clock", "record_sub_loops", "fft_probe", "measure_point", "measure_run",
-           "run_sweep"]
+           "run_sweep", "VALIDATION_RUNS", "sweep_shapes", "sweep_memory"]
 
 logger = logging.getLogger(__name__)
 
@@ -52,6 +52,10 @@ POINT_COMPONENTS = 1500
 #: Settings of ``quick=True`` (a smoke run for tests: seconds, not minutes).
 QUICK_SETTINGS = {"sizes": (96, 128), "scale_sets": ((0,), (0, 4, 8)), "components": 60,
                   "run_components": 300, "validate_size": 112}
+#: Runs that check the planner on sizes and fields the sweep did not see:
+#: ``(size, scales, seed)``.
+VALIDATION_RUNS = ((768, (0, 4, 8, 16), 11), (1536, (0, 4, 8, 16, 32), 12),
+                   (640, (0, 4, 8, 16, 32), 14))
 
 
 # --------------------------------------------------------------------------- inputs
@@ -365,6 +369,42 @@ def _sets_for(n, scale_sets):
     return ok
 
 
+def _calibration_runs(sizes):
+    runs = [(sizes[0], (0, 4, 8)), (sizes[0], (0, 4, 8, 16)),
+            (sizes[-1 if len(sizes) < 2 else 1], (0, 4, 8, 16))]
+    return [(n, s) for n, s in runs if max(s) <= n // 4]
+
+
+def sweep_shapes(sizes, *, validate=True):
+    """Every ``(size, scales)`` the sweep of ``sizes`` runs (PSF twice the size, float32):
+    the points, the calibration runs and, with ``validate``, `VALIDATION_RUNS`."""
+    sizes = sorted({int(s) for s in sizes})
+    todo = [(n, tuple(s)) for n in sizes for s in _sets_for(n, SCALE_SETS)]
+    todo += [(n, tuple(s)) for n, s in _calibration_runs(sizes)]
+    if validate:
+        todo += [(n, tuple(s)) for n, s, _ in VALIDATION_RUNS]
+    return todo
+
+
+def sweep_memory(sizes, *, validate=True, calibration=None):
+    """Predicted peak memory of ``skyscale bench --sizes`` (bytes) and its largest step.
+
+    Returns
+    -------
+    peak : int
+        The largest `skyscale.cost.predict_memory` peak of the steps of `sweep_shapes`.
+    worst : (int, tuple)
+        Its ``(size, scales)``.
+    """
+    cal = calibration or cost.load_calibration()
+    best = (0, None)
+    for n, scales in sweep_shapes(sizes, validate=validate):
+        g = cost.run_geometry((n, n), (2 * n, 2 * n), _radii(scales))
+        best = max(best, (cost.predict_memory(g, cal)["peak"], (n, scales)),
+                   key=lambda b: b[0])
+    return best
+
+
 def run_sweep(sizes=DEFAULT_SIZES, *, scale_sets=SCALE_SETS, components=POINT_COMPONENTS,
               thread_counts=None, quick=False, validate=True, callback=None):
     """Measure the cost of scales, image size and threads; fit and check the model.
@@ -430,9 +470,7 @@ def run_sweep(sizes=DEFAULT_SIZES, *, scale_sets=SCALE_SETS, components=POINT_CO
                                              thread_counts=thread_counts)
     out["runs"] = []
     budget = q.get("run_components", 20000)
-    cal_runs = [(sizes[0], (0, 4, 8)), (sizes[0], (0, 4, 8, 16)), (sizes[-1 if len(sizes) < 2
-                                                                        else 1], (0, 4, 8, 16))]
-    cal_runs = [(n, s) for n, s in cal_runs if max(s) <= n // 4]
+    cal_runs = _calibration_runs(sizes)
     for n, scales in cal_runs:
         _notify(callback, what="calibration run", size=n, scales=list(scales))
         dirty, psf = synthetic_field(n, seed=0)
@@ -445,8 +483,7 @@ def run_sweep(sizes=DEFAULT_SIZES, *, scale_sets=SCALE_SETS, components=POINT_CO
     out["calibration"] = calibrate(out)
     out["validation"] = []
     if validate:
-        held = [(q["validate_size"], (0, 4, 8), 11)] if quick else [
-            (768, (0, 4, 8, 16), 11), (1536, (0, 4, 8, 16, 32), 12), (640, (0, 4, 8, 16, 32), 14)]
+        held = [(q["validate_size"], (0, 4, 8), 11)] if quick else list(VALIDATION_RUNS)
         for n, scales, seed in held:
             _notify(callback, what="validation", size=n, scales=list(scales))
             dirty, psf = synthetic_field(n, seed=seed)
