@@ -115,14 +115,35 @@ def test_memory_model_within_20_percent_of_tracemalloc(n, psf_factor, dtype, sca
     assert plan.memory_bytes == pytest.approx(peak, rel=0.20)
 
 
-def test_plan_builds_on_the_engines_own_memory_account():
-    # One home for memory: the plan's engine figure and its terms are the Engine's.
+def test_plan_and_engine_share_one_memory_account():
+    # One home for memory (skyscale.cost.predict_memory): the plan's figure is the
+    # Engine's, term by term, and its beams are the bytes the Engine really holds.
     dirty, psf = synthetic_field(96, seed=1)
     e = Engine(psf, [0, 4, 8], image_shape=dirty.shape, threads=1)
     plan = cost.plan_run(dirty.shape, psf, [0, 4, 8], calibration=cost.DEFAULT_CALIBRATION)
-    assert plan.engine_memory_bytes == e.memory["total"]
+    assert plan.engine_memory_bytes == e.memory["total"] == plan.memory_bytes
+    assert plan.memory_phase == e.memory["peak_phase"]
     assert plan.memory_terms["beams"] == e.memory["beams"] == sum(b.nbytes for b in e.beams)
-    assert plan.memory_bytes > plan.engine_memory_bytes
+    assert e.memory["planes"] == 2 * len(e.beams) * dirty.size * 4
+
+
+def test_engine_max_memory_refuses_what_the_plan_says_will_not_fit():
+    # The Engine's max_memory check applies the planner's own rule to the same account:
+    # for a budget just under the plan's need both refuse, just over both accept.
+    dirty, psf = synthetic_field(96, seed=1)
+    plan = cost.plan_run(dirty.shape, psf, [0, 4, 8], calibration=cost.DEFAULT_CALIBRATION,
+                         memory_available=10 ** 12)
+    need = plan.memory_bytes * cost.MEMORY_HEADROOM
+    tight = cost.plan_run(dirty.shape, psf, [0, 4, 8], calibration=cost.DEFAULT_CALIBRATION,
+                          memory_available=int(need) - 1)
+    assert not tight.fits
+    with pytest.raises(ValueError, match="max_memory"):
+        Engine(psf, [0, 4, 8], image_shape=dirty.shape, threads=1,
+               max_memory=int(need) - 1)
+    roomy = cost.plan_run(dirty.shape, psf, [0, 4, 8], calibration=cost.DEFAULT_CALIBRATION,
+                          memory_available=int(need) + 1)
+    assert roomy.fits
+    Engine(psf, [0, 4, 8], image_shape=dirty.shape, threads=1, max_memory=int(need) + 1)
 
 
 def test_peak_memory_sees_a_known_allocation():

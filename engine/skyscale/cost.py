@@ -33,9 +33,9 @@ residual operator and the first use of the cycle's FFT plans.  How the counts ar
 estimated is in `estimate_counts`: they depend on the field, and the planner says
 which it assumed.  Times are those of one unshared core (the sweep measures CPU
 seconds).  Threads divide the
-parallel part (Amdahl's law, fractions measured with 1 and 2 threads).  Memory builds
-on the engine's own account, `skyscale.precompute.plan_memory`, and adds what it leaves
-out (`predict_memory`).
+parallel part (Amdahl's law, fractions measured with 1 and 2 threads).  Memory has
+one account, `predict_memory`: the planner's figure and `skyscale.Engine`'s
+``memory`` (and its ``max_memory`` check, `fits_memory`) are the same number.
 """
 
 import math
@@ -45,11 +45,11 @@ from scipy.fft import next_fast_len
 
 from .calibration import (CALIBRATION_ENV, DEFAULT_CALIBRATION, default_calibration_path,
                           fit_nonnegative, fit_power_law, load_calibration, save_calibration)
-from .precompute import plan_memory
 
 __all__ = ["DEFAULT_CALIBRATION", "CALIBRATION_ENV", "DEFAULT_DYNAMIC_RANGE",
            "MEMORY_HEADROOM", "Geometry", "run_geometry", "fft_seconds", "predict_times",
-           "estimate_counts", "predict_memory", "available_memory", "load_calibration",
+           "estimate_counts", "predict_memory", "engine_memory", "fits_memory",
+           "available_memory", "load_calibration",
            "save_calibration", "default_calibration_path", "fit_power_law",
            "fit_nonnegative"]
 
@@ -253,27 +253,29 @@ def _real(grid):
 
 
 def predict_memory(geom, calibration=None):
-    """Peak bytes a run adds to the process, and where it happens.
+    """Peak bytes a run adds to the process, and where it happens: the one memory account.
 
-    The engine's own arrays come from `skyscale.precompute.plan_memory` (the scale
-    beams, the smoothed planes and the cycle's images); added here is what that account
-    leaves out, counted from the code with the pyfftw backend: the FFT plans the
-    backend keeps for the engine's lifetime (each an input and an output buffer: the
-    precompute's per kernel shape, the smoothing's and the PSF convolution's, three
-    each), the transforms kept by the convolvers and the residual operator, the PSF
-    copies, and the largest transient (the beams' transforms while they are made, or a
-    round's update).
+    Counted from the code with the pyfftw backend: the engine's arrays (one scale beam
+    per scale, the smoothed residuals twice: the working set and the copy a rejected
+    sub-loop returns to, and the cycle's images: residual in float64, model, its
+    increment, mask), the FFT plans the backend keeps for the engine's lifetime (each
+    an input and an output buffer: the precompute's per kernel shape, the smoothing's
+    and the PSF convolution's, three each), the transforms kept by the convolvers and
+    the residual operator, the PSF copies, and the largest transient (the beams'
+    transforms while they are made, or a round's update).
 
     Returns
     -------
     dict
         ``peak`` (bytes, times the calibrated ``memory.scale``), ``peak_phase``
-        ('precompute' or 'cycles'), ``engine`` (what `plan_memory` says, unchanged) and
-        ``terms``.
+        ('precompute' or 'cycles'), ``phases``, ``terms`` and ``engine`` (what
+        `skyscale.Engine` keeps as ``memory``: the terms with ``total`` = ``peak`` and
+        ``peak_phase``).
     """
     cal = calibration or load_calibration()
     b = geom.itemsize
-    eng = plan_memory(geom.image_shape, geom.psf_shape, geom.radii, b)
+    ny, nx = geom.image_shape
+    n = geom.n_scales
     n_psf = geom.psf_shape[0] * geom.psf_shape[1]
     nf = geom.n_finite
     plan_p = plan_s = 0
@@ -281,13 +283,15 @@ def predict_memory(geom, calibration=None):
     if nf:
         p, s = geom.precompute_grid, geom.smooth_grid
         plan_p = (len({r for r in geom.radii if r > 0}) + 2) * (_real(p) + _complex(p))
-        ry, rx = (2 * (n - 1 + 2 * max(geom.radii)) + 1 for n in geom.image_shape)
+        ry, rx = (2 * (v - 1 + 2 * max(geom.radii)) + 1 for v in geom.image_shape)
         work_p = 8 * ry * rx + 4 * _complex(p) + _real(p)
         plan_s = 3 * (_real(s) + _complex(s))
         work_s = 2 * _complex(s) + _real(s)
     m = geom.major_grid
     t = {
-        "beams": eng["beams"], "planes": eng["planes"], "images": eng["images"],
+        "beams": n * (2 * ny - 1) * (2 * nx - 1) * b,
+        "planes": 2 * n * ny * nx * b,
+        "images": 2 * ny * nx * 8 + 2 * ny * nx * b + ny * nx,
         "psf_copies": 2 * b * n_psf,
         "precompute_plans": plan_p,
         "cycle_plans": plan_s + 3 * (_real(m) + _complex(m)),
@@ -303,9 +307,42 @@ def predict_memory(geom, calibration=None):
     }
     scale = float(cal["memory"]["scale"])
     peak_phase = max(phases, key=phases.get)
-    return {"peak": int(scale * phases[peak_phase]), "peak_phase": peak_phase,
-            "phases": {k: int(scale * v) for k, v in phases.items()}, "engine": eng,
-            "terms": t}
+    peak = int(scale * phases[peak_phase])
+    return {"peak": peak, "peak_phase": peak_phase,
+            "phases": {k: int(scale * v) for k, v in phases.items()},
+            "engine": dict(t, total=peak, peak_phase=peak_phase), "terms": t}
+
+
+def engine_memory(image_shape, psf_shape, radii, itemsize=4, calibration=None):
+    """`predict_memory` of an engine's shapes: what `skyscale.Engine` keeps as ``memory``.
+
+    Parameters
+    ----------
+    image_shape, psf_shape : (int, int)
+    radii : sequence of int
+        Support half-width of each scale kernel.
+    itemsize : int
+        4 for float32, 8 for float64.
+    calibration : dict, optional
+        Default `load_calibration` (its ``memory.scale``), as the planner reads it.
+
+    Returns
+    -------
+    dict
+        The terms of `predict_memory` (bytes), ``total`` (its ``peak``) and ``peak_phase``.
+    """
+    geom = run_geometry(image_shape, psf_shape, radii, itemsize=itemsize)
+    return predict_memory(geom, calibration)["engine"]
+
+
+def fits_memory(peak, available):
+    """True when a predicted ``peak`` (bytes) fits in ``available`` bytes.
+
+    The rule of the planner and of ``Engine(max_memory=)``: the peak times
+    `MEMORY_HEADROOM` (the model's margin) must be at most what is available; an
+    unknown ``available`` (None) fits.
+    """
+    return available is None or peak * MEMORY_HEADROOM <= available
 
 
 def available_memory():

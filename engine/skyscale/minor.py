@@ -32,7 +32,8 @@ from .fft import Convolver, MultiConvolver, get_backend
 from .kernels import scale_loop, stamp_components
 from .levels import DEFAULT_EXTENDED_DEPTH, allowed_peak, scale_levels
 from .noise import scale_noise
-from .precompute import plan_memory, scale_beams
+from .cost import MEMORY_HEADROOM, engine_memory, fits_memory
+from .precompute import scale_beams
 from .psf import check_psf, describe_psf
 from .result import COMPONENT_DTYPE
 from .scales import ScaleSet
@@ -132,7 +133,11 @@ class Engine:
     cell_arcsec : float, optional
         Cell size, needed when scales are angles.
     max_memory : int, optional
-        Refuse (ValueError) an engine needing more bytes than this.
+        Refuse (ValueError) an engine whose predicted peak, times the planner's margin
+        `skyscale.cost.MEMORY_HEADROOM`, is over this many bytes: the rule and the
+        account (`skyscale.cost.engine_memory`, kept as ``memory``) of
+        `skyscale.plan_run`, so an engine is refused exactly when the plan says the run
+        will not fit.
     psf_patch : optional
         No longer used (the minor cycle subtracts whole scale beams); a value gives a
         DeprecationWarning.
@@ -201,10 +206,11 @@ class Engine:
         self.threads = threads
         self.fft = get_backend(fft, threads=threads)
         self.psf_info = describe_psf(self.psf, self.image_shape)
-        self.memory = plan_memory(self.image_shape, self.psf.shape, self.scales.support_radii,
-                                  self.dtype.itemsize)
-        if max_memory is not None and self.memory["total"] > max_memory:
-            raise InputError(f"the engine needs {self.memory['total'] / 2**20:.0f} MiB, over "
+        self.memory = engine_memory(self.image_shape, self.psf.shape,
+                                    self.scales.support_radii, self.dtype.itemsize)
+        if max_memory is not None and not fits_memory(self.memory["total"], max_memory):
+            raise InputError(f"the engine needs about {self.memory['total'] / 2**20:.0f} MiB "
+                             f"(predicted peak, with a {MEMORY_HEADROOM:.2f}x margin), over "
                              f"max_memory {max_memory / 2**20:.0f} MiB; use fewer or smaller "
                              "scales, a smaller image, or raise max_memory")
         self.kernels = self.scales.kernels(self.dtype)
