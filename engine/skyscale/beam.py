@@ -24,12 +24,28 @@ from scipy import ndimage, optimize, signal
 
 from ._validate import as_image
 
-__all__ = ["FWHM_TO_SIGMA", "FIT_THRESHOLD", "KERNEL_SIGMAS", "Beam", "fit_beam",
-           "beam_area", "beam_kernel", "jy_per_pixel_to_jy_per_beam",
+__all__ = ["FWHM_PER_SIGMA", "FWHM_TO_SIGMA", "FIT_THRESHOLD", "KERNEL_SIGMAS", "Beam", "fit_beam",
+           "beam_area", "gaussian_area", "beam_kernel", "jy_per_pixel_to_jy_per_beam",
            "jy_per_beam_to_jy_per_pixel", "restore"]
 
+#: FWHM = FWHM_PER_SIGMA * sigma for a Gaussian, 2 sqrt(2 ln 2) [1]_: the one home of
+#: the constant (`FWHM_TO_SIGMA` is its inverse).
+FWHM_PER_SIGMA = 2.0 * math.sqrt(2.0 * math.log(2.0))
+
 #: sigma = FWHM * FWHM_TO_SIGMA for a Gaussian [1]_.
-FWHM_TO_SIGMA = 1.0 / (2.0 * math.sqrt(2.0 * math.log(2.0)))
+FWHM_TO_SIGMA = 1.0 / FWHM_PER_SIGMA
+
+
+def gaussian_area(major, minor):
+    """Integral of a 2-D Gaussian of unit peak and FWHMs ``major``, ``minor``: the beam
+    area ``pi * major * minor / (4 ln 2)`` [1]_, in the squared unit of the widths.
+
+    Examples
+    --------
+    >>> round(gaussian_area(3.0, 3.0), 3)
+    10.198
+    """
+    return math.pi * major * minor / (4.0 * math.log(2.0))
 
 #: Default fraction of the PSF's central value that bounds the fitted main lobe.
 FIT_THRESHOLD = 0.35
@@ -128,8 +144,8 @@ class Beam:
 
     @property
     def area(self):
-        """Beam solid angle in pixels: pi * major * minor / (4 ln 2) [1]_."""
-        return math.pi * self.major * self.minor / (4.0 * math.log(2.0))
+        """Beam solid angle in pixels: `gaussian_area` of its FWHMs [1]_."""
+        return gaussian_area(self.major, self.minor)
 
     def to_sky(self, cell_arcsec):
         """Return ``(major_arcsec, minor_arcsec, pa_deg)`` for a square cell of ``cell_arcsec``."""

@@ -17,6 +17,7 @@ from scipy import fft as sfft
 from scipy import ndimage
 
 from ._validate import as_image
+from .beam import gaussian_area
 from .detect import detect_emission
 
 __all__ = ["EmissionMask", "emission_mask"]
@@ -121,8 +122,8 @@ class EmissionMask:
                                           allow_zero=True)
         self.smooth_fraction = _positive(smooth_fraction, "smooth_fraction")
         self.include_negative = bool(include_negative)
-        #: Beam area in pixels, pi FWHM^2 / (4 ln 2) (analytic).
-        self.beam_area_px = np.pi * self.beam_fwhm_px ** 2 / (4 * np.log(2))
+        #: Beam area in pixels, pi FWHM^2 / (4 ln 2) (`skyscale.beam.gaussian_area`).
+        self.beam_area_px = gaussian_area(self.beam_fwhm_px, self.beam_fwhm_px)
         #: The mask of the last `update`, or None.
         self.mask = None
         #: Robust noise of each smoothed image at the last update, by scale.

@@ -14,6 +14,7 @@ References
 import numpy as np
 
 from ._validate import InputError, check_choice
+from .beam import FWHM_PER_SIGMA
 
 __all__ = ["SCALE_SHAPES", "ScaleSet", "spheroidal", "scale_kernel", "size_penalty_weights",
            "angle_to_pixels"]
@@ -109,7 +110,7 @@ def scale_kernel(scale, shape="paraboloid", dtype=np.float32):
         if k.sum() <= 0:  # a scale under about two pixels: nothing but the centre survives
             k[h, h] = 1.0
     else:
-        sigma = (scale / 2.0) / (2.0 * np.sqrt(2.0 * np.log(2.0)))
+        sigma = (scale / 2.0) / FWHM_PER_SIGMA
         k = np.where(r <= scale, np.exp(-0.5 * (r / sigma) ** 2), 0.0)
     return (k / k.sum()).astype(dtype)
 
