@@ -306,6 +306,8 @@ def test_calibration_file_is_preferred_and_linear(tmp_path, monkeypatch):
     two = cost.plan_run((128, 128), (256, 256), [0, 4], threads=1)
     assert two.round_seconds == pytest.approx(2 * one.round_seconds)
     assert str(path) in two.calibration
+    # Written through skyscale._atomic: replaced in place, no temporary file left.
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["cal.json"]
 
 
 def test_broken_calibrations(tmp_path, monkeypatch, caplog):

@@ -13,6 +13,7 @@ import threading
 import numpy as np
 from scipy.fft import next_fast_len
 
+from ._atomic import atomic_write_bytes
 from ._validate import check_choice
 
 __all__ = ["FFT_BACKENDS", "NumpyFFT", "FFTWFFT", "get_backend", "fast_shape",
@@ -82,11 +83,9 @@ class FFTWFFT:
 
     def _save_wisdom(self):
         try:
-            os.makedirs(os.path.dirname(self.wisdom_path), exist_ok=True)
-            tmp = f"{self.wisdom_path}.{os.getpid()}.tmp"
-            with open(tmp, "wb") as fh:
-                pickle.dump(self._pyfftw.export_wisdom(), fh)
-            os.replace(tmp, self.wisdom_path)
+            os.makedirs(os.path.dirname(os.path.abspath(self.wisdom_path)), exist_ok=True)
+            atomic_write_bytes(self.wisdom_path, pickle.dumps(self._pyfftw.export_wisdom()),
+                               overwrite=True)
         except OSError:  # a read-only home is fine: wisdom is only a speed-up
             pass
 
