@@ -322,6 +322,23 @@ def test_broken_calibrations(tmp_path, monkeypatch, caplog):
     assert "ignoring the calibration file" in caplog.text
 
 
+def test_loop_formula_has_one_home():
+    # Analytic: l1 m A + R (l2 A + l0), written out; the planner's loop figure is it.
+    t = {"per_component_pixel": 2e-9, "per_active_pixel": 5e-9, "per_sub_loop": 1e-4}
+    assert cost.loop_seconds(t, 300, 4000, 7) == pytest.approx(
+        2e-9 * 300 * 4000 + 7 * (5e-9 * 4000 + 1e-4), rel=1e-12)
+    assert cost.loop_features(4000, 300) == [1.2e6, 4000.0, 1.0]
+    assert np.dot(cost.loop_features(4000, 300), [t[k] for k in cost.LOOP_TERMS]) == \
+        pytest.approx(cost.loop_seconds(t, 300, 4000), rel=1e-12)
+    plan = cost.plan_run((256, 256), (512, 512), [0, 4, 8], threads=1,
+                         calibration=cost.DEFAULT_CALIBRATION)
+    g = cost.run_geometry((256, 256), (512, 512), ScaleSet([0, 4, 8]).support_radii)
+    c = plan.counts
+    assert plan.loop_seconds == pytest.approx(cost.loop_seconds(
+        cost.predict_times(g, cost.DEFAULT_CALIBRATION, threads=1), c["components"],
+        c["active_pixels"], c["rounds"]), rel=1e-12)
+
+
 def test_calibrate_inverts_the_model_on_noiseless_data():
     # Analytic: times made by the model from known coefficients are fitted back to them.
     true = json.loads(json.dumps(cost.DEFAULT_CALIBRATION))

@@ -48,7 +48,7 @@ from .calibration import (CALIBRATION_ENV, DEFAULT_CALIBRATION, default_calibrat
 
 __all__ = ["DEFAULT_CALIBRATION", "CALIBRATION_ENV", "DEFAULT_DYNAMIC_RANGE",
            "MEMORY_HEADROOM", "Geometry", "run_geometry", "fft_seconds", "predict_times",
-           "estimate_counts", "predict_memory", "engine_memory", "fits_memory",
+           "LOOP_TERMS", "loop_features", "loop_seconds", "estimate_counts", "predict_memory", "engine_memory", "fits_memory",
            "available_memory", "load_calibration",
            "save_calibration", "default_calibration_path", "fit_power_law",
            "fit_nonnegative"]
@@ -166,6 +166,42 @@ def predict_times(geom, calibration=None, *, threads=1):
         "per_active_pixel": cal["loop"]["per_active_pixel"] * loop,
         "per_sub_loop": cal["loop"]["per_sub_loop"],
     }
+
+
+#: The sub-loop's cost terms, in the order of `loop_features` (seconds per component
+#: and active pixel, per active pixel of a sub-loop, per sub-loop).
+LOOP_TERMS = ("per_component_pixel", "per_active_pixel", "per_sub_loop")
+
+
+def loop_features(active_pixels, components):
+    """The sub-loop's cost features, one per `LOOP_TERMS`: what the calibration fits.
+
+    A sub-loop over ``A`` active pixels that takes ``m`` components costs
+    ``l_1 m A + l_2 A + l_0`` (see `loop_seconds`), so its features are ``[m A, A, 1]``.
+    """
+    return [float(components) * float(active_pixels), float(active_pixels), 1.0]
+
+
+def loop_seconds(times, components, active_pixels, sub_loops=1):
+    r"""Seconds of ``sub_loops`` sub-loops taking ``components`` in all over
+    ``active_pixels`` (per sub-loop): the one home of the loop's cost formula.
+
+    .. math:: t_\mathrm{loop} = \ell_1 m A + R (\ell_2 A + \ell_0)
+
+    Parameters
+    ----------
+    times : dict
+        `predict_times` (or a calibration's ``loop`` section): the `LOOP_TERMS`.
+    components : float
+        Components ``m`` taken (in all the sub-loops).
+    active_pixels : float
+        Active set ``A`` of a sub-loop (the mean, for many).
+    sub_loops : int
+        Sub-loops ``R``; default 1.
+    """
+    a = float(active_pixels)
+    return (times["per_component_pixel"] * components * a
+            + sub_loops * (times["per_active_pixel"] * a + times["per_sub_loop"]))
 
 
 def estimate_counts(geom, calibration=None, *, dynamic_range=None, max_components=20000,
