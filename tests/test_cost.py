@@ -364,7 +364,7 @@ def test_calibrate_inverts_the_model_on_noiseless_data():
                            "round_s": t["round"], "updates": 3, "major_s": t["major"],
                            "stats_s": t["stats"], "loops": loops, "setup_s": t["setup"],
                            "traced_peak": cost.predict_memory(g, true)["peak"]})
-    fft = [{"grid": list(g), "seconds": 3e-9 * cost._fft_work(g) ** 1.1} for g in grids]
+    fft = [{"grid": list(g), "seconds": 3e-9 * cost.fft_work(g) ** 1.1} for g in grids]
     cal = calibrate({"settings": {"sizes": [128, 256, 512]}, "points": points, "fft": fft})
     for sec in ("fft", "round", "major", "loop", "setup"):
         for k, v in true[sec].items():

@@ -47,11 +47,11 @@ from .calibration import (CALIBRATION_ENV, DEFAULT_CALIBRATION, default_calibrat
                           fit_nonnegative, fit_power_law, load_calibration, save_calibration)
 
 __all__ = ["DEFAULT_CALIBRATION", "CALIBRATION_ENV", "DEFAULT_DYNAMIC_RANGE",
-           "MEMORY_HEADROOM", "Geometry", "run_geometry", "fft_seconds", "predict_times",
-           "LOOP_TERMS", "loop_features", "loop_seconds", "estimate_counts", "predict_memory", "engine_memory", "fits_memory",
-           "available_memory", "load_calibration",
-           "save_calibration", "default_calibration_path", "fit_power_law",
-           "fit_nonnegative"]
+           "MEMORY_HEADROOM", "LOOP_TERMS", "Geometry", "run_geometry", "fft_work",
+           "fft_seconds", "predict_times", "loop_features", "loop_seconds",
+           "estimate_counts", "predict_memory", "engine_memory", "fits_memory",
+           "available_memory", "load_calibration", "save_calibration",
+           "default_calibration_path", "fit_power_law", "fit_nonnegative"]
 
 #: Peak over stop level assumed when neither the dirty image nor a dynamic range is given.
 DEFAULT_DYNAMIC_RANGE = 1000.0
@@ -59,7 +59,7 @@ DEFAULT_DYNAMIC_RANGE = 1000.0
 MEMORY_HEADROOM = 1.10
 
 
-def _fft_work(shape):
+def fft_work(shape):
     """``S log2 S`` for an FFT of ``shape``: the unit of FFT work."""
     s = float(shape[0]) * float(shape[1])
     return s * math.log2(max(s, 2.0))
@@ -133,7 +133,7 @@ def run_geometry(image_shape, psf_shape, radii, *, itemsize=4):
 def fft_seconds(pieces, calibration, threads=1):
     """Seconds of the FFTs ``[(grid, count), ...]`` under the calibration's FFT law."""
     c = calibration["fft"]
-    t = sum(n * c["coefficient"] * _fft_work(g) ** c["exponent"] for g, n in pieces)
+    t = sum(n * c["coefficient"] * fft_work(g) ** c["exponent"] for g, n in pieces)
     return t * _amdahl(calibration["threads"]["fft_parallel"], threads)
 
 

@@ -47,9 +47,9 @@ def calibrate(sweep):
                      + time.strftime("%Y-%m-%d"))
     cal["fit"] = {}
     f = sweep["fft"]
-    law = fit_power_law([cost._fft_work(r["grid"]) for r in f], [r["seconds"] for r in f])
+    law = fit_power_law([cost.fft_work(r["grid"]) for r in f], [r["seconds"] for r in f])
     cal["fft"] = {"coefficient": law["coefficient"], "exponent": law["exponents"][0]}
-    cal["fit"]["fft"] = _misfit([law["coefficient"] * cost._fft_work(r["grid"]) **
+    cal["fit"]["fft"] = _misfit([law["coefficient"] * cost.fft_work(r["grid"]) **
                                  law["exponents"][0] for r in f], [r["seconds"] for r in f])
     geo = [_geometry(r) for r in pts]
     ffts = [step_ffts(g, cal) for g in geo]
