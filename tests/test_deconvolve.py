@@ -89,8 +89,10 @@ def test_noise_threshold_stops_at_a_multiple_of_the_robust_noise(extended_case):
     assert r.history[-2].peak > 5.0 * skyscale.robust_noise(r.residual, mask) * 0.9
 
 
-def test_peak_residual_in_the_mask_never_grows():
-    # The run's robustness guarantee: emission cut by the image edge plus noise.
+def test_peak_residual_in_a_fixed_mask_never_grows():
+    # The run's robustness guarantee for a mask that stays the same (a growing emission
+    # mask takes in new pixels, whose peak may be higher): emission cut by the image
+    # edge plus noise.
     psf = gaussian_psf(96, sigma=2.0, ring=0.1)
     n = 96
     yy, xx = np.mgrid[:n, :n]
@@ -109,6 +111,20 @@ def test_peak_residual_in_the_mask_never_grows():
     # large scales keep their kernels inside the image
     big = r.components["scale"] == 32
     assert np.all(r.components["y"][big] >= 16) and np.all(r.components["x"][big] <= n - 17)
+
+
+def test_mask_with_no_allowed_centre_is_an_empty_cycle():
+    # Without a delta scale no component may be centred within a kernel's radius of the
+    # edge; a mask that lies only there leaves nothing to clean (it used to crash).
+    psf = gaussian_psf(32)
+    engine = Engine(psf, [4, 8], image_shape=(32, 32), threads=1)
+    residual = np.random.default_rng(0).normal(size=(32, 32)).astype(np.float32)
+    mask = np.zeros((32, 32), bool)
+    mask[0, 0] = True
+    r = engine.minor_cycle(residual, mask=mask)
+    assert r.stop_reason == "empty" and r.components.size == 0
+    assert r.peak_start == r.peak_end == pytest.approx(abs(float(residual[0, 0])))
+    np.testing.assert_array_equal(r.model, 0.0)
 
 
 def test_pipeline_engine_with_own_operator_matches_deconvolve(extended_case):
