@@ -19,7 +19,6 @@ of about ten plans; it is kept for that, and that is all it is for.
 
 import json
 import os
-import pickle
 import subprocess
 import sys
 import tempfile

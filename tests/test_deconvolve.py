@@ -1,7 +1,5 @@
 """End-to-end deconvolution against analytic results and the known truth of synthetic fields."""
 
-import warnings
-
 import numpy as np
 import pytest
 
@@ -125,6 +123,21 @@ def test_mask_with_no_allowed_centre_is_an_empty_cycle():
     assert r.stop_reason == "empty" and r.components.size == 0
     assert r.peak_start == r.peak_end == pytest.approx(abs(float(residual[0, 0])))
     np.testing.assert_array_equal(r.model, 0.0)
+
+
+def test_function_operator_checks_its_shape_both_ways():
+    # The shape FunctionOperator stores is the contract: a model of another shape is
+    # refused before the function runs, and so is a residual of another shape.
+    calls = []
+    op = skyscale.FunctionOperator(lambda m: calls.append(m.shape) or np.zeros((8, 8)),
+                                   (8, 8))
+    assert op(np.zeros((8, 8))).dtype == np.float32
+    with pytest.raises(skyscale.InputError, match="model of shape \\(4, 4\\)"):
+        op(np.zeros((4, 4)))
+    assert calls == [(8, 8)]
+    wrong = skyscale.FunctionOperator(lambda m: np.zeros((4, 4)), (8, 8))
+    with pytest.raises(skyscale.InputError, match="returned a residual of shape"):
+        wrong(np.zeros((8, 8)))
 
 
 def test_pipeline_engine_with_own_operator_matches_deconvolve(extended_case):

@@ -144,12 +144,9 @@ def size_penalty_weights(scales, size_penalty=0.6):
 
 def angle_to_pixels(values, cell_arcsec):
     """Turn angles (Quantity, or floats in arcsec) into pixels with the cell size."""
-    try:
-        from astropy import units as u
-        if isinstance(values, u.Quantity):
-            return np.atleast_1d(values.to_value(u.arcsec)) / float(cell_arcsec)
-    except ImportError:  # pragma: no cover - astropy is a dependency
-        pass
+    from astropy import units as u
+    if isinstance(values, u.Quantity):
+        return np.atleast_1d(values.to_value(u.arcsec)) / float(cell_arcsec)
     return np.atleast_1d(np.asarray(values, dtype=np.float64)) / float(cell_arcsec)
 
 
@@ -196,11 +193,8 @@ class ScaleSet:
     def __init__(self, scales, *, shape="paraboloid", cell_arcsec=None, image_shape=None):
         check_choice(shape, "shape", SCALE_SHAPES)
         self.shape = shape
-        try:
-            from astropy import units as u
-            is_angle = isinstance(scales, u.Quantity)
-        except ImportError:  # pragma: no cover
-            is_angle = False
+        from astropy import units as u
+        is_angle = isinstance(scales, u.Quantity)
         given = _as_given(scales)
         if isinstance(scales, (str, bytes)):
             raise InputError(f"scales is {scales!r} (text); give a list of diameters such as "
