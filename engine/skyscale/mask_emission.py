@@ -207,8 +207,8 @@ class EmissionMask:
         detected = found.mask
         labels, n = ndimage.label(detected, structure=np.ones((3, 3), dtype=bool))
         if n:
-            sizes = np.bincount(labels.ravel())
-            keep = sizes >= self.min_island_beams * self.beam_area_px
+            island_pixels = np.bincount(labels.ravel())
+            keep = island_pixels >= self.min_island_beams * self.beam_area_px
             keep[np.unique(labels[protected])] = True
             keep[0] = False
             detected = keep[labels]
