@@ -420,3 +420,10 @@ def test_bench_quick_writes_table_json_figure_and_calibration(tmp_path, capsys):
     assert cost.load_calibration(str(cal))["round"] == data["calibration"]["round"]
     assert main(["bench", "--quick", "--out", str(out)]) == 2      # refuses to overwrite
     assert "exists" in capsys.readouterr().err
+
+
+def test_old_engine_account_is_a_deprecated_wrapper_of_the_one_account():
+    from skyscale.precompute import plan_memory
+    with pytest.warns(DeprecationWarning, match="engine_memory"):
+        old = plan_memory((96, 96), (192, 192), (0, 2, 4))
+    assert old == cost.engine_memory((96, 96), (192, 192), (0, 2, 4))
