@@ -25,6 +25,8 @@ import numpy as np
 from scipy import ndimage
 from scipy.signal import fftconvolve
 
+from skyscale.beam import FWHM_PER_SIGMA
+
 __all__ = ["invented_array", "uv_tracks", "natural_psf", "correlated_noise", "invented_sky",
            "invented_field"]
 
@@ -102,7 +104,7 @@ def invented_sky(n, *, largest_scale=16, dynamic_range=1e3, sigma=1e-4, n_points
     for k in range(n_gauss):
         cy, cx = pos()
         fwhm = float(np.exp(rng.uniform(np.log(3.0), np.log(big))))
-        s = fwhm / 2.3548
+        s = fwhm / FWHM_PER_SIGMA
         peak = sigma * float(np.exp(rng.uniform(np.log(0.5), np.log(10.0))))
         sky += peak * np.exp(-((yy - cy) ** 2 + (xx - cx) ** 2) / (2 * s * s))
     for k in range(n_disks):

@@ -12,8 +12,9 @@ from astropy.modeling import fitting, models
 from scipy import ndimage, optimize, special
 
 import skyscale.beam as beam_module
-from skyscale.beam import (FWHM_TO_SIGMA, Beam, beam_area, beam_kernel, fit_beam,
-                           jy_per_beam_to_jy_per_pixel, jy_per_pixel_to_jy_per_beam, restore)
+from skyscale.beam import (FWHM_PER_SIGMA, FWHM_TO_SIGMA, Beam, beam_area, beam_kernel,
+                           fit_beam, gaussian_area, jy_per_beam_to_jy_per_pixel,
+                           jy_per_pixel_to_jy_per_beam, restore)
 
 GAUSS_FWHM = 2.0 * math.sqrt(2.0 * math.log(2.0))  # analytic: FWHM = 2 sqrt(2 ln 2) sigma
 
@@ -59,6 +60,18 @@ def astropy_fit(psf, threshold=0.35):
 def test_fwhm_constant_matches_handbook_value():
     # analytic: FWHM = 2 sqrt(2 ln 2) sigma = 2.354820045 sigma (REFERENCES.md)
     assert 1.0 / FWHM_TO_SIGMA == pytest.approx(2.354820045, rel=1e-9)
+    assert FWHM_PER_SIGMA == pytest.approx(2.354820045, rel=1e-9)
+    assert FWHM_PER_SIGMA * FWHM_TO_SIGMA == pytest.approx(1.0, rel=1e-15)
+
+
+def test_gaussian_area_is_the_integral_of_astropys_gaussian():
+    # Reference library: astropy's Gaussian2D sampled finely and summed (the integral
+    # of a unit-peak Gaussian is 2 pi sigma_x sigma_y, its FWHM 2 sqrt(2 ln 2) sigma).
+    step = 0.05
+    y, x = np.mgrid[-40:40:step, -40:40:step]
+    g = models.Gaussian2D(1.0, 0.0, 0.0, 5.0 / GAUSS_FWHM, 3.0 / GAUSS_FWHM, theta=0.4)
+    assert gaussian_area(5.0, 3.0) == pytest.approx(float(g(x, y).sum()) * step ** 2,
+                                                    rel=1e-6)
 
 
 def test_area_formula():

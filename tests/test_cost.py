@@ -115,14 +115,35 @@ def test_memory_model_within_20_percent_of_tracemalloc(n, psf_factor, dtype, sca
     assert plan.memory_bytes == pytest.approx(peak, rel=0.20)
 
 
-def test_plan_builds_on_the_engines_own_memory_account():
-    # One home for memory: the plan's engine figure and its terms are the Engine's.
+def test_plan_and_engine_share_one_memory_account():
+    # One home for memory (skyscale.cost.predict_memory): the plan's figure is the
+    # Engine's, term by term, and its beams are the bytes the Engine really holds.
     dirty, psf = synthetic_field(96, seed=1)
     e = Engine(psf, [0, 4, 8], image_shape=dirty.shape, threads=1)
     plan = cost.plan_run(dirty.shape, psf, [0, 4, 8], calibration=cost.DEFAULT_CALIBRATION)
-    assert plan.engine_memory_bytes == e.memory["total"]
+    assert plan.engine_memory_bytes == e.memory["total"] == plan.memory_bytes
+    assert plan.memory_phase == e.memory["peak_phase"]
     assert plan.memory_terms["beams"] == e.memory["beams"] == sum(b.nbytes for b in e.beams)
-    assert plan.memory_bytes > plan.engine_memory_bytes
+    assert e.memory["planes"] == 2 * len(e.beams) * dirty.size * 4
+
+
+def test_engine_max_memory_refuses_what_the_plan_says_will_not_fit():
+    # The Engine's max_memory check applies the planner's own rule to the same account:
+    # for a budget just under the plan's need both refuse, just over both accept.
+    dirty, psf = synthetic_field(96, seed=1)
+    plan = cost.plan_run(dirty.shape, psf, [0, 4, 8], calibration=cost.DEFAULT_CALIBRATION,
+                         memory_available=10 ** 12)
+    need = plan.memory_bytes * cost.MEMORY_HEADROOM
+    tight = cost.plan_run(dirty.shape, psf, [0, 4, 8], calibration=cost.DEFAULT_CALIBRATION,
+                          memory_available=int(need) - 1)
+    assert not tight.fits
+    with pytest.raises(ValueError, match="max_memory"):
+        Engine(psf, [0, 4, 8], image_shape=dirty.shape, threads=1,
+               max_memory=int(need) - 1)
+    roomy = cost.plan_run(dirty.shape, psf, [0, 4, 8], calibration=cost.DEFAULT_CALIBRATION,
+                          memory_available=int(need) + 1)
+    assert roomy.fits
+    Engine(psf, [0, 4, 8], image_shape=dirty.shape, threads=1, max_memory=int(need) + 1)
 
 
 def test_peak_memory_sees_a_known_allocation():
@@ -377,6 +398,8 @@ def test_calibration_file_is_preferred_and_linear(tmp_path, monkeypatch):
     two = cost.plan_run((128, 128), (256, 256), [0, 4], threads=1)
     assert two.round_seconds == pytest.approx(2 * one.round_seconds)
     assert str(path) in two.calibration
+    # Written through skyscale._atomic: replaced in place, no temporary file left.
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["cal.json"]
 
 
 def test_broken_calibrations(tmp_path, monkeypatch, caplog):
@@ -389,6 +412,23 @@ def test_broken_calibrations(tmp_path, monkeypatch, caplog):
     monkeypatch.setenv(cost.CALIBRATION_ENV, str(bad))
     assert cost.load_calibration() == cost.DEFAULT_CALIBRATION
     assert "ignoring the calibration file" in caplog.text
+
+
+def test_loop_formula_has_one_home():
+    # Analytic: l1 m A + R (l2 A + l0), written out; the planner's loop figure is it.
+    t = {"per_component_pixel": 2e-9, "per_active_pixel": 5e-9, "per_sub_loop": 1e-4}
+    assert cost.loop_seconds(t, 300, 4000, 7) == pytest.approx(
+        2e-9 * 300 * 4000 + 7 * (5e-9 * 4000 + 1e-4), rel=1e-12)
+    assert cost.loop_features(4000, 300) == [1.2e6, 4000.0, 1.0]
+    assert np.dot(cost.loop_features(4000, 300), [t[k] for k in cost.LOOP_TERMS]) == \
+        pytest.approx(cost.loop_seconds(t, 300, 4000), rel=1e-12)
+    plan = cost.plan_run((256, 256), (512, 512), [0, 4, 8], threads=1,
+                         calibration=cost.DEFAULT_CALIBRATION)
+    g = cost.run_geometry((256, 256), (512, 512), ScaleSet([0, 4, 8]).support_radii)
+    c = plan.counts
+    assert plan.loop_seconds == pytest.approx(cost.loop_seconds(
+        cost.predict_times(g, cost.DEFAULT_CALIBRATION, threads=1), c["components"],
+        c["active_pixels"], c["rounds"]), rel=1e-12)
 
 
 def test_calibrate_inverts_the_model_on_noiseless_data():
@@ -416,7 +456,7 @@ def test_calibrate_inverts_the_model_on_noiseless_data():
                            "round_s": t["round"], "updates": 3, "major_s": t["major"],
                            "stats_s": t["stats"], "loops": loops, "setup_s": t["setup"],
                            "traced_peak": cost.predict_memory(g, true)["peak"]})
-    fft = [{"grid": list(g), "seconds": 3e-9 * cost._fft_work(g) ** 1.1} for g in grids]
+    fft = [{"grid": list(g), "seconds": 3e-9 * cost.fft_work(g) ** 1.1} for g in grids]
     cal = calibrate({"settings": {"sizes": [128, 256, 512]}, "points": points, "fft": fft})
     for sec in ("fft", "round", "major", "loop", "setup"):
         for k, v in true[sec].items():
@@ -517,3 +557,10 @@ def test_bench_quick_writes_table_json_figure_and_calibration(tmp_path, capsys):
     assert tables.main([str(out / "bench.json")]) == 0
     dev = capsys.readouterr().out
     assert "fitted exponents" in dev and "cost model coefficients" in dev
+
+
+def test_old_engine_account_is_a_deprecated_wrapper_of_the_one_account():
+    from skyscale.precompute import plan_memory
+    with pytest.warns(DeprecationWarning, match="engine_memory"):
+        old = plan_memory((96, 96), (192, 192), (0, 2, 4))
+    assert old == cost.engine_memory((96, 96), (192, 192), (0, 2, 4))

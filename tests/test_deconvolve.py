@@ -1,7 +1,5 @@
 """End-to-end deconvolution against analytic results and the known truth of synthetic fields."""
 
-import warnings
-
 import numpy as np
 import pytest
 
@@ -89,8 +87,10 @@ def test_noise_threshold_stops_at_a_multiple_of_the_robust_noise(extended_case):
     assert r.history[-2].peak > 5.0 * skyscale.robust_noise(r.residual, mask) * 0.9
 
 
-def test_peak_residual_in_the_mask_never_grows():
-    # The run's robustness guarantee: emission cut by the image edge plus noise.
+def test_peak_residual_in_a_fixed_mask_never_grows():
+    # The run's robustness guarantee for a mask that stays the same (a growing emission
+    # mask takes in new pixels, whose peak may be higher): emission cut by the image
+    # edge plus noise.
     psf = gaussian_psf(96, sigma=2.0, ring=0.1)
     n = 96
     yy, xx = np.mgrid[:n, :n]
@@ -109,6 +109,35 @@ def test_peak_residual_in_the_mask_never_grows():
     # large scales keep their kernels inside the image
     big = r.components["scale"] == 32
     assert np.all(r.components["y"][big] >= 16) and np.all(r.components["x"][big] <= n - 17)
+
+
+def test_mask_with_no_allowed_centre_is_an_empty_cycle():
+    # Without a delta scale no component may be centred within a kernel's radius of the
+    # edge; a mask that lies only there leaves nothing to clean (it used to crash).
+    psf = gaussian_psf(32)
+    engine = Engine(psf, [4, 8], image_shape=(32, 32), threads=1)
+    residual = np.random.default_rng(0).normal(size=(32, 32)).astype(np.float32)
+    mask = np.zeros((32, 32), bool)
+    mask[0, 0] = True
+    r = engine.minor_cycle(residual, mask=mask)
+    assert r.stop_reason == "empty" and r.components.size == 0
+    assert r.peak_start == r.peak_end == pytest.approx(abs(float(residual[0, 0])))
+    np.testing.assert_array_equal(r.model, 0.0)
+
+
+def test_function_operator_checks_its_shape_both_ways():
+    # The shape FunctionOperator stores is the contract: a model of another shape is
+    # refused before the function runs, and so is a residual of another shape.
+    calls = []
+    op = skyscale.FunctionOperator(lambda m: calls.append(m.shape) or np.zeros((8, 8)),
+                                   (8, 8))
+    assert op(np.zeros((8, 8))).dtype == np.float32
+    with pytest.raises(skyscale.InputError, match="model of shape \\(4, 4\\)"):
+        op(np.zeros((4, 4)))
+    assert calls == [(8, 8)]
+    wrong = skyscale.FunctionOperator(lambda m: np.zeros((4, 4)), (8, 8))
+    with pytest.raises(skyscale.InputError, match="returned a residual of shape"):
+        wrong(np.zeros((8, 8)))
 
 
 def test_pipeline_engine_with_own_operator_matches_deconvolve(extended_case):

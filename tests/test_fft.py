@@ -75,3 +75,20 @@ def test_gaussian_scale_on_gaussian_psf_adds_variances():
 def test_unknown_backend_is_refused():
     with pytest.raises(ValueError, match="numpy"):
         get_backend("cuda")
+
+
+@pytest.mark.skipif("pyfftw" not in BACKENDS, reason="pyfftw not installed")
+def test_wisdom_file_is_written_atomically(tmp_path):
+    # The wisdom is written through skyscale._atomic (temporary file, then rename):
+    # the file pyfftw's wisdom round-trips from, and no temporary file is left.
+    import pickle
+
+    from skyscale.fft import FFTWFFT
+    path = tmp_path / "cache" / "wisdom.pkl"
+    fft = FFTWFFT(threads=1, wisdom_path=str(path))
+    a = np.random.default_rng(0).normal(size=(41, 23))       # a shape no other test plans
+    np.testing.assert_allclose(fft.irfft2(fft.rfft2(a, (41, 23)), (41, 23)), a, atol=1e-12)
+    with open(path, "rb") as fh:
+        wisdom = pickle.load(fh)
+    assert isinstance(wisdom, tuple) and wisdom
+    assert sorted(p.name for p in path.parent.iterdir()) == ["wisdom.pkl"]

@@ -136,3 +136,63 @@ def test_stamp_matches_twin_including_the_edges(engine):
     inside = stamp_components(np.zeros((48, 48), np.float32), engine.kernels, ys[2:3], xs[2:3],
                               ks[2:3], fs[2:3])
     assert inside.sum() == pytest.approx(fs[2], rel=1e-5)  # unit-sum kernel: flux kept
+
+
+def test_scale_loop_wrapper_converts_what_it_reads(engine):
+    # The wrapper's contract (skyscale.kernels): inputs only read are converted, so a
+    # Fortran-ordered float64 beam and coordinate lists give the twin's result.
+    dirty, planes = _extended_planes(engine)
+    values, ys, xs = _active(engine, planes[1], 1, 0.0)
+    kw = dict(beam_peak=engine.beam_peaks[1], gain=0.1, level=0.0, max_iter=40)
+    v1, v2 = values.copy(), values.copy()
+    fast = scale_loop(v1, ys.tolist(), xs.astype(np.int32),
+                      np.asfortranarray(engine.beams[1].astype(np.float64)), **kw)
+    slow = naive.scale_loop(v2, ys, xs, engine.beams[1], **kw)
+    _assert_same(fast, slow, v1, v2)
+
+
+def test_scale_loop_wrapper_refuses_what_it_cannot_honour(engine):
+    beam = engine.beams[0]
+    ok = dict(beam_peak=1.0, gain=0.1, level=0.0, max_iter=3)
+    vals = np.ones(4, np.float32)
+    ys, xs = np.arange(4), np.arange(4)
+    for bad in (np.ones(8, np.float32)[::2], np.ones(4, np.int64), [1.0, 1.0, 1.0, 1.0],
+                np.ones((2, 2), np.float32)):
+        with pytest.raises(ValueError, match="values"):   # in place: a copy would be lost
+            scale_loop(bad, ys, xs, beam, **ok)
+    with pytest.raises(ValueError, match="ys and xs"):
+        scale_loop(vals, ys[:3], xs, beam, **ok)
+    with pytest.raises(ValueError, match="outside"):
+        scale_loop(vals, ys + N - 2, xs, beam, **ok)
+    with pytest.raises(ValueError, match="outside"):
+        scale_loop(vals, ys, xs - 1, beam, **ok)
+    with pytest.raises(ValueError, match="beam has shape"):
+        scale_loop(vals, ys, xs, beam[:-1], **ok)
+    with pytest.raises(ValueError, match="beam_peak"):
+        scale_loop(vals, ys, xs, beam, **dict(ok, beam_peak=0.0))
+    with pytest.raises(ValueError, match="level"):
+        scale_loop(vals, ys, xs, beam, **dict(ok, level=np.nan))
+    np.testing.assert_array_equal(vals, 1.0)          # nothing was touched
+
+
+def test_stamp_wrapper_converts_and_refuses(engine):
+    rng = np.random.default_rng(16)
+    ys, xs, ks = [3, 40, 20], [5, 41, 7], [1, 3, 0]
+    fs = rng.normal(size=3)
+    kernels = [np.asfortranarray(k.astype(np.float64)) for k in engine.kernels]
+    a = stamp_components(np.zeros((48, 48), np.float32), kernels, ys, xs, ks, fs.tolist())
+    b = naive.stamp_components(np.zeros((48, 48), np.float32), engine.kernels,
+                               np.array(ys), np.array(xs), np.array(ks), fs)
+    np.testing.assert_allclose(a, b, rtol=1e-6, atol=1e-7)
+    model = np.zeros((48, 48), np.float32)
+    with pytest.raises(ValueError, match="model"):
+        stamp_components(np.zeros((48, 48), np.int32), engine.kernels, ys, xs, ks, fs)
+    with pytest.raises(ValueError, match="model"):
+        stamp_components(np.zeros((48, 96), np.float32)[:, ::2], engine.kernels, ys, xs, ks, fs)
+    with pytest.raises(ValueError, match="ks spans"):
+        stamp_components(model, engine.kernels, ys, xs, [0, 1, len(engine.kernels)], fs)
+    with pytest.raises(ValueError, match="kernels\\[0\\]"):
+        stamp_components(model, [np.ones((3, 5))], ys, xs, [0, 0, 0], fs)
+    with pytest.raises(ValueError, match="one of each"):
+        stamp_components(model, engine.kernels, ys, xs, ks, fs[:2])
+    assert not model.any()

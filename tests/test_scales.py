@@ -85,3 +85,12 @@ def test_angles_need_a_cell_size():
 def test_unknown_shape_lists_the_valid_ones():
     with pytest.raises(ValueError, match="paraboloid"):
         ScaleSet([0, 4], shape="box")
+
+
+def test_the_kernel_profile_is_profile_and_shape_is_a_deprecated_alias():
+    # ``shape`` means an array's shape everywhere else; the profile has its own name.
+    s = ScaleSet([0, 4, 8], shape="gaussian")
+    assert s.profile == "gaussian"
+    with pytest.warns(DeprecationWarning, match="ScaleSet.profile"):
+        assert s.shape == "gaussian"
+    assert s.support_radii == (0, 4, 8)       # Gaussian kernels are cut at r = scale

@@ -4,13 +4,11 @@ The public API is re-exported here; see the README for worked examples.
 """
 
 import logging as _logging
-import os as _os
 
-# OpenMP threads of the compiled kernels would otherwise spin for a long time after
-# each parallel region, competing with FFT threads on small machines; a short spin
-# keeps the minor cycle's back-to-back regions fast.  Set before Numba loads OpenMP;
-# a value the user has set wins.
-_os.environ.setdefault("GOMP_SPINCOUNT", "20000")
+# OpenMP's idle spin is set before any kernel runs (see skyscale._threads).
+from ._threads import set_openmp_spin_default as _set_openmp_spin_default
+
+_set_openmp_spin_default()
 from importlib.metadata import PackageNotFoundError, version as _version
 
 from ._validate import InputError, mask_nonfinite

@@ -1,11 +1,68 @@
-"""Set the thread count for one call and restore the previous one afterwards."""
+"""Threads: the count for one call (restored afterwards) and OpenMP's idle waiting.
+
+OpenMP idle waiting.  When Numba's kernels run on OpenMP threads (the ``omp``
+threading layer, libgomp), each thread spins after a parallel region, waiting for the
+next, before it sleeps: by default up to hundreds of thousands of spins, or without end
+with ``OMP_WAIT_POLICY=active``.  On a small machine those spinning threads compete
+with the FFT threads, while a short spin keeps the minor cycle's back-to-back regions
+fast.  `set_openmp_spin_default` therefore sets ``GOMP_SPINCOUNT`` to
+`DEFAULT_GOMP_SPINCOUNT` unless the user has set it; libgomp reads it once, when Numba
+first loads it (the first parallel kernel or thread-count call), so it is called when
+skyscale is imported, before any kernel runs.  A value the user has set, in the
+environment before the import, wins.  `openmp_wait` says what is in effect.
+"""
 
 import contextlib
 import os
 
 import numba
 
-__all__ = ["thread_limit", "resolve_threads"]
+__all__ = ["thread_limit", "resolve_threads", "DEFAULT_GOMP_SPINCOUNT", "SHORT_SPIN",
+           "set_openmp_spin_default", "openmp_wait"]
+
+#: ``GOMP_SPINCOUNT`` skyscale sets when the user has not (spins before an idle OpenMP
+#: thread sleeps).
+DEFAULT_GOMP_SPINCOUNT = 20000
+
+#: A spin count at most this is short: idle threads soon stop competing for the cores.
+SHORT_SPIN = 1_000_000
+
+_SET_BY_SKYSCALE = []      # [True] once set_openmp_spin_default has set the variable
+
+
+def set_openmp_spin_default():
+    """Set ``GOMP_SPINCOUNT`` to `DEFAULT_GOMP_SPINCOUNT` unless it is set already.
+
+    Must run before Numba first loads OpenMP (libgomp reads the variable then); the
+    package import does it.  Returns the value now in the environment.
+    """
+    if "GOMP_SPINCOUNT" not in os.environ:
+        os.environ["GOMP_SPINCOUNT"] = str(DEFAULT_GOMP_SPINCOUNT)
+        _SET_BY_SKYSCALE[:] = [True]
+    return os.environ["GOMP_SPINCOUNT"]
+
+
+def openmp_wait():
+    """How idle OpenMP threads wait, as the environment says (what libgomp reads).
+
+    Returns
+    -------
+    dict
+        ``wait_policy`` (``OMP_WAIT_POLICY`` lower-cased, or None), ``spin_count``
+        (``GOMP_SPINCOUNT`` as set, or None), ``set_by_skyscale`` (True when the spin
+        count is skyscale's default, set by `set_openmp_spin_default`) and ``short``
+        (True when idle threads sleep soon: a passive wait policy, or a numeric spin
+        count of at most `SHORT_SPIN`).  Whether OpenMP is used at all depends on
+        Numba's threading layer.
+    """
+    policy = os.environ.get("OMP_WAIT_POLICY")
+    policy = policy.lower() if policy else None
+    spin = os.environ.get("GOMP_SPINCOUNT")
+    short = policy == "passive" or (spin is not None and spin.isdigit()
+                                    and int(spin) <= SHORT_SPIN)
+    by_us = bool(_SET_BY_SKYSCALE) and spin == str(DEFAULT_GOMP_SPINCOUNT)
+    return {"wait_policy": policy, "spin_count": spin, "set_by_skyscale": by_us,
+            "short": short}
 
 
 def resolve_threads(threads):

@@ -24,12 +24,28 @@ from scipy import ndimage, optimize, signal
 
 from ._validate import as_image
 
-__all__ = ["FWHM_TO_SIGMA", "FIT_THRESHOLD", "KERNEL_SIGMAS", "Beam", "fit_beam",
-           "beam_area", "beam_kernel", "jy_per_pixel_to_jy_per_beam",
-           "jy_per_beam_to_jy_per_pixel", "restore"]
+__all__ = ["FWHM_PER_SIGMA", "FWHM_TO_SIGMA", "FIT_THRESHOLD", "KERNEL_SIGMAS", "Beam", "fit_beam",
+           "beam_area", "gaussian_area", "beam_kernel", "jy_per_pixel_to_jy_per_beam",
+           "jy_per_beam_to_jy_per_pixel", "restore", "wrap_pa"]
+
+#: FWHM = FWHM_PER_SIGMA * sigma for a Gaussian, 2 sqrt(2 ln 2) [1]_: the one home of
+#: the constant (`FWHM_TO_SIGMA` is its inverse).
+FWHM_PER_SIGMA = 2.0 * math.sqrt(2.0 * math.log(2.0))
 
 #: sigma = FWHM * FWHM_TO_SIGMA for a Gaussian [1]_.
-FWHM_TO_SIGMA = 1.0 / (2.0 * math.sqrt(2.0 * math.log(2.0)))
+FWHM_TO_SIGMA = 1.0 / FWHM_PER_SIGMA
+
+
+def gaussian_area(major, minor):
+    """Integral of a 2-D Gaussian of unit peak and FWHMs ``major``, ``minor``: the beam
+    area ``pi * major * minor / (4 ln 2)`` [1]_, in the squared unit of the widths.
+
+    Examples
+    --------
+    >>> round(gaussian_area(3.0, 3.0), 3)
+    10.198
+    """
+    return math.pi * major * minor / (4.0 * math.log(2.0))
 
 #: Default fraction of the PSF's central value that bounds the fitted main lobe.
 FIT_THRESHOLD = 0.35
@@ -67,14 +83,23 @@ def _pixels(value, name):
     return _plain(value, name, "pixels")
 
 
-def _wrap_pa(pa):
-    """Return the position angle in degrees folded into (-90, 90]."""
+def wrap_pa(pa):
+    """Return the position angle in degrees folded into (-90, 90] (an axis: modulo 180).
+
+    Examples
+    --------
+    >>> wrap_pa(135.0), wrap_pa(-90.0), wrap_pa(270.0)
+    (-45.0, 90.0, 90.0)
+    """
     pa = math.fmod(float(pa), 180.0)
     if pa <= -90.0:
         pa += 180.0
     elif pa > 90.0:
         pa -= 180.0
     return pa + 0.0  # turns -0.0 into 0.0
+
+
+_wrap_pa = wrap_pa     # the old private name, still imported by skyscale.fitsio
 
 
 @dataclass(frozen=True)
@@ -124,12 +149,12 @@ class Beam:
             raise ValueError(f"Beam pa is {pa}; pass a finite angle in degrees")
         object.__setattr__(self, "major", major)
         object.__setattr__(self, "minor", minor)
-        object.__setattr__(self, "pa", _wrap_pa(pa))
+        object.__setattr__(self, "pa", wrap_pa(pa))
 
     @property
     def area(self):
-        """Beam solid angle in pixels: pi * major * minor / (4 ln 2) [1]_."""
-        return math.pi * self.major * self.minor / (4.0 * math.log(2.0))
+        """Beam solid angle in pixels: `gaussian_area` of its FWHMs [1]_."""
+        return gaussian_area(self.major, self.minor)
 
     def to_sky(self, cell_arcsec):
         """Return ``(major_arcsec, minor_arcsec, pa_deg)`` for a square cell of ``cell_arcsec``."""

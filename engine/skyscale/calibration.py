@@ -11,6 +11,8 @@ import os
 
 import numpy as np
 
+from ._atomic import atomic_write_bytes
+
 __all__ = ["DEFAULT_CALIBRATION", "CALIBRATION_ENV", "default_calibration_path",
            "load_calibration", "save_calibration", "fit_power_law", "fit_nonnegative"]
 
@@ -93,12 +95,9 @@ def load_calibration(path=None):
 def save_calibration(calibration, path=None):
     """Write ``calibration`` as JSON atomically; returns the path."""
     path = path or default_calibration_path()
-    folder = os.path.dirname(os.path.abspath(path))
-    os.makedirs(folder, exist_ok=True)
-    tmp = f"{path}.{os.getpid()}.tmp"
-    with open(tmp, "w") as fh:
-        json.dump(calibration, fh, indent=2)
-    os.replace(tmp, path)
+    os.makedirs(os.path.dirname(os.path.abspath(path)), exist_ok=True)
+    atomic_write_bytes(path, json.dumps(calibration, indent=2).encode("utf-8"),
+                       overwrite=True)
     return path
 
 

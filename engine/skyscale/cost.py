@@ -33,9 +33,9 @@ residual operator and the first use of the cycle's FFT plans.  How the counts ar
 estimated is in `estimate_counts`: they depend on the field, and the planner says
 which it assumed.  Times are those of one unshared core (the sweep measures CPU
 seconds).  Threads divide the
-parallel part (Amdahl's law, fractions measured with 1 and 2 threads).  Memory builds
-on the engine's own account, `skyscale.precompute.plan_memory`, and adds what it leaves
-out (`predict_memory`).
+parallel part (Amdahl's law, fractions measured with 1 and 2 threads).  Memory has
+one account, `predict_memory`: the planner's figure and `skyscale.Engine`'s
+``memory`` (and its ``max_memory`` check, `fits_memory`) are the same number.
 """
 
 import math
@@ -45,13 +45,13 @@ from scipy.fft import next_fast_len
 
 from .calibration import (CALIBRATION_ENV, DEFAULT_CALIBRATION, default_calibration_path,
                           fit_nonnegative, fit_power_law, load_calibration, save_calibration)
-from .precompute import plan_memory
 
 __all__ = ["DEFAULT_CALIBRATION", "CALIBRATION_ENV", "DEFAULT_DYNAMIC_RANGE",
-           "MEMORY_HEADROOM", "Geometry", "run_geometry", "fft_seconds", "predict_times",
-           "estimate_counts", "predict_memory", "available_memory", "load_calibration",
-           "save_calibration", "default_calibration_path", "fit_power_law",
-           "fit_nonnegative"]
+           "MEMORY_HEADROOM", "LOOP_TERMS", "Geometry", "run_geometry", "fft_work",
+           "fft_seconds", "predict_times", "loop_features", "loop_seconds",
+           "estimate_counts", "predict_memory", "engine_memory", "fits_memory",
+           "available_memory", "load_calibration", "save_calibration",
+           "default_calibration_path", "fit_power_law", "fit_nonnegative"]
 
 #: Peak over stop level assumed when neither the dirty image nor a dynamic range is given.
 DEFAULT_DYNAMIC_RANGE = 1000.0
@@ -59,7 +59,7 @@ DEFAULT_DYNAMIC_RANGE = 1000.0
 MEMORY_HEADROOM = 1.10
 
 
-def _fft_work(shape):
+def fft_work(shape):
     """``S log2 S`` for an FFT of ``shape``: the unit of FFT work."""
     s = float(shape[0]) * float(shape[1])
     return s * math.log2(max(s, 2.0))
@@ -133,7 +133,7 @@ def run_geometry(image_shape, psf_shape, radii, *, itemsize=4):
 def fft_seconds(pieces, calibration, threads=1):
     """Seconds of the FFTs ``[(grid, count), ...]`` under the calibration's FFT law."""
     c = calibration["fft"]
-    t = sum(n * c["coefficient"] * _fft_work(g) ** c["exponent"] for g, n in pieces)
+    t = sum(n * c["coefficient"] * fft_work(g) ** c["exponent"] for g, n in pieces)
     return t * _amdahl(calibration["threads"]["fft_parallel"], threads)
 
 
@@ -166,6 +166,42 @@ def predict_times(geom, calibration=None, *, threads=1):
         "per_active_pixel": cal["loop"]["per_active_pixel"] * loop,
         "per_sub_loop": cal["loop"]["per_sub_loop"],
     }
+
+
+#: The sub-loop's cost terms, in the order of `loop_features` (seconds per component
+#: and active pixel, per active pixel of a sub-loop, per sub-loop).
+LOOP_TERMS = ("per_component_pixel", "per_active_pixel", "per_sub_loop")
+
+
+def loop_features(active_pixels, components):
+    """The sub-loop's cost features, one per `LOOP_TERMS`: what the calibration fits.
+
+    A sub-loop over ``A`` active pixels that takes ``m`` components costs
+    ``l_1 m A + l_2 A + l_0`` (see `loop_seconds`), so its features are ``[m A, A, 1]``.
+    """
+    return [float(components) * float(active_pixels), float(active_pixels), 1.0]
+
+
+def loop_seconds(times, components, active_pixels, sub_loops=1):
+    r"""Seconds of ``sub_loops`` sub-loops taking ``components`` in all over
+    ``active_pixels`` (per sub-loop): the one home of the loop's cost formula.
+
+    .. math:: t_\mathrm{loop} = \ell_1 m A + R (\ell_2 A + \ell_0)
+
+    Parameters
+    ----------
+    times : dict
+        `predict_times` (or a calibration's ``loop`` section): the `LOOP_TERMS`.
+    components : float
+        Components ``m`` taken (in all the sub-loops).
+    active_pixels : float
+        Active set ``A`` of a sub-loop (the mean, for many).
+    sub_loops : int
+        Sub-loops ``R``; default 1.
+    """
+    a = float(active_pixels)
+    return (times["per_component_pixel"] * components * a
+            + sub_loops * (times["per_active_pixel"] * a + times["per_sub_loop"]))
 
 
 def estimate_counts(geom, calibration=None, *, dynamic_range=None, max_components=20000,
@@ -253,27 +289,29 @@ def _real(grid):
 
 
 def predict_memory(geom, calibration=None):
-    """Peak bytes a run adds to the process, and where it happens.
+    """Peak bytes a run adds to the process, and where it happens: the one memory account.
 
-    The engine's own arrays come from `skyscale.precompute.plan_memory` (the scale
-    beams, the smoothed planes and the cycle's images); added here is what that account
-    leaves out, counted from the code with the pyfftw backend: the FFT plans the
-    backend keeps for the engine's lifetime (each an input and an output buffer: the
-    precompute's per kernel shape, the smoothing's and the PSF convolution's, three
-    each), the transforms kept by the convolvers and the residual operator, the PSF
-    copies, and the largest transient (the beams' transforms while they are made, or a
-    round's update).
+    Counted from the code with the pyfftw backend: the engine's arrays (one scale beam
+    per scale, the smoothed residuals twice: the working set and the copy a rejected
+    sub-loop returns to, and the cycle's images: residual in float64, model, its
+    increment, mask), the FFT plans the backend keeps for the engine's lifetime (each
+    an input and an output buffer: the precompute's per kernel shape, the smoothing's
+    and the PSF convolution's, three each), the transforms kept by the convolvers and
+    the residual operator, the PSF copies, and the largest transient (the beams'
+    transforms while they are made, or a round's update).
 
     Returns
     -------
     dict
         ``peak`` (bytes, times the calibrated ``memory.scale``), ``peak_phase``
-        ('precompute' or 'cycles'), ``engine`` (what `plan_memory` says, unchanged) and
-        ``terms``.
+        ('precompute' or 'cycles'), ``phases``, ``terms`` and ``engine`` (what
+        `skyscale.Engine` keeps as ``memory``: the terms with ``total`` = ``peak`` and
+        ``peak_phase``).
     """
     cal = calibration or load_calibration()
     b = geom.itemsize
-    eng = plan_memory(geom.image_shape, geom.psf_shape, geom.radii, b)
+    ny, nx = geom.image_shape
+    n = geom.n_scales
     n_psf = geom.psf_shape[0] * geom.psf_shape[1]
     nf = geom.n_finite
     plan_p = plan_s = 0
@@ -281,13 +319,15 @@ def predict_memory(geom, calibration=None):
     if nf:
         p, s = geom.precompute_grid, geom.smooth_grid
         plan_p = (len({r for r in geom.radii if r > 0}) + 2) * (_real(p) + _complex(p))
-        ry, rx = (2 * (n - 1 + 2 * max(geom.radii)) + 1 for n in geom.image_shape)
+        ry, rx = (2 * (v - 1 + 2 * max(geom.radii)) + 1 for v in geom.image_shape)
         work_p = 8 * ry * rx + 4 * _complex(p) + _real(p)
         plan_s = 3 * (_real(s) + _complex(s))
         work_s = 2 * _complex(s) + _real(s)
     m = geom.major_grid
     t = {
-        "beams": eng["beams"], "planes": eng["planes"], "images": eng["images"],
+        "beams": n * (2 * ny - 1) * (2 * nx - 1) * b,
+        "planes": 2 * n * ny * nx * b,
+        "images": 2 * ny * nx * 8 + 2 * ny * nx * b + ny * nx,
         "psf_copies": 2 * b * n_psf,
         "precompute_plans": plan_p,
         "cycle_plans": plan_s + 3 * (_real(m) + _complex(m)),
@@ -303,9 +343,42 @@ def predict_memory(geom, calibration=None):
     }
     scale = float(cal["memory"]["scale"])
     peak_phase = max(phases, key=phases.get)
-    return {"peak": int(scale * phases[peak_phase]), "peak_phase": peak_phase,
-            "phases": {k: int(scale * v) for k, v in phases.items()}, "engine": eng,
-            "terms": t}
+    peak = int(scale * phases[peak_phase])
+    return {"peak": peak, "peak_phase": peak_phase,
+            "phases": {k: int(scale * v) for k, v in phases.items()},
+            "engine": dict(t, total=peak, peak_phase=peak_phase), "terms": t}
+
+
+def engine_memory(image_shape, psf_shape, radii, itemsize=4, calibration=None):
+    """`predict_memory` of an engine's shapes: what `skyscale.Engine` keeps as ``memory``.
+
+    Parameters
+    ----------
+    image_shape, psf_shape : (int, int)
+    radii : sequence of int
+        Support half-width of each scale kernel.
+    itemsize : int
+        4 for float32, 8 for float64.
+    calibration : dict, optional
+        Default `load_calibration` (its ``memory.scale``), as the planner reads it.
+
+    Returns
+    -------
+    dict
+        The terms of `predict_memory` (bytes), ``total`` (its ``peak``) and ``peak_phase``.
+    """
+    geom = run_geometry(image_shape, psf_shape, radii, itemsize=itemsize)
+    return predict_memory(geom, calibration)["engine"]
+
+
+def fits_memory(peak, available):
+    """True when a predicted ``peak`` (bytes) fits in ``available`` bytes.
+
+    The rule of the planner and of ``Engine(max_memory=)``: the peak times
+    `MEMORY_HEADROOM` (the model's margin) must be at most what is available; an
+    unknown ``available`` (None) fits.
+    """
+    return available is None or peak * MEMORY_HEADROOM <= available
 
 
 def available_memory():

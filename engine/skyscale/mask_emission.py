@@ -17,6 +17,7 @@ from scipy import fft as sfft
 from scipy import ndimage
 
 from ._validate import as_image
+from .beam import gaussian_area
 from .detect import detect_emission
 
 __all__ = ["EmissionMask", "emission_mask"]
@@ -121,8 +122,8 @@ class EmissionMask:
                                           allow_zero=True)
         self.smooth_fraction = _positive(smooth_fraction, "smooth_fraction")
         self.include_negative = bool(include_negative)
-        #: Beam area in pixels, pi FWHM^2 / (4 ln 2) (analytic).
-        self.beam_area_px = np.pi * self.beam_fwhm_px ** 2 / (4 * np.log(2))
+        #: Beam area in pixels, pi FWHM^2 / (4 ln 2) (`skyscale.beam.gaussian_area`).
+        self.beam_area_px = gaussian_area(self.beam_fwhm_px, self.beam_fwhm_px)
         #: The mask of the last `update`, or None.
         self.mask = None
         #: Robust noise of each smoothed image at the last update, by scale.
@@ -206,8 +207,8 @@ class EmissionMask:
         detected = found.mask
         labels, n = ndimage.label(detected, structure=np.ones((3, 3), dtype=bool))
         if n:
-            sizes = np.bincount(labels.ravel())
-            keep = sizes >= self.min_island_beams * self.beam_area_px
+            island_pixels = np.bincount(labels.ravel())
+            keep = island_pixels >= self.min_island_beams * self.beam_area_px
             keep[np.unique(labels[protected])] = True
             keep[0] = False
             detected = keep[labels]

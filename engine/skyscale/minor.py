@@ -32,7 +32,8 @@ from .fft import Convolver, MultiConvolver, get_backend
 from .kernels import scale_loop, stamp_components
 from .levels import DEFAULT_EXTENDED_DEPTH, allowed_peak, scale_levels
 from .noise import scale_noise
-from .precompute import plan_memory, scale_beams
+from .cost import MEMORY_HEADROOM, engine_memory, fits_memory
+from .precompute import scale_beams
 from .psf import check_psf, describe_psf
 from .result import COMPONENT_DTYPE
 from .scales import ScaleSet
@@ -49,9 +50,11 @@ DEFAULT_SIZE_PENALTY = 0.3
 #: before every scale's residual is brought up to date and the next scale is chosen.
 DEFAULT_SCALE_LOOP_DEPTH = 0.5
 
-#: A sub-loop may not raise the peak residual in the mask above the cycle's start (or
-#: `skyscale.levels.LEVEL_ALLOWANCE` times the delta scale's stop level) by more than
-#: this fraction (rounding); past it the sub-loop is undone.
+#: A sub-loop may not raise the peak residual in the cycle's mask (within the box the
+#: cycle works in) above the cycle's start (or `skyscale.levels.LEVEL_ALLOWANCE` times
+#: the delta scale's stop level) by more than this fraction (rounding); past it the
+#: sub-loop is undone.  The mask is the cycle's own: one that grows between major
+#: cycles may hold a higher peak in its new pixels.
 PEAK_RISE_TOLERANCE = 1e-5
 
 #: A sub-loop that would raise the peak is retried with half its components this many
@@ -64,7 +67,8 @@ MINOR_STOP_REASONS = {
     "threshold": "every scale reached its stop level (threshold or noise multiple)",
     "max_components": "the component budget of this cycle was spent",
     "peak_rose": "every remaining sub-loop would have raised the peak residual; rejected",
-    "empty": "no pixel may be cleaned (empty mask)",
+    "empty": "no pixel may be cleaned (an empty mask, or one that lies only where no "
+             "scale may centre a component: within its radius of the image edge)",
 }
 
 
@@ -86,8 +90,13 @@ class MinorCycleResult:
     model: np.ndarray          #: updated model (Jy/pixel); the input model is not changed
     components: np.ndarray     #: components added, `COMPONENT_DTYPE`
     stop_reason: str           #: a key of `MINOR_STOP_REASONS`
-    peak_start: float          #: peak |residual| in the mask at the start, Jy/beam
-    peak_end: float            #: the same at the end (the minor cycle's own residual)
+    #: Largest |residual| (unsmoothed, Jy/beam) in the mask, or anywhere without one, when
+    #: the cycle started; 0 for an empty mask.  Sub-loops are kept only while this
+    #: stays at most `skyscale.levels.allowed_peak` of it (checked in the box the cycle
+    #: works in); across major cycles a growing mask takes in new pixels, so the next
+    #: cycle's start may be higher.
+    peak_start: float
+    peak_end: float            #: the same over the same pixels at the end (its own residual)
     floor: float               #: the delta scale's floor in this cycle, Jy/beam
     residual: np.ndarray = None  #: the residual as the minor cycle updated it
     region: tuple = ()         #: (y0, y1, x0, x1) box the cycle worked in
@@ -132,7 +141,11 @@ class Engine:
     cell_arcsec : float, optional
         Cell size, needed when scales are angles.
     max_memory : int, optional
-        Refuse (ValueError) an engine needing more bytes than this.
+        Refuse (ValueError) an engine whose predicted peak, times the planner's margin
+        `skyscale.cost.MEMORY_HEADROOM`, is over this many bytes: the rule and the
+        account (`skyscale.cost.engine_memory`, kept as ``memory``) of
+        `skyscale.plan_run`, so an engine is refused exactly when the plan says the run
+        will not fit.
     psf_patch : optional
         No longer used (the minor cycle subtracts whole scale beams); a value gives a
         DeprecationWarning.
@@ -201,10 +214,11 @@ class Engine:
         self.threads = threads
         self.fft = get_backend(fft, threads=threads)
         self.psf_info = describe_psf(self.psf, self.image_shape)
-        self.memory = plan_memory(self.image_shape, self.psf.shape, self.scales.support_radii,
-                                  self.dtype.itemsize)
-        if max_memory is not None and self.memory["total"] > max_memory:
-            raise InputError(f"the engine needs {self.memory['total'] / 2**20:.0f} MiB, over "
+        self.memory = engine_memory(self.image_shape, self.psf.shape,
+                                    self.scales.support_radii, self.dtype.itemsize)
+        if max_memory is not None and not fits_memory(self.memory["total"], max_memory):
+            raise InputError(f"the engine needs about {self.memory['total'] / 2**20:.0f} MiB "
+                             f"(predicted peak, with a {MEMORY_HEADROOM:.2f}x margin), over "
                              f"max_memory {max_memory / 2**20:.0f} MiB; use fewer or smaller "
                              "scales, a smaller image, or raise max_memory")
         self.kernels = self.scales.kernels(self.dtype)
@@ -392,10 +406,10 @@ class Engine:
         guard *= 1.0 + PEAK_RISE_TOLERANCE
         out = dict(scale_peaks_start=start, scale_floors=floors, scale_levels=levels,
                    scale_noise=state.noise)
-        if not in_mask.any():
+        if not allowed.any():         # an empty mask, or one no scale may centre in
             return MinorCycleResult(model.copy(), np.zeros(0, COMPONENT_DTYPE), "empty",
-                                    0.0, 0.0, float(floors[0]), residual, scale_peaks_end=start,
-                                    **out)
+                                    peak_start, peak_start, float(floors[0]), residual,
+                                    scale_peaks_end=start, **out)
         # Work on the box that holds every allowed centre, grown by the largest kernel
         # radius: there the smoothed residuals are exact, and the FFTs are that size.
         y0, y1, x0, x1 = self._box(allowed)

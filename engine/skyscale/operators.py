@@ -107,16 +107,31 @@ class ImagePlaneOperator:
 class FunctionOperator:
     """Wrap a plain function ``f(model) -> residual`` and check what it returns.
 
+    Parameters
+    ----------
+    function : callable
+        ``function(model) -> residual``, both ``shape``.
+    shape : (int, int)
+        The image's shape: the model handed in and the residual returned must have it.
+    dtype : numpy dtype
+        Dtype of the residual returned; default float32.
+
+    Notes
+    -----
     Non-finite values are passed on: the driver stops the run as 'diverging' on them
     and keeps the last good model.
     """
 
     def __init__(self, function, shape, dtype=np.float32):
         self.function = function
-        self.shape = tuple(shape)
+        self.shape = tuple(int(v) for v in shape)
         self.dtype = dtype
 
     def __call__(self, model):
+        if np.shape(model) != self.shape:
+            raise InputError(f"the operator was given a model of shape {np.shape(model)}, "
+                             f"but it was built for images of shape {self.shape}; build it "
+                             "with the image's shape")
         out = self.function(model)
         out = as_image(out, "residual returned by the operator", dtype=self.dtype,
                        allow_nan=True)

@@ -1,4 +1,4 @@
-"""Precompute of the multi-scale beams and what they cost in memory.
+"""Precompute of the multi-scale beams (their memory is counted in `skyscale.cost`).
 
 For each scale ``k`` the minor cycle needs the scale beam
 ``B_kk = PSF (*) scale_k (*) scale_k``: the response of scale ``k``'s smoothed residual
@@ -85,36 +85,14 @@ def scale_beams(psf, kernels, image_shape, backend, dtype=np.float32):
 
 
 def plan_memory(image_shape, psf_shape, radii, itemsize=4):
-    """Bytes an `Engine` and its minor cycle hold, known before anything is allocated.
+    """Deprecated: the memory account is `skyscale.cost.engine_memory`.
 
-    Parameters
-    ----------
-    image_shape, psf_shape : (int, int)
-    radii : sequence of int
-        Support half-width of each scale kernel.
-    itemsize : int
-        4 for float32, 8 for float64.
-
-    Returns
-    -------
-    dict
-        ``beams`` (one scale beam per scale), ``planes`` (smoothed residuals, twice: the
-        working set and the copy a rejected sub-loop returns to), ``precompute_fft``
-        (transient work space of the beams' transforms), ``cycle_fft`` (the residual
-        update and smoothing), ``images`` (residual in float64, model, its increment,
-        mask) and ``total`` (beams + planes + images + the larger transient).
+    Returns what `skyscale.cost.engine_memory` returns (its ``total`` is the full
+    predicted peak, about three times this function's old figure at 2048^2).
     """
-    n = len(radii)
-    ny, nx = image_shape
-    rmax = int(max(radii)) if n else 0
-    beams = n * (2 * ny - 1) * (2 * nx - 1) * itemsize
-    planes = 2 * n * ny * nx * itemsize
-    ry, rx = 2 * (ny - 1 + 2 * rmax) + 1, 2 * (nx - 1 + 2 * rmax) + 1
-    fy, fx = fast_shape((ry, rx), (4 * rmax + 1, 4 * rmax + 1))
-    precompute_fft = ry * rx * 8 + 4 * fy * (fx // 2 + 1) * 16
-    ly, lx = fast_shape((ny, nx), (min(psf_shape[0], 2 * ny - 1), min(psf_shape[1], 2 * nx - 1)))
-    cycle_fft = 3 * ly * (lx // 2 + 1) * 16 + ly * lx * 8
-    images = 2 * ny * nx * 8 + 2 * ny * nx * itemsize + ny * nx
-    total = beams + planes + images + max(precompute_fft, cycle_fft)
-    return {"beams": beams, "planes": planes, "precompute_fft": precompute_fft,
-            "cycle_fft": cycle_fft, "images": images, "total": total}
+    import warnings
+    from .cost import engine_memory
+    warnings.warn("skyscale.precompute.plan_memory is deprecated: the one memory account "
+                  "is skyscale.cost.engine_memory (what Engine.memory holds)",
+                  DeprecationWarning, stacklevel=2)
+    return engine_memory(image_shape, psf_shape, radii, itemsize)

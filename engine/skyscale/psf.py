@@ -35,7 +35,6 @@ class PSFInfo:
     shape: tuple            #: PSF shape (ny, nx)
     centre: tuple           #: (ny // 2, nx // 2)
     main_lobe_radius: int   #: radius in pixels that contains the main lobe
-    sidelobe_level: float   #: peak |PSF| outside the main lobe (fraction of the peak)
     patch_half: int         #: half-width of the minor-cycle PSF patch, pixels
     outside_level: float    #: peak |PSF| outside the patch (Clark's cycle floor factor)
     exact_offsets: tuple    #: largest |dy|, |dx| offsets the PSF covers on both sides
@@ -157,8 +156,6 @@ def describe_psf(psf, image_shape, *, patch_half=None, patch_level=PSF_PATCH_LEV
     r = np.hypot(yy - cy, xx - cx)
     lobe = (positive == positive[cy, cx]) & (r <= max(2.5 * r_half, 1.5))
     main_lobe_radius = int(np.ceil(r[lobe].max())) if lobe.any() else 1
-    outside = np.abs(psf[~lobe])
-    sidelobe_level = float(outside.max()) if outside.size else 0.0
 
     levels = outside_level_profile(psf)
     hcap = max(image_shape) - 1
@@ -173,6 +170,6 @@ def describe_psf(psf, image_shape, *, patch_half=None, patch_level=PSF_PATCH_LEV
     h = int(min(h, hcap, len(levels) - 1))
     outside_level = float(levels[h]) if h < len(levels) else 0.0
     exact = (min(cy, py - 1 - cy), min(cx, px - 1 - cx))
-    info = PSFInfo(psf.shape, (cy, cx), main_lobe_radius, sidelobe_level, h, outside_level, exact)
+    info = PSFInfo(psf.shape, (cy, cx), main_lobe_radius, h, outside_level, exact)
     logger.debug("PSF: %s", info)
     return info

@@ -11,9 +11,12 @@ References
    interferometry", in Indirect Imaging (ed. J. A. Roberts), 333.
 """
 
+import warnings
+
 import numpy as np
 
 from ._validate import InputError, check_choice
+from .beam import FWHM_PER_SIGMA
 
 __all__ = ["SCALE_SHAPES", "ScaleSet", "spheroidal", "scale_kernel", "size_penalty_weights",
            "angle_to_pixels"]
@@ -60,7 +63,7 @@ def spheroidal(nu):
 
 
 def support_radius(scale, shape="paraboloid"):
-    """Half-width in pixels of the stored kernel of ``scale``."""
+    """Half-width in pixels of the stored kernel of ``scale`` of profile ``shape``."""
     if scale == 0:
         return 0
     if shape == "paraboloid":
@@ -76,7 +79,7 @@ def scale_kernel(scale, shape="paraboloid", dtype=np.float32):
     scale : float
         Diameter in pixels; 0 gives a single-pixel delta.
     shape : {'paraboloid', 'gaussian'}
-        ``'paraboloid'``: ``(1 - (r/a)^2) psi(r/a)`` for ``r < a = scale/2``, zero
+        The kernel's profile (not an array shape).  ``'paraboloid'``: ``(1 - (r/a)^2) psi(r/a)`` for ``r < a = scale/2``, zero
         beyond ([1]_ eq. 10).  ``'gaussian'``: FWHM ``scale / 2``, cut at ``r = scale``.
     dtype : numpy dtype
         Output dtype.
@@ -109,7 +112,7 @@ def scale_kernel(scale, shape="paraboloid", dtype=np.float32):
         if k.sum() <= 0:  # a scale under about two pixels: nothing but the centre survives
             k[h, h] = 1.0
     else:
-        sigma = (scale / 2.0) / (2.0 * np.sqrt(2.0 * np.log(2.0)))
+        sigma = (scale / 2.0) / FWHM_PER_SIGMA
         k = np.where(r <= scale, np.exp(-0.5 * (r / sigma) ** 2), 0.0)
     return (k / k.sum()).astype(dtype)
 
@@ -143,12 +146,9 @@ def size_penalty_weights(scales, size_penalty=0.6):
 
 def angle_to_pixels(values, cell_arcsec):
     """Turn angles (Quantity, or floats in arcsec) into pixels with the cell size."""
-    try:
-        from astropy import units as u
-        if isinstance(values, u.Quantity):
-            return np.atleast_1d(values.to_value(u.arcsec)) / float(cell_arcsec)
-    except ImportError:  # pragma: no cover - astropy is a dependency
-        pass
+    from astropy import units as u
+    if isinstance(values, u.Quantity):
+        return np.atleast_1d(values.to_value(u.arcsec)) / float(cell_arcsec)
     return np.atleast_1d(np.asarray(values, dtype=np.float64)) / float(cell_arcsec)
 
 
@@ -175,7 +175,7 @@ class ScaleSet:
     scales : sequence of float, or Quantity ['angle']
         Diameters.  Plain numbers are pixels; an angle Quantity needs ``cell_arcsec``.
     shape : {'paraboloid', 'gaussian'}
-        Scale shape; default the tapered paraboloid.
+        The kernels' profile (kept as `profile`); default the tapered paraboloid.
     cell_arcsec : float, optional
         Cell size, used to convert angles.
     image_shape : (int, int), optional
@@ -194,12 +194,10 @@ class ScaleSet:
 
     def __init__(self, scales, *, shape="paraboloid", cell_arcsec=None, image_shape=None):
         check_choice(shape, "shape", SCALE_SHAPES)
-        self.shape = shape
-        try:
-            from astropy import units as u
-            is_angle = isinstance(scales, u.Quantity)
-        except ImportError:  # pragma: no cover
-            is_angle = False
+        #: The kernels' profile, a value of `SCALE_SHAPES` (the ``shape`` argument).
+        self.profile = shape
+        from astropy import units as u
+        is_angle = isinstance(scales, u.Quantity)
         given = _as_given(scales)
         if isinstance(scales, (str, bytes)):
             raise InputError(f"scales is {scales!r} (text); give a list of diameters such as "
@@ -251,7 +249,15 @@ class ScaleSet:
         return iter(self.pixels)
 
     def __repr__(self):
-        return f"ScaleSet({list(self.pixels)}, shape={self.shape!r})"
+        return f"ScaleSet({list(self.pixels)}, shape={self.profile!r})"
+
+    @property
+    def shape(self):
+        """Deprecated: the kernel profile is `profile` (``shape`` is an array's shape
+        everywhere else)."""
+        warnings.warn("ScaleSet.shape is deprecated: the kernel profile is ScaleSet.profile",
+                      DeprecationWarning, stacklevel=2)
+        return self.profile
 
     @property
     def has_delta(self):
@@ -268,11 +274,11 @@ class ScaleSet:
     @property
     def support_radii(self):
         """Half-width in pixels of each stored kernel."""
-        return tuple(support_radius(s, self.shape) for s in self.pixels)
+        return tuple(support_radius(s, self.profile) for s in self.pixels)
 
     def kernels(self, dtype=np.float32):
         """List of unit-sum kernels, one per scale."""
-        return [scale_kernel(s, self.shape, dtype) for s in self.pixels]
+        return [scale_kernel(s, self.profile, dtype) for s in self.pixels]
 
     def weights(self, size_penalty=0.6):
         """Size-penalty weights, one per scale (see `size_penalty_weights`)."""

@@ -47,9 +47,9 @@ def calibrate(sweep):
                      + time.strftime("%Y-%m-%d"))
     cal["fit"] = {}
     f = sweep["fft"]
-    law = fit_power_law([cost._fft_work(r["grid"]) for r in f], [r["seconds"] for r in f])
+    law = fit_power_law([cost.fft_work(r["grid"]) for r in f], [r["seconds"] for r in f])
     cal["fft"] = {"coefficient": law["coefficient"], "exponent": law["exponents"][0]}
-    cal["fit"]["fft"] = _misfit([law["coefficient"] * cost._fft_work(r["grid"]) **
+    cal["fit"]["fft"] = _misfit([law["coefficient"] * cost.fft_work(r["grid"]) **
                                  law["exponents"][0] for r in f], [r["seconds"] for r in f])
     geo = [_geometry(r) for r in pts]
     ffts = [step_ffts(g, cal) for g in geo]
@@ -79,8 +79,8 @@ def calibrate(sweep):
         [r["setup_s"] - psf_s * r["psf_shape"][0] * r["psf_shape"][1] for r in pts])
     loops = [row for r in pts for row in r["loops"] if row[1] > 0 and row[2] > 0]
     if len(loops) >= 4:
-        fit("loop", ("per_component_pixel", "per_active_pixel", "per_sub_loop"),
-            [[a * m, a, 1.0] for a, m, _ in loops], [t for _, _, t in loops])
+        fit("loop", cost.LOOP_TERMS, [cost.loop_features(a, m) for a, m, _ in loops],
+            [t for _, _, t in loops])
     runs = [r for r in sweep.get("runs", []) if r["major_cycles"] > 0]
     if runs:
         rho = [r["rounds"] / (len(r["scales"]) * r["major_cycles"]) for r in runs]
@@ -140,8 +140,7 @@ def summarize(sweep, calibration=None):
     for r in pts:
         g = _geometry(r)
         t = cost.predict_times(g, cal)
-        lp = sum(t["per_component_pixel"] * a * m + t["per_active_pixel"] * a
-                 + t["per_sub_loop"] for a, m, _ in r["loops"])
+        lp = sum(cost.loop_seconds(t, m, a) for a, m, _ in r["loops"])
         r["model"] = {"precompute_s": t["precompute"], "round_s": t["round"],
                       "major_s": t["major"], "stats_s": t["stats"],
                       "loops_s": lp, "loops_measured_s": sum(x[2] for x in r["loops"]),

@@ -1,8 +1,11 @@
 """Numba kernels: arrays and scalars in, arrays and scalars out, no Python objects.
 
 Each kernel ``_name`` has a Python wrapper ``name`` beside it that checks its inputs
-and hands the kernel contiguous arrays; each has a plain numpy twin in
-``tests/naive.py`` that it must match.
+(shapes, index ranges, finite scalars) and hands the kernel contiguous arrays of the
+kernel's dtypes: inputs it only reads are converted, the array it updates in place is
+refused unless it already is one (a converted copy would leave the caller's array
+unchanged).  Each kernel has a plain numpy twin in ``tests/naive.py`` that it must
+match.
 """
 
 from .scale_loop import PARALLEL_MIN_ACTIVE, SCALE_LOOP_STOP_CODES, scale_loop

@@ -144,15 +144,19 @@ def scale_loop(values, ys, xs, beam, *, beam_peak, gain, level, max_iter, parall
     Parameters
     ----------
     values : (n,) float32 or float64 ndarray
-        The scale's smoothed residual at the active pixels (Jy/beam); updated in place.
-    ys, xs : (n,) int64 ndarrays
-        Image coordinates of the active pixels.
-    beam : (2 ny - 1, 2 nx - 1) ndarray
+        The scale's smoothed residual at the active pixels (Jy/beam); updated in place,
+        so it must be a writeable C-contiguous 1-D float32 or float64 array (anything
+        else is refused: a converted copy would leave the caller's array unchanged).
+    ys, xs : (n,) array_like of int
+        Image coordinates of the active pixels, within the image the beam covers
+        (``0 <= ys < ny``, ``0 <= xs < nx``); converted to contiguous int64.
+    beam : (2 ny - 1, 2 nx - 1) array_like
         The scale beam ``PSF (*) scale_k (*) scale_k`` at every offset between two image
-        pixels, zero offset at ``(ny - 1, nx - 1)``; same dtype as ``values``.
+        pixels, zero offset at ``(ny - 1, nx - 1)``; converted to a contiguous array of
+        ``values``' dtype.
     beam_peak : float
-        ``B_kk(0)``: a component of integrated flux ``a`` lowers the plane by
-        ``a * B_kk(0)`` at its centre.
+        ``B_kk(0)`` (finite, > 0): a component of integrated flux ``a`` lowers the plane
+        by ``a * B_kk(0)`` at its centre.
     gain : float
         Loop gain.
     level : float
@@ -174,17 +178,46 @@ def scale_loop(values, ys, xs, beam, *, beam_peak, gain, level, max_iter, parall
     peak : float
         The largest ``|value|`` when the loop stopped.
 
+    Raises
+    ------
+    ValueError
+        For ``values`` that cannot be updated in place, coordinates of another length
+        or outside the beam's image, a beam with an even side, or a ``beam_peak``,
+        ``gain`` or ``level`` that is not finite (``beam_peak`` also <= 0).
+
     References
     ----------
     .. [1] Hogbom 1974, A&AS 15, 417.
     .. [2] Offringa & Smirnov 2017, MNRAS 471, 301.
     """
-    values = np.ascontiguousarray(values)
-    if values.dtype not in (np.float32, np.float64):
-        values = values.astype(np.float32)
+    if not (isinstance(values, np.ndarray) and values.ndim == 1
+            and values.dtype in (np.float32, np.float64) and values.flags.c_contiguous
+            and values.flags.writeable):
+        got = (f"{type(values).__name__} {getattr(values, 'dtype', '')} "
+               f"{getattr(values, 'shape', '')}").strip()
+        raise ValueError(f"values is {got}; it is updated in place, so pass a writeable "
+                         "C-contiguous 1-D float32 or float64 array, e.g. "
+                         "np.ascontiguousarray(values, dtype=np.float32)")
     ys = np.ascontiguousarray(ys, dtype=np.int64)
     xs = np.ascontiguousarray(xs, dtype=np.int64)
+    if ys.shape != values.shape or xs.shape != values.shape:
+        raise ValueError(f"ys and xs have shapes {ys.shape} and {xs.shape}, values has "
+                         f"{values.shape}; give one (y, x) per active pixel")
     beam = np.ascontiguousarray(beam, dtype=values.dtype)
+    if beam.ndim != 2 or beam.shape[0] % 2 == 0 or beam.shape[1] % 2 == 0:
+        raise ValueError(f"beam has shape {beam.shape}; give the (2 ny - 1, 2 nx - 1) scale "
+                         "beam with its zero offset at the centre")
+    ny, nx = (beam.shape[0] + 1) // 2, (beam.shape[1] + 1) // 2
+    if values.size and (ys.min() < 0 or xs.min() < 0 or ys.max() >= ny or xs.max() >= nx):
+        raise ValueError(f"active pixels span y {ys.min()}..{ys.max()}, x {xs.min()}.."
+                         f"{xs.max()}, outside the {ny} x {nx} image the beam covers; give "
+                         "coordinates in that image")
+    for name, v in (("beam_peak", beam_peak), ("gain", gain), ("level", level)):
+        if not np.isfinite(float(v)):
+            raise ValueError(f"{name} is {v}; give a finite number")
+    if not float(beam_peak) > 0:
+        raise ValueError(f"beam_peak is {beam_peak}; give B_kk(0) > 0 (the scale beam's "
+                         "centre)")
     max_iter = max(int(max_iter), 0)
     out_idx = np.empty(max_iter, dtype=np.int64)
     out_flux = np.empty(max_iter, dtype=np.float64)

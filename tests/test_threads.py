@@ -1,0 +1,54 @@
+"""OpenMP's idle spin: set where threads are set up (skyscale._threads), readable back.
+
+The rule checked is libgomp's documented behaviour (GCC manual, "GOMP_SPINCOUNT" and
+"OMP_WAIT_POLICY"; from memory): the spin count is read from the environment when the
+library loads, and a passive wait policy makes idle threads sleep at once.
+"""
+
+import json
+import os
+import subprocess
+import sys
+
+import pytest
+
+from skyscale import _threads, planner
+
+CHILD = ("import json, os, skyscale, skyscale._threads as t; "
+         "print(json.dumps([os.environ.get('GOMP_SPINCOUNT'), t.openmp_wait()]))")
+
+
+def _import_in_child(**env):
+    full = {k: v for k, v in os.environ.items() if k != "GOMP_SPINCOUNT"}
+    full.update(env)
+    full["PYTHONPATH"] = os.pathsep.join(p for p in sys.path if p)
+    out = subprocess.run([sys.executable, "-c", CHILD], env=full, check=True,
+                         capture_output=True, text=True).stdout
+    return json.loads(out.strip().splitlines()[-1])
+
+
+def test_import_sets_the_default_and_a_users_value_wins():
+    value, wait = _import_in_child()
+    assert value == str(_threads.DEFAULT_GOMP_SPINCOUNT)
+    assert wait["set_by_skyscale"] and wait["short"]
+    value, wait = _import_in_child(GOMP_SPINCOUNT="infinite")
+    assert value == "infinite"
+    assert not wait["set_by_skyscale"] and not wait["short"]
+
+
+@pytest.mark.parametrize("env, short", [
+    ({"GOMP_SPINCOUNT": "20000"}, True),
+    ({"GOMP_SPINCOUNT": str(_threads.SHORT_SPIN)}, True),
+    ({"GOMP_SPINCOUNT": "30000000000"}, False),
+    ({"GOMP_SPINCOUNT": "infinite"}, False),
+    ({"GOMP_SPINCOUNT": "infinite", "OMP_WAIT_POLICY": "PASSIVE"}, True),
+])
+def test_openmp_wait_reads_what_is_in_effect(monkeypatch, env, short):
+    monkeypatch.delenv("OMP_WAIT_POLICY", raising=False)
+    for k, v in env.items():
+        monkeypatch.setenv(k, v)
+    wait = _threads.openmp_wait()
+    assert wait["short"] is short
+    assert wait["spin_count"] == env["GOMP_SPINCOUNT"]
+    if short:                      # the planner's own check agrees where the spin is short
+        assert planner._spinning_threads() is False
