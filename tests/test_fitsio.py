@@ -247,6 +247,11 @@ def test_like_wcs_adds_no_time_reference(tmp_path):
     out = write_image(tmp_path / "w.fits", np.ones((4, 4)), like=make_wcs(), bunit="Jy/beam")
     got = fits.getheader(out)
     assert "MJDREF" not in got and got["CTYPE1"] == "RA---SIN"
+    timed = make_wcs()
+    timed.wcs.mjdref = [51544.0, 0.5]                 # a time reference that was set
+    out = write_image(tmp_path / "t.fits", np.ones((4, 4)), like=timed, bunit="Jy/beam")
+    got = fits.getheader(out)
+    assert got["MJDREFI"] + got["MJDREFF"] == 51544.5
 
 
 @pytest.mark.parametrize("rot, flip", [(0.0, False), (25.0, False), (0.0, True), (-40.0, True)])

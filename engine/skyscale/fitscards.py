@@ -151,8 +151,9 @@ def wrap_history(text, width=HISTORY_WIDTH):
     Parameters
     ----------
     text : str
-        The entry; characters outside printable ASCII are written as backslash escapes
-        and trailing blanks (which FITS cannot keep) are dropped.
+        The entry; characters outside printable ASCII are written as backslash escapes.
+        FITS does not keep trailing blanks [1]_, so they are dropped, and a run of
+        blanks longer than a continuation card can hold is shortened to fit.
     width : int
         Characters of text per card (default `HISTORY_WIDTH`).
 
@@ -169,7 +170,8 @@ def wrap_history(text, width=HISTORY_WIDTH):
     >>> join_history(lines)
     ['scales = [0.0, 4.0, 8.0, 16.0]']
     """
-    text = _printable(text)
+    longest = width - len(HISTORY_INDENT) - 1
+    text = re.sub(f" {{{longest + 1},}}", " " * longest, _printable(text))
     lines, prefix = [], ""
     while len(prefix) + len(text) > width:
         cut = _break_at(text, width - len(prefix))

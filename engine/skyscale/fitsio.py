@@ -41,11 +41,11 @@ from astropy.wcs import WCS
 from ._validate import InputError, MissingFileError, as_image
 from ._atomic import atomic_output as _atomic_output
 from .beam import Beam, _wrap_pa
-from .fitscards import HISTORY_INDENT, HISTORY_WIDTH, is_axis_card, kept_cards, wrap_history
+from .fitscards import HISTORY_WIDTH, is_axis_card, kept_cards, wrap_history
 
 __all__ = ["FitsImage", "HISTORY_WIDTH", "SQUARE_RTOL", "GRID_RTOL", "RESERVED_KEYWORDS",
            "read_image", "read_shape", "cell_size_arcsec", "check_same_grid", "write_image",
-           "provenance_history", "write_table_csv", "sky_position_angle", "HISTORY_INDENT"]
+           "provenance_history", "write_table_csv", "sky_position_angle"]
 
 #: Largest relative difference between the x and y pixel steps of a "square" grid.
 SQUARE_RTOL = 1e-6
@@ -440,9 +440,13 @@ def _like_wcs(like):
                     "Header or an astropy WCS (or None)")
 
 
-#: Cards of `astropy.wcs.WCS.to_header` that say nothing true of a celestial grid made
-#: in memory: the time reference (written as 0.0 when it was never set).
-_UNSET_TIME = ("MJDREF", "MJDREFI", "MJDREFF", "DATEREF", "JDREF", "JDREFI", "JDREFF")
+#: Cards of the time reference, which `astropy.wcs.WCS.to_header` writes (MJDREF = 0.0)
+#: even for a WCS that never had one.
+_TIME_REFERENCE = ("MJDREF", "MJDREFI", "MJDREFF", "DATEREF", "JDREF", "JDREFI", "JDREFF")
+
+
+def _has_time_reference(wcs):
+    return bool(np.any(np.nan_to_num(wcs.wcs.mjdref) != 0.0))
 
 
 def _base_header(like, wcs, shape):
@@ -464,8 +468,9 @@ def _base_header(like, wcs, shape):
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", AstropyWarning)
             cards = wcs.to_header()
+        unset = () if _has_time_reference(wcs) else _TIME_REFERENCE
         for card in cards.cards:
-            if card.keyword not in header and card.keyword not in _UNSET_TIME:
+            if card.keyword not in header and card.keyword not in unset:
                 header.append(card)
     return header, out_shape
 
@@ -499,7 +504,7 @@ def provenance_history(parameters, start=None, end=None):
     -------
     list of str
         ASCII lines of at most `HISTORY_WIDTH` characters.  A long entry continues on
-        lines starting with `HISTORY_INDENT`, broken before a space or after a separator
+        lines starting with `skyscale.fitscards.HISTORY_INDENT`, broken before a space or after a separator
         (never inside a number of a list); `skyscale.fitscards.join_history` joins them
         back to the exact entry.
 
