@@ -504,9 +504,9 @@ def provenance_history(parameters, start=None, end=None):
     -------
     list of str
         ASCII lines of at most `HISTORY_WIDTH` characters.  A long entry continues on
-        lines starting with `skyscale.fitscards.HISTORY_INDENT`, broken before a space or after a separator
-        (never inside a number of a list); `skyscale.fitscards.join_history` joins them
-        back to the exact entry.
+        lines starting with two spaces (`skyscale.fitscards.HISTORY_INDENT`), broken
+        before a space or after a separator, so no value of a list is cut;
+        `skyscale.fitscards.join_history` joins them back to the exact entry.
 
     Examples
     --------
