@@ -13,6 +13,7 @@ from astropy.io import fits
 from astropy.wcs import WCS
 from astropy.wcs.utils import proj_plane_pixel_scales
 
+import skyscale.fitscards as fitscards_module
 import skyscale.fitsio as fitsio_module
 from skyscale.beam import Beam
 from skyscale.fitsio import (FitsImage, cell_size_arcsec, check_same_grid, provenance_history,
@@ -183,14 +184,74 @@ def test_round_trip_keeps_wcs_data_and_unit(tmp_path, dtype):
     assert np.all(a.separation(b).arcsec < 1e-6)
 
 
-def test_write_from_4d_like_keeps_celestial_wcs(tmp_path):
+def test_write_from_4d_like_keeps_its_axes(tmp_path):
     p = tmp_path / "cube.fits"
     write_raw(p, np.zeros((1, 1, 8, 9), np.float32), cube_header())
     src = read_image(p)
     out = write_image(tmp_path / "plane.fits", np.ones((8, 9)), like=src, bunit="Jy/beam")
     h = fits.getheader(out)
-    assert h["NAXIS"] == 2 and "CTYPE3" not in h
-    assert (h["CTYPE1"], h["CTYPE2"]) == ("RA---SIN", "DEC--SIN")
+    # FITS Standard 4.0 sec. 4.4.1: degenerate axes written back with NAXISn = 1
+    assert h["NAXIS"] == 4 and (h["NAXIS3"], h["NAXIS4"]) == (1, 1)
+    assert (h["CTYPE1"], h["CTYPE2"], h["CTYPE3"], h["CTYPE4"]) == \
+        ("RA---SIN", "DEC--SIN", "FREQ", "STOKES")
+    # reference library: astropy.wcs spectral sub-WCS value and unit
+    spec = WCS(h).spectral.pixel_to_world(0)
+    assert spec.unit == "Hz" and spec.value == 1.2e9
+    assert fits.getdata(out).shape == (1, 1, 8, 9)
+    back = read_image(out)
+    assert back.data.shape == (8, 9) and back.wcs.naxis == 2
+
+
+def test_like_image_keeps_observation_cards_only(tmp_path):
+    h = make_wcs(cd=False).to_header()
+    del h["MJDREF"]                           # as a file written by hand would be
+    h["NAXIS"], h["NAXIS1"], h["NAXIS2"] = 2, 6, 5
+    kept = {"OBJECT": "invented field", "TELESCOP": "NOWHERE ARRAY", "INSTRUME": "none",
+            "OBSERVER": "tests", "DATE-OBS": "2030-01-02T03:04:05", "RESTFRQ": 1.4e9,
+            "SPECSYS": "LSRK"}
+    dropped = {"BSCALE": 2.0, "BZERO": 1.0, "BLANK": -1, "DATAMIN": 0.0, "DATAMAX": 9.0,
+               "CHECKSUM": "0000000000000000", "DATASUM": "0", "BUNIT": "K",
+               "BMAJ": 1.0, "BMIN": 1.0, "BPA": 0.0, "ORIGIN": "elsewhere", "NOISE": 1e-3}
+    for key, value in {**kept, **dropped}.items():
+        h[key] = value
+    h.add_history("another tool's history")
+    h.add_comment("another tool's comment")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", Warning)          # astropy: MJD-OBS from DATE-OBS
+        src = FitsImage(np.zeros((5, 6), np.float32), h, WCS(h).celestial)
+    out = write_image(tmp_path / "o.fits", np.ones((5, 6)), like=src, bunit="Jy/pixel")
+    with fits.open(out) as hdul:
+        got = hdul[0].header
+        assert hdul[0].verify_checksum() == 1                 # our own CHECKSUM, valid
+        np.testing.assert_array_equal(hdul[0].data, np.ones((5, 6), np.float32))
+    for key, value in kept.items():
+        assert got[key] == value, key
+    for key in ("BSCALE", "BZERO", "BLANK", "DATAMIN", "DATAMAX", "BMAJ", "ORIGIN", "NOISE",
+                "COMMENT", "MJDREF"):
+        assert key not in got, key
+    assert got["BUNIT"] == "Jy/pixel" and got["CHECKSUM"] != dropped["CHECKSUM"]
+    assert "HISTORY" not in got
+
+
+def test_like_without_wcs_stays_a_plain_plane(tmp_path):
+    h = fits.Header({"NAXIS": 3, "NAXIS1": 4, "NAXIS2": 3, "NAXIS3": 1, "OBJECT": "x"})
+    out = write_image(tmp_path / "p.fits", np.ones((3, 4)),
+                      like=FitsImage(np.zeros((3, 4), np.float32), h), bunit="Jy/beam")
+    got = fits.getheader(out)
+    assert got["NAXIS"] == 2 and "CTYPE1" not in got and got["OBJECT"] == "x"
+
+
+def test_like_wcs_adds_no_time_reference(tmp_path):
+    # astropy's WCS.to_header writes MJDREF = 0.0 for a WCS made in memory
+    assert "MJDREF" in make_wcs().to_header()
+    out = write_image(tmp_path / "w.fits", np.ones((4, 4)), like=make_wcs(), bunit="Jy/beam")
+    got = fits.getheader(out)
+    assert "MJDREF" not in got and got["CTYPE1"] == "RA---SIN"
+    timed = make_wcs()
+    timed.wcs.mjdref = [51544.0, 0.5]                 # a time reference that was set
+    out = write_image(tmp_path / "t.fits", np.ones((4, 4)), like=timed, bunit="Jy/beam")
+    got = fits.getheader(out)
+    assert got["MJDREFI"] + got["MJDREFF"] == 51544.5
 
 
 @pytest.mark.parametrize("rot, flip", [(0.0, False), (25.0, False), (0.0, True), (-40.0, True)])
@@ -289,6 +350,54 @@ def test_provenance_lines_wrap_and_record_version(monkeypatch):
     assert not any(line.startswith("skyscale start") for line in lines)
 
 
+def _join_cards(cards):
+    """Entries of HISTORY card texts by the documented rule, written out independently:
+    a card starting with two spaces continues the entry before it, minus those two."""
+    entries = []
+    for text in cards:
+        if text.startswith("  ") and entries:
+            entries[-1] += text[2:]
+        else:
+            entries.append(text)
+    return entries
+
+
+def test_history_continues_long_entries_without_losing_text(tmp_path):
+    scales = [round(0.75 * k, 2) for k in range(40)]
+    tight = "[" + ",".join(str(k * 3) for k in range(45)) + "]"
+    path = "/data/" + "/".join(f"folder{k:02d}" for k in range(12)) + "/mask.fits"
+    params = {"scales": scales, "tight": tight, "mask": path, "gain": 0.1}
+    p = write_image(tmp_path / "long.fits", np.zeros((4, 4)), bunit="Jy/beam",
+                    history=provenance_history(params, None, None))
+    # reference library: astropy.io.fits reads the HISTORY cards back
+    cards = [str(x) for x in fits.getheader(p)["HISTORY"]]
+    # FITS Standard 4.0 sec. 4.4.2.4: HISTORY text is columns 9-80, 72 characters
+    assert all(len(c) <= 72 for c in cards) and len(cards) > 1 + len(params)
+    entries = _join_cards(cards)
+    assert entries[1:] == [f"skyscale parameter {k} = {v}" for k, v in params.items()]
+    # no number of a list is cut: each break is before a space or after a separator
+    groups = []
+    for text in cards:
+        if text.startswith("  ") and groups:
+            groups[-1].append(text)
+        else:
+            groups.append([text])
+    for name in ("scales", "tight"):
+        group = next(g for g in groups if g[0].startswith(f"skyscale parameter {name} "))
+        assert len(group) > 1
+        for first, cont in zip(group, group[1:]):
+            assert first[-1] in ",=" or cont[2] == " ", (first, cont)
+
+
+def test_history_line_longer_than_a_card_is_continued(tmp_path):
+    line = "skyscale note: " + "; ".join(f"part {k} of a long note" for k in range(12))
+    p = write_image(tmp_path / "note.fits", np.zeros((4, 4)), bunit="Jy/beam",
+                    history=["short line", line])
+    cards = [str(x) for x in fits.getheader(p)["HISTORY"]]
+    assert len(cards) > 2 and all(len(c) <= 72 for c in cards)
+    assert _join_cards(cards) == ["short line", line]
+
+
 def test_provenance_version_fallback(monkeypatch):
     def missing(name):
         raise importlib.metadata.PackageNotFoundError(name)
@@ -359,3 +468,4 @@ def test_csv_bad_row_leaves_nothing(tmp_path):
 
 def test_doctests():
     assert doctest.testmod(fitsio_module).failed == 0
+    assert doctest.testmod(fitscards_module).failed == 0

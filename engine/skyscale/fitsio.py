@@ -6,6 +6,10 @@ a `~skyscale.beam.Beam` is in pixels with its angle measured on the pixel grid; 
 conversion uses the image's cell size and the orientation of its celestial axes, so
 rotated or flipped grids keep the beam pointing the same way on the sky.
 
+An output written ``like`` an image read from FITS keeps the input's axis structure
+(degenerate frequency or Stokes axes come back with NAXISn = 1), its world-coordinate
+cards and its observation cards; `skyscale.fitscards` says which.
+
 Every output is written to a temporary file in the target's directory and then
 renamed over the target, so a reader never sees half a file, and an existing file is
 only replaced when asked.
@@ -24,7 +28,6 @@ import importlib.metadata
 import math
 import os
 import secrets
-import textwrap
 import warnings
 from collections.abc import Mapping
 from dataclasses import dataclass
@@ -38,13 +41,12 @@ from astropy.wcs import WCS
 from ._validate import InputError, MissingFileError, as_image
 from ._atomic import atomic_output as _atomic_output
 from .beam import Beam, _wrap_pa
+from .fitscards import HISTORY_WIDTH, is_axis_card, kept_cards, wrap_history
 
 __all__ = ["FitsImage", "HISTORY_WIDTH", "SQUARE_RTOL", "GRID_RTOL", "RESERVED_KEYWORDS",
            "read_image", "read_shape", "cell_size_arcsec", "check_same_grid", "write_image",
            "provenance_history", "write_table_csv", "sky_position_angle"]
 
-#: Characters of text one HISTORY card holds.
-HISTORY_WIDTH = 72
 #: Largest relative difference between the x and y pixel steps of a "square" grid.
 SQUARE_RTOL = 1e-6
 #: Largest relative difference in cell size (and in the orientation matrix) between
@@ -65,7 +67,8 @@ class FitsImage:
     data : (ny, nx) ndarray of float32
         The pixels, degenerate extra axes removed.
     header : astropy.io.fits.Header
-        The primary header as read.
+        The primary header as read (all axes); `write_image` with ``like=`` this image
+        writes the axis structure and the cards that still apply back out.
     wcs : astropy.wcs.WCS or None
         The 2-D celestial WCS, or None when the header has none.
     path : str or None
@@ -437,6 +440,41 @@ def _like_wcs(like):
                     "Header or an astropy WCS (or None)")
 
 
+#: Cards of the time reference, which `astropy.wcs.WCS.to_header` writes (MJDREF = 0.0)
+#: even for a WCS that never had one.
+_TIME_REFERENCE = ("MJDREF", "MJDREFI", "MJDREFF", "DATEREF", "JDREF", "JDREFI", "JDREFF")
+
+
+def _has_time_reference(wcs):
+    return bool(np.any(np.nan_to_num(wcs.wcs.mjdref) != 0.0))
+
+
+def _base_header(like, wcs, shape):
+    """Cards from ``like`` for an output of ``shape``: ``(header, shape to write)``.
+
+    An image or header read from FITS gives its own cards (`kept_cards`), with its axis
+    structure; the celestial WCS (``to_header``) fills in only where it gives none.
+    """
+    source = like.header if isinstance(like, FitsImage) else like
+    header, out_shape, axes = fits.Header(), tuple(shape), False
+    if isinstance(source, fits.Header):
+        header, out_shape, axes = kept_cards(source, shape)
+        if not any(str(source.get(f"CTYPE{k}", "")).strip() for k in (1, 2)):
+            # no WCS on the image axes: written as a plain 2-D image, as it is read
+            for key in [k for k in header if is_axis_card(k)]:
+                del header[key]
+            out_shape, axes = tuple(shape), False
+    if wcs is not None and not axes:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", AstropyWarning)
+            cards = wcs.to_header()
+        unset = () if _has_time_reference(wcs) else _TIME_REFERENCE
+        for card in cards.cards:
+            if card.keyword not in header and card.keyword not in unset:
+                header.append(card)
+    return header, out_shape
+
+
 def _skyscale_version():
     try:
         return importlib.metadata.version("skyscale")
@@ -465,8 +503,10 @@ def provenance_history(parameters, start=None, end=None):
     Returns
     -------
     list of str
-        ASCII lines of at most `HISTORY_WIDTH` characters; a long entry continues on
-        lines indented by two spaces.
+        ASCII lines of at most `HISTORY_WIDTH` characters.  A long entry continues on
+        lines starting with two spaces (`skyscale.fitscards.HISTORY_INDENT`), broken
+        before a space or after a separator, so no value of a list is cut;
+        `skyscale.fitscards.join_history` joins them back to the exact entry.
 
     Examples
     --------
@@ -485,12 +525,7 @@ def provenance_history(parameters, start=None, end=None):
         entries.append(f"skyscale start {_timestamp(start)}")
     if end is not None:
         entries.append(f"skyscale end {_timestamp(end)}")
-    lines = []
-    for entry in entries:
-        entry = entry.encode("ascii", "backslashreplace").decode("ascii")
-        lines += textwrap.wrap(entry, width=HISTORY_WIDTH, subsequent_indent="  ",
-                               break_on_hyphens=False, drop_whitespace=True) or [""]
-    return lines
+    return [line for entry in entries for line in wrap_history(entry)]
 
 
 def write_image(path, data, *, like=None, bunit, beam=None, history=(), extra=None,
@@ -504,14 +539,22 @@ def write_image(path, data, *, like=None, bunit, beam=None, history=(), extra=No
     data : (ny, nx) ndarray
         Pixels; float64 is written as float64, anything else as float32.
     like : FitsImage, astropy Header or astropy WCS, optional
-        Source of the celestial WCS copied into the output (same grid as ``data``).
+        The input image on the same grid as ``data``.  From an image or header read
+        from FITS the output keeps the axis structure (degenerate axes such as a
+        frequency or Stokes axis are written back with NAXISn = 1, in their order), the
+        world-coordinate cards as written and the observation cards (OBJECT, TELESCOP,
+        DATE-OBS, ...; `skyscale.fitscards.KEPT_KEYWORDS`); the input's pixel
+        description (BUNIT, beam, BSCALE/BZERO/BLANK, DATAMIN/DATAMAX, checksums), its
+        HISTORY, COMMENT and other cards are not copied.  From a WCS the output gets
+        its celestial axes.
     bunit : str
         The BUNIT keyword, for example ``'Jy/beam'`` or ``'Jy/pixel'``.
     beam : Beam, optional
         Restoring beam in pixels, written as BMAJ/BMIN (degrees, FWHM) and BPA (degrees
         east of north); needs a celestial WCS from ``like``.
     history : sequence of str, optional
-        HISTORY lines, for example from `provenance_history`.
+        HISTORY lines, for example from `provenance_history`; a line longer than a card
+        is continued over several (`skyscale.fitscards.wrap_history`), never cut.
     extra : dict, optional
         More keywords: ``{key: value}`` or ``{key: (value, comment)}``; not those in
         `RESERVED_KEYWORDS`.
@@ -556,9 +599,7 @@ def write_image(path, data, *, like=None, bunit, beam=None, history=(), extra=No
     if shape is not None and tuple(shape) != arr.shape:
         raise ValueError(f"data has shape {arr.shape} but like has {tuple(shape)}; its WCS "
                          "would not fit, pass like for an image on the same grid")
-    header = fits.Header()
-    if wcs is not None:
-        header.update(wcs.to_header())
+    header, out_shape = _base_header(like, wcs, arr.shape)
     header["BUNIT"] = (bunit, "pixel unit")
     if beam is not None:
         if not isinstance(beam, Beam):
@@ -578,8 +619,9 @@ def write_image(path, data, *, like=None, bunit, beam=None, history=(), extra=No
     header["DATE"] = (_dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%S"),
                       "file written (UTC)")
     for line in [history] if isinstance(history, str) else history:
-        header.add_history(str(line))
-    hdul = fits.HDUList([fits.PrimaryHDU(data=arr, header=header)])
+        for text in wrap_history(line):
+            header.add_history(text)
+    hdul = fits.HDUList([fits.PrimaryHDU(data=arr.reshape(out_shape), header=header)])
     with _atomic_output(path, overwrite) as fh:
         hdul.writeto(fh, checksum=True)
     return path
