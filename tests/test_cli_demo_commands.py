@@ -13,7 +13,6 @@ import os
 import re
 
 import numpy as np
-import pytest
 from astropy.io import fits
 from astropy.modeling import fitting, models
 from scipy import ndimage

@@ -99,7 +99,6 @@ def wrap_pa(pa):
     return pa + 0.0  # turns -0.0 into 0.0
 
 
-_wrap_pa = wrap_pa     # the old private name, still imported by skyscale.fitsio
 
 
 @dataclass(frozen=True)

@@ -225,8 +225,7 @@ def show_plan(plan):
     t.add_row("major cycles", f"{_t(plan.major_total_seconds)} ({_t(plan.major_seconds)} each, "
               "with the statistics)")
     t.add_row("total", _t(plan.total_seconds))
-    t.add_row("peak memory", f"{_b(plan.memory_bytes)} (at {plan.memory_phase}; the engine's "
-              f"own account {_b(plan.engine_memory_bytes)})")
+    t.add_row("peak memory", f"{_b(plan.memory_bytes)} (at {plan.memory_phase})")
     t.add_row("memory available", _b(plan.memory_available))
     t.add_row("fits", "yes" if plan.fits else "[bold red]NO: will not fit[/] (what would: "
               "below)")

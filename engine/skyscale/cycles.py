@@ -103,7 +103,8 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
     sub-loop that would raise the peak residual in the mask above the larger of the
     cycle's starting peak and 1.1 times the delta scale's stop level
     (`skyscale.levels.allowed_peak`), so with an exact operator no major cycle raises
-    it above that.  A major cycle that does all the same (an
+    it above that within the cycle's mask (an emission mask that grows may take in
+    pixels whose residual is higher).  A major cycle that does all the same (an
     inexact operator) is rolled back and retried with a shallower minor cycle, at most
     twice in a row; then the run stops, 'no_progress' when the rise is within 1 %,
     'diverging' otherwise.  Rollbacks are counted in ``result.rollbacks``.  A residual

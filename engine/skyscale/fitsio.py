@@ -21,13 +21,11 @@ References
    1077: world coordinates.
 """
 
-import contextlib
 import csv
 import datetime as _dt
 import importlib.metadata
 import math
 import os
-import secrets
 import warnings
 from collections.abc import Mapping
 from dataclasses import dataclass
@@ -40,7 +38,7 @@ from astropy.wcs import WCS
 
 from ._validate import InputError, MissingFileError, as_image
 from ._atomic import atomic_output as _atomic_output
-from .beam import Beam, _wrap_pa
+from .beam import Beam, wrap_pa
 from .fitscards import HISTORY_WIDTH, is_axis_card, kept_cards, wrap_history
 
 __all__ = ["FitsImage", "HISTORY_WIDTH", "SQUARE_RTOL", "GRID_RTOL", "RESERVED_KEYWORDS",
@@ -152,13 +150,13 @@ def _orientation(cel):
 def sky_position_angle(pa_pixel, cel):
     t = math.radians(pa_pixel)
     east, north = _orientation(cel) @ np.array([-math.sin(t), math.cos(t)])
-    return _wrap_pa(math.degrees(math.atan2(east, north)))
+    return wrap_pa(math.degrees(math.atan2(east, north)))
 
 
 def _pixel_pa(pa_sky, cel):
     t = math.radians(pa_sky)
     dx, dy = np.linalg.solve(_orientation(cel), np.array([math.sin(t), math.cos(t)]))
-    return _wrap_pa(math.degrees(math.atan2(-dx, dy)))
+    return wrap_pa(math.degrees(math.atan2(-dx, dy)))
 
 
 def _header_beam(header, wcs, label):

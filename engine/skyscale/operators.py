@@ -148,8 +148,17 @@ def describe_operator(operator):
 
 
 def as_operator(operator, shape, dtype=np.float32):
-    """Return ``operator`` as a residual operator, wrapping a plain callable."""
-    if isinstance(operator, (ImagePlaneOperator, FunctionOperator)):
+    """Return ``operator`` as a residual operator, wrapping a plain callable.
+
+    A `FunctionOperator` built for another image shape is refused here, before the run.
+    """
+    if isinstance(operator, FunctionOperator):
+        if operator.shape != tuple(int(v) for v in shape):
+            raise InputError(f"operator was built for images of shape {operator.shape}, "
+                             f"but the dirty image is {tuple(shape)}; build it with the "
+                             "dirty image's shape")
+        return operator
+    if isinstance(operator, ImagePlaneOperator):
         return operator
     if not callable(operator):
         raise TypeError(f"operator is {type(operator).__name__}, expected a callable "

@@ -6,12 +6,12 @@ the assumptions in words.  ``skyscale plan`` prints it; ``skyscale run`` refuses
 that will not fit (`check_fits_memory`).
 """
 
-import os
 from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
 from . import cost
+from ._threads import openmp_wait
 from ._validate import resolve_dtype
 
 __all__ = ["Plan", "plan_run", "check_fits_memory", "max_affordable_scales",
@@ -48,7 +48,6 @@ class Plan:
     total_seconds: float
     memory_bytes: int              #: predicted peak the run adds to the process
     memory_phase: str              #: where the peak happens
-    engine_memory_bytes: int       #: what the engine itself accounts (`Engine.memory`)
     memory_available: int | None
     fits: bool
     messages: list = field(default_factory=list)
@@ -78,10 +77,7 @@ def _shape2(value, name):
 def _spinning_threads():
     """True when Numba's kernels run on OpenMP threads that busy-wait when idle."""
     import numba
-    if os.environ.get("OMP_WAIT_POLICY", "").lower() == "passive":
-        return False
-    spin = os.environ.get("GOMP_SPINCOUNT", "")   # skyscale sets 20000 unless told otherwise
-    if spin.isdigit() and int(spin) <= 1_000_000:
+    if openmp_wait()["short"]:        # passive, or a short spin (skyscale's default)
         return False
     try:
         layer = numba.threading_layer()
@@ -210,9 +206,8 @@ def plan_run(image_shape, psf, scales, *, max_components=20000, max_major_cycles
         if words != "given":
             messages.append(f"{key.replace('_', ' ')}: {words}")
     t = cost.predict_times(geom, cal, threads=threads)
-    loop = (t["per_component_pixel"] * counts["components"] * counts["active_pixels"]
-            + counts["rounds"] * (t["per_active_pixel"] * counts["active_pixels"]
-                                  + t["per_sub_loop"]))
+    loop = cost.loop_seconds(t, counts["components"], counts["active_pixels"],
+                             counts["rounds"])
     minor = counts["rounds"] * t["round"] + loop
     major_each = t["major"] + t["stats"]
     major = counts["major_cycles"] * major_each + t["stats"]    # the dirty image's stats too
@@ -225,7 +220,7 @@ def plan_run(image_shape, psf, scales, *, max_components=20000, max_major_cycles
         messages.append(f"the image is larger than the calibrated sizes (up to {side} x "
                         f"{side}); times are extrapolated: "
                         + bench_advice(image_shape, side, avail, cal))
-    fits = avail is None or mem["peak"] * cost.MEMORY_HEADROOM <= avail
+    fits = cost.fits_memory(mem["peak"], avail)
     remedies = []
     if avail is None:
         messages.append("the memory available is unknown; not checked")
@@ -241,7 +236,7 @@ def plan_run(image_shape, psf, scales, *, max_components=20000, max_major_cycles
     return Plan(image_shape, tuple(psf_shape), sset.pixels, threads, dt.name,
                 int(max_components), counts, t["precompute"], t["setup"], startup,
                 t["round"], loop, minor, major_each, major, total, mem["peak"],
-                mem["peak_phase"], int(mem["engine"]["total"]), avail, bool(fits), messages,
+                mem["peak_phase"], avail, bool(fits), messages,
                 cal.get("source", ""), mem["terms"], remedies)
 
 

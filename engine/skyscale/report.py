@@ -32,6 +32,7 @@ from collections.abc import Mapping
 import numpy as np
 
 from ._atomic import atomic_write_bytes
+from .beam import gaussian_area
 from .component_table import merge_components
 from .report_run import (REPORT_UNITS, emission_mask_record, scales_record, threads_in_effect,
                          timings_record)
@@ -52,9 +53,6 @@ _DEPENDENCIES = ("numpy", "numba", "scipy", "astropy", "pyfftw", "rich",
 
 #: Read size for `file_sha256`.
 _CHUNK_BYTES = 1 << 20
-
-#: Area of a Gaussian of unit FWHMs: pi / (4 ln 2).
-_GAUSS_AREA = math.pi / (4.0 * math.log(2.0))
 
 
 def plain_json(value):
@@ -262,7 +260,7 @@ def beam_record(beam, cell, source=None):
     major, minor, pa = float(beam.major), float(beam.minor), float(beam.pa)
     out = {"major_px": major, "minor_px": minor, "pa_deg": pa,
            "pa_from": "+y (north) towards -x (east)",
-           "area_px": _GAUSS_AREA * major * minor}
+           "area_px": gaussian_area(major, minor)}
     if cell is not None:
         out["major_arcsec"] = major * cell
         out["minor_arcsec"] = minor * cell
