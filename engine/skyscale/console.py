@@ -10,6 +10,8 @@ from rich.console import Console
 from rich.progress import BarColumn, Progress, SpinnerColumn, TextColumn, TimeElapsedColumn
 from rich.table import Table
 
+from .stops import LEVEL_STOPS
+
 __all__ = ["RunProgress", "CubeProgress", "cube_summary", "summary", "show_suggestion",
            "show_check", "say", "warn", "warn_all", "WarningLog", "stop_words"]
 
@@ -102,7 +104,7 @@ def stop_words(result, report=None):
     rule = ((report or {}).get("parameters") or {}).get("stop_rule")
     reason = result.stop_reason
     text = result.stop_description
-    if reason in ("noise", "threshold") and rule:
+    if reason in LEVEL_STOPS and rule:
         return f"every scale reached its stop level: {rule}"
     if reason in ("max_components", "max_major_cycles", "no_progress") and rule:
         return f"{text}, before every scale reached its stop level ({rule})"

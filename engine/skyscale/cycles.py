@@ -22,6 +22,7 @@ from .minor import DEFAULT_SCALE_LOOP_DEPTH, DEFAULT_SIZE_PENALTY, Engine
 from .operators import (ImagePlaneOperator, as_operator, describe_operator, exact_box,
                         exact_region)
 from .result import COMPONENT_DTYPE, CycleRecord, DeconvolutionResult
+from .stops import run_stop_after_empty_cycle
 
 __all__ = ["deconvolve", "run_cycles", "masked_stats"]
 
@@ -193,10 +194,8 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
             rounds += mc.rounds
             rejected += mc.rejected
             if mc.components.size == 0:
-                stop = {"empty": "empty_mask", "max_components": "max_components"}.get(
-                    mc.stop_reason, "no_progress")
-                if mc.stop_reason == "threshold":
-                    stop = _level_stop(noise_threshold, levels, threshold)
+                stop = run_stop_after_empty_cycle(
+                    mc.stop_reason, _level_stop(noise_threshold, levels, threshold))
                 break
             new_residual = as_image(operator(mc.model), "residual returned by the operator",
                                     dtype=np.float64, allow_nan=True)

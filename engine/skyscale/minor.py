@@ -38,8 +38,8 @@ from .psf import check_psf, describe_psf
 from .result import COMPONENT_DTYPE
 from .scales import ScaleSet
 
-__all__ = ["Engine", "MinorCycleResult", "ScaleState", "MINOR_STOP_REASONS",
-           "DEFAULT_SIZE_PENALTY", "DEFAULT_SCALE_LOOP_DEPTH"]
+__all__ = ["Engine", "MinorCycleResult", "ScaleState", "DEFAULT_SIZE_PENALTY",
+           "DEFAULT_SCALE_LOOP_DEPTH"]
 
 logger = logging.getLogger(__name__)
 
@@ -61,15 +61,6 @@ PEAK_RISE_TOLERANCE = 1e-5
 #: times before its scale is given up for the rest of the cycle.
 MAX_HALVINGS = 3
 
-#: Why a minor cycle handed back to the major cycle.
-MINOR_STOP_REASONS = {
-    "depth": "every scale reached its floor for this cycle (cycle_depth of its start)",
-    "threshold": "every scale reached its stop level (threshold or noise multiple)",
-    "max_components": "the component budget of this cycle was spent",
-    "peak_rose": "every remaining sub-loop would have raised the peak residual; rejected",
-    "empty": "no pixel may be cleaned (an empty mask, or one that lies only where no "
-             "scale may centre a component: within its radius of the image edge)",
-}
 
 
 @dataclass
@@ -89,7 +80,7 @@ class MinorCycleResult:
 
     model: np.ndarray          #: updated model (Jy/pixel); the input model is not changed
     components: np.ndarray     #: components added, `COMPONENT_DTYPE`
-    stop_reason: str           #: a key of `MINOR_STOP_REASONS`
+    stop_reason: str           #: a key of `skyscale.stops.MINOR_STOP_REASONS`
     #: Largest |residual| (unsmoothed, Jy/beam) in the mask, or anywhere without one, when
     #: the cycle started; 0 for an empty mask.  Sub-loops are kept only while this
     #: stays at most `skyscale.levels.allowed_peak` of it (checked in the box the cycle

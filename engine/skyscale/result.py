@@ -4,6 +4,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .stops import STOP_REASONS
+
 __all__ = ["COMPONENT_DTYPE", "STOP_REASONS", "CycleRecord", "DeconvolutionResult",
            "empty_components"]
 
@@ -11,19 +13,6 @@ __all__ = ["COMPONENT_DTYPE", "STOP_REASONS", "CycleRecord", "DeconvolutionResul
 COMPONENT_DTYPE = np.dtype([("y", np.int32), ("x", np.int32),
                             ("scale", np.float32), ("flux", np.float64)])
 
-#: Every reason a run can stop, with a one-line meaning.
-STOP_REASONS = {
-    "threshold": "every scale's residual in the mask reached the absolute threshold",
-    "noise": "every scale's residual in the mask reached its multiple of that scale's noise",
-    "max_components": "the component budget was spent",
-    "max_major_cycles": "the major-cycle budget was spent",
-    "no_progress": "major cycles stopped lowering the peak residual",
-    "diverging": "major cycles kept raising the peak residual (or gave non-finite values); "
-                 "the last good model is kept",
-    "empty_mask": "the mask allows no pixel to be cleaned",
-    "interrupted": "the run was interrupted; the result holds what was done so far",
-    "nothing_to_clean": "the dirty image is constant (zero included): there is nothing to clean",
-}
 
 
 def empty_components(n=0):

@@ -8,7 +8,7 @@ unchanged).  Each kernel has a plain numpy twin in ``tests/naive.py`` that it mu
 match.
 """
 
-from .scale_loop import PARALLEL_MIN_ACTIVE, SCALE_LOOP_STOP_CODES, scale_loop
+from .scale_loop import PARALLEL_MIN_ACTIVE, scale_loop
 from .stamp import stamp_components
 
-__all__ = ["PARALLEL_MIN_ACTIVE", "SCALE_LOOP_STOP_CODES", "scale_loop", "stamp_components"]
+__all__ = ["PARALLEL_MIN_ACTIVE", "scale_loop", "stamp_components"]

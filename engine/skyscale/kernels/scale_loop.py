@@ -26,15 +26,10 @@ import numpy as np
 from numba import prange
 
 from .._config import JIT_OPTIONS, PARALLEL_JIT_OPTIONS
+from ..stops import SCALE_LOOP_STOP_CODES
 
-__all__ = ["SCALE_LOOP_STOP_CODES", "PARALLEL_MIN_ACTIVE", "scale_loop"]
+__all__ = ["PARALLEL_MIN_ACTIVE", "scale_loop"]
 
-#: Why the sub-loop handed back, by the code it returns.
-SCALE_LOOP_STOP_CODES = {
-    1: "iterations",   # the iteration budget of this call was spent
-    2: "empty",        # the active set is empty
-    3: "level",        # the peak reached the sub-loop's level
-}
 
 #: Active sets smaller than this run serially: a parallel region costs more than the
 #: work.  On the 2-core development machine the parallel pass was slower at every size
@@ -65,7 +60,7 @@ def _subtract_and_scan(values, ys, xs, beam, cy, cx, f, y0, x0, lo, hi):
 
 @numba.njit(**JIT_OPTIONS)
 def _stop_code(arg, best, level, it, max_iter):
-    """0 to go on, else the `SCALE_LOOP_STOP_CODES` key that ends the loop."""
+    """0 to go on, else the `skyscale.stops.SCALE_LOOP_STOP_CODES` key that ends the loop."""
     if arg < 0:
         return 2
     if best <= level:
@@ -174,7 +169,7 @@ def scale_loop(values, ys, xs, beam, *, beam_peak, gain, level, max_iter, parall
     flux : (m,) float64 ndarray
         Integrated flux of each component, ``gain * value / B_kk(0)``.
     reason : str
-        A value of `SCALE_LOOP_STOP_CODES`.
+        A value of `skyscale.stops.SCALE_LOOP_STOP_CODES`.
     peak : float
         The largest ``|value|`` when the loop stopped.
 
