@@ -236,7 +236,7 @@ def deconvolve_cube(cube, psf, out_dir, params=None, *, client=None, scheduler=N
             raise FileExistsError(f"{clash[0]} exists; choose another output folder or pass "
                                   "--overwrite (overwrite=True)")
     beams, beam_reasons = _fit_beams(psff)
-    common, beam_source, beam_plane = _common_beam(beams, restoring_beam(merged, cell))
+    common, beam_source, beam_plane = _common_beam(beams, restoring_beam(merged, cell, wcs=cubef.wcs))
     scales_px, scale_reasons, reference = _choose_scales(merged, cubef, psff, cell)
     mask = build_mask(merged, cubef, cubef.plane_shape)
     t_prepare = time.perf_counter() - t_start

@@ -43,7 +43,8 @@ from .fitscards import HISTORY_WIDTH, is_axis_card, kept_cards, wrap_history
 
 __all__ = ["FitsImage", "HISTORY_WIDTH", "SQUARE_RTOL", "GRID_RTOL", "RESERVED_KEYWORDS",
            "read_image", "read_shape", "cell_size_arcsec", "check_same_grid", "write_image",
-           "provenance_history", "write_table_csv", "sky_position_angle"]
+           "provenance_history", "write_table_csv", "sky_position_angle",
+           "pixel_position_angle"]
 
 #: Largest relative difference between the x and y pixel steps of a "square" grid.
 SQUARE_RTOL = 1e-6
@@ -148,12 +149,22 @@ def _orientation(cel):
 
 
 def sky_position_angle(pa_pixel, cel):
+    """Position angle east of north (degrees) of a pixel-frame angle on grid ``cel``.
+
+    The pixel frame measures from +y towards -x (east on a grid with RA increasing to
+    the left); `pixel_position_angle` is the inverse.
+    """
     t = math.radians(pa_pixel)
     east, north = _orientation(cel) @ np.array([-math.sin(t), math.cos(t)])
     return wrap_pa(math.degrees(math.atan2(east, north)))
 
 
-def _pixel_pa(pa_sky, cel):
+def pixel_position_angle(pa_sky, cel):
+    """Pixel-frame angle (degrees, from +y towards -x) of a sky position angle.
+
+    ``pa_sky`` is east of north (BPA, a user's beam); the inverse of
+    `sky_position_angle` on the celestial WCS ``cel``.
+    """
     t = math.radians(pa_sky)
     dx, dy = np.linalg.solve(_orientation(cel), np.array([math.sin(t), math.cos(t)]))
     return wrap_pa(math.degrees(math.atan2(-dx, dy)))
@@ -171,7 +182,7 @@ def _header_beam(header, wcs, label):
     try:
         cell = cell_size_arcsec(wcs)
         return Beam(float(header["BMAJ"]) * 3600.0 / cell, float(header["BMIN"]) * 3600.0 / cell,
-                    _pixel_pa(float(header.get("BPA", 0.0)), wcs))
+                    pixel_position_angle(float(header.get("BPA", 0.0)), wcs))
     except (ValueError, TypeError) as exc:
         warnings.warn(f"{label} beam keywords are not usable ({exc}); its beam is ignored",
                       stacklevel=3)

@@ -154,9 +154,10 @@ def scales_in_pixels(params, cell, dirty, psf, reasons, label="scales"):
     return values
 
 
-def restoring_beam(params, cell, label="beam"):
-    """The user's restoring beam (``params['beam']``, arcsec and degrees) or None."""
-    return None if params["beam"] is None else _restoring_beam(params, cell, label)
+def restoring_beam(params, cell, label="beam", wcs=None):
+    """The user's restoring beam (``params['beam']``, arcsec and degrees east of north)
+    in the pixel frame of ``wcs``, or None."""
+    return None if params["beam"] is None else _restoring_beam(params, cell, label, wcs)
 
 
 def build_mask(params, image, shape, labels=None):
@@ -340,7 +341,7 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
     mask = build_mask(merged, dirty, data.shape, labels)
     if blank is not None:
         mask = ~blank if mask is None else (mask & ~blank)
-    beam = restoring_beam(merged, cell, labels["beam"])
+    beam = restoring_beam(merged, cell, labels["beam"], dirty.wcs)
     from .planner import check_fits_memory, plan_run
     plan = plan_run(data.shape, psf.data, scales_px,
                     max_components=merged["max_components"], threads=merged["threads"],

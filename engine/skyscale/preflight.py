@@ -14,7 +14,7 @@ import numpy as np
 from ._atomic import INCOMPLETE_MARKER, check_output_dir, remove_stale_temps
 from ._validate import InputError
 from .beam import Beam
-from .fitsio import check_same_grid, read_image, read_shape
+from .fitsio import check_same_grid, pixel_position_angle, read_image, read_shape
 from .options import RUN_OPTION_KINDS
 
 __all__ = ["BEAM_MIN_PIXELS", "OUTPUT_NAMES", "prepare_out", "previous_outputs",
@@ -104,11 +104,14 @@ def check_units(image, warn_list):
                          "fluxes are read in the image's own unit")
 
 
-def restoring_beam(params, cell, label):
-    """The user's restoring beam (arcsec, degrees) as a pixel `Beam`.
+def restoring_beam(params, cell, label, wcs=None):
+    """The user's restoring beam (arcsec, degrees east of north) as a pixel `Beam`.
 
-    Refuses a beam without a celestial WCS, and a beam under `BEAM_MIN_PIXELS` (saying
-    how to write it when it looks like degrees read as arcsec).
+    The position angle is turned from the sky (east of north) into the pixel frame
+    through ``wcs`` (`skyscale.fitsio.pixel_position_angle`), as a header's BPA is, so a
+    beam given on a rotated or flipped grid points the same way on the sky.  Refuses a
+    beam without a celestial WCS, and a beam under `BEAM_MIN_PIXELS` (saying how to
+    write it when it looks like degrees read as arcsec).
     """
     maj, mnr, pa = params["beam"]
     if cell is None:
@@ -123,7 +126,10 @@ def restoring_beam(params, cell, label):
                 f" or write the unit ({maj:g}deg,{mnr:g}deg,{pa:g})")
         raise InputError(f"{label} major axis {maj:g} arcsec is under {BEAM_MIN_PIXELS} pixel "
                          f"(cell {cell:g} arcsec); give the FWHMs in arcsec")
-    return Beam.from_sky(maj, mnr, pa, cell)
+    beam = Beam.from_sky(maj, mnr, pa, cell)
+    if wcs is not None and wcs.has_celestial:
+        beam = Beam(beam.major, beam.minor, pixel_position_angle(beam.pa, wcs.celestial))
+    return beam
 
 
 def prepare_out(out_dir, names, overwrite, label):
