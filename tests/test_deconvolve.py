@@ -254,3 +254,15 @@ def test_delta_only_reproduces_textbook_hogbom():
     assert [(int(c["y"]), int(c["x"])) for c in r.components] == [(y, x) for y, x, _ in comps]
     np.testing.assert_allclose(r.components["flux"], [f for _, _, f in comps], rtol=1e-4)
     np.testing.assert_allclose(r.residual, res, atol=1e-5)
+
+
+def test_function_operator_built_for_another_shape_is_refused_before_the_run():
+    from skyscale import FunctionOperator, InputError
+    y, x = np.mgrid[-16:17, -16:17]
+    psf = np.exp(-(x ** 2 + y ** 2) / (2 * 1.5 ** 2)).astype(np.float32)
+    dirty = psf[8:25, 8:25].copy()
+    calls = []
+    op = FunctionOperator(lambda m: calls.append(1) or np.zeros((20, 20), np.float32), (20, 20))
+    with pytest.raises(InputError, match=r"built for images of shape \(20, 20\)"):
+        deconvolve(dirty, psf, scales=[0], operator=op)
+    assert not calls
