@@ -312,9 +312,11 @@ def check_run_options(dirty, psf, *, scales, loop_gain, threshold, noise_thresho
 
     Returns
     -------
-    DeconvolutionResult or None
+    early : DeconvolutionResult or None
         A finished result when there is nothing to clean (the dirty image is constant,
         zero included: stop reason ``'nothing_to_clean'``); None otherwise.
+    psf : (py, px) ndarray
+        The checked PSF (`skyscale.psf.check_psf`), for the rest of the run.
 
     Raises
     ------
@@ -358,15 +360,14 @@ def check_run_options(dirty, psf, *, scales, loop_gain, threshold, noise_thresho
                 f"scale {scale_set.pixels[-1]:g} px is wider than the mask, which spans at "
                 f"most {extent} px; drop that scale or widen the mask")
     from .psf import check_psf
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")   # the engine warns about a peak it normalises
-        check_psf(psf, image.shape, dtype=dt)
+    checked_psf = check_psf(psf, image.shape, dtype=dt)   # warns once if it normalises
     if float(image.max()) == float(image.min()) and model is None:
         note = (f"the dirty image is constant ({float(image.flat[0]):.6g} Jy/beam "
                 "everywhere): there is no structure to clean")
         params = {"scales": list(scale_set.pixels)}
-        return _early_result(image, psf, scales=scale_set.pixels, restore=restore, beam=beam,
-                             params=params, mask=user_mask, reason="nothing_to_clean",
-                             note=note)
-    return None
+        early = _early_result(image, checked_psf, scales=scale_set.pixels, restore=restore,
+                              beam=beam, params=params, mask=user_mask,
+                              reason="nothing_to_clean", note=note)
+        return early, checked_psf
+    return None, checked_psf
 

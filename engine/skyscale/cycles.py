@@ -397,7 +397,7 @@ def deconvolve(dirty, psf, *, scales=(0, 4, 8, 16), loop_gain=0.1, threshold=0.0
                            "emission_mask", "EmissionMask")}
     # --- input checks (issue 12): every option is checked in _validate.check_run_options ---
     from ._validate import check_run_options
-    early = check_run_options(
+    early, psf = check_run_options(
         dirty, psf, scales=scales, loop_gain=loop_gain, threshold=threshold,
         noise_threshold=noise_threshold, extended_depth=extended_depth,
         max_components=max_components, max_major_cycles=max_major_cycles,

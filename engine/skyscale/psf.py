@@ -8,6 +8,7 @@ References
 
 import logging
 import warnings
+import weakref
 from dataclasses import dataclass
 
 import numpy as np
@@ -26,6 +27,10 @@ PSF_PATCH_LEVEL = 0.1
 #: A PSF whose peak differs from 1 by up to this much is normalised (with a warning);
 #: beyond it the file is probably not a PSF and is refused.
 PSF_PEAK_TOLERANCE = 0.1
+
+#: The PSFs `check_psf` has returned (by id, weakly held): one handed back to it again
+#: is returned as it is instead of being analysed again.
+_CHECKED = weakref.WeakValueDictionary()
 
 
 @dataclass(frozen=True)
@@ -55,7 +60,9 @@ def check_psf(psf, image_shape, *, dtype=np.float32, name="psf"):
     Returns
     -------
     psf : (py, px) ndarray
-        Contiguous copy with peak exactly 1.
+        Contiguous, read-only copy with peak exactly 1.  Handing it back to
+        `check_psf` returns it as it is (no second analysis), so the driver, the
+        engine and the image-plane operator of one run share one checked PSF.
 
     Raises
     ------
@@ -64,8 +71,12 @@ def check_psf(psf, image_shape, *, dtype=np.float32, name="psf"):
         peak is off centre or negative, or its peak differs from 1 by more than
         `PSF_PEAK_TOLERANCE` (a peak off by less is normalised, with a warning).
     """
-    psf = as_image(psf, name, dtype=dtype)
     ny, nx = image_shape
+    known = _CHECKED.get(id(psf))
+    if known is psf and psf.dtype == np.dtype(dtype) and psf.shape[0] >= ny \
+            and psf.shape[1] >= nx:
+        return psf                     # this function's own output: already checked
+    psf = as_image(psf, name, dtype=dtype)
     if not np.any(psf):
         raise InputError(f"{name} is all zeros; give the PSF (dirty beam) image, peak 1 at "
                          "its centre")
@@ -91,7 +102,10 @@ def check_psf(psf, image_shape, *, dtype=np.float32, name="psf"):
     if abs(value - 1.0) > 1e-3:
         warnings.warn(f"{name} peak is {value:.4g}, not 1; it has been normalised to 1",
                       stacklevel=3)
-    return np.ascontiguousarray(psf / psf.dtype.type(value), dtype=dtype)
+    checked = np.ascontiguousarray(psf / psf.dtype.type(value), dtype=dtype)
+    checked.flags.writeable = False    # shared by the engine and the operator, never changed
+    _CHECKED[id(checked)] = checked
+    return checked
 
 
 def outside_level_profile(psf):
