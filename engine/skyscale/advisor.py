@@ -285,7 +285,7 @@ def suggest_scales(dirty, psf=None, *, cell_arcsec=None, largest_size=None,
                        "px: largest scale at most 2/3 of it, "
                        f"{STRUCTURE_FRACTION * structure:.1f} px")
     else:
-        extent = measure_emission_extent(image, used, sigma=sigma)
+        extent = measure_emission_extent(image, used, sigma=sigma, psf=psf)
         ladder = extent.noise_by_smoothing
         if extent.n_islands == 0:
             noise = (f"(measured off the emission) at smoothings from 0 to "
@@ -302,11 +302,16 @@ def suggest_scales(dirty, psf=None, *, cell_arcsec=None, largest_size=None,
         else:
             structure = extent.intrinsic_px
             note = extent.note()
+            compact = "" if extent.compact <= 0 or extent.peak <= 0 else \
+                (f", a compact source on it set apart, its peak "
+                 f"{extent.compact / extent.peak:.2g} x the structure's there")
             reasons.append(
                 f"largest extended structure {structure:.1f} px across{angle(structure)}, "
                 f"{note} (the image's noise measured off the emission at each smoothing, "
-                f"{sigma:g} sigma islands; {extent.largest_px:.1f} px as seen, less the "
-                f"beam's and the smoothing's broadening): largest scale at most 2/3 of it, "
+                f"{sigma:g} sigma islands; {extent.largest_px:.1f} px as seen at half its "
+                f"peak, its profile fitted by a {extent.shape} seen through the "
+                f"{'PSF' if psf is not None else 'beam'} and the smoothing"
+                f"{compact}): largest scale at most 2/3 of it, "
                 f"{STRUCTURE_FRACTION * structure:.1f} px")
     limits = scale_limits(image.shape, beam_px, structure_px=structure, structure_note=note,
                           cell=cell, baseline=baseline)
