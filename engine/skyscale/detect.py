@@ -31,9 +31,10 @@ from scipy.spatial import ConvexHull, QhullError
 from scipy.spatial.distance import pdist
 
 from .noise import robust_noise
-from .profiles import fit_profile, transfer_of_beam, transfer_of_psf
+from .profiles import (fit_profile, seen_point, subtract_point, transfer_of_beam,
+                       transfer_of_psf)
 
-__all__ = ["FWHM_PER_SIGMA", "LADDER_RATIO", "DIAMETER_MEASURES", "Island", "Detection",
+__all__ = ["FWHM_PER_SIGMA", "LADDER_RATIO", "COMPACT_APART", "DIAMETER_MEASURES", "Island", "Detection",
            "smoothing_ladder", "smoothed_images", "emission_free_noise", "point_island",
            "detect_emission"]
 
@@ -80,7 +81,13 @@ MEASURE_PEAK = 2.0
 #: reading: no compact source or loose fit inflates it).  Wider, the smoothing dwarfs
 #: the size: the profile no longer pins the shape nor its size, and the rung that
 #: maximises a structure's signal-to-noise is never wider than its size.
-MEASURE_WIDTH = 2.0
+MEASURE_WIDTH = 1.0
+
+#: A compact source fitted on a structure at least this many smoothed beams across is
+#: subtracted (seen through the PSF, sidelobes and all) and the structure fitted again;
+#: on a smaller one the two are nearly one profile, and taking out the compact part
+#: would carve a flat top into a Gaussian.
+COMPACT_APART = 2.0
 
 
 # ------------------------------------------------------------------------- smoothing
@@ -296,7 +303,8 @@ class Detection:
         return tuple(self.sigma * n for n in self.noise)
 
 
-def _islands(sm, sigma, noise, previous, width, beam, min_area, measure, first, transfer):
+def _islands(sm, sigma, noise, previous, width, beam, min_area, measure, first, transfer,
+             psf):
     """Positive islands of one rung, measured (``beam``: ``(geometric mean, major)``)."""
     level = sigma * noise
     labels, n = ndimage.label(sm > level, structure=np.ones((3, 3), dtype=bool))
@@ -304,7 +312,7 @@ def _islands(sm, sigma, noise, previous, width, beam, min_area, measure, first, 
         return []
     areas = np.bincount(labels.ravel(), minlength=n + 1)
     spread = math.hypot(beam[1], width)
-    found = []
+    found, point, ranked = [], None, None
     for k, sl in enumerate(ndimage.find_objects(labels), start=1):
         if sl is None or areas[k] < min_area:
             continue
@@ -333,10 +341,21 @@ def _islands(sm, sigma, noise, previous, width, beam, min_area, measure, first, 
             found.append(Island(width, int(areas[k]), peak / noise, gain, cover, seen,
                                 guard, resolved, False))
             continue
-        fit = fit_profile(values, transfer, width, beam[0])
+        if point is None:           # the seen point, once per rung
+            point = seen_point(psf, width, beam[0])
+            ranked = np.sort(point.ravel())[::-1]
+        fit = fit_profile(values, transfer, width, beam[0], ranked, noise)
+        compact = fit.compact
+        if fit.flux > 0 and fit.size_px >= COMPACT_APART * spread:
+            # take the compact source out, sidelobes and all, and fit again
+            box = np.where(inside, sm[sl], 0.0)
+            at = np.unravel_index(int(np.argmax(box)), box.shape)
+            fit = fit_profile(subtract_point(box, point, at, fit.flux)[inside], transfer,
+                              width, beam[0], ranked, noise)
+            compact += fit.compact
         if fit.peak < level:        # no extended part above the detection level
             found.append(Island(width, int(areas[k]), peak / noise, gain, cover, seen,
-                                0.0, True, True, "point", 0.0, fit.compact))
+                                0.0, True, True, "point", 0.0, compact))
             continue
         ys, xs = np.nonzero(inside & (sm[sl] >= max(level, 0.5 * fit.peak)))
         across = _diameter(ys, xs, measure)
@@ -344,7 +363,7 @@ def _islands(sm, sigma, noise, previous, width, beam, min_area, measure, first, 
         if measure == "feret" and len(ys):
             intrinsic *= max(1.0, across / _diameter(ys, xs, "equal_area"))
         found.append(Island(width, int(areas[k]), peak / noise, gain, cover, across,
-                            intrinsic, True, True, fit.shape, fit.peak, fit.compact))
+                            intrinsic, True, True, fit.shape, fit.peak, compact))
     return found
 
 
@@ -428,7 +447,7 @@ def detect_emission(image, beam_fwhm_px, smoothing_px=None, *, sigma=5.0, exclud
         if measure:
             islands.extend(_islands(sm, sigma, noise, previous, width,
                                     (float(beam_fwhm_px), major), min_area, diameter,
-                                    i < 2, transfer))
+                                    i < 2, transfer, psf))
             previous = (sm, noise)
     logger.debug("emission detected at %d rungs %s px; noise %s", len(ladder), ladder,
                  ", ".join(f"{n:.3g}" for n in noises))

@@ -31,10 +31,10 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy.optimize import minimize_scalar, nnls
-from scipy.special import j0, j1
+from scipy.special import j0, j1, ndtr
 
 __all__ = ["SHAPES", "SHAPE_TIE", "MIN_EXTENDED", "Transfer", "ProfileFit", "transfer_of_psf",
-           "transfer_of_beam", "fit_profile"]
+           "transfer_of_beam", "seen_point", "subtract_point", "fit_profile"]
 
 #: The extended shapes fitted to an island's profile.
 SHAPES = ("gaussian", "disk")
@@ -52,6 +52,16 @@ MIN_EXTENDED = 0.02
 #: The profile is fitted at most at this many radii, evenly spaced in area (so every
 #: part of the island weighs by its number of pixels, as in a fit to the pixels).
 MAX_RADII = 200
+
+#: Step of the fine radial grid the seen profiles are computed on, pixels.
+FINE_STEP = 0.5
+
+#: Levels at which a noisy profile's expected sorting is computed.
+N_LEVELS = 128
+
+#: Fixed-point passes for the amplitude of a noisy profile (the noise's effect on the
+#: sorting depends on the amplitude, relative to the noise).
+NOISE_PASSES = 2
 
 #: Trial sizes of the coarse search, before a bounded refinement.
 N_TRIAL = 24
@@ -123,7 +133,9 @@ class ProfileFit:
         The extended part's peak as seen on the smoothed image (its fitted profile
         at radius 0); 0 when no extended part fits.
     compact : float
-        The fitted unresolved source's peak as seen at radius 0.
+        The fitted unresolved source's peak as seen.
+    flux : float
+        Its flux (the seen point's multiple).
     """
 
     shape: str
@@ -132,28 +144,91 @@ class ProfileFit:
     residuals: dict
     peak: float
     compact: float
+    flux: float = 0.0
 
 
 class _Profiles:
-    """Seen profiles at fixed radii: one Hankel matrix, reused for every trial size."""
+    """Seen profiles, sorted like the island's pixels, at the island's radii.
 
-    def __init__(self, transfer, width, radii):
-        top = float(radii.max()) + 1.0
-        nq = int(max(512, 8 * top))               # 16 samples per period of J0(2 pi q r)
-        self.q = (np.arange(nq) + 0.5) * (0.5 / nq)
+    Each profile is computed on a fine radial grid by one Hankel matrix (reused for
+    every trial size), then sorted from its brightest: the level set of a profile
+    that is not monotonic (a dirty disk, domed or edge-brightened by the PSF's
+    sidelobes) is an annulus, and its area, not its outer radius, is what the
+    island's sorted pixels measure.
+    """
+
+    def __init__(self, transfer, width, radii, spread, point):
+        self.radii = radii
+        outer = 2.0 * float(radii.max()) + 2.0 * spread + 2.0
+        step = max(FINE_STEP, spread / 16.0)      # the profiles are smooth on the spread
+        self.fine = (np.arange(int(math.ceil(outer / step))) + 0.5) * step
+        self.area = 2.0 * math.pi * self.fine * step
+        # Out to where the smoothing's transfer falls under 1e-8 (or 1/2 cycle per
+        # pixel), 16 samples per period of J0(2 pi q r) at the outer radius.
+        top = 0.5 if width <= 0 else \
+            min(0.5, math.sqrt(_FOUR_LN2 * math.log(1e8)) / (math.pi * width))
+        nq = int(max(256, 16 * outer * top))
+        self.q = (np.arange(nq) + 0.5) * (top / nq)
         t = np.interp(self.q, transfer.q, transfer.t)
         w = np.exp(-math.pi * math.pi * width * width * self.q * self.q / _FOUR_LN2)
-        weight = 2.0 * math.pi * self.q * t * w * (0.5 / nq)
-        self.kernel = j0(2.0 * math.pi * np.outer(radii, self.q)) * weight[None, :]
-        self.point = self.kernel @ _source("point", 0.0, self.q)
+        weight = 2.0 * math.pi * self.q * t * w * (top / nq)
+        self.kernel = j0(2.0 * math.pi * np.outer(self.fine, self.q)) * weight[None, :]
+        self.point = point
 
-    def fit(self, shape, size, values):
-        model = self.kernel @ _source(shape, size, self.q)
+    def _sorted(self, profile, noise=0.0):
+        """``profile`` (on the fine grid) sorted from its brightest against the
+        equal-area radius, at the island's radii; with ``noise`` (rms, in the
+        profile's unit), the expected sorting of the profile plus that noise: the
+        expected number of pixels above ``v`` is ``sum a_j Phi((m_j - v) / noise)``
+        over the grid's annuli, a noisy plateau sorting into a ramp."""
+        if noise <= 0:
+            order = np.argsort(-profile, kind="stable")
+            cum = np.cumsum(self.area[order]) - 0.5 * self.area[order]
+            return np.interp(self.radii, np.sqrt(cum / math.pi), profile[order])
+        levels = np.linspace(profile.min() - 4 * noise, profile.max() + 4 * noise,
+                             N_LEVELS)
+        above = ndtr((profile[:, None] - levels[None, :]) / noise).T @ self.area
+        return np.interp(math.pi * self.radii ** 2, above[::-1], levels[::-1])
+
+    def fit(self, shape, size, values, noise=0.0):
+        profile = self.kernel @ _source(shape, size, self.q)
+        model = self._sorted(profile)
         coef, norm = nnls(np.column_stack([model, self.point]), values)
-        return norm, coef, model[0]
+        for _ in range(NOISE_PASSES if noise > 0 else 0):
+            if coef[0] <= 0:
+                break
+            model = self._sorted(profile, noise / coef[0])
+            coef, norm = nnls(np.column_stack([model, self.point]), values)
+        return norm, coef, float(profile.max())
 
 
-def fit_profile(values, transfer, width_px, beam_px):
+def seen_point(psf, width_px, beam_px):
+    """An unresolved source of flux 1 seen through the PSF (or, for ``psf`` None, the
+    round Gaussian beam of ``beam_px``) and the rung's smoothing: an image with its
+    peak at ``(ny // 2, nx // 2)``, sampled on the pixel grid as the island is."""
+    from .detect import smoothed_images            # detect imports this module
+    if psf is None:
+        spread = math.hypot(beam_px, width_px)
+        half = int(math.ceil(3.0 * spread)) + 1
+        yy, xx = np.mgrid[-half:half + 1, -half:half + 1]
+        return (beam_px / spread) ** 2 * np.exp2(-4.0 * (yy * yy + xx * xx) / spread ** 2)
+    return np.asarray(next(smoothed_images(np.asarray(psf, dtype=np.float64),
+                                           [width_px]))[1], dtype=np.float64)
+
+
+def subtract_point(box, point, at, flux):
+    """``box`` less ``flux`` times the seen ``point`` centred on pixel ``at`` of it
+    (the point image clipped to the box)."""
+    out = np.array(box, dtype=np.float64)
+    py, px = point.shape[0] // 2, point.shape[1] // 2
+    y0, x0 = at[0] - py, at[1] - px
+    ys = slice(max(y0, 0), min(y0 + point.shape[0], box.shape[0]))
+    xs = slice(max(x0, 0), min(x0 + point.shape[1], box.shape[1]))
+    out[ys, xs] -= flux * point[ys.start - y0:ys.stop - y0, xs.start - x0:xs.stop - x0]
+    return out
+
+
+def fit_profile(values, transfer, width_px, beam_px, point, noise=0.0):
     """Fit an island's profile with a disk or a Gaussian and an unresolved source.
 
     Parameters
@@ -166,6 +241,12 @@ def fit_profile(values, transfer, width_px, beam_px):
         FWHM of the rung's unit-sum Gaussian smoothing (0: none).
     beam_px : float
         Beam FWHM in pixels (sets the smallest trial size).
+    point : (m,) ndarray
+        The seen point's pixels (`seen_point`), sorted from the brightest.
+    noise : float
+        The smoothed image's noise rms per pixel: the models are sorted as they
+        would be with that noise on them (a noisy plateau sorts into a ramp, which a
+        Gaussian would otherwise fit better than a disk).  Default 0.
 
     Returns
     -------
@@ -188,19 +269,20 @@ def fit_profile(values, transfer, width_px, beam_px):
     index = np.unique(np.linspace(0, n - 1, min(n, MAX_RADII)).astype(np.int64))
     radii = np.sqrt((index + 0.5) / math.pi)
     y = v[index]
-    profiles = _Profiles(transfer, float(width_px), radii)
     spread = math.hypot(beam_px, width_px)
+    column = np.where(index < point.size, point[np.minimum(index, point.size - 1)], 0.0)
+    profiles = _Profiles(transfer, float(width_px), radii, spread, column)
     across = 2.0 * math.sqrt(n / math.pi)
     grid = np.geomspace(0.05 * spread, 2.0 * across + spread, N_TRIAL)
     sizes, residuals, found = {}, {}, {}
     for shape in SHAPES:
-        norms = [profiles.fit(shape, s, y)[0] for s in grid]
+        norms = [profiles.fit(shape, s, y, noise)[0] for s in grid]
         k = int(np.argmin(norms))
         lo, hi = grid[max(k - 1, 0)], grid[min(k + 1, N_TRIAL - 1)]
-        best = minimize_scalar(lambda s: profiles.fit(shape, s, y)[0], bounds=(lo, hi),
+        best = minimize_scalar(lambda s: profiles.fit(shape, s, y, noise)[0], bounds=(lo, hi),
                                method="bounded", options={"xatol": 1e-3 * lo})
         size = float(best.x) if best.fun <= norms[k] else float(grid[k])
-        norm, coef, centre = profiles.fit(shape, size, y)
+        norm, coef, centre = profiles.fit(shape, size, y, noise)
         sizes[shape], residuals[shape] = size, float(norm)
         found[shape] = (coef, centre)
     a, b = SHAPES
@@ -208,9 +290,9 @@ def fit_profile(values, transfer, width_px, beam_px):
         shape = a if sizes[a] <= sizes[b] else b
     else:
         shape = a if residuals[a] < residuals[b] else b
-    (amp, point), centre = found[shape]
+    (amp, flux), centre = found[shape]
     peak = float(amp * centre)
-    compact = float(point * profiles.point[0])
+    compact = float(flux * point[0])                # the point's peak, seen
     if amp <= 0 or peak < MIN_EXTENDED * v[0]:
-        return ProfileFit("point", 0.0, sizes, residuals, 0.0, compact)
-    return ProfileFit(shape, sizes[shape], sizes, residuals, peak, compact)
+        return ProfileFit("point", 0.0, sizes, residuals, 0.0, compact, float(flux))
+    return ProfileFit(shape, sizes[shape], sizes, residuals, peak, compact, float(flux))
