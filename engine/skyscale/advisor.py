@@ -157,8 +157,9 @@ def suggest_scales(dirty, psf=None, *, cell_arcsec=None, largest_size=None,
     dirty : (ny, nx) ndarray
         Dirty image, Jy/beam.
     psf : (py, px) ndarray, optional
-        The PSF, peak at ``(py // 2, px // 2)``; the beam is fitted to it.  Not needed
-        when ``beam`` is given.
+        The PSF, peak at ``(py // 2, px // 2)``; the beam is fitted to it, and the
+        emission's profiles are fitted through it, sidelobes and all.  Not needed
+        when ``beam`` is given (the profiles are then fitted through that beam).
     cell_arcsec : Quantity ['angle'] or float, optional
         Pixel size (float: arcsec).  Needed by ``largest_size`` and
         ``shortest_baseline``, and for ``arcsec`` in the result.
@@ -218,11 +219,15 @@ def suggest_scales(dirty, psf=None, *, cell_arcsec=None, largest_size=None,
 
     Examples
     --------
+    A disk of diameter 60 px seen through a Gaussian beam of FWHM 4 px:
+
     >>> import numpy as np
+    >>> from scipy import ndimage
     >>> from skyscale.beam import Beam
     >>> rng = np.random.default_rng(0)
     >>> y, x = np.mgrid[:256, :256]
-    >>> disk = 50.0 * ((y - 128)**2 + (x - 128)**2 < 30**2)
+    >>> disk = ndimage.gaussian_filter(50.0 * ((y - 128)**2 + (x - 128)**2 < 30**2),
+    ...                                4.0 / 2.3548)
     >>> s = suggest_scales(rng.normal(0, 1, (256, 256)) + disk, beam=Beam(4.0, 4.0),
     ...                    cell_arcsec=2.0)
     >>> s.pixels, s.arcsec

@@ -34,9 +34,9 @@ from .noise import robust_noise
 from .profiles import (fit_profile, seen_point, subtract_point, transfer_of_beam,
                        transfer_of_psf)
 
-__all__ = ["FWHM_PER_SIGMA", "LADDER_RATIO", "COMPACT_APART", "DIAMETER_MEASURES", "Island", "Detection",
-           "smoothing_ladder", "smoothed_images", "emission_free_noise", "point_island",
-           "detect_emission"]
+__all__ = ["FWHM_PER_SIGMA", "LADDER_RATIO", "COMPACT_APART", "DIAMETER_MEASURES",
+           "Island", "Detection", "smoothing_ladder", "smoothed_images",
+           "emission_free_noise", "point_island", "detect_emission"]
 
 logger = logging.getLogger(__name__)
 

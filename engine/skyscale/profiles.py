@@ -11,6 +11,11 @@ FWHM ``f`` and a uniform disk of diameter ``D``; the size of the one that fits i
 the diameter at half its own peak, so a Gaussian reads as its FWHM and a disk as its
 diameter, whatever the beam, the smoothing or the PSF's sidelobes make of them.
 
+Each model is sorted like the island: by brightness against the equal-area radius
+(the level sets of a dirty disk, domed or edge-brightened by the PSF's sidelobes,
+are annuli), and as it would sort with the image's noise on it (a noisy plateau
+sorts into a ramp).  Where the two shapes fit alike the smaller size is taken.
+
 The profiles are computed as radial (Hankel) transforms,
 
 .. math:: m(r) = 2\\pi \\int_0^{1/2} S(q)\\, T(q)\\, W(q)\\, J_0(2\\pi q r)\\, q\\, dq,
@@ -33,8 +38,9 @@ import numpy as np
 from scipy.optimize import minimize_scalar, nnls
 from scipy.special import j0, j1, ndtr
 
-__all__ = ["SHAPES", "SHAPE_TIE", "MIN_EXTENDED", "Transfer", "ProfileFit", "transfer_of_psf",
-           "transfer_of_beam", "seen_point", "subtract_point", "fit_profile"]
+__all__ = ["SHAPES", "SHAPE_TIE", "MIN_EXTENDED", "Transfer", "ProfileFit",
+           "transfer_of_psf", "transfer_of_beam", "seen_profile", "seen_point",
+           "subtract_point", "fit_profile"]
 
 #: The extended shapes fitted to an island's profile.
 SHAPES = ("gaussian", "disk")
@@ -100,8 +106,8 @@ def transfer_of_beam(fwhm_px):
     """`Transfer` of a round Gaussian beam of peak 1 and FWHM ``fwhm_px`` (analytic)."""
     q = np.linspace(0.0, 0.5, 4097)
     a = math.pi * fwhm_px * fwhm_px / _FOUR_LN2
-    return Transfer(q, a * np.exp(-math.pi * math.pi * fwhm_px * fwhm_px * q * q / _FOUR_LN2),
-                    "gaussian beam")
+    t = a * np.exp(-math.pi * math.pi * fwhm_px * fwhm_px * q * q / _FOUR_LN2)
+    return Transfer(q, t, "gaussian beam")
 
 
 def _source(shape, size, q):
@@ -147,6 +153,47 @@ class ProfileFit:
     flux: float = 0.0
 
 
+def _hankel(radii, transfer, width, outer):
+    """``(q, K)``: the profile at ``radii`` of a source of transform ``S(q)`` is
+    ``K @ S(q)`` (the radial transform of the module docstring, midpoint rule)."""
+    # Out to where the smoothing's transfer falls under 1e-8 (or 1/2 cycle per pixel),
+    # 16 samples per period of J0(2 pi q r) at the outer radius.
+    top = 0.5 if width <= 0 else \
+        min(0.5, math.sqrt(_FOUR_LN2 * math.log(1e8)) / (math.pi * width))
+    nq = int(max(256, 16 * outer * top))
+    q = (np.arange(nq) + 0.5) * (top / nq)
+    t = np.interp(q, transfer.q, transfer.t)
+    w = np.exp(-math.pi * math.pi * width * width * q * q / _FOUR_LN2)
+    weight = 2.0 * math.pi * q * t * w * (top / nq)
+    return q, j0(2.0 * math.pi * np.outer(radii, q)) * weight[None, :]
+
+
+def seen_profile(shape, size_px, transfer, width_px, radii):
+    """Radial profile of a source seen through ``transfer`` and the smoothing.
+
+    Parameters
+    ----------
+    shape : {'disk', 'gaussian', 'point'}
+        A uniform disk of surface brightness 1 per pixel and diameter ``size_px``; a
+        Gaussian of peak 1 per pixel and FWHM ``size_px``; a point of flux 1.
+    size_px : float
+    transfer : Transfer
+    width_px : float
+        FWHM of the unit-sum Gaussian smoothing (0: none).
+    radii : (n,) ndarray
+        Distances from the source's centre, pixels.
+
+    Returns
+    -------
+    profile : (n,) ndarray
+        In the image's unit (for a peak-1 PSF: per beam).
+    """
+    radii = np.asarray(radii, dtype=np.float64)
+    outer = float(radii.max(initial=0.0)) + 1.0
+    q, kernel = _hankel(radii, transfer, float(width_px), outer)
+    return kernel @ _source(shape, float(size_px), q)
+
+
 class _Profiles:
     """Seen profiles, sorted like the island's pixels, at the island's radii.
 
@@ -165,14 +212,7 @@ class _Profiles:
         self.area = 2.0 * math.pi * self.fine * step
         # Out to where the smoothing's transfer falls under 1e-8 (or 1/2 cycle per
         # pixel), 16 samples per period of J0(2 pi q r) at the outer radius.
-        top = 0.5 if width <= 0 else \
-            min(0.5, math.sqrt(_FOUR_LN2 * math.log(1e8)) / (math.pi * width))
-        nq = int(max(256, 16 * outer * top))
-        self.q = (np.arange(nq) + 0.5) * (top / nq)
-        t = np.interp(self.q, transfer.q, transfer.t)
-        w = np.exp(-math.pi * math.pi * width * width * self.q * self.q / _FOUR_LN2)
-        weight = 2.0 * math.pi * self.q * t * w * (top / nq)
-        self.kernel = j0(2.0 * math.pi * np.outer(self.fine, self.q)) * weight[None, :]
+        self.q, self.kernel = _hankel(self.fine, transfer, width, outer)
         self.point = point
 
     def _sorted(self, profile, noise=0.0):
@@ -260,9 +300,11 @@ def fit_profile(values, transfer, width_px, beam_px, point, noise=0.0):
     two amplitudes (extended, unresolved) by `scipy.optimize.nnls` at every trial.
     The shape with the smaller residual is taken, unless the two are within
     `SHAPE_TIE` of each other, when the smaller size is.  An extended part under
-    `MIN_EXTENDED` of the island's peak is none: the fit is then ``"point"``.  The sum of an off-centre
-    compact source and a structure does not sort exactly into the sum of their sorted
-    profiles; the compact term takes up what is left above the structure.
+    `MIN_EXTENDED` of the island's peak is none: the fit is then ``"point"``.  The
+    sum of an off-centre compact source and a structure does not sort exactly into
+    the sum of their sorted profiles (the compact term takes up what is left above the
+    structure); `skyscale.detect` therefore subtracts the compact source fitted,
+    seen through the PSF at the island's brightest pixel, and fits again.
     """
     v = np.sort(np.asarray(values, dtype=np.float64))[::-1]
     n = v.size
@@ -279,8 +321,9 @@ def fit_profile(values, transfer, width_px, beam_px, point, noise=0.0):
         norms = [profiles.fit(shape, s, y, noise)[0] for s in grid]
         k = int(np.argmin(norms))
         lo, hi = grid[max(k - 1, 0)], grid[min(k + 1, N_TRIAL - 1)]
-        best = minimize_scalar(lambda s: profiles.fit(shape, s, y, noise)[0], bounds=(lo, hi),
-                               method="bounded", options={"xatol": 1e-3 * lo})
+        best = minimize_scalar(lambda s: profiles.fit(shape, s, y, noise)[0],
+                               bounds=(lo, hi), method="bounded",
+                               options={"xatol": 1e-3 * lo})
         size = float(best.x) if best.fun <= norms[k] else float(grid[k])
         norm, coef, centre = profiles.fit(shape, size, y, noise)
         sizes[shape], residuals[shape] = size, float(norm)
