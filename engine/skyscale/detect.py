@@ -85,8 +85,9 @@ MEASURE_WIDTH = 1.0
 
 #: A compact source fitted on a structure at least this many smoothed beams across is
 #: subtracted (seen through the PSF, sidelobes and all) and the structure fitted again;
-#: on a smaller one the two are nearly one profile, and taking out the compact part
-#: would carve a flat top into a Gaussian.
+#: on a smaller one the two are nearly one profile (taking out the compact part would
+#: carve a flat top into a Gaussian, and fitting both lets a wider disk with a point
+#: at its centre pass for the structure): the structure is fitted alone.
 COMPACT_APART = 2.0
 
 
@@ -353,6 +354,11 @@ def _islands(sm, sigma, noise, previous, width, beam, min_area, measure, first, 
             fit = fit_profile(subtract_point(box, point, at, fit.flux)[inside], transfer,
                               width, beam[0], ranked, noise)
             compact += fit.compact
+        elif fit.shape != "point" and fit.size_px < COMPACT_APART * spread:
+            # too small to tell a compact source on it apart: the structure alone
+            fit = fit_profile(values, transfer, width, beam[0], ranked, noise,
+                              compact=False)
+            compact = 0.0
         if fit.peak < level:        # no extended part above the detection level
             found.append(Island(width, int(areas[k]), peak / noise, gain, cover, seen,
                                 0.0, True, True, "point", 0.0, compact))

@@ -230,15 +230,19 @@ class _Profiles:
         above = ndtr((profile[:, None] - levels[None, :]) / noise).T @ self.area
         return np.interp(math.pi * self.radii ** 2, above[::-1], levels[::-1])
 
+    def _solve(self, model, values):
+        if self.point is None:
+            coef, norm = nnls(model[:, None], values)
+            return np.array([coef[0], 0.0]), norm
+        return nnls(np.column_stack([model, self.point]), values)
+
     def fit(self, shape, size, values, noise=0.0):
         profile = self.kernel @ _source(shape, size, self.q)
-        model = self._sorted(profile)
-        coef, norm = nnls(np.column_stack([model, self.point]), values)
+        coef, norm = self._solve(self._sorted(profile), values)
         for _ in range(NOISE_PASSES if noise > 0 else 0):
             if coef[0] <= 0:
                 break
-            model = self._sorted(profile, noise / coef[0])
-            coef, norm = nnls(np.column_stack([model, self.point]), values)
+            coef, norm = self._solve(self._sorted(profile, noise / coef[0]), values)
         return norm, coef, float(profile.max())
 
 
@@ -268,7 +272,7 @@ def subtract_point(box, point, at, flux):
     return out
 
 
-def fit_profile(values, transfer, width_px, beam_px, point, noise=0.0):
+def fit_profile(values, transfer, width_px, beam_px, point, noise=0.0, *, compact=True):
     """Fit an island's profile with a disk or a Gaussian and an unresolved source.
 
     Parameters
@@ -287,6 +291,9 @@ def fit_profile(values, transfer, width_px, beam_px, point, noise=0.0):
         The smoothed image's noise rms per pixel: the models are sorted as they
         would be with that noise on them (a noisy plateau sorts into a ramp, which a
         Gaussian would otherwise fit better than a disk).  Default 0.
+    compact : bool
+        Fit an unresolved source with the structure (default); False fits the
+        structure alone (where the two cannot be told apart).
 
     Returns
     -------
@@ -313,6 +320,8 @@ def fit_profile(values, transfer, width_px, beam_px, point, noise=0.0):
     y = v[index]
     spread = math.hypot(beam_px, width_px)
     column = np.where(index < point.size, point[np.minimum(index, point.size - 1)], 0.0)
+    if not compact:
+        column = None
     profiles = _Profiles(transfer, float(width_px), radii, spread, column)
     across = 2.0 * math.sqrt(n / math.pi)
     grid = np.geomspace(0.05 * spread, 2.0 * across + spread, N_TRIAL)
