@@ -13,8 +13,8 @@ import math
 import numpy as np
 from scipy import ndimage
 
-__all__ = ["FWHM_PER_SIGMA", "BEAM", "gaussian_psf", "make_field", "point_field",
-           "noise_field", "smoothed_snr"]
+__all__ = ["FWHM_PER_SIGMA", "BEAM", "gaussian_psf", "bowl_psf", "make_field",
+           "point_field", "noise_field", "smoothed_snr", "source_with_compact"]
 
 #: Gaussian FWHM = 2 sqrt(2 ln 2) sigma (analytic).
 FWHM_PER_SIGMA = 2.0 * math.sqrt(2.0 * math.log(2.0))
@@ -27,6 +27,57 @@ def gaussian_psf(n, fwhm=BEAM):
     r = np.arange(n + 1) - (n + 1) // 2
     s = fwhm / FWHM_PER_SIGMA
     return np.exp(-(r[:, None] ** 2 + r[None, :] ** 2) / (2.0 * s * s))
+
+
+def bowl_psf(n, fwhm=BEAM, bowl_fwhm=60.0):
+    """(n + 1, n + 1) PSF of peak 1 whose sum is 0, as an array without its shortest
+    spacings makes (common practice: the zero spacing is not measured): a Gaussian
+    main lobe of ``fwhm`` less a broad Gaussian of ``bowl_fwhm`` with the same sum
+    (the sum of a peak-1 Gaussian is proportional to its FWHM squared, analytic), so a
+    broad source sits in a negative bowl and a disk is domed."""
+    shallow = (fwhm / bowl_fwhm) ** 2
+    return (gaussian_psf(n, fwhm) - shallow * gaussian_psf(n, bowl_fwhm)) / (1.0 - shallow)
+
+
+def source_with_compact(kind, size, compact, n, *, snr=20.0, offset=(-8, -6), seed=0,
+                        psf=None, beam=BEAM):
+    """A disk (diameter ``size``) or Gaussian (FWHM ``size``) at the image centre with
+    an unresolved source ``compact`` times the structure's own peak on it, ``offset``
+    pixels from the centre, seen through the peak-1 Gaussian beam (by
+    ``astropy.convolution.convolve_fft`` with a unit-sum ``Gaussian2DKernel`` times
+    its sum 2 pi sigma^2, analytic) or through ``psf`` (``scipy.signal.fftconvolve``),
+    plus white noise of rms the structure's peak seen through the Gaussian beam over
+    ``snr`` (the same reference sets the compact source's flux).
+
+    Returns
+    -------
+    dirty : (n, n) ndarray
+    """
+    from astropy.convolution import Gaussian2DKernel, convolve_fft
+    from scipy.signal import fftconvolve
+
+    c = n // 2
+    yy, xx = np.mgrid[:n, :n]
+    r2 = (yy - c) ** 2 + (xx - c) ** 2
+    if kind == "disk":
+        sky = (r2 <= (size / 2.0) ** 2).astype(np.float64)
+    else:
+        sky = np.exp(-r2 / (2.0 * (size / FWHM_PER_SIGMA) ** 2))
+    s = beam / FWHM_PER_SIGMA
+    area = 2.0 * math.pi * s * s                      # sum of the peak-1 beam
+    kernel = Gaussian2DKernel(s, x_size=int(8 * s) | 1, y_size=int(8 * s) | 1)
+
+    def seen(image):
+        if psf is None:
+            return convolve_fft(image, kernel, boundary="fill", fill_value=0.0) * area
+        return fftconvolve(image, psf, mode="same")
+
+    structure = seen(sky)
+    peak = convolve_fft(sky, kernel, boundary="fill", fill_value=0.0).max() * area
+    point = np.zeros((n, n))
+    point[c + offset[0], c + offset[1]] = compact * peak    # flux = seen peak (peak-1 beam)
+    rng = np.random.default_rng(seed)
+    return structure + seen(point) + rng.standard_normal((n, n)) * peak / snr
 
 
 def _noise(rng, n, correlated, fwhm):

@@ -49,12 +49,21 @@ def _suggested(text):
 
 def test_suggest_proposes_a_set_that_follows_the_rules_of_thumb(capsys):
     assert main(["suggest", DIRTY, PSF]) == 0
-    scales = _suggested(capsys.readouterr().out)
+    out = " ".join(capsys.readouterr().out.split())
+    scales = _suggested(out)
     fwhm = _psf_fwhm_px()
     assert scales[0] == 0                                  # the delta scale is included
     assert 0.5 * fwhm <= scales[1] <= 1.5 * fwhm           # starts near the beam
     ratios = np.array(scales[2:]) / np.array(scales[1:-1])
-    assert np.all((ratios >= 1.5) & (ratios <= 2.5))       # roughly doubling
+    fuller = re.search(r"takes \d+ scales \(([\d, ]+) px\)", out)
+    if fuller:      # three or four to start: evenly spaced, the doubling set offered
+        doubling = [float(v) for v in fuller.group(1).split(",")]
+        assert doubling[1] == scales[1] and doubling[-1] == scales[-1]
+        steps = np.array(doubling[2:]) / np.array(doubling[1:-1])
+        assert np.all((steps >= 1.5) & (steps <= 2.5))     # roughly doubling
+        assert np.all(ratios >= 1.5) and np.ptp(np.log(ratios)) < 0.15
+    else:
+        assert np.all((ratios >= 1.5) & (ratios <= 2.5))   # roughly doubling
     assert scales[-1] <= _largest_island_px()              # below the largest structure
 
 

@@ -1,5 +1,6 @@
-"""Tests of skyscale.detect: the smoothing ladder, each rung's emission-free noise, and
-the islands measured on it, against analytic values and scipy/astropy."""
+"""Tests of skyscale.detect and skyscale.profiles: the smoothing ladder, each rung's
+emission-free noise, the islands measured on it and the profiles they are fitted by,
+against analytic values and scipy/astropy."""
 
 import math
 
@@ -7,12 +8,15 @@ import numpy as np
 import pytest
 from astropy.convolution import Gaussian2DKernel
 from scipy import ndimage
+from scipy.stats import ncx2
 
 from skyscale import EmissionMask
 from skyscale.detect import (FWHM_PER_SIGMA, detect_emission, emission_free_noise,
                              smoothed_images, smoothing_ladder)
 from skyscale.noise import robust_noise
-from tests.advisor_fields import BEAM, make_field, noise_field, point_field
+from skyscale.profiles import seen_profile, transfer_of_beam, transfer_of_psf
+from tests.advisor_fields import (BEAM, gaussian_psf, make_field, noise_field, point_field,
+                                  source_with_compact)
 
 
 def test_ladder_doubles_from_the_beam_to_a_quarter_of_the_image():
@@ -90,3 +94,57 @@ def test_emission_mask_calls_the_one_detection_routine():
     found = detect_emission(dirty.astype(np.float32), BEAM, [0, 4, 8, 16])
     assert list(am.noise.values()) == pytest.approx(list(found.noise))
     assert (mask | ~found.mask).all()            # grown from the same detections
+
+
+# ------------------------------------------------------------- the seen profiles
+
+def test_seen_disk_profile_matches_scipy_noncentral_chi2():
+    # A uniform disk of radius R convolved with a unit-sum round Gaussian of sigma s
+    # is, at distance r from its centre, the probability that a 2-D normal of mean r
+    # falls in the disk: the noncentral chi-square CDF with 2 degrees of freedom,
+    # scipy.stats.ncx2.cdf((R/s)^2, 2, (r/s)^2) (reference library).  Seen through a
+    # peak-1 beam b (sum pi b^2 / (4 ln 2), analytic) and smoothed by w, s is that of
+    # the FWHM sqrt(b^2 + w^2) (Gaussian widths add in quadrature, analytic).
+    b, w, diameter = 4.0, 6.0, 40.0
+    s = math.hypot(b, w) / FWHM_PER_SIGMA
+    r = np.linspace(0.0, 60.0, 121)
+    got = seen_profile("disk", diameter, transfer_of_beam(b), w, r)
+    beam_sum = math.pi * b * b / (4.0 * math.log(2.0))
+    expected = beam_sum * ncx2.cdf((0.5 * diameter / s) ** 2, 2, (r / s) ** 2)
+    np.testing.assert_allclose(got, expected, atol=1e-3 * expected.max())
+
+
+def test_seen_gaussian_profile_is_the_analytic_gaussian():
+    # A peak-1 Gaussian of FWHM f seen through a peak-1 beam b and a unit-sum
+    # smoothing w is a Gaussian of FWHM G = sqrt(f^2 + b^2 + w^2) holding the product
+    # of the two sums, so of peak pi f^2 b^2 / (4 ln 2 G^2) (analytic).
+    f, b, w = 24.0, 4.0, 8.0
+    g2 = f * f + b * b + w * w
+    r = np.linspace(0.0, 50.0, 101)
+    expected = math.pi * f * f * b * b / (4.0 * math.log(2.0) * g2) * np.exp2(-4 * r * r / g2)
+    got = seen_profile("gaussian", f, transfer_of_beam(b), w, r)
+    # 1e-3 of the peak: the beam's transfer is tabulated and interpolated linearly.
+    np.testing.assert_allclose(got, expected, atol=1e-3 * expected.max())
+
+
+def test_psf_transfer_is_the_gaussian_beam_transfer():
+    # The Fourier transform of a peak-1 Gaussian of FWHM b is
+    # pi b^2 / (4 ln 2) exp(-pi^2 b^2 q^2 / (4 ln 2)) (analytic); the sampled PSF's,
+    # averaged in rings one frequency step wide, agrees to 0.5 % of its sum (the
+    # rings average the transform over their width).
+    t = transfer_of_psf(gaussian_psf(256, BEAM))
+    beam = transfer_of_beam(BEAM)
+    expected = np.interp(t.q, beam.q, beam.t)
+    np.testing.assert_allclose(t.t, expected, atol=5e-3 * expected[0])
+
+
+def test_compact_source_on_a_disk_is_set_apart():
+    # A disk of 50 px with a point 40 times its peak on it: the island's brightest
+    # pixel is the point's, but the size read is the disk's diameter and the point is
+    # fitted apart (its seen peak near 40 times the disk's at the unsmoothed rung).
+    dirty = source_with_compact("disk", 50.0, 40.0, 256, seed=11)
+    found = detect_emission(dirty, BEAM, [0.0], measure=True)
+    disk = max(found.islands, key=lambda i: i.area)
+    assert disk.shape == "disk" and disk.measured
+    assert disk.intrinsic_px == pytest.approx(50.0, rel=0.05)
+    assert disk.compact / disk.peak == pytest.approx(40.0, rel=0.1)

@@ -157,8 +157,9 @@ def suggest_scales(dirty, psf=None, *, cell_arcsec=None, largest_size=None,
     dirty : (ny, nx) ndarray
         Dirty image, Jy/beam.
     psf : (py, px) ndarray, optional
-        The PSF, peak at ``(py // 2, px // 2)``; the beam is fitted to it.  Not needed
-        when ``beam`` is given.
+        The PSF, peak at ``(py // 2, px // 2)``; the beam is fitted to it, and the
+        emission's profiles are fitted through it, sidelobes and all.  Not needed
+        when ``beam`` is given (the profiles are then fitted through that beam).
     cell_arcsec : Quantity ['angle'] or float, optional
         Pixel size (float: arcsec).  Needed by ``largest_size`` and
         ``shortest_baseline``, and for ``arcsec`` in the result.
@@ -218,11 +219,15 @@ def suggest_scales(dirty, psf=None, *, cell_arcsec=None, largest_size=None,
 
     Examples
     --------
+    A disk of diameter 60 px seen through a Gaussian beam of FWHM 4 px:
+
     >>> import numpy as np
+    >>> from scipy import ndimage
     >>> from skyscale.beam import Beam
     >>> rng = np.random.default_rng(0)
     >>> y, x = np.mgrid[:256, :256]
-    >>> disk = 50.0 * ((y - 128)**2 + (x - 128)**2 < 30**2)
+    >>> disk = ndimage.gaussian_filter(50.0 * ((y - 128)**2 + (x - 128)**2 < 30**2),
+    ...                                4.0 / 2.3548)
     >>> s = suggest_scales(rng.normal(0, 1, (256, 256)) + disk, beam=Beam(4.0, 4.0),
     ...                    cell_arcsec=2.0)
     >>> s.pixels, s.arcsec
@@ -285,7 +290,7 @@ def suggest_scales(dirty, psf=None, *, cell_arcsec=None, largest_size=None,
                        "px: largest scale at most 2/3 of it, "
                        f"{STRUCTURE_FRACTION * structure:.1f} px")
     else:
-        extent = measure_emission_extent(image, used, sigma=sigma)
+        extent = measure_emission_extent(image, used, sigma=sigma, psf=psf)
         ladder = extent.noise_by_smoothing
         if extent.n_islands == 0:
             noise = (f"(measured off the emission) at smoothings from 0 to "
@@ -302,11 +307,16 @@ def suggest_scales(dirty, psf=None, *, cell_arcsec=None, largest_size=None,
         else:
             structure = extent.intrinsic_px
             note = extent.note()
+            compact = "" if extent.compact <= 0 or extent.peak <= 0 else \
+                (f", a compact source on it set apart, its peak "
+                 f"{extent.compact / extent.peak:.2g} x the structure's there")
             reasons.append(
                 f"largest extended structure {structure:.1f} px across{angle(structure)}, "
                 f"{note} (the image's noise measured off the emission at each smoothing, "
-                f"{sigma:g} sigma islands; {extent.largest_px:.1f} px as seen, less the "
-                f"beam's and the smoothing's broadening): largest scale at most 2/3 of it, "
+                f"{sigma:g} sigma islands; {extent.largest_px:.1f} px as seen at half its "
+                f"peak, its profile fitted by a {extent.shape} seen through the "
+                f"{'PSF' if psf is not None else 'beam'} and the smoothing"
+                f"{compact}): largest scale at most 2/3 of it, "
                 f"{STRUCTURE_FRACTION * structure:.1f} px")
     limits = scale_limits(image.shape, beam_px, structure_px=structure, structure_note=note,
                           cell=cell, baseline=baseline)

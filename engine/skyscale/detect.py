@@ -31,10 +31,12 @@ from scipy.spatial import ConvexHull, QhullError
 from scipy.spatial.distance import pdist
 
 from .noise import robust_noise
+from .profiles import (fit_profile, seen_point, subtract_point, transfer_of_beam,
+                       transfer_of_psf)
 
-__all__ = ["FWHM_PER_SIGMA", "LADDER_RATIO", "DIAMETER_MEASURES", "Island", "Detection",
-           "smoothing_ladder", "smoothed_images", "emission_free_noise", "point_island",
-           "detect_emission"]
+__all__ = ["FWHM_PER_SIGMA", "LADDER_RATIO", "COMPACT_APART", "DIAMETER_MEASURES",
+           "Island", "Detection", "smoothing_ladder", "smoothed_images",
+           "emission_free_noise", "point_island", "detect_emission"]
 
 logger = logging.getLogger(__name__)
 
@@ -74,11 +76,19 @@ RESOLVED_COVER = 0.5
 #: the detection level, ...
 MEASURE_PEAK = 2.0
 
-#: ... and where the smoothing is at most this multiple of the size found or of the
-#: beam (wider, the broadening removed in quadrature dwarfs the size and multiplies
-#: the noise's error on the contour; the rung that maximises a structure's
-#: signal-to-noise is never wider than its size).
-MEASURE_WIDTH = 2.0
+#: ... and where the smoothing is at most this multiple of the beam or of the size seen
+#: at half the island's peak less the smoothed beam's (in quadrature; a conservative
+#: reading: no compact source or loose fit inflates it).  Wider, the smoothing dwarfs
+#: the size: the profile no longer pins the shape nor its size, and the rung that
+#: maximises a structure's signal-to-noise is never wider than its size.
+MEASURE_WIDTH = 1.0
+
+#: A compact source fitted on a structure at least this many smoothed beams across is
+#: subtracted (seen through the PSF, sidelobes and all) and the structure fitted again;
+#: on a smaller one the two are nearly one profile (taking out the compact part would
+#: carve a flat top into a Gaussian, and fitting both lets a wider disk with a point
+#: at its centre pass for the structure): the structure is fitted alone.
+COMPACT_APART = 2.0
 
 
 # ------------------------------------------------------------------------- smoothing
@@ -231,16 +241,23 @@ class Island:
     cover : float or None
         Fraction of its pixels detected at the previous rung; None at the first.
     diameter_px : float
-        Diameter of its contour at half its peak (or at the detection level when
-        that is higher), as measured on the smoothed image.
+        Diameter of its contour at half the peak of its extended part (or at the
+        detection level when that is higher), as measured on the smoothed image.
     intrinsic_px : float
-        The same with the broadening by the beam and the smoothing removed in
-        quadrature: ``sqrt(max(D^2 - D_p^2, 0))`` for the island ``D_p`` an unresolved
-        source of the same peak makes at that contour.
+        The size of the shape fitted to its profile (`skyscale.profiles.fit_profile`),
+        seen through the PSF and the smoothing, with an unresolved source on it: a
+        disk's diameter or a Gaussian's FWHM; with ``diameter='feret'``, times the
+        ratio of the seen contour's Feret diameter to its equal-area diameter.
     resolved : bool
         Extended at this rung (see `RESOLVED_GAIN` and `RESOLVED_COVER`).
     measured : bool
         Extended, and its size trusted (see `MEASURE_PEAK` and `MEASURE_WIDTH`).
+    shape : str
+        The shape fitted (`skyscale.profiles.SHAPES`, or ``"point"``).
+    peak : float
+        Peak of its extended part, as seen on the smoothed image (0: none fits).
+    compact : float
+        Peak of the unresolved source fitted on it, as seen on the smoothed image.
     """
 
     smoothing_px: float
@@ -252,6 +269,9 @@ class Island:
     intrinsic_px: float
     resolved: bool
     measured: bool
+    shape: str = ""
+    peak: float = 0.0
+    compact: float = 0.0
 
 
 @dataclass
@@ -284,15 +304,16 @@ class Detection:
         return tuple(self.sigma * n for n in self.noise)
 
 
-def _islands(sm, sigma, noise, previous, width, beam_major, min_area, measure, first):
-    """Positive islands of one rung, measured."""
+def _islands(sm, sigma, noise, previous, width, beam, min_area, measure, first, transfer,
+             psf):
+    """Positive islands of one rung, measured (``beam``: ``(geometric mean, major)``)."""
     level = sigma * noise
     labels, n = ndimage.label(sm > level, structure=np.ones((3, 3), dtype=bool))
     if n == 0:
         return []
     areas = np.bincount(labels.ravel(), minlength=n + 1)
-    spread = math.hypot(beam_major, width)
-    found = []
+    spread = math.hypot(beam[1], width)
+    found, point, ranked = [], None, None
     for k, sl in enumerate(ndimage.find_objects(labels), start=1):
         if sl is None or areas[k] < min_area:
             continue
@@ -306,23 +327,55 @@ def _islands(sm, sigma, noise, previous, width, beam_major, min_area, measure, f
             prev_snr = float(before.max()) / prev_noise
             gain = math.inf if prev_snr <= 0 else (peak / noise) / prev_snr
             cover = float(np.mean(before > sigma * prev_noise))
-        contour = max(level, 0.5 * peak)
-        ys, xs = np.nonzero(inside & (sm[sl] >= contour))
-        across = _diameter(ys, xs, measure)
-        point = point_island(spread, peak / contour, measure)
-        intrinsic = math.sqrt(max(across * across - point * point, 0.0))
+        # The guard: the size seen at half the island's own peak, less what an
+        # unresolved source makes there (in quadrature); small for a point, even one
+        # on a structure, and never inflated by a fit that the profile cannot pin.
+        top = max(level, 0.5 * peak)
+        seen = _diameter(*np.nonzero(inside & (sm[sl] >= top)), measure)
+        guard = math.sqrt(max(seen * seen - point_island(spread, peak / top, measure) ** 2,
+                              0.0))
         resolved = first or (gain is not None and
                              (gain >= RESOLVED_GAIN or cover >= RESOLVED_COVER))
         measured = resolved and peak >= MEASURE_PEAK * level \
-            and width <= MEASURE_WIDTH * max(intrinsic, beam_major)
+            and width <= MEASURE_WIDTH * max(guard, beam[1])
+        if not measured:            # the guard's reading; no profile fitted
+            found.append(Island(width, int(areas[k]), peak / noise, gain, cover, seen,
+                                guard, resolved, False))
+            continue
+        if point is None:           # the seen point, once per rung
+            point = seen_point(psf, width, beam[0])
+            ranked = np.sort(point.ravel())[::-1]
+        fit = fit_profile(values, transfer, width, beam[0], ranked, noise)
+        compact = fit.compact
+        if fit.flux > 0 and fit.size_px >= COMPACT_APART * spread:
+            # take the compact source out, sidelobes and all, and fit again
+            box = np.where(inside, sm[sl], 0.0)
+            at = np.unravel_index(int(np.argmax(box)), box.shape)
+            fit = fit_profile(subtract_point(box, point, at, fit.flux)[inside], transfer,
+                              width, beam[0], ranked, noise)
+            compact += fit.compact
+        elif fit.shape != "point" and fit.size_px < COMPACT_APART * spread:
+            # too small to tell a compact source on it apart: the structure alone
+            fit = fit_profile(values, transfer, width, beam[0], ranked, noise,
+                              compact=False)
+            compact = 0.0
+        if fit.peak < level:        # no extended part above the detection level
+            found.append(Island(width, int(areas[k]), peak / noise, gain, cover, seen,
+                                0.0, True, True, "point", 0.0, compact))
+            continue
+        ys, xs = np.nonzero(inside & (sm[sl] >= max(level, 0.5 * fit.peak)))
+        across = _diameter(ys, xs, measure)
+        intrinsic = fit.size_px
+        if measure == "feret" and len(ys):
+            intrinsic *= max(1.0, across / _diameter(ys, xs, "equal_area"))
         found.append(Island(width, int(areas[k]), peak / noise, gain, cover, across,
-                            intrinsic, resolved, measured))
+                            intrinsic, True, True, fit.shape, fit.peak, compact))
     return found
 
 
 def detect_emission(image, beam_fwhm_px, smoothing_px=None, *, sigma=5.0, exclude=None,
                     include_negative=False, measure=False, beam_major_px=None,
-                    min_area=None, diameter="equal_area", reference_noise=None):
+                    min_area=None, diameter="equal_area", reference_noise=None, psf=None):
     """Detect emission in an image smoothed at a ladder of widths.
 
     Parameters
@@ -355,6 +408,9 @@ def detect_emission(image, beam_fwhm_px, smoothing_px=None, *, sigma=5.0, exclud
         which broad emission cannot inflate).  When it is below this routine's estimate
         at the first rung, every rung's noise is scaled down by their ratio: emission
         the exclusion missed inflated them all.
+    psf : (py, px) ndarray, optional
+        The PSF (peak at ``(py // 2, px // 2)``) the islands' profiles are fitted
+        through; default a round Gaussian beam of ``beam_fwhm_px``.
 
     Returns
     -------
@@ -362,14 +418,18 @@ def detect_emission(image, beam_fwhm_px, smoothing_px=None, *, sigma=5.0, exclud
 
     Notes
     -----
-    An island's size is read at half its peak (the detection level when higher), where
-    a Gaussian source reads as its FWHM whatever its brightness and a disk as its
-    diameter; the smoothed beam of FWHM :math:`F = \\sqrt{b^2 + s^2}` (Gaussian widths
-    add in quadrature, analytic) is removed in quadrature.  Islands are 8-connected.
+    An island's size is that of the disk or Gaussian whose profile, seen through the
+    PSF and the smoothing with an unresolved source on it, fits the island's
+    (`skyscale.profiles.fit_profile`): its diameter at half its own peak, so a
+    Gaussian reads as its FWHM and a disk as its diameter, whatever its brightness
+    and whatever compact source sits on it.  Islands are 8-connected.
     """
     ladder = smoothing_ladder(beam_fwhm_px, image.shape) if smoothing_px is None \
         else tuple(float(w) for w in smoothing_px)
     major = float(beam_fwhm_px if beam_major_px is None else beam_major_px)
+    transfer = None
+    if measure:
+        transfer = transfer_of_beam(beam_fwhm_px) if psf is None else transfer_of_psf(psf)
     if min_area is None:
         min_area = max(2, int(round(0.25 * math.pi * beam_fwhm_px ** 2 / (4 * math.log(2)))))
     mask = np.zeros(image.shape, dtype=bool)
@@ -391,8 +451,9 @@ def detect_emission(image, beam_fwhm_px, smoothing_px=None, *, sigma=5.0, exclud
         level = sigma * noise
         mask |= (np.abs(sm) if include_negative else sm) > level
         if measure:
-            islands.extend(_islands(sm, sigma, noise, previous, width, major, min_area,
-                                    diameter, first=i < 2))
+            islands.extend(_islands(sm, sigma, noise, previous, width,
+                                    (float(beam_fwhm_px), major), min_area, diameter,
+                                    i < 2, transfer, psf))
             previous = (sm, noise)
     logger.debug("emission detected at %d rungs %s px; noise %s", len(ladder), ladder,
                  ", ".join(f"{n:.3g}" for n in noises))

@@ -16,11 +16,18 @@ import numpy as np
 
 from ._validate import as_image, check_choice
 from .detect import DIAMETER_MEASURES, detect_emission
+from .profiles import SHAPES
 from .scale_rules import _beam_axes
 
-__all__ = ["EmissionExtent", "measure_emission_extent"]
+__all__ = ["SAME_SIZE", "EmissionExtent", "measure_emission_extent"]
 
 logger = logging.getLogger(__name__)
+
+#: Readings of the largest structure within this fraction of the largest count as one:
+#: the least smoothed of them is reported (its seen contour is closest to the
+#: structure).  The profile fit's scatter across rungs on a disk or a Gaussian at a
+#: signal-to-noise of a few tens is about 1 % (tests/test_advisor.py's fields).
+SAME_SIZE = 0.02
 
 
 @dataclass(frozen=True)
@@ -30,10 +37,12 @@ class EmissionExtent:
     Attributes
     ----------
     largest_px : float
-        Its diameter as measured on the smoothed image (pixels), at half its peak or
-        at the detection level when that is higher; 0 when nothing was found.
+        Its diameter as measured on the smoothed image (pixels), at half the peak of
+        its extended part or at the detection level when that is higher; 0 when
+        nothing was found.
     intrinsic_px : float
-        The same with the broadening by the beam and the smoothing removed (pixels).
+        Its own size (pixels): the diameter or FWHM of the disk or Gaussian whose
+        profile, seen through the PSF and the smoothing, fits the island's.
     n_islands : int
         Islands at the rung where it was found (0: no emission found at any rung).
     areas : tuple of int
@@ -58,6 +67,13 @@ class EmissionExtent:
         Islands above the detection level, over all rungs (an island seen at several
         rungs counts at each); with ``n_islands`` 0, what was detected was too faint
         to measure or unresolved at every rung.
+    shape : str
+        The shape fitted to it (`skyscale.profiles.SHAPES`); "" when nothing was
+        found.
+    peak : float
+        Peak of its extended part, as seen on that smoothed image (the image's unit).
+    compact : float
+        Peak of the unresolved source fitted on it, as seen there; 0 when none.
     """
 
     largest_px: float
@@ -73,6 +89,9 @@ class EmissionExtent:
     noise_by_smoothing: tuple = ()
     sigma: float = 5.0
     n_detected: int = 0
+    shape: str = ""
+    peak: float = 0.0
+    compact: float = 0.0
 
     def note(self):
         """Where the structure was found, in words, for reasons and messages."""
@@ -80,7 +99,8 @@ class EmissionExtent:
             return ""
         where = "unsmoothed" if self.smoothing_px == 0 else \
             f"at smoothing {self.smoothing_px:.0f} px"
-        return (f"found {where}, peak {self.peak_snr:.0f} x that image's noise "
+        shape = f"a {self.shape}, " if self.shape in SHAPES else ""
+        return (f"{shape}found {where}, peak {self.peak_snr:.0f} x that image's noise "
                 f"{self.noise:.3g}")
 
     def as_dict(self):
@@ -92,7 +112,7 @@ class EmissionExtent:
 
 
 def measure_emission_extent(dirty, beam_fwhm_px, *, sigma=5.0, smoothing_px=None,
-                            min_area=None, diameter="equal_area"):
+                            min_area=None, diameter="equal_area", psf=None):
     """Find the largest extended structure, each smoothing against its own noise.
 
     Parameters
@@ -116,6 +136,10 @@ def measure_emission_extent(dirty, beam_fwhm_px, *, sigma=5.0, smoothing_px=None
         ``'equal_area'`` (default): the diameter of the circle of the contour's area,
         steady against noisy edges; ``'feret'``: the largest distance across, which
         never underestimates an elongated source but reads high on a noisy edge.
+    psf : (py, px) ndarray, optional
+        The PSF the dirty image was made with (peak at ``(py // 2, px // 2)``): the
+        islands' profiles are fitted through it, sidelobes included.  Default a
+        Gaussian beam of ``beam_fwhm_px`` (right for a restored or smoothed image).
 
     Returns
     -------
@@ -135,25 +159,33 @@ def measure_emission_extent(dirty, beam_fwhm_px, *, sigma=5.0, smoothing_px=None
     it is extended (its peak signal-to-noise rose with the smoothing, or it was
     already detected there at the rung before), its peak is at least twice the
     detection level and the smoothing at most twice its size (see `skyscale.detect`);
-    the largest intrinsic diameter over those wins.  The size is read at half the island's peak,
-    where a Gaussian source of FWHM :math:`f` reads :math:`f` whatever its
-    brightness, and a disk its diameter (a little less once the smoothing nears its
-    size: about 0.6 of it for a smoothing far wider than the disk, whose second
-    moment is that of a Gaussian of FWHM 0.59 D).  The smoothed beam,
-    :math:`F = \\sqrt{b^2 + s^2}` (Gaussian widths add in quadrature, analytic), is
-    removed in quadrature.  In a dirty image the off-source fluctuations include the
-    PSF's sidelobes; the noise of each rung is measured off the emission, so it holds
-    them, and strong sidelobes are not taken for emission.
+    the largest intrinsic diameter over those wins (readings within `SAME_SIZE` of it
+    count as one, and the least smoothed of them is reported).  The island's pixels, sorted from
+    the brightest, give its profile against the equal-area radius; it is fitted with
+    a disk or a Gaussian seen through the PSF and the smoothing, plus an unresolved
+    source seen the same way (`skyscale.profiles.fit_profile`).  The size is the
+    fitted shape's diameter at half its own peak: a Gaussian of FWHM :math:`f` reads
+    :math:`f` and a disk its diameter, whatever their brightness, the PSF's sidelobes
+    (a dirty disk is domed and ringed by them) or a compact source on them (whose
+    peak would otherwise set the half level).  Where the profile cannot tell the two
+    shapes apart the smaller size is taken.  In a dirty image the off-source
+    fluctuations include the PSF's sidelobes; the noise of each rung is measured off
+    the emission, so it holds them, and strong sidelobes are not taken for emission.
 
     Examples
     --------
+    A disk of diameter 40 px seen through a Gaussian beam of FWHM 3 px
+    (`scipy.ndimage.gaussian_filter`, sigma = FWHM / 2.3548):
+
     >>> import numpy as np
+    >>> from scipy import ndimage
     >>> rng = np.random.default_rng(0)
     >>> y, x = np.mgrid[:128, :128]
-    >>> image = rng.normal(0, 1.0, (128, 128)) + 50.0 * ((y - 64)**2 + (x - 64)**2 < 20**2)
+    >>> disk = 50.0 * ((y - 64)**2 + (x - 64)**2 < 20**2)
+    >>> image = rng.normal(0, 1.0, (128, 128)) + ndimage.gaussian_filter(disk, 3.0 / 2.3548)
     >>> ext = measure_emission_extent(image, 3.0)
-    >>> 37 <= ext.intrinsic_px <= 43
-    True
+    >>> ext.shape, 39 <= ext.intrinsic_px <= 42
+    ('disk', True)
     """
     image = as_image(dirty, "dirty", dtype=np.float64)
     fwhm, major = _beam_axes(beam_fwhm_px, "beam_fwhm_px")
@@ -173,8 +205,11 @@ def measure_emission_extent(dirty, beam_fwhm_px, *, sigma=5.0, smoothing_px=None
                          "or None for a quarter of the beam area")
     check_choice(diameter, "diameter", DIAMETER_MEASURES)
 
+    if psf is not None:
+        psf = as_image(psf, "psf", dtype=np.float64)
     found = detect_emission(image, fwhm, ladder, sigma=float(sigma), measure=True,
-                            beam_major_px=major, min_area=min_area, diameter=diameter)
+                            beam_major_px=major, min_area=min_area, diameter=diameter,
+                            psf=psf)
     noise_by = tuple(zip(found.smoothing_px, found.noise))
     extended = [i for i in found.islands if i.measured]
     if not extended:
@@ -184,15 +219,18 @@ def measure_emission_extent(dirty, beam_fwhm_px, *, sigma=5.0, smoothing_px=None
         return EmissionExtent(0.0, 0.0, 0, (), (), first_noise, sigma * first_noise,
                               found.smoothing_px[0] if found.smoothing_px else 0.0,
                               diameter, 0.0, noise_by, float(sigma), len(found.islands))
-    best = max(extended, key=lambda i: (i.intrinsic_px, -i.smoothing_px))
+    top = max(i.intrinsic_px for i in extended)
+    best = min((i for i in extended if i.intrinsic_px >= (1 - SAME_SIZE) * top),
+               key=lambda i: (i.smoothing_px, -i.intrinsic_px))
     rung = found.smoothing_px.index(best.smoothing_px)
     same = sorted((i for i in found.islands if i.smoothing_px == best.smoothing_px),
                   key=lambda i: -i.area)
     noise = found.noise[rung]
-    logger.debug("largest structure %.1f px (%.1f px as seen) at smoothing %.1f px, "
-                 "peak %.1f sigma", best.intrinsic_px, best.diameter_px, best.smoothing_px,
-                 best.peak_snr)
+    logger.debug("largest structure %.1f px (a %s, %.1f px as seen) at smoothing %.1f px, "
+                 "peak %.1f sigma", best.intrinsic_px, best.shape, best.diameter_px,
+                 best.smoothing_px, best.peak_snr)
     return EmissionExtent(best.diameter_px, best.intrinsic_px, len(same),
                           tuple(i.area for i in same), tuple(i.diameter_px for i in same),
                           noise, sigma * noise, best.smoothing_px, diameter, best.peak_snr,
-                          noise_by, float(sigma), len(found.islands))
+                          noise_by, float(sigma), len(found.islands), best.shape,
+                          best.peak, best.compact)

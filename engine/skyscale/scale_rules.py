@@ -300,7 +300,7 @@ def check_scales(scales_px, dirty=None, psf=None, *, suggestion=None, cell_arcse
         ``suggestion`` gives it, the largest structure (measured as in
         `skyscale.advisor.suggest_scales`; needs ``psf`` or ``beam``).
     psf : (ny, nx) ndarray, optional
-        The PSF, to fit the beam.
+        The PSF, to fit the beam and to fit the emission's profiles through.
     suggestion : ScaleSuggestion, optional
         A suggestion for the same field: its limits (beam, structure, recoverable
         scale, image) are used where the other arguments do not give them, so the
@@ -382,7 +382,7 @@ def check_scales(scales_px, dirty=None, psf=None, *, suggestion=None, cell_arcse
             if beam_obj is None:
                 raise ValueError("dirty was given but neither psf, beam nor suggestion; "
                                  "pass the PSF or the beam to measure the emission")
-            extent = measure_emission_extent(image, beam_obj, sigma=sigma)
+            extent = measure_emission_extent(image, beam_obj, sigma=sigma, psf=psf)
             structure = extent.intrinsic_px if extent.n_islands else None
             note = extent.note()
     if shortest_baseline is not None:
