@@ -458,7 +458,7 @@ def deconvolve(dirty, psf, *, scales=(0, 4, 8, 16), loop_gain=0.1, threshold=0.0
         if isinstance(emission_mask, str):
             from .beam import fit_beam
             b = beam if beam is not None else fit_beam(engine.psf)
-            emission_mask = EmissionMask(engine.scales.pixels, 0.5 * (b.major + b.minor))
+            emission_mask = EmissionMask.for_beam(engine.scales.pixels, b)
         updater = _emission_mask_updater(emission_mask, user_mask, box)
     result = run_cycles(engine, operator, dirty=dirty_arr, model=model, mask=mask,
                         threshold=threshold, noise_threshold=noise_threshold,

@@ -194,7 +194,8 @@ def deconvolve_options(params, psf, cell, scales_px, mask=None, beam=None):
         from .beam import fit_beam
         from .masks import EmissionMask
         kw = {} if params["emission_mask_sigma"] is None else {"sigma": params["emission_mask_sigma"]}
-        auto = EmissionMask(scales_px, fit_beam(psf).major, **kw)
+        auto = EmissionMask.for_beam(scales_px, beam if beam is not None else fit_beam(psf),
+                                     **kw)
     return dict(scales=scales_px, loop_gain=params["loop_gain"], threshold=params["threshold"],
                 noise_threshold=params["noise_threshold"],
                 max_components=params["max_components"],
@@ -320,6 +321,9 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
         else:
             blank = None
     initial = initial_model(resume_from, dirty) if resume_from else None
+    beam = restoring_beam(merged, cell, labels["beam"], dirty.wcs)
+    from .beam import fit_beam
+    fitted = beam if beam is not None else fit_beam(psf.data)   # the run's one beam fit
     reasons = []
     scales_px = scales_in_pixels(merged, cell, data, psf.data, reasons, labels["scales"])
     scale_warnings = []
@@ -337,11 +341,11 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
                                            max_components=merged["max_components"],
                                            threads=merged["threads"])
             scale_warnings = check_scales(scales_px, data, psf.data, cell_arcsec=cell,
+                                          beam=fitted,
                                           max_affordable_scales=len(afford.scales))
     mask = build_mask(merged, dirty, data.shape, labels)
     if blank is not None:
         mask = ~blank if mask is None else (mask & ~blank)
-    beam = restoring_beam(merged, cell, labels["beam"], dirty.wcs)
     from .planner import check_fits_memory, plan_run
     plan = plan_run(data.shape, psf.data, scales_px,
                     max_components=merged["max_components"], threads=merged["threads"],
@@ -354,7 +358,7 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         result = deconvolve(data, psf.data, operator=operator, callback=callback, **extra_kw,
-                            **deconvolve_options(merged, psf.data, cell, scales_px, mask, beam))
+                            **deconvolve_options(merged, psf.data, cell, scales_px, mask, fitted))
     for text in notes + scale_warnings + [str(w.message) for w in caught]:
         if text not in result.warnings:      # the engine logs and warns the same words
             result.warnings.append(text)

@@ -9,6 +9,7 @@ References
 """
 
 import logging
+import math
 import warnings
 
 import numpy as np
@@ -94,6 +95,16 @@ class EmissionMask:
     >>> bool(m[64, 64]), bool(m[5, 5])
     (True, False)
     """
+
+    @classmethod
+    def for_beam(cls, scales, beam, **options):
+        """An emission mask for a `skyscale.Beam` (pixels): the round beam of its area.
+
+        The detection works with a round beam; the one of the same area as ``beam``
+        has the FWHM ``sqrt(major * minor)``, so its beam area (`skyscale.beam.
+        gaussian_area`) is the beam's.  ``options`` are those of the class.
+        """
+        return cls(scales, math.sqrt(beam.major * beam.minor), **options)
 
     def __init__(self, scales, beam_fwhm_px, *, sigma=5.0, grow_beams=1.0,
                  min_island_beams=1.0, smooth_fraction=0.5, include_negative=False,
