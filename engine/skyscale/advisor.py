@@ -31,8 +31,8 @@ from .detect import DIAMETER_MEASURES
 from .extent import EmissionExtent, measure_emission_extent
 from .scale_rules import (DEFAULT_MAX_COUNT, DELTA_FRACTION, IMAGE_FRACTION, MIN_SCALE_RATIO,
                           RECOVERABLE_FACTOR, RECOVERABLE_FRACTION, SCALE_RATIO,
-                          STRUCTURE_FRACTION, ScaleChoiceWarning, ScaleLimits, _arcsec,
-                          _baseline, _count, _recoverable_px, check_scales, scale_limits)
+                          STRUCTURE_FRACTION, ScaleChoiceWarning, ScaleLimits, arcsec_value,
+                          baseline_wavelengths, count_value, recoverable_pixels, check_scales, scale_limits)
 
 __all__ = ["DIAMETER_MEASURES", "STRUCTURE_FRACTION", "RECOVERABLE_FRACTION",
            "IMAGE_FRACTION", "SCALE_RATIO", "MIN_SCALE_RATIO", "DELTA_FRACTION",
@@ -237,8 +237,8 @@ def suggest_scales(dirty, psf=None, *, cell_arcsec=None, largest_size=None,
     (0, 4, 9, 18, 39)
     """
     image = as_image(dirty, "dirty", dtype=np.float64)
-    max_count = _count(max_count, "max_count")
-    min_count = min(3, max_count) if min_count is None else _count(min_count, "min_count")
+    max_count = count_value(max_count, "max_count")
+    min_count = min(3, max_count) if min_count is None else count_value(min_count, "min_count")
     if min_count > max_count:
         raise ValueError(f"min_count is {min_count} but max_count is {max_count}; "
                          "min_count must not exceed max_count")
@@ -246,15 +246,15 @@ def suggest_scales(dirty, psf=None, *, cell_arcsec=None, largest_size=None,
         warnings.warn("max_count is 1, so only the delta scale (0 px) is given: that is "
                       "delta-only CLEAN; allow 2 or more for multi-scale",
                       ScaleChoiceWarning, stacklevel=2)
-    cell = None if cell_arcsec is None else _arcsec(cell_arcsec, "cell_arcsec", "2.0")
+    cell = None if cell_arcsec is None else arcsec_value(cell_arcsec, "cell_arcsec", "2.0")
     size_arcsec = baseline = None
     if largest_size is not None:
-        size_arcsec = _arcsec(largest_size, "largest_size", "120.0")
+        size_arcsec = arcsec_value(largest_size, "largest_size", "120.0")
         if cell is None:
             raise ValueError(f"largest_size is {largest_size!r} but cell_arcsec is None; "
                              "pass cell_arcsec to turn the size into pixels")
     if shortest_baseline is not None:
-        baseline = _baseline(shortest_baseline)
+        baseline = baseline_wavelengths(shortest_baseline)
         if cell is None:
             raise ValueError(f"shortest_baseline is {shortest_baseline!r} but cell_arcsec "
                              "is None; pass cell_arcsec to turn the recoverable scale into "
@@ -266,9 +266,9 @@ def suggest_scales(dirty, psf=None, *, cell_arcsec=None, largest_size=None,
                       f"({beam_px * cell:.3g} arcsec): the emission is unresolved and only "
                       "the delta and beam scales make sense; check the value and its unit",
                       ScaleChoiceWarning, stacklevel=2)
-    if baseline is not None and _recoverable_px(baseline, cell) < 2.0 * beam_px:
+    if baseline is not None and recoverable_pixels(baseline, cell) < 2.0 * beam_px:
         warnings.warn(f"shortest_baseline is {baseline:g} wavelengths, so the largest "
-                      f"recoverable scale ({_recoverable_px(baseline, cell):.3g} px) is "
+                      f"recoverable scale ({recoverable_pixels(baseline, cell):.3g} px) is "
                       f"under twice the beam ({beam_px:.3g} px); check the value and "
                       "that it is in wavelengths (a length divided by the wavelength)",
                       ScaleChoiceWarning, stacklevel=2)

@@ -30,6 +30,7 @@ from scipy import ndimage
 from scipy.spatial import ConvexHull, QhullError
 from scipy.spatial.distance import pdist
 
+from .beam import FWHM_PER_SIGMA, gaussian_area
 from .noise import robust_noise
 from .profiles import (fit_profile, seen_point, subtract_point, transfer_of_beam,
                        transfer_of_psf)
@@ -40,8 +41,6 @@ __all__ = ["FWHM_PER_SIGMA", "LADDER_RATIO", "COMPACT_APART", "DIAMETER_MEASURES
 
 logger = logging.getLogger(__name__)
 
-#: Gaussian FWHM = 2 sqrt(2 ln 2) sigma (analytic).
-FWHM_PER_SIGMA = 2.0 * math.sqrt(2.0 * math.log(2.0))
 
 #: Successive smoothing widths of the ladder grow by this factor.
 LADDER_RATIO = 2.0
@@ -431,7 +430,7 @@ def detect_emission(image, beam_fwhm_px, smoothing_px=None, *, sigma=5.0, exclud
     if measure:
         transfer = transfer_of_beam(beam_fwhm_px) if psf is None else transfer_of_psf(psf)
     if min_area is None:
-        min_area = max(2, int(round(0.25 * math.pi * beam_fwhm_px ** 2 / (4 * math.log(2)))))
+        min_area = max(2, int(round(0.25 * gaussian_area(beam_fwhm_px, beam_fwhm_px))))
     mask = np.zeros(image.shape, dtype=bool)
     noises, islands = [], []
     previous = None

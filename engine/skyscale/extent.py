@@ -17,7 +17,7 @@ import numpy as np
 from ._validate import as_image, check_choice
 from .detect import DIAMETER_MEASURES, detect_emission
 from .profiles import SHAPES
-from .scale_rules import _beam_axes
+from .scale_rules import beam_axes
 
 __all__ = ["SAME_SIZE", "EmissionExtent", "measure_emission_extent"]
 
@@ -188,7 +188,7 @@ def measure_emission_extent(dirty, beam_fwhm_px, *, sigma=5.0, smoothing_px=None
     ('disk', True)
     """
     image = as_image(dirty, "dirty", dtype=np.float64)
-    fwhm, major = _beam_axes(beam_fwhm_px, "beam_fwhm_px")
+    fwhm, major = beam_axes(beam_fwhm_px, "beam_fwhm_px")
     if isinstance(sigma, bool) or not isinstance(sigma, numbers.Real) \
             or not (math.isfinite(sigma) and sigma > 0):
         raise ValueError(f"sigma is {sigma!r}; pass a positive multiple of the noise, e.g. 5")

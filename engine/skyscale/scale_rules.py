@@ -32,7 +32,8 @@ from .beam import Beam, fit_beam
 __all__ = ["STRUCTURE_FRACTION", "RECOVERABLE_FRACTION", "IMAGE_FRACTION", "SCALE_RATIO",
            "MIN_SCALE_RATIO", "DELTA_FRACTION", "RECOVERABLE_FACTOR", "DEFAULT_MAX_COUNT",
            "ScaleChoiceWarning", "ScaleLimits", "scale_limits", "rule_problems",
-           "check_scales"]
+           "check_scales", "arcsec_value", "baseline_wavelengths", "count_value", "beam_axes",
+           "recoverable_pixels"]
 
 logger = logging.getLogger(__name__)
 
@@ -69,7 +70,7 @@ class ScaleChoiceWarning(UserWarning):
 
 # ----------------------------------------------------------------------------- inputs
 
-def _arcsec(value, name, example):
+def arcsec_value(value, name, example):
     """A positive angle in arcsec from a Quantity ['angle'] or a float in arcsec."""
     if isinstance(value, u.Quantity):
         try:
@@ -88,7 +89,7 @@ def _arcsec(value, name, example):
     return out
 
 
-def _baseline(value):
+def baseline_wavelengths(value):
     """The shortest baseline in wavelengths, a positive float."""
     if isinstance(value, u.Quantity):
         try:
@@ -108,13 +109,14 @@ def _baseline(value):
     return out
 
 
-def _count(value, name):
+def count_value(value, name):
+    """A whole number >= 1 (a scale count), refused otherwise with ``name`` in the error."""
     if isinstance(value, bool) or not isinstance(value, numbers.Integral) or value < 1:
         raise ValueError(f"{name} is {value!r}; pass a whole number >= 1")
     return int(value)
 
 
-def _beam_axes(beam, name="beam"):
+def beam_axes(beam, name="beam"):
     """``(geometric-mean FWHM, major FWHM)`` in pixels from a Beam or a positive float."""
     if isinstance(beam, Beam):
         return math.sqrt(beam.major * beam.minor), beam.major
@@ -126,7 +128,7 @@ def _beam_axes(beam, name="beam"):
                      "or a positive FWHM in pixels")
 
 
-def _recoverable_px(baseline, cell):
+def recoverable_pixels(baseline, cell):
     """Largest recoverable scale in pixels, 0.6 / B_min radians (common practice)."""
     theta = (RECOVERABLE_FACTOR / baseline * u.rad).to_value(u.arcsec)
     return theta / cell
@@ -192,8 +194,8 @@ def scale_limits(image_shape=None, beam=None, *, structure_px=None, structure_no
                  cell=None, baseline=None):
     """`ScaleLimits` from what is known (beam: a `Beam` or a FWHM in pixels; cell in
     arcsec; baseline in wavelengths)."""
-    beam_px = None if beam is None else _beam_axes(beam)[0]
-    recoverable = None if baseline is None else _recoverable_px(baseline, cell)
+    beam_px = None if beam is None else beam_axes(beam)[0]
+    recoverable = None if baseline is None else recoverable_pixels(baseline, cell)
     image_limit = None if image_shape is None else IMAGE_FRACTION * min(image_shape)
     return ScaleLimits(beam_px, structure_px, structure_note, recoverable, image_limit)
 
@@ -355,25 +357,25 @@ def check_scales(scales_px, dirty=None, psf=None, *, suggestion=None, cell_arcse
     if suggestion is not None and not isinstance(suggestion, ScaleSuggestion):
         raise ValueError(f"suggestion is {suggestion!r}; pass the ScaleSuggestion "
                          "returned by suggest_scales, or None")
-    cell = None if cell_arcsec is None else _arcsec(cell_arcsec, "cell_arcsec", "2.0")
+    cell = None if cell_arcsec is None else arcsec_value(cell_arcsec, "cell_arcsec", "2.0")
     values = _scale_values(scales_px, cell)
     if max_affordable_scales is not None:
-        max_affordable_scales = _count(max_affordable_scales, "max_affordable_scales")
+        max_affordable_scales = count_value(max_affordable_scales, "max_affordable_scales")
 
     known = suggestion.limits if suggestion is not None else ScaleLimits()
     beam_obj = suggestion.beam if suggestion is not None else None
     beam_px, structure, note = known.beam_px, known.structure_px, known.structure_note
     recoverable, image_limit = known.recoverable_px, known.image_limit_px
     if beam is not None:
-        beam_obj, beam_px = beam, _beam_axes(beam)[0]
+        beam_obj, beam_px = beam, beam_axes(beam)[0]
     elif psf is not None and suggestion is None:
         beam_obj = fit_beam(psf)
-        beam_px = _beam_axes(beam_obj)[0]
+        beam_px = beam_axes(beam_obj)[0]
     if largest_size is not None:
         if cell is None:
             raise ValueError(f"largest_size is {largest_size!r} but cell_arcsec is None; "
                              "pass cell_arcsec to turn the size into pixels")
-        size = _arcsec(largest_size, "largest_size", "120.0")
+        size = arcsec_value(largest_size, "largest_size", "120.0")
         structure, note = size / cell, f"given as {size:g} arcsec"
     if dirty is not None:
         image = as_image(dirty, "dirty", dtype=np.float64)
@@ -390,7 +392,7 @@ def check_scales(scales_px, dirty=None, psf=None, *, suggestion=None, cell_arcse
             raise ValueError(f"shortest_baseline is {shortest_baseline!r} but cell_arcsec "
                              "is None; pass cell_arcsec to turn the recoverable scale into "
                              "pixels")
-        recoverable = _recoverable_px(_baseline(shortest_baseline), cell)
+        recoverable = recoverable_pixels(baseline_wavelengths(shortest_baseline), cell)
     limits = ScaleLimits(beam_px, structure, note, recoverable, image_limit)
     problems = rule_problems(values, limits, max_affordable_scales=max_affordable_scales)
     for message in problems:
