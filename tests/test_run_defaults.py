@@ -15,7 +15,8 @@ from astropy.stats import mad_std
 from astropy.io import fits
 
 from skyscale.cli import main
-from skyscale.job import DEFAULT_NOISE_THRESHOLD, RUN_DEFAULTS, merge_params, stop_rule
+from skyscale.defaults import RUN_NOISE_THRESHOLD as DEFAULT_NOISE_THRESHOLD
+from skyscale.job import RUN_DEFAULTS, merge_params, stop_rule
 from skyscale.options import load_config
 
 from smallfits import N, write_small_pair

@@ -17,6 +17,7 @@ from .advisor import (EmissionExtent, ScaleChoiceWarning, ScaleSuggestion, check
 from .beam import (Beam, beam_area, beam_kernel, fit_beam, jy_per_beam_to_jy_per_pixel,
                    jy_per_pixel_to_jy_per_beam, restore)
 from .cycles import deconvolve, run_cycles
+from .defaults import DEFAULTS, CleanOptions
 from .detect import Detection, detect_emission
 from .planner import (InsufficientMemoryError, Plan, check_fits_memory, max_affordable_scales,
                       plan_run)
@@ -46,7 +47,7 @@ except PackageNotFoundError:  # running from a source tree
 
 __all__ = [
     "__version__", "InputError", "mask_nonfinite",
-    "deconvolve", "run_cycles", "Engine", "MinorCycleResult", "deconvolve_cube", "CubeResult",
+    "deconvolve", "run_cycles", "CleanOptions", "DEFAULTS", "Engine", "MinorCycleResult", "deconvolve_cube", "CubeResult",
     "ImagePlaneOperator", "FunctionOperator", "ResidualOperator",
     "DeconvolutionResult", "CycleRecord", "COMPONENT_DTYPE", "STOP_REASONS",
     "ScaleSet", "SCALE_SHAPES", "scale_kernel", "size_penalty_weights",

@@ -299,7 +299,7 @@ def _early_result(dirty, psf, *, scales, restore, beam, params, mask, reason, no
 def check_run_options(dirty, psf, *, scales, loop_gain, threshold, noise_threshold,
                       max_components, max_major_cycles, cycle_depth, mask, size_penalty,
                       scale_shape, psf_patch, threads, fft, dtype, cell_arcsec, restore,
-                      beam, extended_depth=0.25, scale_loop_depth=0.5, model=None):
+                      beam, extended_depth, scale_loop_depth, model=None):
     """Check every option of `skyscale.deconvolve` before any work starts.
 
     Parameters

@@ -45,6 +45,7 @@ from scipy.fft import next_fast_len
 
 from .calibration import (CALIBRATION_ENV, DEFAULT_CALIBRATION, default_calibration_path,
                           fit_nonnegative, fit_power_law, load_calibration, save_calibration)
+from .defaults import DEFAULTS
 
 __all__ = ["DEFAULT_CALIBRATION", "CALIBRATION_ENV", "DEFAULT_DYNAMIC_RANGE",
            "MEMORY_HEADROOM", "LOOP_TERMS", "Geometry", "run_geometry", "fft_work",
@@ -204,8 +205,11 @@ def loop_seconds(times, components, active_pixels, sub_loops=1):
             + sub_loops * (times["per_active_pixel"] * a + times["per_sub_loop"]))
 
 
-def estimate_counts(geom, calibration=None, *, dynamic_range=None, max_components=20000,
-                    max_major_cycles=20, cycle_depth=0.2, scale_loop_depth=0.5,
+def estimate_counts(geom, calibration=None, *, dynamic_range=None,
+                    max_components=DEFAULTS.max_components,
+                    max_major_cycles=DEFAULTS.max_major_cycles,
+                    cycle_depth=DEFAULTS.cycle_depth,
+                    scale_loop_depth=DEFAULTS.scale_loop_depth,
                     mask_fraction=1.0, components=None, rounds=None, major_cycles=None,
                     active_pixels=None):
     """Major cycles, rounds, components and active pixels a run is expected to need.

@@ -17,12 +17,13 @@ import numpy as np
 
 from ._threads import thread_limit
 from ._validate import InputError, as_image, resolve_dtype
-from .levels import DEFAULT_EXTENDED_DEPTH, allowed_peak, scale_levels
-from .minor import DEFAULT_SCALE_LOOP_DEPTH, DEFAULT_SIZE_PENALTY, Engine
+from .levels import allowed_peak, scale_levels
+from .minor import Engine
 from .operators import (ImagePlaneOperator, as_operator, describe_operator, exact_box,
                         exact_region)
 from .result import COMPONENT_DTYPE, CycleRecord, DeconvolutionResult
 from .stops import run_stop_after_empty_cycle
+from .defaults import DEFAULTS
 
 __all__ = ["deconvolve", "run_cycles", "masked_stats"]
 
@@ -65,8 +66,9 @@ def _progress(peaks, levels):
 
 
 def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold=0.0,
-               noise_threshold=None, extended_depth=DEFAULT_EXTENDED_DEPTH,
-               max_components=20000, max_major_cycles=20, cycle_depth=0.2, mask_updater=None,
+               noise_threshold=None, extended_depth=DEFAULTS.extended_depth,
+               max_components=DEFAULTS.max_components, max_major_cycles=DEFAULTS.max_major_cycles,
+               cycle_depth=DEFAULTS.cycle_depth, mask_updater=None,
                callback=None):
     """Alternate minor cycles of ``engine`` with major cycles of ``operator``.
 
@@ -285,11 +287,14 @@ def _describe_region(region, state, mask):
             "how": list(state.noise_how), "pixels_used": [int(u) for u in state.noise_pixels]}
 
 
-def deconvolve(dirty, psf, *, scales=(0, 4, 8, 16), loop_gain=0.1, threshold=0.0,
-               noise_threshold=None, extended_depth=DEFAULT_EXTENDED_DEPTH,
-               max_components=20000, max_major_cycles=20, cycle_depth=0.2, mask=None,
-               model=None, size_penalty=DEFAULT_SIZE_PENALTY,
-               scale_loop_depth=DEFAULT_SCALE_LOOP_DEPTH, scale_shape="paraboloid",
+def deconvolve(dirty, psf, *, scales=DEFAULTS.scales, loop_gain=DEFAULTS.loop_gain,
+               threshold=DEFAULTS.threshold,
+               noise_threshold=None, extended_depth=DEFAULTS.extended_depth,
+               max_components=DEFAULTS.max_components,
+               max_major_cycles=DEFAULTS.max_major_cycles, cycle_depth=DEFAULTS.cycle_depth,
+               mask=None,
+               model=None, size_penalty=DEFAULTS.size_penalty,
+               scale_loop_depth=DEFAULTS.scale_loop_depth, scale_shape=DEFAULTS.scale_shape,
                psf_patch=None, threads=None, fft="auto", dtype=None, cell_arcsec=None,
                operator=None, restore=True, beam=None, emission_mask=None, callback=None):
     """Multi-scale CLEAN of a dirty image with its PSF, with image-plane major cycles.

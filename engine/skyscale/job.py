@@ -25,35 +25,32 @@ from .preflight import restoring_beam as _restoring_beam
 from .preflight import resume_inputs
 from .report import file_sha256
 
-__all__ = ["RUN_DEFAULTS", "DEFAULT_NOISE_THRESHOLD", "OUTPUT_NAMES", "run_files",
+__all__ = ["RUN_DEFAULTS", "OUTPUT_NAMES", "run_files",
            "run_images", "merge_params", "stop_rule", "exact_residual_cards",
            "scales_in_pixels", "restoring_beam", "build_mask", "deconvolve_options",
            "component_rows", "component_fields", "resume_inputs"]
-
-from .levels import DEFAULT_EXTENDED_DEPTH
-from .minor import DEFAULT_SIZE_PENALTY
+from .defaults import DEFAULTS, RUN_NOISE_THRESHOLD
 
 logger = logging.getLogger(__name__)
 
 #: Default stop of a file-level run: each scale at this multiple of its own measured noise.
-DEFAULT_NOISE_THRESHOLD = 3.0
 
 #: Every run parameter with its default (the keys a configuration file may hold).  A run
-#: stops at `DEFAULT_NOISE_THRESHOLD` times the noise unless told otherwise: a
+#: stops at `RUN_NOISE_THRESHOLD` times the noise unless told otherwise: a
 #: ``threshold`` given without ``noise_threshold`` is a fixed level with no noise stop
 #: (`merge_params`), and ``noise_threshold = "off"`` turns the noise stop off.
 RUN_DEFAULTS = {
-    "scales": [0, 4, 8, 16],
+    "scales": [int(s) if float(s).is_integer() else s for s in DEFAULTS.scales],
     "scale_unit": "pixel",
-    "scale_shape": "paraboloid",
-    "loop_gain": 0.1,
-    "threshold": 0.0,
-    "noise_threshold": DEFAULT_NOISE_THRESHOLD,
-    "max_components": 20000,
-    "max_major_cycles": 20,
-    "cycle_depth": 0.2,
-    "size_penalty": DEFAULT_SIZE_PENALTY,
-    "extended_depth": DEFAULT_EXTENDED_DEPTH,
+    "scale_shape": DEFAULTS.scale_shape,
+    "loop_gain": DEFAULTS.loop_gain,
+    "threshold": DEFAULTS.threshold,
+    "noise_threshold": RUN_NOISE_THRESHOLD,
+    "max_components": DEFAULTS.max_components,
+    "max_major_cycles": DEFAULTS.max_major_cycles,
+    "cycle_depth": DEFAULTS.cycle_depth,
+    "size_penalty": DEFAULTS.size_penalty,
+    "extended_depth": DEFAULTS.extended_depth,
     "psf_patch": None,
     "mask": None,
     "mask_regions": None,

@@ -8,8 +8,9 @@ emission that is faint per pixel but significant once smoothed is cleaned too.
 import numpy as np
 
 from ._validate import InputError
+from .defaults import DEFAULTS
 
-__all__ = ["DEFAULT_EXTENDED_DEPTH", "LEVEL_ALLOWANCE", "scale_levels", "allowed_peak"]
+__all__ = ["LEVEL_ALLOWANCE", "scale_levels", "allowed_peak"]
 
 #: Near the noise a broad component's sidelobes may lift a noise peak of the unsmoothed
 #: residual a little; a minor or major cycle may leave the peak in the mask up to this
@@ -24,11 +25,10 @@ LEVEL_ALLOWANCE = 1.1
 #: practice of cleaning deeper inside a mask).  Small scales keep nearly the delta
 #: scale's level: they have as many independent noise peaks as it does, and cleaning
 #: them deeper would only model noise.
-DEFAULT_EXTENDED_DEPTH = 0.25
 
 
 def scale_levels(noise, *, threshold=0.0, noise_threshold=None,
-                 extended_depth=DEFAULT_EXTENDED_DEPTH, masked=False, scales=None):
+                 extended_depth=DEFAULTS.extended_depth, masked=False, scales=None):
     """Stop level of each scale's smoothed residual, Jy/beam.
 
     Parameters
@@ -64,7 +64,7 @@ def scale_levels(noise, *, threshold=0.0, noise_threshold=None,
         return levels
     if not 0.0 < extended_depth <= 1.0:
         raise InputError(f"extended_depth is {extended_depth}, expected a fraction in (0, 1]; "
-                         f"{DEFAULT_EXTENDED_DEPTH} is the default")
+                         f"{DEFAULTS.extended_depth} is the default")
     nu = np.full(sigma.shape, float(noise_threshold))
     if masked and scales is not None and np.max(scales) > 0:
         size = np.asarray(scales, dtype=np.float64) / float(np.max(scales))

@@ -30,25 +30,23 @@ from ._threads import thread_limit
 from ._validate import NUMBER_RULES, InputError, as_image, check_number, resolve_dtype
 from .fft import Convolver, MultiConvolver, get_backend
 from .kernels import scale_loop, stamp_components
-from .levels import DEFAULT_EXTENDED_DEPTH, allowed_peak, scale_levels
+from .levels import allowed_peak, scale_levels
 from .noise import scale_noise
 from .cost import MEMORY_HEADROOM, engine_memory, fits_memory
 from .precompute import scale_beams
 from .psf import check_psf, describe_psf
 from .result import COMPONENT_DTYPE
 from .scales import ScaleSet
+from .defaults import DEFAULTS
 
-__all__ = ["Engine", "MinorCycleResult", "ScaleState", "DEFAULT_SIZE_PENALTY",
-           "DEFAULT_SCALE_LOOP_DEPTH"]
+__all__ = ["Engine", "MinorCycleResult", "ScaleState"]
 
 logger = logging.getLogger(__name__)
 
 #: Default bias toward small scales (see `Engine` for the derivation).
-DEFAULT_SIZE_PENALTY = 0.3
 
 #: A sub-loop cleans its scale down to this fraction of the scale's peak (or its floor)
 #: before every scale's residual is brought up to date and the next scale is chosen.
-DEFAULT_SCALE_LOOP_DEPTH = 0.5
 
 #: A sub-loop may not raise the peak residual in the cycle's mask (within the box the
 #: cycle works in) above the cycle's start (or `skyscale.levels.LEVEL_ALLOWANCE` times
@@ -118,7 +116,7 @@ class Engine:
         Scale kernel shape; default the tapered paraboloid of [1]_.
     size_penalty : float
         Bias toward small scales, weight ``1 - size_penalty * s / s_max``; default
-        `DEFAULT_SIZE_PENALTY` (0.3, see Notes).
+        `skyscale.defaults.DEFAULTS` (0.3, see Notes).
     loop_gain : float
         Fraction of each component's flux taken per iteration; default 0.1.
     scale_loop_depth : float
@@ -175,9 +173,10 @@ class Engine:
     .. [3] Hogbom 1974, A&AS 15, 417.
     """
 
-    def __init__(self, psf, scales=(0, 4, 8, 16), *, image_shape=None,
-                 scale_shape="paraboloid", size_penalty=DEFAULT_SIZE_PENALTY, loop_gain=0.1,
-                 scale_loop_depth=DEFAULT_SCALE_LOOP_DEPTH, dtype=None, threads=None,
+    def __init__(self, psf, scales=DEFAULTS.scales, *, image_shape=None,
+                 scale_shape=DEFAULTS.scale_shape, size_penalty=DEFAULTS.size_penalty,
+                 loop_gain=DEFAULTS.loop_gain,
+                 scale_loop_depth=DEFAULTS.scale_loop_depth, dtype=None, threads=None,
                  fft="auto", cell_arcsec=None, max_memory=None, psf_patch=None):
         t0 = time.perf_counter()
         if psf_patch is not None:
@@ -311,9 +310,9 @@ class Engine:
 
     # --------------------------------------------------------------- the cycle
     def minor_cycle(self, residual, model=None, *, mask=None, threshold=0.0,
-                    noise_threshold=None, extended_depth=DEFAULT_EXTENDED_DEPTH,
-                    cycle_depth=0.2,
-                    max_components=20000, callback=None, noise_region=None, state=None):
+                    noise_threshold=None, extended_depth=DEFAULTS.extended_depth,
+                    cycle_depth=DEFAULTS.cycle_depth,
+                    max_components=DEFAULTS.max_components, callback=None, noise_region=None, state=None):
         """Clean ``residual`` down to this cycle's floors and return the updated model.
 
         Parameters

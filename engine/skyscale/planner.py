@@ -13,6 +13,7 @@ import numpy as np
 from . import cost
 from ._threads import openmp_wait
 from ._validate import resolve_dtype
+from .defaults import DEFAULTS
 
 __all__ = ["Plan", "plan_run", "check_fits_memory", "max_affordable_scales",
            "AffordableScales", "InsufficientMemoryError"]
@@ -113,10 +114,12 @@ def _dynamic_range(dirty, threshold, noise_threshold, messages):
     return peak / level if level > 0 else cost.DEFAULT_DYNAMIC_RANGE
 
 
-def plan_run(image_shape, psf, scales, *, max_components=20000, max_major_cycles=20,
-             threads=None, dtype=None, memory_available=None, scale_shape="paraboloid",
+def plan_run(image_shape, psf, scales, *, max_components=DEFAULTS.max_components,
+             max_major_cycles=DEFAULTS.max_major_cycles,
+             threads=None, dtype=None, memory_available=None, scale_shape=DEFAULTS.scale_shape,
              calibration=None, fresh_process=True, dirty=None, dynamic_range=None,
-             threshold=0.0, noise_threshold=None, cycle_depth=0.2, mask_fraction=1.0,
+             threshold=DEFAULTS.threshold, noise_threshold=None,
+             cycle_depth=DEFAULTS.cycle_depth, mask_fraction=1.0,
              components=None, rounds=None, major_cycles=None, active_pixels=None):
     """Predict the time and memory of a run before anything large is allocated.
 
@@ -161,7 +164,6 @@ def plan_run(image_shape, psf, scales, *, max_components=20000, max_major_cycles
     Plan
     """
     from ._threads import resolve_threads
-    from .minor import DEFAULT_SCALE_LOOP_DEPTH
     from .scales import ScaleSet
     messages = []
     image_shape = _shape2(image_shape, "image_shape")
@@ -199,7 +201,7 @@ def plan_run(image_shape, psf, scales, *, max_components=20000, max_major_cycles
     counts = cost.estimate_counts(
         geom, cal, dynamic_range=dynamic_range, max_components=max_components,
         max_major_cycles=max_major_cycles, cycle_depth=cycle_depth,
-        scale_loop_depth=DEFAULT_SCALE_LOOP_DEPTH, mask_fraction=mask_fraction,
+        scale_loop_depth=DEFAULTS.scale_loop_depth, mask_fraction=mask_fraction,
         components=components, rounds=rounds, major_cycles=major_cycles,
         active_pixels=active_pixels)
     for key, words in counts["how"].items():

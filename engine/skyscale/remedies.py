@@ -10,6 +10,7 @@ larger than the calibrated sizes.  Nothing here prints.
 """
 
 from . import cost
+from .defaults import DEFAULTS
 
 __all__ = ["memory_remedies", "bench_sizes_that_fit", "bench_advice", "check_bench_fits",
            "BENCH_SIZE_LADDER"]
@@ -47,7 +48,7 @@ def _remedy(kind, peak, available, option, text):
 
 
 def memory_remedies(image_shape, psf_shape, scales, *, itemsize, available, calibration,
-                    scale_shape="paraboloid"):
+                    scale_shape=DEFAULTS.scale_shape):
     """The changes that would make a run fit, each with its predicted peak memory.
 
     Parameters

@@ -17,6 +17,7 @@ import numpy as np
 
 from ._validate import InputError, check_choice
 from .beam import FWHM_PER_SIGMA
+from .defaults import DEFAULTS
 
 __all__ = ["SCALE_SHAPES", "ScaleSet", "spheroidal", "scale_kernel", "size_penalty_weights",
            "angle_to_pixels"]
@@ -117,15 +118,18 @@ def scale_kernel(scale, shape="paraboloid", dtype=np.float32):
     return (k / k.sum()).astype(dtype)
 
 
-def size_penalty_weights(scales, size_penalty=0.6):
-    """Weights ``1 - p * s / s_max`` that favour small scales ([1]_, p about 0.6).
+def size_penalty_weights(scales, size_penalty=DEFAULTS.size_penalty):
+    """Weights ``1 - p * s / s_max`` that favour small scales ([1]_).
 
     Parameters
     ----------
     scales : sequence of float
         Diameters in pixels.
     size_penalty : float
-        ``p`` in [0, 1).  0 treats every scale alike.
+        ``p`` in [0, 1).  0 treats every scale alike.  Default
+        ``skyscale.defaults.DEFAULTS.size_penalty`` (0.3), the engine's: it multiplies the
+        response normalised by ``sqrt(B_kk(0))`` (see `skyscale.Engine`); about 0.6 is
+        the value for a flux-normalised response ([1]_).
 
     Returns
     -------
@@ -138,7 +142,7 @@ def size_penalty_weights(scales, size_penalty=0.6):
     """
     if not 0.0 <= size_penalty < 1.0:
         raise InputError(f"size_penalty is {size_penalty}, expected a value in [0, 1); "
-                         "0.6 is the usual choice")
+                         f"{DEFAULTS.size_penalty} is the default")
     s = np.asarray(scales, dtype=np.float64)
     smax = s.max() if s.size and s.max() > 0 else 1.0
     return 1.0 - size_penalty * s / smax
@@ -280,6 +284,6 @@ class ScaleSet:
         """List of unit-sum kernels, one per scale."""
         return [scale_kernel(s, self.profile, dtype) for s in self.pixels]
 
-    def weights(self, size_penalty=0.6):
+    def weights(self, size_penalty=DEFAULTS.size_penalty):
         """Size-penalty weights, one per scale (see `size_penalty_weights`)."""
         return size_penalty_weights(self.pixels, size_penalty)
