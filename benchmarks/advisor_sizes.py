@@ -31,7 +31,7 @@ HERE = os.path.dirname(os.path.abspath(__file__))
 sys.path[:0] = [os.path.join(HERE, "..", "engine"), os.path.join(HERE, "..")]
 
 from skyscale.advisor import suggest_scales  # noqa: E402
-from skyscale.beam import Beam  # noqa: E402
+from skyscale.core.beam import Beam  # noqa: E402
 from tests.advisor_fields import BEAM, make_field, smoothed_snr  # noqa: E402
 
 ROUND = Beam(BEAM, BEAM, 0.0)

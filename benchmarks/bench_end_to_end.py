@@ -19,7 +19,7 @@ from conftest import ROOT
 from fields import invented_field
 from numpy_baseline import TextbookBeams, textbook_clean
 import skyscale
-from skyscale.minor import Engine
+from skyscale.core.engine import Engine
 
 #: Scales of the end-to-end runs.
 SCALES = [0, 4, 8, 16]

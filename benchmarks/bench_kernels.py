@@ -5,7 +5,7 @@ smoothed by the 8 px scale; each timed round starts from an identical copy of it
 takes the same components.  Serial and parallel paths and the numpy twin
 (``tests/naive.py::scale_loop``; a local numpy reference when the twin is absent) run on
 the same arrays in the same process; ``extra_info`` holds the time per component and
-per component and active pixel.  `skyscale.kernels.scale_loop.PARALLEL_MIN_ACTIVE` is
+per component and active pixel.  `skyscale.core.kernels.scale_loop.PARALLEL_MIN_ACTIVE` is
 where the parallel path starts to pay.
 
     python -m pytest benchmarks/bench_kernels.py
@@ -16,9 +16,9 @@ import numpy as np
 import pytest
 
 from conftest import DTYPES, THREADS
-from skyscale._threads import thread_limit
-from skyscale.kernels import scale_loop
-from skyscale.minor import Engine
+from skyscale.core.threads import thread_limit
+from skyscale.core.kernels import scale_loop
+from skyscale.core.engine import Engine
 
 try:
     from tests.naive import scale_loop as numpy_scale_loop

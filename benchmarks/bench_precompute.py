@@ -11,9 +11,9 @@ import pytest
 
 from conftest import DTYPES, SCALE_SETS, SIZES
 from numpy_baseline import cross_terms
-from skyscale import cost
-from skyscale.minor import Engine
-from skyscale.sweep import PeakMemory
+from skyscale.cost import model as cost
+from skyscale.core.engine import Engine
+from skyscale.cost.sweep import PeakMemory
 
 
 @pytest.mark.parametrize("dtype", DTYPES)

@@ -17,8 +17,8 @@ import pytest
 pytest.importorskip("ducc0")
 
 import skyscale  # noqa: E402
-from skyscale.visfile import read_visibilities  # noqa: E402
-from skyscale.visibility import VisibilityOperator  # noqa: E402
+from skyscale.visibility.file import read_visibilities  # noqa: E402
+from skyscale.visibility.operator import VisibilityOperator  # noqa: E402
 
 DEMO = os.path.join(os.path.dirname(os.path.dirname(os.path.abspath(__file__))), "demo_data")
 SCALES = [0, 4, 8, 16, 32]

@@ -11,11 +11,11 @@ for path in (HERE, os.path.join(ROOT, "engine"), ROOT):
     if path not in sys.path:
         sys.path.insert(0, path)
 
-from skyscale.sweep import synthetic_field  # noqa: E402
+from skyscale.cost.sweep import synthetic_field  # noqa: E402
 
 #: Image sizes of the kernel and precompute suites.
 SIZES = (512, 1024)
-#: Scale sets by number of scales (the doubling ladder of skyscale.sweep).
+#: Scale sets by number of scales (the doubling ladder of skyscale.cost.sweep).
 SCALE_SETS = {1: [0], 3: [0, 4, 8], 5: [0, 4, 8, 16, 32], 6: [0, 4, 8, 16, 32, 64]}
 #: Working precisions, paired in every suite.
 DTYPES = ("float32", "float64")

@@ -10,7 +10,7 @@ because the machine's load drifts; the client's peak memory is the worst of them
 
 * planes per minute: a serial loop in this process (read a plane, `skyscale.deconvolve`,
   1 thread and all cores), the same at 1 thread in a fresh process with the local
-  workers' malloc settings (`skyscale.cluster.WORKER_MALLOC`), and
+  workers' malloc settings (`skyscale.cube.cluster.WORKER_MALLOC`), and
   `skyscale.deconvolve_cube` on the local cluster that ``skyscale cube`` starts
   (``cores`` workers x 1 thread; its start-up timed apart);
 * the scheduler overhead per task: worker-slot seconds of a cube run not spent inside
@@ -79,7 +79,7 @@ class PeakRSS:
 
 def serial(cube, psf, threads):
     import skyscale
-    from skyscale.cubefits import open_cube
+    from skyscale.cube.fits import open_cube
     c, p = open_cube(cube), open_cube(psf)
     t0 = time.perf_counter()
     for i in range(c.nplanes):
@@ -93,7 +93,7 @@ def serial(cube, psf, threads):
 
 def serial_tuned(cube, psf):
     """`serial` at 1 thread in a fresh process with the local workers' malloc settings."""
-    from skyscale.cluster import WORKER_MALLOC
+    from skyscale.cube.cluster import WORKER_MALLOC
     code = ("import sys; sys.path[:0] = sys.argv[1:3]; from cube_throughput import serial; "
             "serial(sys.argv[3], sys.argv[4], 1); print(serial(sys.argv[3], sys.argv[4], 1))")
     out = subprocess.run([sys.executable, "-c", code, str(ROOT / "engine"),
@@ -105,7 +105,7 @@ def serial_tuned(cube, psf):
 
 def client_time_per_plane(cube, psf, out, repeat=8):
     """Seconds the client spends per plane outside the cluster: read 2 planes, write 3."""
-    from skyscale.cubefits import CubeOutput, open_cube
+    from skyscale.cube.fits import CubeOutput, open_cube
     c, p = open_cube(cube), open_cube(psf)
     outs = [CubeOutput(out / f"{k}.fits", c, bunit="Jy/beam") for k in ("a", "b", "e")]
     for o in outs:
@@ -147,7 +147,7 @@ def main(argv=None):
     ap.add_argument("--out", help="write the figures as JSON here")
     args = ap.parse_args(argv)
     import skyscale
-    from skyscale.cluster import cube_client
+    from skyscale.cube.cluster import cube_client
     counts = [int(v) for v in args.planes.split(",")]
     cores = len(os.sched_getaffinity(0))
     results = {"size": args.size, "cores": cores, "params": PARAMS, "runs": []}

@@ -35,6 +35,7 @@ sys.path.insert(0, HERE)
 
 import skyscale  # noqa: E402
 from fields import invented_field  # noqa: E402
+import skyscale.core.beam  # noqa: E402
 
 TARGETS = {"flux": (0.99, None), "mean_em": (-0.3, 0.3), "peak_em": (None, 3.5),
            "off_rms": (None, 1.15), "finite": (0.6, None)}
@@ -72,7 +73,7 @@ def measure(n, dynamic_range, largest, seed=0, threads=None, field=None, scales=
                             mask="auto", max_components=400000, max_major_cycles=40,
                             threads=threads)
     seconds = time.perf_counter() - t0
-    truth = skyscale.restore(sky.astype(np.float32), np.zeros_like(r.model), r.beam)
+    truth = skyscale.core.beam.restore(sky.astype(np.float32), np.zeros_like(r.model), r.beam)
     inside = truth > 3 * sigma
     far = ~ndimage.binary_dilation(truth > 0.1 * sigma, iterations=10)
     finite = r.components["flux"][r.components["scale"] > 0].sum()

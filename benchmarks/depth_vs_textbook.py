@@ -45,7 +45,7 @@ import numpy as np  # noqa: E402
 import skyscale  # noqa: E402
 from fields import invented_field  # noqa: E402
 from numpy_baseline import TextbookBeams, textbook_clean  # noqa: E402
-from skyscale.minor import Engine  # noqa: E402
+from skyscale.core.engine import Engine  # noqa: E402
 
 #: Scales of both loops (pixels).
 SCALES = [0, 4, 8, 16]
@@ -97,7 +97,7 @@ def run_size(n, *, dynamic_range, seed, threads, max_seconds, previous=None, log
                         level=textbook_multiple * sigma, max_iter=2_000_000,
                         max_seconds=max_seconds)
     tb_cpu = time.process_time() - c1
-    from skyscale.fft import convolve_centred
+    from skyscale.core.fft import convolve_centred
     exact = dirty - convolve_centred(tb["model"], psf.astype(np.float64))
     total = tb["seconds"] + tb["precompute_seconds"]
     out["textbook"] = dict(_stats(tb["residual"], mask, sigma), seconds=total,

@@ -1,7 +1,7 @@
 """Does the FFT wisdom cache speed up the plans skyscale makes?
 
 skyscale's pyfftw plans use ``FFTW_ESTIMATE``, which picks an algorithm by heuristics
-without timing candidates, so the wisdom it keeps (`skyscale.fft.FFTWFFT`) can only
+without timing candidates, so the wisdom it keeps (`skyscale.core.fft.FFTWFFT`) can only
 save planning work, not give faster transforms.  This script times building a forward
 and an inverse plan of an ``n x n`` real grid in a fresh process without wisdom, and in
 another fresh process after importing the wisdom the first one exported (separate

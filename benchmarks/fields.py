@@ -25,7 +25,7 @@ import numpy as np
 from scipy import ndimage
 from scipy.signal import fftconvolve
 
-from skyscale.beam import FWHM_PER_SIGMA
+from skyscale.core.beam import FWHM_PER_SIGMA
 
 __all__ = ["invented_array", "uv_tracks", "natural_psf", "correlated_noise", "invented_sky",
            "invented_field"]

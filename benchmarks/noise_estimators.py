@@ -1,14 +1,14 @@
 """The emission mask's noise estimate against the engine's, on the bundled demo.
 
 Two emission-excluding robust noise estimators exist: the engine's
-(`skyscale.noise.emission_free_noise`: the finite pixels outside the grown mask and
+(`skyscale.core.noise.emission_free_noise`: the finite pixels outside the grown mask and
 the border, 1.4826 MAD, values beyond ``CLIP_SIGMA`` = 4 robust sigmas of the median
 dropped for good, three passes) and the emission mask's
-(`skyscale.detect.emission_free_noise`: 1.4826 MAD of the pixels outside the excluded
+(`skyscale.masks.detect.emission_free_noise`: 1.4826 MAD of the pixels outside the excluded
 ones, then up to four rounds that exclude every pixel beyond the *detection* sigma of
 zero together with a margin of half the smoothed beam around it, recomputed from all
 pixels each round, until the estimate changes by under 0.1 %).  Both are
-`skyscale.noise.robust_noise` underneath.  This script measures what replacing the
+`skyscale.core.noise.robust_noise` underneath.  This script measures what replacing the
 mask's estimator with the engine's would change on the demo, as ``skyscale demo`` runs
 it (scales 0,4,8,16,32, 3 sigma, the emission mask)::
 
@@ -35,9 +35,10 @@ HERE = os.path.dirname(os.path.abspath(__file__))
 sys.path.insert(0, os.path.join(HERE, "..", "engine"))
 
 import skyscale  # noqa: E402
-from skyscale import detect, noise  # noqa: E402
-from skyscale.fitsio import read_image  # noqa: E402
-
+from skyscale import noise  # noqa: E402
+from skyscale.io.fits import read_image  # noqa: E402
+from skyscale.masks import detect
+import skyscale.core.beam  # noqa: E402
 DEMO = os.path.join(HERE, "..", "demo_data")
 
 
@@ -60,7 +61,7 @@ def main():
     psf = read_image(os.path.join(DEMO, "psf.fits")).data
     with open(os.path.join(DEMO, "truth.json"), encoding="utf-8") as fh:
         truth = json.load(fh)
-    beam = skyscale.fit_beam(psf)
+    beam = skyscale.core.beam.fit_beam(psf)
     fwhm = 0.5 * (beam.major + beam.minor)
     widths = [0.5 * s for s in (0, 4, 8, 16, 32)]
     print(f"noise of the true sky's residual: {truth.get('noise_jy_per_beam')}")

@@ -11,7 +11,7 @@ Every iteration, as the method is usually written down (Cornwell 2008):
    image pixels, so the residual is exact and no major cycle is needed.
 
 The engine's choices are taken over unchanged so that only the loop differs: its scale
-kernels, weights ``w_k`` and allowed centres (`skyscale.minor.Engine`).  The cross
+kernels, weights ``w_k`` and allowed centres (`skyscale.core.engine.Engine`).  The cross
 terms are made with ``numpy.fft``.  Single-threaded, as numpy is.
 
 References

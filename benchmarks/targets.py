@@ -28,12 +28,12 @@ for _p in (HERE, os.path.join(ROOT, "engine"), ROOT):
 
 import numpy as np  # noqa: E402
 
-from skyscale._threads import thread_limit  # noqa: E402
-from skyscale.fft import Convolver, MultiConvolver, get_backend  # noqa: E402
-from skyscale.kernels import scale_loop  # noqa: E402
-from skyscale.kernels.scale_loop import PARALLEL_MIN_ACTIVE  # noqa: E402
-from skyscale.minor import Engine  # noqa: E402
-from skyscale.sweep import synthetic_field  # noqa: E402
+from skyscale.core.threads import thread_limit  # noqa: E402
+from skyscale.core.fft import Convolver, MultiConvolver, get_backend  # noqa: E402
+from skyscale.core.kernels import scale_loop  # noqa: E402
+from skyscale.core.kernels.scale_loop import PARALLEL_MIN_ACTIVE  # noqa: E402
+from skyscale.core.engine import Engine  # noqa: E402
+from skyscale.cost.sweep import synthetic_field  # noqa: E402
 
 
 class CountingFFT:

@@ -35,7 +35,8 @@ ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
 sys.path[:0] = [os.path.join(ROOT, "engine")]
 
 import skyscale  # noqa: E402
-from skyscale.visibility import VisibilityOperator  # noqa: E402
+from skyscale.visibility.operator import VisibilityOperator  # noqa: E402
+import skyscale.core.beam  # noqa: E402
 
 DEMO = os.path.join(ROOT, "demo_data")
 SCALES = [0, 4, 8, 16, 32]
@@ -81,7 +82,7 @@ def major_vs_minor(repeat, threads):
     }
     out["major_over_minor"] = out["major_cycle_s"] / out["minor_cycles_s"]
     # a whole demo run as `skyscale demo --from-visibilities` does it (after the warm-up)
-    mask = skyscale.EmissionMask(SCALES, skyscale.fit_beam(psf).major)
+    mask = skyscale.EmissionMask(SCALES, skyscale.core.beam.fit_beam(psf).major)
     run = skyscale.deconvolve(dirty, psf, scales=SCALES, noise_threshold=3.0, emission_mask=mask,
                               operator=op, restore=False, threads=threads)
     out["whole_run"] = {"major_cycles": len(run.history) - 1,

@@ -300,7 +300,7 @@ def write_visibility_file(images, samples, truth, out_dir):
     engine = pathlib.Path(__file__).resolve().parents[1] / "engine"
     if engine.is_dir():   # this source tree's skyscale, not another installed one
         sys.path.insert(0, str(engine))
-    from skyscale.visfile import write_visibilities
+    from skyscale.visibility.file import write_visibilities
     sky = images["true_sky"].astype(np.float64)
     vis = observe(sky, samples["uvw_m"]) + samples["noise"]
     weight = np.full(vis.shape, 1.0 / samples["sigma"] ** 2)

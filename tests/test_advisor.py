@@ -19,10 +19,10 @@ import pytest
 from astropy import units as u
 
 from skyscale import deconvolve, plan_run
-from skyscale.advisor import (DEFAULT_MAX_COUNT, ScaleChoiceWarning, ScaleSuggestion,
-                              check_scales, measure_emission_extent, resolve_scales,
-                              suggest_scales)
-from skyscale.beam import Beam
+from skyscale.advisor.suggest import (DEFAULT_MAX_COUNT, ScaleChoiceWarning, ScaleSuggestion,
+                                      check_scales, measure_emission_extent, resolve_scales,
+                                      suggest_scales)
+from skyscale.core.beam import Beam
 from tests.advisor_fields import (BEAM, bowl_psf, gaussian_psf, make_field, noise_field,
                                   point_field, smoothed_snr, source_with_compact)
 
@@ -281,8 +281,8 @@ def test_suggest_and_check_agree_on_the_same_set(disk40):
 
 
 def test_demo_suggest_and_check_say_the_same(capsys):
-    from skyscale.cli import demo_data_dir, main
-    from skyscale.fitsio import read_image
+    from skyscale.cli.commands import demo_data_dir, main
+    from skyscale.io.fits import read_image
     import os
     folder = demo_data_dir()
     dirty = read_image(os.path.join(folder, "dirty.fits")).data
@@ -365,7 +365,7 @@ def test_deconvolve_with_auto_scales():
 
 
 def test_command_line_auto_uses_the_same_function(tmp_path):
-    from skyscale.job import scales_in_pixels, RUN_DEFAULTS
+    from skyscale.cli.job import scales_in_pixels, RUN_DEFAULTS
     dirty, _ = make_field("disk", 24, 30, 96, seed=11)
     psf = gaussian_psf(192)[:192, :192]
     reasons = []

@@ -18,10 +18,11 @@ from astropy.io import fits
 
 import skyscale
 from skyscale import InputError, deconvolve
-from skyscale.cli import main
-from skyscale.fitsio import read_image
-from skyscale.options import coerce_params, load_config
+from skyscale.cli.commands import main
+from skyscale.io.fits import read_image
+from skyscale.cli.options import coerce_params, load_config
 from smallfits import CELL, N, sky_header, small_field, write_fits, write_small_pair
+import skyscale.core.validate  # noqa: E402
 
 DIRTY, PSF = small_field()
 
@@ -118,7 +119,7 @@ def test_constant_dirty_image_returns_at_once_with_its_stop_reason(dirty):
 
 def test_nonfinite_pixels_can_be_treated_as_masked():
     bad = _with(DIRTY, (slice(0, 4), slice(None)), np.nan)     # a blanked edge, 4 rows
-    filled, mask, blank = skyscale.mask_nonfinite(bad)
+    filled, mask, blank = skyscale.core.validate.mask_nonfinite(bad)
     assert int(blank.sum()) == 4 * N and not mask[:4].any() and mask[4:].all()
     r = deconvolve(filled, PSF, scales=[0, 4], mask=mask, max_components=50, restore=False)
     assert r.components.size > 0 and not r.model[:4].any()
@@ -170,9 +171,9 @@ def test_missing_file_is_both_input_error_and_file_not_found(tmp_path):
 
 
 def test_file_too_large_for_memory_is_refused_before_reading(tmp_path, monkeypatch):
-    import skyscale.cost
+    import skyscale.cost.model
     path = write_fits(tmp_path / "big.fits", np.ones((64, 64)))
-    monkeypatch.setattr(skyscale.cost, "available_memory", lambda: 1000)
+    monkeypatch.setattr(skyscale.cost.model, "available_memory", lambda: 1000)
     with pytest.raises(InputError, match=r"needs about .* GiB but .* is available"):
         read_image(path)
 
@@ -377,15 +378,15 @@ def test_existing_outputs_are_refused_before_reading_inputs(files, tmp_path, cap
 
 def test_run_that_cannot_fit_is_refused_from_the_headers_before_reading(files, tmp_path,
                                                                       monkeypatch, capsys):
-    import skyscale.cost
-    import skyscale.job
+    import skyscale.cost.model
+    import skyscale.cli.job
     # enough memory to read the 64 x 64 image, far too little for the run's precompute
-    monkeypatch.setattr(skyscale.cost, "available_memory", lambda: 200_000)
+    monkeypatch.setattr(skyscale.cost.model, "available_memory", lambda: 200_000)
 
     def no_read(*args, **kwargs):
         raise AssertionError("the data were read before the memory check")
 
-    monkeypatch.setattr(skyscale.job, "read_image", no_read)
+    monkeypatch.setattr(skyscale.cli.job, "read_image", no_read)
     code = main(["--quiet", "run", files["dirty"], files["psf"], "--out", str(tmp_path / "o"),
                  "--scales", "0,4,8"])
     err = capsys.readouterr().err

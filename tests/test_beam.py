@@ -1,4 +1,4 @@
-"""Tests of skyscale.beam: the Beam type, the main-lobe fit, unit conversion, restoring."""
+"""Tests of skyscale.core.beam: the Beam type, the main-lobe fit, unit conversion, restoring."""
 
 import doctest
 import math
@@ -11,10 +11,10 @@ from astropy.convolution import Gaussian2DKernel, convolve_fft
 from astropy.modeling import fitting, models
 from scipy import ndimage, optimize, special
 
-import skyscale.beam as beam_module
-from skyscale.beam import (FWHM_PER_SIGMA, FWHM_TO_SIGMA, Beam, beam_area, beam_kernel,
-                           fit_beam, gaussian_area, jy_per_beam_to_jy_per_pixel,
-                           jy_per_pixel_to_jy_per_beam, restore)
+import skyscale.core.beam as beam_module
+from skyscale.core.beam import (FWHM_PER_SIGMA, FWHM_TO_SIGMA, Beam, beam_area, beam_kernel,
+                                fit_beam, gaussian_area, jy_per_beam_to_jy_per_pixel,
+                                jy_per_pixel_to_jy_per_beam, restore)
 
 GAUSS_FWHM = 2.0 * math.sqrt(2.0 * math.log(2.0))  # analytic: FWHM = 2 sqrt(2 ln 2) sigma
 
@@ -343,7 +343,7 @@ def test_restore_adds_residual():
 
 
 def test_restore_with_project_fft_backend_matches_default():
-    pytest.importorskip("skyscale.fft")
+    pytest.importorskip("skyscale.core.fft")
     model = np.zeros((30, 31), np.float32)
     model[10, 7], model[22, 25] = 1.0, -0.5
     b = Beam(4.0, 3.0, 15.0)

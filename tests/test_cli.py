@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 from astropy.io import fits
 
-from skyscale.cli import demo_data_dir, main
+from skyscale.cli.commands import demo_data_dir, main
 
 DEMO = demo_data_dir()
 
@@ -67,7 +67,7 @@ def test_report_says_what_happened(demo_run):
 def test_figures_are_pngs_of_the_documented_size(demo_run):
     # reference library: matplotlib.image reads PNG.
     from matplotlib import image
-    from skyscale.plots import CONVERGENCE_SIZE_PX, PANELS_SIZE_PX
+    from skyscale.io.figures import CONVERGENCE_SIZE_PX, PANELS_SIZE_PX
     for name, size in (("convergence.png", CONVERGENCE_SIZE_PX), ("panels.png", PANELS_SIZE_PX)):
         img = image.imread(demo_run / name)
         assert (img.shape[1], img.shape[0]) == tuple(size)

@@ -17,7 +17,7 @@ from astropy.io import fits
 from astropy.modeling import fitting, models
 from scipy import ndimage
 
-from skyscale.cli import demo_data_dir, main
+from skyscale.cli.commands import demo_data_dir, main
 
 DEMO = demo_data_dir()
 DIRTY = os.path.join(DEMO, "dirty.fits")

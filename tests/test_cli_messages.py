@@ -15,7 +15,7 @@ import pytest
 from astropy.io import fits
 from scipy.signal import fftconvolve
 
-from skyscale.cli import DEMO_SETTINGS, _DEMO_SOURCE, _params, build_parser, main
+from skyscale.cli.commands import DEMO_SETTINGS, _DEMO_SOURCE, _params, build_parser, main
 
 from conftest import gaussian_psf, observe
 from smallfits import N, sky_header, write_fits, write_small_pair
@@ -124,7 +124,7 @@ def test_same_size_psf_said_once_in_words_with_the_region(same_size, tmp_path, c
 
 def test_same_size_psf_warning_comes_before_the_run(same_size, tmp_path):
     import logging
-    from skyscale.job import run_files
+    from skyscale.cli.job import run_files
     d, p, _, _ = same_size
     events = []
 

@@ -1,4 +1,4 @@
-"""Tests of the merged component table (skyscale.component_table and components.csv).
+"""Tests of the merged component table (skyscale.io.components and components.csv).
 
 Check values come from outside the code under test: sums in pure Python
 (``math.fsum`` over a ``dict`` of lists), ``numpy.unique`` on the run's own component
@@ -16,9 +16,9 @@ from astropy.io import fits
 from astropy.table import Table
 from astropy.wcs import WCS
 
-from skyscale.component_table import MERGED_COMPONENT_DTYPE, merge_components
-from skyscale.job import component_fields, component_rows, run_files
-from skyscale.result import empty_components
+from skyscale.io.components import MERGED_COMPONENT_DTYPE, merge_components
+from skyscale.cli.job import component_fields, component_rows, run_files
+from skyscale.core.result import empty_components
 
 from smallfits import CELL, write_small_pair
 

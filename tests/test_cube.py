@@ -15,7 +15,7 @@ import pytest
 from astropy.io import fits
 
 import skyscale
-from skyscale.cli import main
+from skyscale.cli.commands import main
 
 from cubedata import plane_sigmas, write_cube
 

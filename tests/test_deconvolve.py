@@ -6,6 +6,7 @@ import pytest
 import skyscale
 from skyscale import Engine, ImagePlaneOperator, deconvolve
 from tests.conftest import NOISE, gaussian_psf, observe
+import skyscale.core.noise  # noqa: E402
 
 
 def test_hogbom_recovers_isolated_point_sources_at_the_exact_pixels():
@@ -81,10 +82,10 @@ def test_noise_threshold_stops_at_a_multiple_of_the_robust_noise(extended_case):
     assert r.stop_reason == "noise"
     sigma = r.scale_noise[0]          # the delta scale's noise, measured outside the mask
     assert sigma == pytest.approx(NOISE, rel=0.3)
-    assert sigma == pytest.approx(skyscale.robust_noise(r.residual, mask), rel=0.1)
+    assert sigma == pytest.approx(skyscale.core.noise.robust_noise(r.residual, mask), rel=0.1)
     assert r.scale_levels[0] == pytest.approx(5.0 * sigma)
     assert r.history[-1].peak <= r.scale_levels[0] * 1.05    # cycles.LEVEL_SLACK
-    assert r.history[-2].peak > 5.0 * skyscale.robust_noise(r.residual, mask) * 0.9
+    assert r.history[-2].peak > 5.0 * skyscale.core.noise.robust_noise(r.residual, mask) * 0.9
 
 
 def test_peak_residual_in_a_fixed_mask_never_grows():

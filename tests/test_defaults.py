@@ -1,7 +1,7 @@
 """One home for the defaults: the API, the command line and the planner agree.
 
 These guard that the defaults are written once (common practice), not a published
-value; the values themselves are documented in `skyscale.defaults`.
+value; the values themselves are documented in `skyscale.core.defaults`.
 """
 
 import inspect
@@ -9,10 +9,10 @@ import inspect
 import pytest
 
 from skyscale import Engine, deconvolve, plan_run
-from skyscale.cost import estimate_counts
-from skyscale.defaults import DEFAULTS, RUN_NOISE_THRESHOLD, CleanOptions
-from skyscale.job import RUN_DEFAULTS
-from skyscale.scales import ScaleSet, size_penalty_weights
+from skyscale.cost.model import estimate_counts
+from skyscale.core.defaults import DEFAULTS, RUN_NOISE_THRESHOLD, CleanOptions
+from skyscale.cli.job import RUN_DEFAULTS
+from skyscale.core.scales import ScaleSet, size_penalty_weights
 
 
 def _default(func, name):

@@ -11,7 +11,7 @@ from astropy.wcs import WCS
 from scipy import ndimage
 from scipy.signal import fftconvolve
 
-from skyscale.noise import robust_noise
+from skyscale.core.noise import robust_noise
 
 DEMO = pathlib.Path(__file__).resolve().parents[1] / "demo_data"
 NAMES = ("dirty", "psf", "true_sky")
@@ -170,7 +170,7 @@ def test_script_regenerates_the_files(tmp_path, demo):
     assert fresh_truth["points"] == demo["truth"]["points"]
     assert fresh_truth["consistency_max_abs_diff"] < 1e-9
     if importlib.util.find_spec("ducc0") is not None:       # the visibilities need it
-        from skyscale.visfile import read_visibilities
+        from skyscale.visibility.file import read_visibilities
         fresh, kept = (read_visibilities(d / "visibilities.npz") for d in (tmp_path, DEMO))
         np.testing.assert_array_equal(fresh.uvw, kept.uvw)
         np.testing.assert_allclose(fresh.vis, kept.vis, rtol=0,

@@ -9,9 +9,9 @@ from scipy.signal import fftconvolve
 
 import skyscale
 from skyscale import Engine, deconvolve
-from skyscale.fft import MultiConvolver
-from skyscale.noise import scale_noise
-from skyscale.scales import scale_kernel
+from skyscale.core.fft import MultiConvolver
+from skyscale.core.noise import scale_noise
+from skyscale.core.scales import scale_kernel
 from tests.conftest import gaussian_psf, observe
 
 N = 64
@@ -132,7 +132,7 @@ def test_pipeline_loop_over_minor_cycle_never_raises_the_peak():
     # A pipeline's own loop with an exact operator (linear algebra: the image-plane
     # residual with a twice-size PSF); its minor cycles must never raise the peak
     # residual in the mask above the larger of its previous value and 1.1 times the
-    # delta scale's stop level (skyscale.levels.LEVEL_ALLOWANCE).
+    # delta scale's stop level (skyscale.core.levels.LEVEL_ALLOWANCE).
     psf, sky, dirty = _pipeline_field()
     engine = Engine(psf, [0, 4, 8, 16], image_shape=dirty.shape)
     operator = skyscale.ImagePlaneOperator(dirty, psf)

@@ -1,4 +1,4 @@
-"""Tests of skyscale.detect and skyscale.profiles: the smoothing ladder, each rung's
+"""Tests of skyscale.masks.detect and skyscale.masks.profiles: the smoothing ladder, each rung's
 emission-free noise, the islands measured on it and the profiles they are fitted by,
 against analytic values and scipy/astropy."""
 
@@ -11,10 +11,10 @@ from scipy import ndimage
 from scipy.stats import ncx2
 
 from skyscale import EmissionMask
-from skyscale.detect import (FWHM_PER_SIGMA, detect_emission, emission_free_noise,
-                             smoothed_images, smoothing_ladder)
-from skyscale.noise import robust_noise
-from skyscale.profiles import seen_profile, transfer_of_beam, transfer_of_psf
+from skyscale.masks.detect import (FWHM_PER_SIGMA, detect_emission, emission_free_noise,
+                                   smoothed_images, smoothing_ladder)
+from skyscale.core.noise import robust_noise
+from skyscale.masks.profiles import seen_profile, transfer_of_beam, transfer_of_psf
 from tests.advisor_fields import (BEAM, gaussian_psf, make_field, noise_field, point_field,
                                   source_with_compact)
 

@@ -3,7 +3,8 @@
 import numpy as np
 import pytest
 
-from skyscale import EmissionMask, deconvolve, fit_beam
+from skyscale import EmissionMask, deconvolve
+from skyscale.core.beam import fit_beam
 from tests.conftest import NOISE, extended_field, gaussian_psf, observe
 
 

@@ -4,8 +4,8 @@ import numpy as np
 import pytest
 from scipy.signal import fftconvolve
 
-from skyscale.fft import Convolver, NumpyFFT, convolve_centred, get_backend
-from skyscale.scales import scale_kernel
+from skyscale.core.fft import Convolver, NumpyFFT, convolve_centred, get_backend
+from skyscale.core.scales import scale_kernel
 from tests import naive
 
 BACKENDS = ["numpy"]
@@ -79,11 +79,11 @@ def test_unknown_backend_is_refused():
 
 @pytest.mark.skipif("pyfftw" not in BACKENDS, reason="pyfftw not installed")
 def test_wisdom_file_is_written_atomically(tmp_path):
-    # The wisdom is written through skyscale._atomic (temporary file, then rename):
+    # The wisdom is written through skyscale.io.atomic (temporary file, then rename):
     # the file pyfftw's wisdom round-trips from, and no temporary file is left.
     import pickle
 
-    from skyscale.fft import FFTWFFT
+    from skyscale.core.fft import FFTWFFT
     path = tmp_path / "cache" / "wisdom.pkl"
     fft = FFTWFFT(threads=1, wisdom_path=str(path))
     a = np.random.default_rng(0).normal(size=(41, 23))       # a shape no other test plans

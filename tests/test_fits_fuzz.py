@@ -19,7 +19,7 @@ from hypothesis import HealthCheck, given, settings, strategies as st
 from astropy.wcs import WCS
 
 from skyscale import InputError
-from skyscale.fitsio import FitsImage, read_image, write_image
+from skyscale.io.fits import FitsImage, read_image, write_image
 from smallfits import sky_header
 
 #: Seconds one read may take before it counts as a hang.

@@ -18,8 +18,8 @@ from astropy.io import fits
 from astropy.wcs import FITSFixedWarning
 from astropy.wcs import WCS as _WCS
 
-from skyscale.fitsio import read_image
-from skyscale.job import run_files
+from skyscale.io.fits import read_image
+from skyscale.cli.job import run_files
 from smallfits import CELL, N, small_field
 
 def WCS(header):

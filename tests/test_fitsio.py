@@ -1,4 +1,4 @@
-"""Tests of skyscale.fitsio: reading, cell size, grid checks, atomic writes, provenance."""
+"""Tests of skyscale.io.fits: reading, cell size, grid checks, atomic writes, provenance."""
 
 import csv
 import doctest
@@ -13,11 +13,11 @@ from astropy.io import fits
 from astropy.wcs import WCS
 from astropy.wcs.utils import proj_plane_pixel_scales
 
-import skyscale.fitscards as fitscards_module
-import skyscale.fitsio as fitsio_module
-from skyscale.beam import Beam
-from skyscale.fitsio import (FitsImage, cell_size_arcsec, check_same_grid, provenance_history,
-                             read_image, write_image, write_table_csv)
+import skyscale.io.fits_cards as fitscards_module
+import skyscale.io.fits as fitsio_module
+from skyscale.core.beam import Beam
+from skyscale.io.fits import (FitsImage, cell_size_arcsec, check_same_grid, provenance_history,
+                              read_image, write_image, write_table_csv)
 
 # An invented field: the coordinates are arbitrary.
 CRVAL = (201.25, -37.5)

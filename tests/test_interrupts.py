@@ -21,16 +21,16 @@ import pytest
 from astropy.io import fits
 
 import skyscale
-from skyscale._atomic import INCOMPLETE_MARKER, remove_stale_temps
-from skyscale.cli import main
+from skyscale.io.atomic import INCOMPLETE_MARKER, remove_stale_temps
+from skyscale.cli.commands import main
 from smallfits import write_small_pair
 
 ENGINE = os.path.join(os.path.dirname(os.path.dirname(os.path.abspath(__file__))), "engine")
 
 DRIVER = textwrap.dedent("""
     import sys, time
-    import skyscale.console as console
-    import skyscale.job as job
+    import skyscale.cli.console as console
+    import skyscale.cli.job as job
     hooks, argv = sys.argv[1].split(","), sys.argv[2:]
     def update(self, event, _done=[]):
         if "cycle" in hooks and event.get("stage") == "major" and event["cycle"] >= 1 \\
@@ -40,13 +40,13 @@ DRIVER = textwrap.dedent("""
             time.sleep(60)
     console.RunProgress.update = update
     if "engine" in hooks:
-        import skyscale.minor
-        real_init = skyscale.minor.Engine.__init__
+        import skyscale.core.engine
+        real_init = skyscale.core.engine.Engine.__init__
         def slow_init(self, *a, **k):
             print("ENGINE", flush=True)
             time.sleep(60)
             real_init(self, *a, **k)
-        skyscale.minor.Engine.__init__ = slow_init
+        skyscale.core.engine.Engine.__init__ = slow_init
     if "write" in hooks:
         real = job.write_table_csv
         def slow(*a, **k):
@@ -54,7 +54,7 @@ DRIVER = textwrap.dedent("""
             time.sleep(60)
             return real(*a, **k)
         job.write_table_csv = slow
-    from skyscale.cli import main
+    from skyscale.cli.commands import main
     sys.exit(main(argv))
 """)
 
@@ -164,7 +164,7 @@ def test_hard_kill_while_writing_keeps_outputs_complete_and_marked(inputs, tmp_p
 KILL_WRITER = textwrap.dedent("""
     import sys
     import numpy as np
-    from skyscale.fitsio import write_image
+    from skyscale.io.fits import write_image
     data = np.random.default_rng(1).random((4000, 4000))
     print("GO", flush=True)
     write_image(sys.argv[1], data, bunit="Jy/beam", overwrite=True)

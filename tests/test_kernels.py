@@ -5,7 +5,7 @@ import numpy as np
 import pytest
 
 from skyscale import Engine
-from skyscale.kernels import scale_loop, stamp_components
+from skyscale.core.kernels import scale_loop, stamp_components
 from tests import naive
 from tests.conftest import gaussian_psf
 
@@ -139,7 +139,7 @@ def test_stamp_matches_twin_including_the_edges(engine):
 
 
 def test_scale_loop_wrapper_converts_what_it_reads(engine):
-    # The wrapper's contract (skyscale.kernels): inputs only read are converted, so a
+    # The wrapper's contract (skyscale.core.kernels): inputs only read are converted, so a
     # Fortran-ordered float64 beam and coordinate lists give the twin's result.
     dirty, planes = _extended_planes(engine)
     values, ys, xs = _active(engine, planes[1], 1, 0.0)

@@ -10,8 +10,9 @@ from astropy.wcs import WCS
 from scipy import ndimage
 from scipy.signal import fftconvolve
 
-from skyscale.masks import (REGION_SHAPES, EmissionMask, emission_mask, load_mask, parse_regions,
-                            regions_to_mask)
+import skyscale.masks
+from skyscale.masks import (REGION_SHAPES, EmissionMask, emission_mask, load_mask,
+                            parse_regions, regions_to_mask)
 
 N = 128
 CELL_ARCSEC = 2.0
@@ -375,7 +376,7 @@ def test_one_shot_equals_the_class_and_quantities_are_accepted():
     np.testing.assert_array_equal(a, b)
     am = EmissionMask([0, 16, 32] * u.arcsec, 9.0 * u.arcsec, cell_arcsec=CELL_ARCSEC)
     assert am.scales == (0.0, 8.0, 16.0) and am.beam_fwhm_px == pytest.approx(4.5)
-    from skyscale.beam import Beam
+    from skyscale.core.beam import Beam
     assert EmissionMask([0], Beam(5.0, 4.0, 10.0)).beam_fwhm_px == pytest.approx(np.sqrt(20.0))
     with warnings.catch_warnings():
         warnings.simplefilter("error")
@@ -403,16 +404,20 @@ def test_emission_mask_errors_are_clear():
         am.update(np.full((N, N), np.nan))
 
 
-def test_names_stay_importable_from_the_old_module_paths():
+def test_the_masks_and_advisor_packages_offer_their_modules_names():
     import skyscale
-    from skyscale import mask_emission, mask_file, masks, regions
+    from skyscale import advisor, masks
+    from skyscale.advisor import extent
+    from skyscale.advisor import rules as scale_rules
+    from skyscale.masks import emission as mask_emission
+    from skyscale.masks import fits_mask as mask_file
+    from skyscale.masks import regions
     assert masks.EmissionMask is mask_emission.EmissionMask is skyscale.EmissionMask
-    assert masks.emission_mask is mask_emission.emission_mask is skyscale.emission_mask
-    assert masks.load_mask is mask_file.load_mask is skyscale.load_mask
-    assert masks.regions_to_mask is regions.regions_to_mask is skyscale.regions_to_mask
+    assert masks.emission_mask is mask_emission.emission_mask
+    assert masks.load_mask is mask_file.load_mask
+    assert masks.regions_to_mask is regions.regions_to_mask
     assert masks.parse_regions is regions.parse_regions
     assert masks.REGION_SHAPES is regions.REGION_SHAPES
-    from skyscale import advisor, extent, scale_rules
     assert advisor.measure_emission_extent is extent.measure_emission_extent
     assert advisor.check_scales is scale_rules.check_scales is skyscale.check_scales
     assert advisor.STRUCTURE_FRACTION == scale_rules.STRUCTURE_FRACTION == 2 / 3

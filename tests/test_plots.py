@@ -1,4 +1,4 @@
-"""Tests of skyscale.plots: the convergence and four-panel PNG figures.
+"""Tests of skyscale.io.figures.panels: the convergence and four-panel PNG figures.
 
 What a figure shows is checked through its documented size, the matplotlib objects
 the private builders return (lines, legends, titles) and a few statistics of the
@@ -17,11 +17,12 @@ import skyscale
 
 pytest.importorskip("matplotlib")
 
-from skyscale.plots import (CONVERGENCE_SIZE_PX, DPI, PANELS_SIZE_PX,  # noqa: E402
-                            _panels_figure, _symmetric_asinh_class, plot_convergence,
-                            plot_panels)
-from skyscale.plots import _convergence_figure  # noqa: E402
-from skyscale.result import CycleRecord, DeconvolutionResult, empty_components  # noqa: E402
+from skyscale.io.figures.common import DPI  # noqa: E402
+from skyscale.io.figures.convergence import (CONVERGENCE_SIZE_PX,  # noqa: E402
+                                             _convergence_figure, plot_convergence)
+from skyscale.io.figures.panels import (PANELS_SIZE_PX, _panels_figure,  # noqa: E402
+                                        _symmetric_asinh_class, plot_panels)
+from skyscale.core.result import (CycleRecord, DeconvolutionResult, empty_components)  #noqa: E402
 from tests.conftest import gaussian_psf, observe  # noqa: E402
 
 N = 32
@@ -337,8 +338,8 @@ def test_model_panel_shows_faint_extended_flux_beside_a_bright_point():
 
 def test_model_panel_smooths_with_the_restoring_beam_in_jy_per_beam():
     # Reference: a point of S Jy restored with a peak-1 Gaussian beam peaks at S Jy/beam
-    # (skyscale.beam.restore, checked against astropy's Gaussian2DKernel in test_beam).
-    from skyscale.beam import Beam, restore
+    # (skyscale.core.beam.restore, checked against astropy's Gaussian2DKernel in test_beam).
+    from skyscale.core.beam import Beam, restore
 
     result, disk = point_and_disk_result()
     image = model_axes(_panels_figure(np.zeros(disk.shape), result, None, None)).get_images()[0]

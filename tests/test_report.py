@@ -1,4 +1,4 @@
-"""Tests of skyscale.report: the JSON run report and atomic writing."""
+"""Tests of skyscale.io.report: the JSON run report and atomic writing."""
 
 import hashlib
 import json
@@ -13,9 +13,9 @@ import types
 import numpy as np
 import pytest
 
-from skyscale.report import (REPORT_SCHEMA_VERSION, REPORT_UNITS, build_report, file_sha256,
-                             write_report)
-from skyscale.result import CycleRecord, DeconvolutionResult, empty_components
+from skyscale.io.report import (REPORT_SCHEMA_VERSION, REPORT_UNITS, build_report, file_sha256,
+                                write_report)
+from skyscale.core.result import CycleRecord, DeconvolutionResult, empty_components
 
 ENGINE = pathlib.Path(__file__).resolve().parents[1] / "engine"
 
@@ -113,8 +113,8 @@ def test_building_a_report_imports_no_heavy_library():
     # A fresh interpreter: the versions are read from package metadata, so building
     # a report must not load any optional library that was not loaded already.
     code = ("import sys; sys.path.insert(0, sys.argv[1]); "
-            "import numpy as np; from skyscale.report import build_report; "
-            "from skyscale.result import DeconvolutionResult, empty_components; "
+            "import numpy as np; from skyscale.io.report import build_report; "
+            "from skyscale.core.result import DeconvolutionResult, empty_components; "
             "heavy = ('dask', 'matplotlib', 'pyfftw', 'rich', 'astropy.wcs'); "
             "before = {m for m in heavy if m in sys.modules}; "
             "r = DeconvolutionResult(np.zeros((4, 4)), np.zeros((4, 4)), "
@@ -288,8 +288,7 @@ def test_summary_labels_where_the_peak_is_measured_and_gives_arcsec(monkeypatch)
     import astropy.units as u
     from rich.console import Console
 
-    from skyscale import console
-
+    from skyscale.cli import console
     buf = io.StringIO()
     monkeypatch.setattr(console, "_out", Console(file=buf, width=200, highlight=False))
     result = make_result()
@@ -319,7 +318,7 @@ def test_summary_labels_where_the_peak_is_measured_and_gives_arcsec(monkeypatch)
 def small_runs(tmp_path_factory):
     from smallfits import write_small_pair
 
-    from skyscale.job import run_files
+    from skyscale.cli.job import run_files
     folder = tmp_path_factory.mktemp("report_runs")
     dirty, psf = write_small_pair(str(folder))
     runs = {}

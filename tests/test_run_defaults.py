@@ -3,7 +3,7 @@
 Check values: the robust noise sigma = 1.4826 MAD (Rousseeuw & Croux 1993), computed by
 astropy.stats.mad_std (reference library) on the final residual away from the sources;
 the stop level of a scale is its noise multiple times its own noise (skyscale's
-documented rule, `skyscale.levels.scale_levels`: max(threshold, nu sigma)).
+documented rule, `skyscale.core.levels.scale_levels`: max(threshold, nu sigma)).
 """
 
 import json
@@ -14,10 +14,10 @@ import pytest
 from astropy.stats import mad_std
 from astropy.io import fits
 
-from skyscale.cli import main
-from skyscale.defaults import RUN_NOISE_THRESHOLD as DEFAULT_NOISE_THRESHOLD
-from skyscale.job import RUN_DEFAULTS, merge_params, stop_rule
-from skyscale.options import load_config
+from skyscale.cli.commands import main
+from skyscale.core.defaults import RUN_NOISE_THRESHOLD as DEFAULT_NOISE_THRESHOLD
+from skyscale.cli.job import RUN_DEFAULTS, merge_params, stop_rule
+from skyscale.cli.options import load_config
 
 from smallfits import N, write_small_pair
 
@@ -104,7 +104,7 @@ def test_noise_threshold_off_on_the_command_line_and_in_toml(tmp_path):
     merged = merge_params(load_config(str(cfg)), {"noise_threshold": str(cfg)})
     assert merged["noise_threshold"] is None and merged["threshold"] == 0.0
     assert "no stop level" in stop_rule(merged)
-    from skyscale._validate import InputError
+    from skyscale.core.validate import InputError
     with pytest.raises(InputError, match="or off for no noise stop"):
         merge_params({"noise_threshold": "of"}, {"noise_threshold": "cli"})
 

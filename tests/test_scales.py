@@ -4,8 +4,8 @@ import numpy as np
 import pytest
 from astropy import units as u
 
-from skyscale.scales import (ScaleSet, scale_kernel, size_penalty_weights, spheroidal,
-                             support_radius)
+from skyscale.core.scales import (ScaleSet, scale_kernel, size_penalty_weights, spheroidal,
+                                  support_radius)
 
 
 @pytest.mark.parametrize("shape", ["paraboloid", "gaussian"])

@@ -10,10 +10,10 @@ import inspect
 import pytest
 
 from skyscale import STOP_REASONS, deconvolve
-from skyscale import stops
+from skyscale.core import stops
 
 # the module, not the function of the same name that the kernels package exports
-kernel_module = importlib.import_module("skyscale.kernels.scale_loop")
+kernel_module = importlib.import_module("skyscale.core.kernels.scale_loop")
 
 
 def test_every_empty_minor_cycle_maps_to_a_run_stop_reason():

@@ -1,4 +1,4 @@
-"""OpenMP's idle spin: set where threads are set up (skyscale._threads), readable back.
+"""OpenMP's idle spin: set where threads are set up (skyscale.core.threads), readable back.
 
 The rule checked is libgomp's documented behaviour (GCC manual, "GOMP_SPINCOUNT" and
 "OMP_WAIT_POLICY"; from memory): the spin count is read from the environment when the
@@ -12,9 +12,10 @@ import sys
 
 import pytest
 
-from skyscale import _threads, planner
+from skyscale.core import threads as _threads
 
-CHILD = ("import json, os, skyscale, skyscale._threads as t; "
+from skyscale.cost import planner
+CHILD = ("import json, os, skyscale, skyscale.core.threads as t; "
          "print(json.dumps([os.environ.get('GOMP_SPINCOUNT'), t.openmp_wait()]))")
 
 

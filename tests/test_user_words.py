@@ -2,7 +2,7 @@
 degrees written without a unit, on the demo files.
 
 Check values: the demo image's own sky position from its header through astropy.wcs
-(reference library); the region syntax from `skyscale.regions` (pixels 0-based, x y).
+(reference library); the region syntax from `skyscale.masks.regions` (pixels 0-based, x y).
 """
 
 import os
@@ -10,7 +10,7 @@ import os
 from astropy.io import fits
 from astropy.wcs import WCS
 
-from skyscale.cli import demo_data_dir, main
+from skyscale.cli.commands import demo_data_dir, main
 
 DEMO = demo_data_dir()
 DIRTY = os.path.join(DEMO, "dirty.fits")

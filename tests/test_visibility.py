@@ -15,11 +15,12 @@ from astropy.io import fits
 pytest.importorskip("ducc0")
 
 import skyscale  # noqa: E402
-from skyscale.cli import main as cli_main  # noqa: E402
+from skyscale.cli.commands import main as cli_main  # noqa: E402
 from skyscale.masks import EmissionMask  # noqa: E402
-from skyscale.noise import robust_noise  # noqa: E402
-from skyscale.visfile import read_visibilities, write_visibilities  # noqa: E402
-from skyscale.visibility import VisibilityOperator, largest_cell_arcsec  # noqa: E402
+from skyscale.core.noise import robust_noise  # noqa: E402
+from skyscale.visibility.file import read_visibilities, write_visibilities  # noqa: E402
+from skyscale.visibility.operator import VisibilityOperator, largest_cell_arcsec  # noqa: E402
+import skyscale.core.beam  # noqa: E402
 
 C = 299792458.0                      # m/s, SI definition
 ARCSEC = np.pi / 180 / 3600
@@ -361,7 +362,7 @@ SCALES = [0, 4, 8, 16, 32]
 
 
 def _run(dirty, psf, operator=None):
-    mask = EmissionMask(SCALES, skyscale.fit_beam(psf).major)
+    mask = EmissionMask(SCALES, skyscale.core.beam.fit_beam(psf).major)
     return skyscale.deconvolve(dirty, psf, scales=SCALES, noise_threshold=3.0, emission_mask=mask,
                                operator=operator, restore=False)
 

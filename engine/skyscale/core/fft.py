@@ -1,0 +1,294 @@
+"""FFT backend and linear-convolution helpers.
+
+pyfftw is used when it is installed (plans with threads, wisdom kept in a cache
+file); numpy.fft otherwise.  The plans use ``FFTW_ESTIMATE`` (no timed planning), so
+the wisdom cache only makes building a plan faster: a few milliseconds per plan,
+measured by ``benchmarks/fftw_wisdom.py``; it does not make the transforms faster.  The backend is injectable so that tests can run both
+paths against each other.
+"""
+
+import logging
+import os
+import pickle
+import threading
+
+import numpy as np
+from scipy.fft import next_fast_len
+
+from skyscale.io.atomic import atomic_write_bytes
+from skyscale.core.validate import check_choice
+
+__all__ = ["FFT_BACKENDS", "NumpyFFT", "FFTWFFT", "get_backend", "fast_shape",
+           "convolve_centred", "Convolver",
+           "MultiConvolver"]
+
+logger = logging.getLogger(__name__)
+
+#: Backend names accepted by `get_backend`.
+FFT_BACKENDS = ("auto", "numpy", "pyfftw")
+
+
+class NumpyFFT:
+    """Real 2-D FFTs with numpy.fft (always available)."""
+
+    name = "numpy"
+
+    def __init__(self, threads=None):
+        self.threads = threads
+
+    def rfft2(self, a, s):
+        return np.fft.rfft2(a, s=s)
+
+    def irfft2(self, a, s):
+        return np.fft.irfft2(a, s=s)
+
+
+class FFTWFFT:
+    """Real 2-D FFTs with pyfftw's builders, threads and a wisdom cache.
+
+    Parameters
+    ----------
+    threads : int, optional
+        FFT threads; default the number of CPUs.
+    wisdom_path : str, optional
+        Wisdom file; default ``~/.cache/skyscale/fftw_wisdom.pkl``.  Set the
+        environment variable ``SKYSCALE_FFTW_WISDOM`` to override.
+    """
+
+    name = "pyfftw"
+    _lock = threading.Lock()
+    _wisdom_loaded = False
+    _planned = set()          # plan keys whose wisdom this process has saved
+
+    def __init__(self, threads=None, wisdom_path=None):
+        import pyfftw
+        import pyfftw.builders  # noqa: F401
+        self._pyfftw = pyfftw
+        self.threads = int(threads or os.cpu_count() or 1)
+        self.wisdom_path = wisdom_path or os.environ.get(
+            "SKYSCALE_FFTW_WISDOM",
+            os.path.join(os.path.expanduser("~"), ".cache", "skyscale", "fftw_wisdom.pkl"))
+        self._plans = {}
+        self._load_wisdom()
+
+    def _load_wisdom(self):
+        with FFTWFFT._lock:
+            if FFTWFFT._wisdom_loaded:
+                return
+            FFTWFFT._wisdom_loaded = True
+            try:
+                with open(self.wisdom_path, "rb") as fh:
+                    self._pyfftw.import_wisdom(pickle.load(fh))
+                logger.debug("loaded FFTW wisdom from %s", self.wisdom_path)
+            except (OSError, ValueError, pickle.UnpicklingError, EOFError):
+                pass
+
+    def _save_wisdom(self):
+        try:
+            os.makedirs(os.path.dirname(os.path.abspath(self.wisdom_path)), exist_ok=True)
+            atomic_write_bytes(self.wisdom_path, pickle.dumps(self._pyfftw.export_wisdom()),
+                               overwrite=True)
+        except OSError:  # a read-only home is fine: wisdom is only a speed-up
+            pass
+
+    def _plan(self, kind, shape, dtype, s):
+        key = (kind, shape, np.dtype(dtype).str, s)
+        plan = self._plans.get(key)
+        if plan is None:
+            builders = self._pyfftw.builders
+            template = self._pyfftw.empty_aligned(shape, dtype=dtype)
+            build = builders.rfft2 if kind == "r" else builders.irfft2
+            plan = build(template, s=s, threads=self.threads,
+                         planner_effort="FFTW_ESTIMATE", avoid_copy=False)
+            self._plans[key] = plan
+            if key not in FFTWFFT._planned:
+                FFTWFFT._planned.add(key)
+                self._save_wisdom()
+        return plan
+
+    def rfft2(self, a, s):
+        a = np.asarray(a)
+        return self._plan("r", a.shape, a.dtype, tuple(s))(a).copy()
+
+    def irfft2(self, a, s):
+        a = np.asarray(a)
+        return self._plan("i", a.shape, a.dtype, tuple(s))(a).copy()
+
+
+def get_backend(name="auto", threads=None):
+    """Return an FFT backend by name.
+
+    Parameters
+    ----------
+    name : {'auto', 'numpy', 'pyfftw'} or backend object
+        ``'auto'`` picks pyfftw when it imports, numpy otherwise.  An object with
+        ``rfft2`` and ``irfft2`` methods is returned as it is.
+    threads : int, optional
+        Threads for pyfftw.
+    """
+    if hasattr(name, "rfft2") and hasattr(name, "irfft2"):
+        return name
+    check_choice(name, "fft", FFT_BACKENDS)
+    if name in ("auto", "pyfftw"):
+        try:
+            return FFTWFFT(threads=threads)
+        except ImportError:
+            if name == "pyfftw":
+                raise ImportError("fft='pyfftw' but pyfftw is not installed; "
+                                  "pip install skyscale[fftw] or pass fft='numpy'") from None
+    return NumpyFFT(threads=threads)
+
+
+def fast_shape(shape_a, shape_b):
+    """FFT shape for the linear convolution of two 2-D arrays (no wrap-around)."""
+    return tuple(next_fast_len(int(a + b - 1), real=True) for a, b in zip(shape_a, shape_b))
+
+
+def convolve_centred(image, kernel, *, backend=None, out_dtype=None):
+    """Linear convolution of ``image`` with a kernel centred at ``kernel.shape // 2``.
+
+    ``out[q] = sum_p image[p] * kernel[q - p + c]`` with ``c = (ky // 2, kx // 2)``,
+    cut to the image's shape.  For odd kernels this equals
+    ``scipy.signal.fftconvolve(image, kernel, mode='same')``.
+
+    Parameters
+    ----------
+    image : (ny, nx) ndarray
+    kernel : (ky, kx) ndarray
+    backend : FFT backend, optional
+        Default `get_backend('auto')`.
+    out_dtype : numpy dtype, optional
+        Default the image's dtype.
+    """
+    return Convolver(kernel, image.shape, backend=backend)(image, out_dtype=out_dtype)
+
+
+def _complex(precision):
+    """The complex dtype of a real precision."""
+    return np.complex64 if np.dtype(precision) == np.float32 else np.complex128
+
+
+def _wrapped_kernel(kernel, image_shape, fshape=None):
+    """The kernel's offsets that can matter for an image, and the FFT shape they need.
+
+    ``out[q] = sum_p image[p] * kernel[q - p + c]`` only uses offsets ``|q - p| <= n - 1``
+    per axis.  With the kernel reaching ``a`` pixels below and ``b`` above its centre
+    (cut to ``n - 1``), a circular convolution of length ``L >= n + max(a, b)`` has no
+    wrap-around on the image: ``L`` about ``2 n`` for a PSF twice the image's size,
+    ``1.5 n`` for one of the image's size, ``n + r`` for a scale kernel of radius ``r``.
+    Returns the kernel wrapped onto that grid (offset 0 at index 0) and the grid's shape;
+    ``fshape`` gives a grid of its own (at least that large, as for several kernels).
+    """
+    kernel = np.asarray(kernel, dtype=np.float64)
+    lo, hi, shape = [], [], []
+    for n, k in zip(image_shape, kernel.shape):
+        c = k // 2
+        a = min(c, n - 1)
+        b = min(k - 1 - c, n - 1)
+        lo.append(a)
+        hi.append(b)
+        shape.append(next_fast_len(int(n + max(a, b)), real=True))
+    if fshape is not None:
+        shape = list(fshape)
+    cy, cx = kernel.shape[0] // 2, kernel.shape[1] // 2
+    cut = kernel[cy - lo[0]:cy + hi[0] + 1, cx - lo[1]:cx + hi[1] + 1]
+    wrapped = np.zeros(shape, dtype=np.float64)
+    wrapped[:cut.shape[0], :cut.shape[1]] = cut
+    wrapped = np.roll(wrapped, (-lo[0], -lo[1]), axis=(0, 1))
+    return wrapped, tuple(shape)
+
+
+class Convolver:
+    """Repeated centred linear convolutions with one kernel (its FFT kept).
+
+    ``out[q] = sum_p image[p] * kernel[q - p + c]`` over the image, ``c`` the kernel's
+    centre ``(ky // 2, kx // 2)`` and the kernel zero beyond its edge: the same as
+    ``scipy.signal.fftconvolve(image, kernel, mode='same')`` for odd kernels.  Only the
+    kernel's offsets that can reach across the image are kept and the convolution is
+    done circularly on the smallest grid without wrap-around (``2 n`` for a PSF twice
+    the image's size, rather than the ``3 n`` of a full linear convolution).
+
+    Parameters
+    ----------
+    kernel : (ky, kx) ndarray
+        Centred at ``(ky // 2, kx // 2)``.
+    image_shape : (int, int)
+        Shape of the images that will be convolved.
+    backend : FFT backend, optional
+    precision : {float64, float32}
+        Precision of the transforms; default float64.  float32 halves their cost for
+        updates whose own size bounds the rounding.
+    """
+
+    def __init__(self, kernel, image_shape, *, backend=None, precision=np.float64):
+        self.backend = get_backend(backend or "auto")
+        self.kernel_shape = np.shape(kernel)
+        self.image_shape = tuple(image_shape)
+        self.precision = np.dtype(precision)
+        wrapped, self.fshape = _wrapped_kernel(kernel, self.image_shape)
+        self._kf = self.backend.rfft2(wrapped, self.fshape).astype(_complex(self.precision))
+
+    def __call__(self, image, out_dtype=None):
+        image = np.asarray(image)
+        if image.shape != self.image_shape:
+            raise ValueError(f"image has shape {image.shape}, this convolver was built for "
+                             f"{self.image_shape}; build a new one")
+        spectrum = self.backend.rfft2(image.astype(self.precision, copy=False), self.fshape)
+        full = self.backend.irfft2(spectrum * self._kf, self.fshape)
+        out = full[:image.shape[0], :image.shape[1]]
+        return np.ascontiguousarray(out, dtype=out_dtype or image.dtype)
+
+
+class MultiConvolver:
+    """One image convolved with several kernels: one forward FFT, one inverse per kernel.
+
+    Parameters
+    ----------
+    kernels : sequence of (k, k) ndarray
+        Odd, centred kernels (the scale kernels); a 1 x 1 kernel is applied as a product.
+    image_shape : (int, int)
+    backend : FFT backend, optional
+    precision : {float64, float32}
+        Precision of the transforms; default float64.
+
+    Notes
+    -----
+    Same result as ``[Convolver(k, shape)(image) for k in kernels]`` at the cost of
+    ``1 + n`` transforms instead of ``2 n``; all kernels share the grid of the widest.
+    """
+
+    def __init__(self, kernels, image_shape, *, backend=None, precision=np.float64):
+        self.backend = get_backend(backend or "auto")
+        self.image_shape = tuple(image_shape)
+        self.precision = np.dtype(precision)
+        kernels = [np.asarray(k, dtype=np.float64) for k in kernels]
+        widest = max(kernels, key=lambda k: k.shape[0])
+        _, self.fshape = _wrapped_kernel(widest, self.image_shape)
+        self._kf = []
+        for k in kernels:
+            if k.size == 1:
+                self._kf.append(float(k[0, 0]))
+                continue
+            wrapped, _ = _wrapped_kernel(k, self.image_shape, self.fshape)
+            self._kf.append(self.backend.rfft2(wrapped, self.fshape).astype(
+                _complex(self.precision)))
+
+    def __call__(self, image, out=None, dtype=np.float32):
+        """Return ``(n_kernels, ny, nx)`` convolutions of ``image`` (into ``out`` if given)."""
+        image = np.asarray(image)
+        if image.shape != self.image_shape:
+            raise ValueError(f"image has shape {image.shape}, this convolver was built for "
+                             f"{self.image_shape}; build a new one")
+        ny, nx = image.shape
+        if out is None:
+            out = np.empty((len(self._kf), ny, nx), dtype=dtype)
+        spectrum = None
+        for i, kf in enumerate(self._kf):
+            if isinstance(kf, float):
+                out[i] = image * kf
+                continue
+            if spectrum is None:
+                spectrum = self.backend.rfft2(image.astype(self.precision, copy=False),
+                                              self.fshape)
+            out[i] = self.backend.irfft2(spectrum * kf, self.fshape)[:ny, :nx]
+        return out

@@ -1,0 +1,252 @@
+"""Robust noise estimates for stop rules and masks.
+
+`robust_noise` (1.4826 MAD) is the one estimator; `emission_free_noise` is the engine's
+emission-excluding use of it (the stop levels), and `scale_noise` applies that per
+scale.  The emission mask's detection (`skyscale.masks.detect.emission_free_noise`) still
+excludes emission by its own rule (beyond the detection sigma of zero, with a margin);
+``benchmarks/noise_estimators.py`` measures what using this module's rule there would
+change on the demo (about 1 % of the mask's pixels, two components).
+
+References
+----------
+.. [1] Rousseeuw, P. J. & Croux, C. 1993, "Alternatives to the median absolute
+   deviation", JASA 88, 1273.
+"""
+
+import numpy as np
+
+__all__ = ["MAD_TO_SIGMA", "CLIP_SIGMA", "robust_noise", "emission_free_noise", "scale_noise"]
+
+#: Factor turning the median absolute deviation into a Gaussian sigma [1]_.
+MAD_TO_SIGMA = 1.4826
+
+
+def robust_noise(image, mask=None):
+    """Gaussian-equivalent noise of ``image`` from the median absolute deviation.
+
+    Parameters
+    ----------
+    image : (ny, nx) ndarray
+        Residual or dirty image (Jy/beam).
+    mask : (ny, nx) ndarray of bool, optional
+        Pixels that hold emission; they are left out of the estimate.  When the mask
+        covers every pixel the whole image is used.
+
+    Returns
+    -------
+    sigma : float
+        ``1.4826 * median(|x - median(x)|)`` over the finite pixels outside the mask.
+
+    References
+    ----------
+    .. [1] Rousseeuw & Croux 1993, JASA 88, 1273.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> rng = np.random.default_rng(1)
+    >>> round(robust_noise(rng.normal(0, 2.0, (256, 256))), 1)
+    2.0
+    """
+    data = np.asarray(image, dtype=np.float64)
+    if mask is not None:
+        outside = ~np.asarray(mask, dtype=bool)
+        if outside.any():
+            data = data[outside]
+    data = data[np.isfinite(data)]
+    if data.size == 0:
+        return 0.0
+    return _mad_sigma(data)[0]
+
+
+def _mad_sigma(data):
+    """``(1.4826 MAD, median)`` of a non-empty 1-D float64 array."""
+    med = np.median(data)
+    return float(MAD_TO_SIGMA * np.median(np.abs(data - med))), med
+
+
+#: Pixels farther than this many robust sigmas from the median are emission, not noise,
+#: and are left out of the next pass of `emission_free_noise` (common practice).
+CLIP_SIGMA = 4.0
+
+#: `emission_free_noise` reads at most about this many pixels (a regular subsample).
+MAX_SAMPLES = 1 << 19
+
+#: Fewest pixels a noise estimate may rest on before `scale_noise` excludes less.
+MIN_NOISE_PIXELS = 400
+
+
+def _grow(mask, radius):
+    """Square dilation of ``mask`` by ``radius`` pixels (separable running maximum)."""
+    from scipy import ndimage
+    if radius <= 0:
+        return mask
+    size = 2 * int(radius) + 1
+    grown = ndimage.maximum_filter1d(mask.view(np.uint8), size, axis=0, mode="constant")
+    return ndimage.maximum_filter1d(grown, size, axis=1, mode="constant").astype(bool)
+
+
+def emission_free_noise(image, *, exclude=None, region=None, border=0, passes=3):
+    """Noise of an image measured where it holds no emission, and where that was.
+
+    Parameters
+    ----------
+    image : (ny, nx) ndarray
+        A residual, or a residual smoothed by one scale (Jy/beam).
+    exclude : (ny, nx) bool ndarray, optional
+        Pixels known to hold emission (a mask grown by the scale's radius): left out.
+    region : (ny, nx) bool ndarray, optional
+        Where the image is trustworthy (for example where the residual is exact);
+        default everywhere.
+    border : int
+        Pixels this close to the image edge are left out (edge effects of smoothing).
+    passes : int
+        Passes of the clipping: after each, pixels beyond ``CLIP_SIGMA`` robust sigmas
+        from the median are left out, so unmasked emission cannot inflate the estimate.
+
+    Returns
+    -------
+    sigma : float
+        1.4826 MAD of the pixels kept ([1]_); 0 when none are left.
+    used : int
+        How many (subsampled) pixels the last pass used.
+
+    References
+    ----------
+    .. [1] Rousseeuw & Croux 1993, JASA 88, 1273.
+    """
+    img = np.asarray(image)
+    ny, nx = img.shape
+    keep = np.ones(img.shape, dtype=bool) if region is None else np.array(region, dtype=bool)
+    if exclude is not None:
+        keep &= ~np.asarray(exclude, dtype=bool)
+    if border > 0:
+        b = min(int(border), (ny - 1) // 2, (nx - 1) // 2)
+        keep[:b] = keep[ny - b:] = False
+        keep[:, :b] = keep[:, nx - b:] = False
+    step = max(int(np.ceil(np.sqrt(ny * nx / MAX_SAMPLES))), 1)
+    data = img[::step, ::step][keep[::step, ::step]].astype(np.float64)
+    data = data[np.isfinite(data)]
+    sigma = 0.0
+    for _ in range(max(int(passes), 1)):
+        if data.size == 0:
+            return 0.0, 0
+        sigma, med = _mad_sigma(data)
+        if sigma == 0.0:
+            break
+        inside = np.abs(data - med) <= CLIP_SIGMA * sigma
+        if inside.all():
+            break
+        data = data[inside]
+    return sigma, int(data.size)
+
+
+#: A broad scale's measured noise above this multiple of the smallest scale's noise
+#: times ``sqrt(B_kk(0) / B_00(0))`` holds emission the mask missed (smoothing keeps
+#: emission and lowers noise); the scaled value is used instead.
+CONTAMINATED = 2.0
+
+#: A scale's noise is measured only where its emission-free area holds at least this
+#: many kernel areas (independent samples of its smoothed noise); otherwise it comes
+#: from the smallest scale's noise and the PSF (`scale_noise`).
+MIN_INDEPENDENT = 50
+
+
+def scale_noise(planes, radii, *, mask=None, region=None, ratios=None, previous=None,
+                cross=None):
+    """Noise of each scale's smoothed residual, measured where there is no emission.
+
+    Parameters
+    ----------
+    planes : (n_scales, ny, nx) ndarray
+        The residual smoothed by each scale, smallest scale first.
+    radii : sequence of int
+        Each scale kernel's support half-width: the mask is grown by it and the image
+        border of that width is left out.
+    mask : (ny, nx) bool ndarray, optional
+        Where the emission is (the clean mask); left out.
+    region : (ny, nx) bool ndarray, optional
+        Where the residual is exact; default everywhere.
+    ratios : (n_scales,) array_like, optional
+        Expected noise of each scale relative to the others, ``sqrt(B_kk(0))`` (see
+        Notes).  Used for a scale whose emission-free area is too small to measure it.
+    previous : float, optional
+        The smallest scale's noise from the previous cycle, kept when fewer than
+        ``5 * MIN_NOISE_PIXELS`` pixels lie outside the grown mask now (measuring inside
+        emission that cleaning has flattened would underestimate it).
+    cross : (n_scales,) array_like, optional
+        ``B_0k(0)``, the PSF smoothed once by each scale at its centre.  With ``ratios``
+        it gives a second estimate of the smallest scale's noise from the residual
+        minus its smoothing by the largest scale, which broad emission cannot inflate:
+        for noise correlated like the PSF its deviation is
+        ``sigma sqrt(1 - 2 B_0K(0) + B_KK(0))``.  It replaces the first when that is
+        more than `CONTAMINATED` times higher (emission the mask missed).
+
+    Returns
+    -------
+    sigma : (n_scales,) float64 ndarray
+    used : (n_scales,) int64 ndarray
+        Pixels (subsampled) each measurement used; 0 where the noise was scaled.
+    how : list of str
+        ``'measured'`` (or with the mask not grown, or by clipping only) or ``'scaled'``
+        per scale.
+
+    Notes
+    -----
+    For white noise of deviation ``sigma`` a unit-sum kernel ``s`` leaves
+    ``sigma * sqrt(sum s^2)``.  Interferometric noise is correlated like the PSF
+    (natural weighting makes the PSF its covariance), so smoothing by ``s_k`` leaves
+    ``sigma * sqrt(B_kk(0))`` with ``B_kk = PSF (*) s_k (*) s_k``, which falls much less.
+    Each scale's noise is measured where it can be (other weightings change the
+    ratio); where the image holds too few independent samples of a broad scale's noise
+    outside the emission, the smallest scale's measured noise is scaled by
+    ``sqrt(B_kk(0) / B_00(0))``.  When fewer than `MIN_NOISE_PIXELS` pixels are left
+    outside the grown mask the mask is left ungrown, and then out, the clipping alone
+    keeping emission out.
+    """
+    n = planes.shape[0]
+    ny, nx = planes.shape[1:]
+    sigma = np.zeros(n)
+    used = np.zeros(n, dtype=np.int64)
+    how = ["measured"] * n
+    mask = None if mask is None else np.asarray(mask, dtype=bool)
+    step = max(int(np.ceil(np.sqrt(ny * nx / MAX_SAMPLES))), 1)
+    for k in range(n):
+        r = int(radii[k])
+        if mask is None or mask.all():
+            tries = [None]
+        elif (k == 0 and previous is None) or ratios is None:
+            tries = [_grow(mask, r), mask, None]
+        else:
+            tries = [_grow(mask, r)]
+        for exclude in tries:
+            sigma[k], used[k] = emission_free_noise(planes[k], exclude=exclude,
+                                                    region=region, border=r)
+            if used[k] >= MIN_NOISE_PIXELS and sigma[k] > 0:
+                break
+        if k == 0 and previous is not None and (used[k] * step * step < 5 * MIN_NOISE_PIXELS
+                                                or sigma[k] <= 0):
+            sigma[k], used[k], how[k] = float(previous), 0, "kept from the previous cycle"
+        elif k == 0 and exclude is not tries[0]:
+            how[k] = "measured (mask not grown)" if exclude is not None else \
+                "measured (clipping only)"
+        if k == 0 and cross is not None and ratios is not None and n > 1 and radii[-1] > 0:
+            big = n - 1
+            factor = 1.0 - 2.0 * float(cross[big]) + float(ratios[big]) ** 2
+            if factor > 0.05:
+                grown = None if mask is None or mask.all() else _grow(mask, int(radii[big]))
+                hp, hp_used = emission_free_noise(planes[0] - planes[big], exclude=grown,
+                                                  region=region, border=int(radii[big]))
+                hp /= np.sqrt(factor)
+                if hp_used >= MIN_NOISE_PIXELS and 0 < hp and hp * CONTAMINATED < sigma[k]:
+                    sigma[k], used[k] = hp, hp_used
+                    how[k] = "high-passed (residual minus its largest-scale smoothing)"
+        independent = used[k] * step * step / max(np.pi * r * r, 1.0)
+        expected = 0.0 if ratios is None else sigma[0] * float(ratios[k]) / float(ratios[0])
+        if k > 0 and ratios is not None and sigma[0] > 0 and (
+                independent < MIN_INDEPENDENT or sigma[k] <= 0 or
+                sigma[k] > CONTAMINATED * expected):
+            sigma[k] = sigma[0] * float(ratios[k]) / float(ratios[0])
+            used[k] = 0
+            how[k] = "scaled"
+    return sigma, used, how

@@ -1,0 +1,373 @@
+"""Input checks shared by the public functions: one dtype rule, one error type, one style.
+
+Every refusal of bad input raises `InputError` (a `ValueError`) with one sentence that
+names the argument, the value received and the fix.  `check_run_options` is the single
+place where the options of `skyscale.deconvolve` are checked, before any work starts.
+"""
+
+import math
+import numbers
+import warnings
+
+import numpy as np
+
+__all__ = ["InputError", "MissingFileError", "as_image", "resolve_dtype", "check_choice", "check_number",
+           "mask_nonfinite", "check_mask", "check_run_options", "FFT_BACKENDS", "NUMBER_RULES",
+           "EMISSION_SIGMA"]
+
+#: Bounds of every numeric run option, with the fix a message suggests.
+NUMBER_RULES = {
+    "loop_gain": dict(low=0.0, high=1.0, low_open=True, hint="0.1 is the usual choice"),
+    "threshold": dict(low=0.0, hint="a peak residual in Jy/beam (0 for none); for a "
+                      "multiple of the noise use the noise threshold"),
+    "noise_threshold": dict(low=0.0, low_open=True, allow_none=True,
+                            hint="a multiple of the robust noise such as 3, or off"),
+    "max_components": dict(low=1, integer=True, hint="the most components the run may "
+                           "find, e.g. 20000"),
+    "max_major_cycles": dict(low=1, integer=True, hint="the most major cycles, e.g. 20"),
+    "cycle_depth": dict(low=0.0, high=1.0, high_open=True, hint="0.2 is the usual choice"),
+    "size_penalty": dict(low=0.0, high=1.0, high_open=True, hint="0.3 is the default"),
+    "extended_depth": dict(low=0.0, high=1.0, low_open=True,
+                           hint="a fraction of the noise multiple, 0.25 is the default"),
+    "scale_loop_depth": dict(low=0.0, high=1.0, high_open=True, hint="0.5 is the default"),
+    "psf_patch": dict(low=0, integer=True, allow_none=True,
+                      hint="a half-width in pixels, or leave it out for automatic"),
+    "threads": dict(low=1, integer=True, allow_none=True, hint="or leave it out for all cores"),
+    "cell_arcsec": dict(low=0.0, low_open=True, allow_none=True, hint="the pixel size in arcsec"),
+    "emission_mask_sigma": dict(low=0.0, low_open=True, allow_none=True,
+                            hint="a multiple of the robust noise such as 5"),
+}
+
+#: FFT back ends `deconvolve` accepts.
+FFT_BACKENDS = ("auto", "numpy", "pyfftw")
+#: A pixel holds emission when ``|dirty|`` exceeds this many robust noise sigmas
+#: (used only to tell a user that a mask leaves all emission out).
+EMISSION_SIGMA = 5.0
+
+
+class InputError(ValueError):
+    """Bad input to skyscale: the message names the argument, the value and the fix.
+
+    A subclass of `ValueError`, so code that catches ``ValueError`` keeps working.
+    The command line turns it into one line on stderr and exit code 2.
+    """
+
+
+class MissingFileError(InputError, FileNotFoundError):
+    """An input file that does not exist (also a `FileNotFoundError`)."""
+
+
+def resolve_dtype(dtype):
+    """Return the working dtype: float32 stays float32, float64 stays float64.
+
+    Parameters
+    ----------
+    dtype : numpy dtype-like or None
+        None means float32, the default working precision.
+
+    Raises
+    ------
+    InputError
+        For any other dtype.
+    """
+    if dtype is None:
+        return np.dtype(np.float32)
+    try:
+        dtype = np.dtype(dtype)
+    except TypeError:
+        raise InputError(f"dtype is {dtype!r}, expected float32 or float64") from None
+    if dtype in (np.float32, np.float64):
+        return dtype
+    raise InputError(f"dtype is {dtype}, expected float32 or float64; pass one of those")
+
+
+def _where(bad, limit=3):
+    idx = np.argwhere(bad)[:limit]
+    text = ", ".join(str(tuple(int(i) for i in p)) for p in idx)
+    return text + (", ..." if np.count_nonzero(bad) > limit else "")
+
+
+def as_image(array, name, *, dtype=np.float32, ndim=2, allow_nan=False):
+    """Return ``array`` as a C-contiguous image of ``dtype``, or raise one clear error.
+
+    Parameters
+    ----------
+    array : array_like
+        The input image.
+    name : str
+        The argument's name, used in the error message.
+    dtype : numpy dtype
+        The working dtype.
+    ndim : int
+        Required number of dimensions (leading axes of length 1 are dropped).
+    allow_nan : bool
+        If False (default) non-finite values are refused, saying how many and where.
+
+    Raises
+    ------
+    InputError
+        For a non-numeric array, the wrong number of non-degenerate axes, an empty
+        array, or non-finite pixels.
+    """
+    try:
+        arr = np.asarray(array)
+    except (TypeError, ValueError) as exc:
+        raise InputError(f"{name} could not be read as an array ({exc}); pass a 2-D "
+                         "numpy array of numbers") from None
+    if arr.dtype.kind not in "fiub":
+        raise InputError(f"{name} has dtype {arr.dtype}, expected a real numeric array; "
+                         "pass a 2-D array of floats")
+    # Squeeze leading degenerate axes (FITS cubes with one frequency and one Stokes plane).
+    while arr.ndim > ndim and arr.shape[0] == 1:
+        arr = arr[0]
+    if arr.ndim != ndim:
+        raise InputError(f"{name} has shape {arr.shape}, expected a {ndim}-D image; "
+                         "pass one plane (index the extra axes)")
+    if min(arr.shape) < 1:
+        raise InputError(f"{name} has shape {arr.shape}; it must not be empty")
+    arr = np.ascontiguousarray(arr, dtype=dtype)
+    if not allow_nan:
+        bad = ~np.isfinite(arr)
+        if bad.any():
+            fix = ("replace them, or treat them as masked with skyscale.mask_nonfinite "
+                   "(--nonfinite mask on the command line)" if name == "dirty" else
+                   "replace them with finite values")
+            raise InputError(
+                f"{name} has {int(np.count_nonzero(bad))} non-finite pixels (NaN or inf) of "
+                f"{arr.size}, at [y, x] {_where(bad)}; {fix}")
+    return arr
+
+
+def mask_nonfinite(dirty, mask=None):
+    """Treat the non-finite pixels of a dirty image as masked out.
+
+    Parameters
+    ----------
+    dirty : (ny, nx) array_like
+        Dirty image that may hold NaN or inf (for example blanked edges).
+    mask : (ny, nx) bool array_like, optional
+        Where components may go; default everywhere.
+
+    Returns
+    -------
+    filled : (ny, nx) ndarray
+        ``dirty`` with its non-finite pixels set to 0 (same dtype, a copy).
+    mask : (ny, nx) bool ndarray or None
+        ``mask`` without the non-finite pixels (None when every pixel is finite and no
+        mask was given).
+    blank : (ny, nx) bool ndarray
+        The non-finite pixels, to blank the outputs again afterwards.
+    """
+    arr = np.array(dirty, dtype=np.result_type(np.asarray(dirty).dtype, np.float32), copy=True)
+    blank = ~np.isfinite(arr)
+    if blank.all():
+        raise InputError("dirty has no finite pixel at all; check that the right file "
+                         "was given")
+    arr[blank] = 0
+    if mask is None and not blank.any():
+        return arr, None, blank
+    keep = np.ones(arr.shape, bool) if mask is None else np.array(mask, dtype=bool)
+    if keep.shape != arr.shape:
+        raise InputError(f"mask has shape {keep.shape}, expected the image's {arr.shape}; "
+                         "regrid or rebuild the mask")
+    return arr, keep & ~blank, blank
+
+
+def check_choice(value, name, choices):
+    """Raise `InputError` listing ``choices`` if ``value`` is not one of them."""
+    try:
+        ok = value in choices
+    except TypeError:
+        ok = False
+    if not ok:
+        raise InputError(f"{name} is {value!r}; valid values are "
+                         f"{', '.join(map(repr, choices))}")
+    return value
+
+
+def check_number(value, name, *, low=None, high=None, low_open=False, high_open=False,
+                 integer=False, allow_none=False, hint="", given=None):
+    """Return ``value`` as a float (or int) inside the stated bounds, or raise `InputError`.
+
+    Parameters
+    ----------
+    value : object
+        What the caller passed.
+    name : str
+        The argument's name.
+    low, high : float, optional
+        Bounds; ``low_open``/``high_open`` exclude them.
+    integer : bool
+        Require a whole number (``3.0`` is accepted as 3).
+    allow_none : bool
+        Let None through (an option that is off).
+    hint : str
+        The fix, appended to the message (for example "0.1 is the usual choice").
+    given : object, optional
+        The value as the user wrote it, quoted in messages (default ``value``).
+    """
+    shown = value if given is None else given
+    if value is None and allow_none:
+        return None
+    tail = f"; {hint}" if hint else ""
+    if isinstance(value, (bool, np.bool_)) or not isinstance(value, numbers.Real):
+        raise InputError(f"{name} is {shown!r} (a {type(value).__name__}); give a "
+                         f"{'whole ' if integer else ''}number{tail}")
+    v = float(value)
+    if not math.isfinite(v):
+        raise InputError(f"{name} is {shown!r}; give a finite number{tail}")
+    if integer:
+        if v != int(v):
+            raise InputError(f"{name} is {shown!r}; give a whole number{tail}")
+        v = int(v)
+    below = low is not None and (v <= low if low_open else v < low)
+    above = high is not None and (v >= high if high_open else v > high)
+    if below or above:
+        if high is None:
+            want = f"{name} {'>' if low_open else '>='} {low:g}"
+        elif low is None:
+            want = f"{name} {'<' if high_open else '<='} {high:g}"
+        else:
+            want = (f"{low:g} {'<' if low_open else '<='} {name} "
+                    f"{'<' if high_open else '<='} {high:g}")
+        raise InputError(f"{name} is {shown!r}, expected {want}{tail}")
+    return v
+
+
+def check_mask(mask, shape, *, dirty=None, name="mask"):
+    """Check a user mask: its grid, that it allows some pixel, that it holds emission.
+
+    Parameters
+    ----------
+    mask : (ny, nx) array_like of bool
+        Where components may go.
+    shape : (int, int)
+        The image's shape.
+    dirty : (ny, nx) ndarray, optional
+        When given, a mask that leaves out every pixel above `EMISSION_SIGMA` robust
+        noise sigmas while the image has such pixels is refused.
+
+    Returns
+    -------
+    (ny, nx) bool ndarray
+    """
+    m = np.asarray(mask)
+    if m.dtype.kind not in "biuf":
+        raise InputError(f"{name} has dtype {m.dtype}; give a boolean array "
+                         "(True = components may go there)")
+    m = m.astype(bool)
+    if m.shape != tuple(shape):
+        raise InputError(f"{name} has shape {m.shape}, expected the image's {tuple(shape)}; "
+                         "make the mask on the image's grid")
+    if not m.any():
+        raise InputError(f"{name} allows no pixel (it is all False/0); give a mask that "
+                         "covers the emission, or pass mask=None to clean everywhere")
+    if dirty is not None and not m.all():
+        from skyscale.core.noise import robust_noise
+        absd = np.abs(dirty)
+        sigma = robust_noise(dirty)
+        level = EMISSION_SIGMA * sigma
+        if sigma > 0 and float(absd.max()) > level and float(absd[m].max()) <= level:
+            peak = np.unravel_index(int(np.argmax(absd)), absd.shape)
+            raise InputError(
+                f"{name} excludes all emission: nothing inside it exceeds {EMISSION_SIGMA:g} "
+                f"times the noise ({level:.3g} Jy/beam), while the image peaks at "
+                f"{float(absd[peak]):.3g} Jy/beam at [y, x] {tuple(int(p) for p in peak)}; "
+                "check the mask's position and grid, or widen it")
+    return m
+
+
+def _early_result(dirty, psf, *, scales, restore, beam, params, mask, reason, note):
+    from skyscale.core.psf import check_psf
+    from skyscale.core.result import COMPONENT_DTYPE, CycleRecord, DeconvolutionResult
+    absd = np.abs(dirty if mask is None else dirty[mask]).astype(np.float64)
+    peak, rms = float(absd.max()), float(np.sqrt(np.mean(absd ** 2)))
+    res = DeconvolutionResult(
+        model=np.zeros_like(dirty), residual=dirty.copy(),
+        components=np.zeros(0, COMPONENT_DTYPE), stop_reason=reason,
+        history=[CycleRecord(0, 0, peak, rms, 0.0)], scales=tuple(scales), mask=mask,
+        parameters=params, timings={"precompute": 0.0, "minor": 0.0, "major": 0.0},
+        warnings=[note])
+    if restore:
+        from skyscale.core.beam import fit_beam
+        res.beam = beam if beam is not None else fit_beam(check_psf(psf, dirty.shape,
+                                                                    dtype=dirty.dtype))
+        res.restored = dirty.copy()
+    return res
+
+
+def check_run_options(dirty, psf, *, scales, loop_gain, threshold, noise_threshold,
+                      max_components, max_major_cycles, cycle_depth, mask, size_penalty,
+                      scale_shape, psf_patch, threads, fft, dtype, cell_arcsec, restore,
+                      beam, extended_depth, scale_loop_depth, model=None):
+    """Check every option of `skyscale.deconvolve` before any work starts.
+
+    Parameters
+    ----------
+    dirty, psf, scales, loop_gain, threshold, noise_threshold, max_components,
+    max_major_cycles, cycle_depth, mask, size_penalty, scale_shape, psf_patch, threads,
+    fft, dtype, cell_arcsec, restore, beam, extended_depth, scale_loop_depth, model
+        As given to `deconvolve`.  A ``mask`` that is ``'auto'`` or an `EmissionMask` is
+        left to the engine; an array mask is checked here.
+
+    Returns
+    -------
+    early : DeconvolutionResult or None
+        A finished result when there is nothing to clean (the dirty image is constant,
+        zero included: stop reason ``'nothing_to_clean'``); None otherwise.
+    psf : (py, px) ndarray
+        The checked PSF (`skyscale.core.psf.check_psf`), for the rest of the run.
+
+    Raises
+    ------
+    InputError
+        For the first bad option, naming it, the value and the fix.
+    """
+    from skyscale.core.scales import SCALE_SHAPES, ScaleSet
+    dt = resolve_dtype(dtype)
+    check_choice(scale_shape, "scale_shape", SCALE_SHAPES)
+    check_choice(fft, "fft", FFT_BACKENDS)
+    values = dict(loop_gain=loop_gain, threshold=threshold, noise_threshold=noise_threshold,
+                  max_components=max_components, max_major_cycles=max_major_cycles,
+                  cycle_depth=cycle_depth, size_penalty=size_penalty, psf_patch=psf_patch,
+                  threads=threads, cell_arcsec=cell_arcsec, extended_depth=extended_depth,
+                  scale_loop_depth=scale_loop_depth)
+    for name, value in values.items():
+        check_number(value, name, **NUMBER_RULES[name])
+    if beam is not None and not hasattr(beam, "major"):
+        raise InputError(f"beam is {beam!r}; pass a skyscale.Beam in pixels "
+                         "(Beam.from_sky converts arcsec) or None to fit one to the PSF")
+    image = as_image(dirty, "dirty", dtype=dt)
+    scale_set = ScaleSet(scales, shape=scale_shape, cell_arcsec=cell_arcsec,
+                         image_shape=image.shape)
+    if model is not None:
+        start = as_image(model, "model", dtype=dt)
+        if start.shape != image.shape:
+            raise InputError(f"model has shape {start.shape}, expected the dirty image's "
+                             f"{image.shape}; start from a model made on the same grid")
+    if isinstance(mask, str):
+        check_choice(mask, "mask", ("auto",))
+        mask = None
+    elif mask is not None and hasattr(mask, "update"):     # an EmissionMask
+        mask = None
+    user_mask = None
+    if mask is not None:
+        user_mask = check_mask(mask, image.shape, dirty=image)
+        ys, xs = np.nonzero(user_mask)
+        extent = max(int(ys.max() - ys.min()) + 1, int(xs.max() - xs.min()) + 1)
+        if scale_set.pixels[-1] > extent:
+            raise InputError(
+                f"scale {scale_set.pixels[-1]:g} px is wider than the mask, which spans at "
+                f"most {extent} px; drop that scale or widen the mask")
+    from skyscale.core.psf import check_psf
+    checked_psf = check_psf(psf, image.shape, dtype=dt)   # warns once if it normalises
+    if float(image.max()) == float(image.min()) and model is None:
+        note = (f"the dirty image is constant ({float(image.flat[0]):.6g} Jy/beam "
+                "everywhere): there is no structure to clean")
+        params = {"scales": list(scale_set.pixels)}
+        early = _early_result(image, checked_psf, scales=scale_set.pixels, restore=restore,
+                              beam=beam, params=params, mask=user_mask,
+                              reason="nothing_to_clean", note=note)
+        return early, checked_psf
+    return None, checked_psf
+

@@ -1,0 +1,149 @@
+"""The cost model's coefficients: built-in values, the calibration file, and the fits.
+
+``skyscale bench`` measures this machine (`skyscale.cost.sweep`), fits the coefficients
+with the two fits here and writes them to the calibration file, which ``skyscale plan``,
+``skyscale run`` and `skyscale.plan_run` then read (`load_calibration`).
+"""
+
+import json
+import logging
+import os
+
+import numpy as np
+
+from skyscale.io.atomic import atomic_write_bytes
+
+__all__ = ["DEFAULT_CALIBRATION", "CALIBRATION_ENV", "default_calibration_path",
+           "load_calibration", "save_calibration", "fit_power_law", "fit_nonnegative"]
+
+logger = logging.getLogger(__name__)
+
+#: Environment variable naming a calibration file (overrides the default path).
+CALIBRATION_ENV = "SKYSCALE_COST_CALIBRATION"
+
+#: Coefficients measured on this machine (2 cores, shared, load average 5 to 8; 1 thread,
+#: float32, CPU seconds) on 2026-12-02 by ``PYTHONPATH=engine python -m skyscale.cli
+#: bench --sizes 512,1024,2048 --out bench-out`` (the calibration it wrote, rounded).
+#: Seconds; an FFT of S points has work U = S log2 S and takes
+#: ``fft.coefficient * U ** fft.exponent``; the other families are linear in the
+#: predicted FFT seconds and in pixels (see `skyscale.cost`).  Two threads were slower
+#: than one on the loaded machine, so the parallel fractions came out 0.
+DEFAULT_CALIBRATION = {
+    "source": "built-in: skyscale bench --sizes 512,1024,2048, 2026-12-02 (CPU seconds, load 5-8)",
+    "fft": {"coefficient": 6.28e-11, "exponent": 1.11},
+    "precompute": {"fixed": 0.0209, "per_psf_pixel": 0.0, "per_fft_second": 1.16,
+                   "per_beam_pixel": 2.92e-08},
+    "setup": {"fixed": 0.0, "per_fft_second": 0.836},
+    "round": {"fixed": 0.0, "per_fft_second": 1.26, "per_plane_pixel": 0.0},
+    "loop": {"per_component_pixel": 5.18e-09, "per_active_pixel": 0.0, "per_sub_loop": 0.000114},
+    "major": {"fixed": 0.0, "per_fft_second": 1.02, "per_plane_pixel": 0.0},
+    "stats": {"fixed": 0.0281, "per_fft_second": 1.64, "per_plane_pixel": 1.37e-08},
+    "counts": {"rounds_per_scale_cycle": 6.17, "active_fraction": 0.00324, "cycles_offset": 0.727},
+    "threads": {"fft_parallel": 0.0, "loop_parallel": 0.0, "measured_with": 2.0},
+    "memory": {"scale": 0.94},
+    "range": {"max_image_pixels": 2048 * 2048},
+    "startup": {"fixed": 1.9},
+}
+
+
+def default_calibration_path():
+    """``$SKYSCALE_COST_CALIBRATION``, or ``~/.cache/skyscale/cost_calibration.json``."""
+    return os.environ.get(CALIBRATION_ENV) or os.path.join(
+        os.path.expanduser("~"), ".cache", "skyscale", "cost_calibration.json")
+
+
+def _merged(data, source):
+    cal = json.loads(json.dumps(DEFAULT_CALIBRATION))
+    for section, values in data.items():
+        if isinstance(values, dict) and section in cal:
+            unknown = set(values) - set(cal[section])
+            if unknown:
+                raise ValueError(f"section {section!r} has unknown keys {sorted(unknown)}")
+            cal[section].update({k: float(v) for k, v in values.items()})
+        elif section not in ("source", "fit"):
+            raise ValueError(f"unknown section {section!r}")
+    cal["source"] = f"{source} ({data['source']})" if data.get("source") else source
+    return cal
+
+
+def load_calibration(path=None):
+    """The coefficients the planner uses: ``path``, else the default file, else built-in.
+
+    Raises
+    ------
+    ValueError
+        When an explicit ``path`` is missing or not a calibration written by
+        ``skyscale bench``.  A broken default file is logged and skipped.
+    """
+    explicit = path is not None
+    path = path or default_calibration_path()
+    try:
+        with open(path) as fh:
+            return _merged(json.load(fh), str(path))
+    except FileNotFoundError:
+        if explicit:
+            raise ValueError(f"calibration {path!r} does not exist; run skyscale bench "
+                             "--calibration PATH to make one, or leave it out") from None
+    except (OSError, ValueError, TypeError, AttributeError) as exc:
+        if explicit:
+            raise ValueError(f"calibration {path!r} is not a skyscale bench calibration "
+                             f"({exc}); remake it with skyscale bench") from None
+        logger.warning("ignoring the calibration file %s (%s); using the built-in one", path, exc)
+    return json.loads(json.dumps(DEFAULT_CALIBRATION))
+
+
+def save_calibration(calibration, path=None):
+    """Write ``calibration`` as JSON atomically; returns the path."""
+    path = path or default_calibration_path()
+    os.makedirs(os.path.dirname(os.path.abspath(path)), exist_ok=True)
+    atomic_write_bytes(path, json.dumps(calibration, indent=2).encode("utf-8"),
+                       overwrite=True)
+    return path
+
+
+def fit_power_law(x, y):
+    """Least-squares fit of ``y = c * prod_i x_i ** p_i`` in log space.
+
+    Parameters
+    ----------
+    x : (m,) or (m, q) array of positive values
+    y : (m,) array of positive values
+
+    Returns
+    -------
+    dict
+        ``coefficient`` c, ``exponents`` [p_i], ``rms_log_residual`` (natural log).
+    """
+    x = np.asarray(x, dtype=float)
+    y = np.asarray(y, dtype=float)
+    x = x[:, None] if x.ndim == 1 else x
+    if x.shape[0] != y.shape[0] or y.size < x.shape[1] + 1:
+        raise ValueError(f"fit_power_law got {x.shape[0]} x rows and {y.size} y values for "
+                         f"{x.shape[1]} exponents; give matching arrays with more points "
+                         "than exponents")
+    if np.any(x <= 0) or np.any(y <= 0):
+        raise ValueError("fit_power_law needs positive x and y; drop zero or negative points")
+    design = np.column_stack([np.ones(y.size), np.log(x)])
+    sol, *_ = np.linalg.lstsq(design, np.log(y), rcond=None)
+    resid = np.log(y) - design @ sol
+    return {"coefficient": float(np.exp(sol[0])), "exponents": [float(p) for p in sol[1:]],
+            "rms_log_residual": float(np.sqrt(np.mean(resid ** 2)))}
+
+
+def fit_nonnegative(features, y):
+    """Non-negative least squares ``y ~ features @ coef`` weighted to relative errors.
+
+    Returns
+    -------
+    coef : (q,) ndarray
+    max_relative_error : float
+        Largest ``|model / y - 1|`` over the points.
+    """
+    from scipy.optimize import nnls
+    a = np.asarray(features, dtype=float)
+    y = np.asarray(y, dtype=float)
+    if a.ndim != 2 or a.shape[0] != y.size or np.any(y <= 0):
+        raise ValueError(f"fit_nonnegative got features {a.shape} and {y.size} positive "
+                         "times; give one row of features per positive time")
+    coef, _ = nnls(a / y[:, None], np.ones(y.size))
+    return coef, float(np.max(np.abs(a @ coef / y - 1.0)))

@@ -1,0 +1,502 @@
+"""Measuring what scales cost: the scaling sweep, its calibration runs and the check.
+
+`run_sweep` measures, on an invented field (`synthetic_field`), for each image size
+and scale set: the precompute, the residual operator's set-up, the rounds of a minor
+cycle (each sub-loop's exact update, and the sub-loop itself per component and per
+active pixel), one major cycle and its statistics, and the peak memory (tracemalloc
+and the resident set) against the planner's; it times single FFTs on every grid the
+points use, and the sub-loop and the FFTs at 1 and 2 threads.  Whole runs at the swept
+sizes calibrate the counts (rounds, active pixels, major cycles); runs at sizes and on
+fields it did not see check the planner.  `skyscale.cost.sweepfit` fits and summarises.
+Nothing here prints: progress goes to ``callback(dict)`` and the log.
+
+Times at one thread are the process's CPU time (`cpu_clock`), not the wall clock: on a
+machine shared with other work the wall clock of a long step depends on the load far
+more than on the step, and the planner predicts the time of an unshared core.  The
+thread probes, which must see threads run side by side, use the wall clock.
+"""
+
+import contextlib
+import logging
+import os
+import platform
+import threading
+import time
+import tracemalloc
+
+import numpy as np
+
+from skyscale.cost import model as cost
+from skyscale.core.threads import resolve_threads, thread_limit
+from skyscale.core.driver import masked_stats
+from skyscale.core.fft import get_backend
+from skyscale.core.engine import Engine
+from skyscale.core.operators import ImagePlaneOperator
+
+__all__ = ["SCALE_SETS", "DEFAULT_SIZES", "QUICK_SETTINGS", "synthetic_field", "PeakMemory",
+           "cpu_clock", "record_sub_loops", "fft_probe", "measure_point", "measure_run",
+           "run_sweep", "VALIDATION_RUNS", "sweep_shapes", "sweep_memory"]
+
+logger = logging.getLogger(__name__)
+
+#: Scale sets swept at every size (the doubling ladder from the delta scale).
+SCALE_SETS = ((0,), (0, 4), (0, 4, 8, 16), (0, 4, 8, 16, 32, 64))
+#: Image sizes swept by default (square images, PSF twice the size).
+DEFAULT_SIZES = (512, 1024, 2048)
+#: Largest image area at which every scale set is swept; above it the first and the
+#: third only (memory and minutes on a shared machine).
+FULL_LADDER_PIXELS = 1024 * 1024
+#: Components of the minor cycle timed per point (after a shorter one that makes the
+#: cycle's FFT plans).
+POINT_COMPONENTS = 1500
+#: Settings of ``quick=True`` (a smoke run for tests: seconds, not minutes).
+QUICK_SETTINGS = {"sizes": (96, 128), "scale_sets": ((0,), (0, 4, 8)), "components": 60,
+                  "run_components": 300, "validate_size": 112}
+#: Runs that check the planner on sizes and fields the sweep did not see:
+#: ``(size, scales, seed)``.
+VALIDATION_RUNS = ((768, (0, 4, 8, 16), 11), (1536, (0, 4, 8, 16, 32), 12),
+                   (640, (0, 4, 8, 16, 32), 14))
+
+
+# --------------------------------------------------------------------------- inputs
+def synthetic_field(n, *, seed=0, noise=1e-3):
+    """An invented field and its PSF: ``(dirty (n, n), psf (2n, 2n))``, float32.
+
+    The PSF is a round Gaussian core (sigma 2 px) with a rippled ring sidelobe at
+    10 px and a shallow negative bowl; the sky is a dozen point sources plus Gaussian
+    blobs with widths spread over the scale ladder.  ``dirty`` is the exact linear
+    convolution of sky and PSF plus white noise (Jy/beam).
+    """
+    from scipy.signal import fftconvolve
+    rng = np.random.default_rng(seed)
+    y, x = np.mgrid[-n:n, -n:n].astype(np.float64)
+    r = np.hypot(x, y)
+    psf = (np.exp(-r ** 2 / 8.0) - 0.01 * np.exp(-r ** 2 / (2 * 12.0 ** 2))
+           - 0.06 * np.exp(-(r - 10.0) ** 2 / 4.5) * np.cos(0.35 * x))
+    psf /= psf[n, n]
+    yy, xx = np.mgrid[:n, :n].astype(np.float64)
+    sky = np.zeros((n, n))
+    for width in (1.5, 3.0, 6.0, 12.0, 24.0):
+        for _ in range(3):
+            cy, cx = rng.uniform(0.15 * n, 0.85 * n, 2)
+            w = min(width, n / 16)
+            sky += rng.uniform(0.3, 1.0) * np.exp(-((yy - cy) ** 2 + (xx - cx) ** 2) /
+                                                  (2 * w * w)) / (2 * np.pi * w * w)
+    pts = rng.integers(int(0.1 * n), int(0.9 * n), (12, 2))
+    sky[pts[:, 0], pts[:, 1]] += rng.uniform(0.05, 0.5, 12)
+    dirty = fftconvolve(sky, psf, mode="full")[n:2 * n, n:2 * n]
+    dirty += rng.normal(0.0, noise, dirty.shape)
+    return dirty.astype(np.float32), psf.astype(np.float32)
+
+
+# --------------------------------------------------------------------------- memory
+def _rss():
+    try:
+        import psutil
+        return psutil.Process().memory_info().rss
+    except ImportError:
+        with open("/proc/self/statm") as fh:
+            return int(fh.read().split()[1]) * os.sysconf("SC_PAGE_SIZE")
+
+
+class PeakMemory:
+    """Context manager: peak traced allocations (tracemalloc) and peak resident set.
+
+    Attributes after the block: ``traced_peak`` (bytes allocated above the start),
+    ``rss_start``, ``rss_peak`` (sampled every ``interval`` seconds) and
+    ``rss_increase``.
+    """
+
+    def __init__(self, interval=0.002):
+        self.interval = interval
+        self._stop = threading.Event()
+
+    def _sample(self):
+        while not self._stop.wait(self.interval):
+            self.rss_peak = max(self.rss_peak, _rss())
+
+    def __enter__(self):
+        self._owner = not tracemalloc.is_tracing()
+        if self._owner:
+            tracemalloc.start()
+        tracemalloc.reset_peak()
+        self._base = tracemalloc.get_traced_memory()[0]
+        self.rss_start = self.rss_peak = _rss()
+        self._thread = threading.Thread(target=self._sample, daemon=True)
+        self._thread.start()
+        return self
+
+    def __exit__(self, *exc):
+        self._stop.set()
+        self._thread.join()
+        self.rss_peak = max(self.rss_peak, _rss())
+        self.traced_peak = tracemalloc.get_traced_memory()[1] - self._base
+        if self._owner:
+            tracemalloc.stop()
+        self.rss_increase = self.rss_peak - self.rss_start
+        return False
+
+
+# ------------------------------------------------------------------ instrumentation
+#: Resident-set sampling interval of the sweep's memory measurements, seconds (the
+#: sampling thread's own CPU time is then negligible against the steps timed).
+RSS_INTERVAL = 0.05
+
+
+@contextlib.contextmanager
+def cpu_clock():
+    """Within the block the engine's and the driver's timings are CPU seconds of this
+    process (``time.process_time``) instead of wall seconds (measurement only)."""
+    import types
+    from skyscale.core import driver as cycles
+    from skyscale.core import engine as minor
+    shim = types.SimpleNamespace(perf_counter=time.process_time)
+    saved = minor.time, cycles.time
+    minor.time = cycles.time = shim
+    try:
+        yield
+    finally:
+        minor.time, cycles.time = saved
+
+
+@contextlib.contextmanager
+def record_sub_loops():
+    """Record every sub-loop the engine runs: ``(active pixels, components, seconds)``.
+
+    Wraps the engine's reference to the compiled sub-loop for the block (measurement
+    only: the arguments and results pass through unchanged).
+    """
+    from skyscale.core import engine as minor
+    inner = minor.scale_loop
+    rows = []
+
+    def timed(values, ys, xs, beam, **kw):
+        t0 = time.process_time()
+        out = inner(values, ys, xs, beam, **kw)
+        rows.append((int(np.size(values)), int(out[0].size), time.process_time() - t0))
+        return out
+    minor.scale_loop = timed
+    try:
+        yield rows
+    finally:
+        minor.scale_loop = inner
+
+
+def fft_probe(grids, *, threads=1, repeats=3, backend="auto"):
+    """Seconds of one real FFT (mean of a forward and an inverse, best of ``repeats``)
+    on each grid, with the engine's backend: ``[{'grid', 'seconds', 'threads'}]``.
+    CPU seconds at one thread, wall seconds at more."""
+    clock = time.process_time if threads == 1 else time.perf_counter
+    out = []
+    fft = get_backend(backend, threads=threads)
+    for grid in sorted({tuple(int(v) for v in g) for g in grids}):
+        a = np.random.default_rng(0).standard_normal(grid)
+        spec = fft.rfft2(a, grid)
+        fft.irfft2(spec, grid)                          # plan once
+        best = np.inf
+        for _ in range(repeats):
+            t0 = clock()
+            fft.irfft2(fft.rfft2(a, grid), grid)
+            best = min(best, (clock() - t0) / 2)
+        out.append({"grid": list(grid), "seconds": best, "threads": int(threads)})
+        del a, spec
+    return out
+
+
+# --------------------------------------------------------------------------- points
+def _record(engine, dirty, psf):
+    return {"size": int(dirty.shape[0]), "image_shape": list(dirty.shape),
+            "psf_shape": list(psf.shape), "scales": list(engine.scales.pixels),
+            "n_scales": engine.n_scales, "radii": list(engine.scales.support_radii),
+            "itemsize": engine.dtype.itemsize}
+
+
+def _timed(fn, *args, **kw):
+    t0 = time.process_time()
+    out = fn(*args, **kw)
+    return out, time.process_time() - t0
+
+
+def measure_point(dirty, psf, scales, *, components=POINT_COMPONENTS, dtype=None):
+    """One sweep point at one thread: precompute, set-up, the rounds and sub-loops of
+    one minor cycle, one major cycle and its statistics, and the peak memory (CPU
+    seconds)."""
+    with PeakMemory(RSS_INTERVAL) as mem, cpu_clock():
+        engine = Engine(psf, scales, image_shape=dirty.shape, threads=1, dtype=dtype)
+        op, setup = _timed(ImagePlaneOperator, dirty, engine.psf, fft=engine.fft,
+                           dtype=engine.dtype)
+        state, stats_first = _timed(engine.measure, dirty)
+        with record_sub_loops() as first_loops:     # the cycle's FFT plans made
+            first = engine.minor_cycle(dirty, max_components=max(components // 20, 1),
+                                       state=state)
+        with record_sub_loops() as loops:
+            mc = engine.minor_cycle(dirty, max_components=components, state=state)
+        residual, major = _timed(op, mc.model)
+        masked_stats(residual, None)
+        _, stats = _timed(engine.measure, residual)
+        residual, major2 = _timed(op, mc.model)
+    updated = sum(1 for _, m, _ in loops if m > 0)
+    round_s = mc.timings["update"] / max(updated, 1)
+    first_updates = sum(1 for _, m, _ in first_loops if m > 0)
+    first_use = max(first.timings["update"] - first_updates * round_s, 0.0)
+    rec = _record(engine, dirty, psf)
+    rec.update({"precompute_s": engine.precompute_seconds, "setup_s": setup + first_use,
+                "rounds": int(mc.rounds), "updates": updated,
+                "round_s": round_s,
+                "loops": [list(r) for r in loops], "components": int(mc.components.size),
+                "major_s": min(major, major2), "stats_first_s": stats_first,
+                # a major cycle's statistics and the next minor cycle's own set-up
+                "stats_s": stats + mc.seconds - mc.timings["update"] - mc.timings["loop"],
+                "traced_peak": int(mem.traced_peak), "rss_increase": int(mem.rss_increase),
+                "engine_memory": int(engine.memory["total"])})
+    return rec
+
+
+def measure_run(dirty, psf, scales, *, max_components, noise_threshold=3.0, threads=1,
+                seed_note=""):
+    """A whole `skyscale.deconvolve` run at one thread: its time by step (CPU seconds;
+    ``wall`` beside), its counts and peak memory."""
+    if resolve_threads(threads) != 1:
+        raise ValueError(f"threads is {threads}: measure_run times CPU seconds and needs 1")
+    from skyscale.core.driver import deconvolve
+    with record_sub_loops() as loops, PeakMemory(RSS_INTERVAL) as mem, cpu_clock():
+        t0, c0 = time.perf_counter(), time.process_time()
+        res = deconvolve(dirty, psf, scales=scales, max_components=max_components,
+                         noise_threshold=noise_threshold, threads=threads, restore=False)
+        wall, cpu = time.perf_counter() - t0, time.process_time() - c0
+    act = [a for a, _, _ in loops]
+    sigma = res.scale_noise[0] if res.scale_noise else 0.0
+    level = noise_threshold * sigma
+    return {"image_shape": list(dirty.shape), "psf_shape": list(psf.shape),
+            "scales": list(scales), "field": seed_note, "threads": resolve_threads(threads),
+            "max_components": int(max_components), "stop_reason": res.stop_reason,
+            "components": int(res.components.size), "rounds": int(res.sub_loops),
+            "major_cycles": len(res.history) - 1,
+            "active_pixels": float(np.mean(act)) if act else 0.0,
+            "dynamic_range": float(np.abs(dirty).max() / level) if level > 0 else None,
+            "measured": {"precompute": res.timings["precompute"], "minor": res.timings["minor"],
+                         "major": res.timings["major"], "total": cpu,
+                         "memory": int(mem.traced_peak)},
+            "wall": wall, "load": list(os.getloadavg()), "rss_increase": int(mem.rss_increase)}
+
+
+def predicted_for(run, calibration, *, a_priori):
+    """The planner's figures for a measured run: with its own counts (``a_priori``
+    False: the model per step) or from its dynamic range and budget alone."""
+    kw = {} if a_priori else {k: run[k] for k in ("components", "rounds", "major_cycles",
+                                                  "active_pixels")}
+    p = cost.plan_run(run["image_shape"], run["psf_shape"], run["scales"],
+                      max_components=run["max_components"], threads=run["threads"],
+                      calibration=calibration, memory_available=1 << 62, fresh_process=False,
+                      dynamic_range=run["dynamic_range"], **kw)
+    g = cost.run_geometry(run["image_shape"], run["psf_shape"],
+                          [int(r) for r in _radii(run["scales"])])
+    op = cost.predict_times(g, calibration, threads=run["threads"])["major"]
+    return {"precompute": p.precompute_seconds, "minor": p.minor_seconds,
+            "major": p.counts["major_cycles"] * op, "total": p.total_seconds,
+            "memory": p.memory_bytes, "counts": p.counts}
+
+
+def _radii(scales):
+    from skyscale.core.scales import ScaleSet
+    return ScaleSet(scales).support_radii
+
+
+# ---------------------------------------------------------------------------- sweep
+def _notify(callback, **event):
+    logger.info("sweep: %s", event)
+    if callback is not None:
+        callback(dict(stage="sweep", **event))
+
+
+def loop_threads_probe(n=512, iterations=40, thread_counts=(1, 2), repeats=3):
+    """The sub-loop on a whole plane (``n * n`` active pixels, the parallel path) at
+    each thread count, interleaved run by run: ``[{'threads', 'seconds'}]``."""
+    from skyscale.core.kernels import scale_loop
+    dirty, psf = synthetic_field(n, seed=3)
+    e = Engine(psf, [0, 4], image_shape=dirty.shape, threads=1)
+    plane = e.smooth(dirty)[1]
+    ys, xs = np.nonzero(np.ones(plane.shape, bool))
+    best = {t: np.inf for t in thread_counts}
+    for _ in range(repeats):
+        for t in thread_counts:
+            values = plane.ravel().copy()
+            with thread_limit(t):
+                t0 = time.perf_counter()
+                scale_loop(values, ys, xs, e.beams[1], beam_peak=e.beam_peaks[1], gain=0.1,
+                           level=0.0, max_iter=iterations, parallel=True)
+                best[t] = min(best[t], time.perf_counter() - t0)
+    return [{"threads": int(resolve_threads(t)), "seconds": best[t], "active": int(plane.size),
+             "iterations": iterations} for t in thread_counts]
+
+
+_COLD_RUN = """
+import json, sys, time
+t0 = time.process_time()
+from skyscale.core.driver import deconvolve
+from skyscale.cost.sweep import synthetic_field
+n, scales, comps, seed = json.loads(sys.argv[1])
+dirty, psf = synthetic_field(n, seed=seed)
+t1 = time.process_time()
+r = deconvolve(dirty, psf, scales=scales, max_components=comps, threads=1, restore=False,
+               noise_threshold=3.0)
+t2 = time.process_time()
+print(json.dumps({"imports_s": t1 - t0, "seconds": t2 - t1, "components": int(r.components.size),
+                  "rounds": int(r.sub_loops), "cycles": len(r.history) - 1}))
+"""
+
+
+def measure_cold_start(n, scales, components=500, seed=13):
+    """A run in a fresh Python process: imports, then the first run (compiled code
+    loaded from the cache, FFT plans made, fresh memory pages); CPU seconds."""
+    import json
+    import subprocess
+    import sys
+    pkg = os.path.dirname(os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
+    env = dict(os.environ, PYTHONPATH=os.pathsep.join(
+        [pkg] + [p for p in os.environ.get("PYTHONPATH", "").split(os.pathsep) if p]))
+    done = subprocess.run([sys.executable, "-c", _COLD_RUN,
+                           json.dumps([int(n), list(scales), int(components), int(seed)])],
+                          env=env, capture_output=True, text=True, timeout=900, check=True)
+    out = json.loads(done.stdout.strip().splitlines()[-1])
+    out.update({"size": int(n), "scales": list(scales)})
+    return out
+
+
+def _sets_for(n, scale_sets):
+    ok = [s for s in scale_sets if max(s) <= n // 4]
+    if n * n > FULL_LADDER_PIXELS:
+        ok = ok[::2]
+    return ok
+
+
+def _calibration_runs(sizes):
+    runs = [(sizes[0], (0, 4, 8)), (sizes[0], (0, 4, 8, 16)),
+            (sizes[-1 if len(sizes) < 2 else 1], (0, 4, 8, 16))]
+    return [(n, s) for n, s in runs if max(s) <= n // 4]
+
+
+def sweep_shapes(sizes, *, validate=True):
+    """Every ``(size, scales)`` the sweep of ``sizes`` runs (PSF twice the size, float32):
+    the points, the calibration runs and, with ``validate``, `VALIDATION_RUNS`."""
+    sizes = sorted({int(s) for s in sizes})
+    todo = [(n, tuple(s)) for n in sizes for s in _sets_for(n, SCALE_SETS)]
+    todo += [(n, tuple(s)) for n, s in _calibration_runs(sizes)]
+    if validate:
+        todo += [(n, tuple(s)) for n, s, _ in VALIDATION_RUNS]
+    return todo
+
+
+def sweep_memory(sizes, *, validate=True, calibration=None):
+    """Predicted peak memory of ``skyscale bench --sizes`` (bytes) and its largest step.
+
+    Returns
+    -------
+    peak : int
+        The largest `skyscale.cost.predict_memory` peak of the steps of `sweep_shapes`.
+    worst : (int, tuple)
+        Its ``(size, scales)``.
+    """
+    cal = calibration or cost.load_calibration()
+    best = (0, None)
+    for n, scales in sweep_shapes(sizes, validate=validate):
+        g = cost.run_geometry((n, n), (2 * n, 2 * n), _radii(scales))
+        best = max(best, (cost.predict_memory(g, cal)["peak"], (n, scales)),
+                   key=lambda b: b[0])
+    return best
+
+
+def run_sweep(sizes=DEFAULT_SIZES, *, scale_sets=SCALE_SETS, components=POINT_COMPONENTS,
+              thread_counts=None, quick=False, validate=True, callback=None):
+    """Measure the cost of scales, image size and threads; fit and check the model.
+
+    Parameters
+    ----------
+    sizes : sequence of int
+        Square image sizes (the PSF is twice the size); default `DEFAULT_SIZES`.
+    scale_sets : sequence of sequences
+        Scale sets per size (those whose largest scale is over a quarter of the size
+        are skipped; above 1024 x 1024 every other one); default `SCALE_SETS`.
+    components : int
+        Components of the minor cycle timed per point.
+    thread_counts : sequence of int, optional
+        Threads of the thread probes; default 1 and all cores.
+    quick : bool
+        Small settings (`QUICK_SETTINGS`) for a smoke test; the fit is rough.
+    validate : bool
+        Run deconvolutions on sizes and fields not swept and compare them with their plans.
+    callback : callable, optional
+        Receives progress dicts.
+
+    Returns
+    -------
+    dict
+        ``machine``, ``settings``, ``points``, ``fft``, ``fft_threads``, ``loop_threads``,
+        ``runs`` (calibration runs), ``cold_start``, ``calibration``, ``validation``,
+        ``summary`` and ``seconds``.
+    """
+    from skyscale.cost.sweepfit import calibrate, summarize
+    t_start = time.perf_counter()
+    q = QUICK_SETTINGS if quick else {}
+    sizes = sorted({int(s) for s in (q.get("sizes") or sizes)})
+    if not sizes or sizes[0] < 32:
+        raise ValueError(f"sizes is {sizes}, expected image sizes of at least 32 pixels")
+    scale_sets = q.get("scale_sets", scale_sets)
+    components = q.get("components", components)
+    cores = os.cpu_count() or 1
+    thread_counts = sorted(set(thread_counts or (1, cores)))
+    out = {"machine": {"cores": cores, "numba_threads": resolve_threads(None),
+                       "platform": platform.platform(), "python": platform.python_version(),
+                       "numpy": np.__version__, "load": list(os.getloadavg())},
+           "settings": {"sizes": sizes, "scale_sets": [list(s) for s in scale_sets],
+                        "components": components, "quick": bool(quick)}}
+    wd, wp = synthetic_field(64, seed=1)                  # load the compiled kernels
+    measure_point(wd, wp, [0, 4], components=20)
+    out["points"] = []
+    todo = [(n, s) for n in sizes for s in _sets_for(n, scale_sets)]
+    for i, (n, scales) in enumerate(todo):
+        _notify(callback, what="point", size=n, scales=list(scales), done=i, total=len(todo))
+        dirty, psf = synthetic_field(n, seed=0)
+        out["points"].append(measure_point(dirty, psf, list(scales), components=components))
+    grids = set()
+    for r in out["points"]:
+        g = cost.run_geometry(r["image_shape"], r["psf_shape"], r["radii"])
+        grids |= {g.major_grid} | ({g.precompute_grid, g.smooth_grid} if g.n_finite else set())
+    _notify(callback, what="fft", grids=len(grids))
+    out["fft"] = fft_probe(grids)
+    big = max(grids, key=lambda g: g[0] * g[1] if g[0] * g[1] < 2.5e7 else 0)
+    out["fft_threads"] = [fft_probe([big], threads=t)[0] for t in thread_counts]
+    _notify(callback, what="loop threads")
+    out["loop_threads"] = loop_threads_probe(n=q.get("sizes", (512,))[0] if quick else 512,
+                                             thread_counts=thread_counts)
+    out["runs"] = []
+    budget = q.get("run_components", 20000)
+    cal_runs = _calibration_runs(sizes)
+    for n, scales in cal_runs:
+        _notify(callback, what="calibration run", size=n, scales=list(scales))
+        dirty, psf = synthetic_field(n, seed=0)
+        out["runs"].append(measure_run(dirty, psf, list(scales), max_components=budget,
+                                       seed_note=f"synthetic_field({n}, seed=0)"))
+    out["cold_start"] = []
+    if not quick:
+        _notify(callback, what="fresh process", size=256)
+        out["cold_start"].append(measure_cold_start(256, [0, 4, 8], budget))
+    out["calibration"] = calibrate(out)
+    out["validation"] = []
+    if validate:
+        held = [(q["validate_size"], (0, 4, 8), 11)] if quick else list(VALIDATION_RUNS)
+        for n, scales, seed in held:
+            _notify(callback, what="validation", size=n, scales=list(scales))
+            dirty, psf = synthetic_field(n, seed=seed)
+            run = measure_run(dirty, psf, list(scales), max_components=budget,
+                              seed_note=f"synthetic_field({n}, seed={seed})")
+            for label, prior in (("model, run's counts", False), ("a priori", True)):
+                pred = predicted_for(run, out["calibration"], a_priori=prior)
+                run.setdefault("predicted", {})[label] = pred
+                run.setdefault("ratios", {})[label] = {
+                    k: pred[k] / v if v else None for k, v in run["measured"].items()}
+            out["validation"].append(run)
+    out["summary"] = summarize(out)
+    out["machine"]["load_after"] = list(os.getloadavg())
+    out["seconds"] = time.perf_counter() - t_start
+    return out

@@ -1,0 +1,154 @@
+"""Fitting the cost model to a sweep (`skyscale.cost.sweep.run_sweep`) and summarising it.
+
+Every family is a non-negative least-squares fit weighted to relative errors
+(`skyscale.cost.calibration.fit_nonnegative`); ``fit`` in the calibration holds each
+family's rms and largest relative misfit.
+"""
+
+import math
+import time
+
+import numpy as np
+
+from skyscale.cost import model as cost
+from skyscale.cost.calibration import DEFAULT_CALIBRATION, fit_nonnegative, fit_power_law
+
+__all__ = ["calibrate", "summarize", "step_ffts"]
+
+
+def _geometry(rec):
+    return cost.run_geometry(rec["image_shape"], rec["psf_shape"], rec["radii"],
+                             itemsize=rec.get("itemsize", 4))
+
+
+def step_ffts(geom, cal):
+    """Predicted FFT seconds of each step at one thread under ``cal``'s FFT law."""
+    one = dict(cal, threads={"fft_parallel": 0.0, "loop_parallel": 0.0})
+    return {k: cost.fft_seconds(v, one) for k, v in geom.transforms().items()}
+
+
+def _misfit(model, y):
+    rel = np.asarray(model, dtype=float) / np.asarray(y, dtype=float) - 1.0
+    return {"rms": float(np.sqrt(np.mean(rel ** 2))), "max": float(np.max(np.abs(rel))),
+            "points": int(rel.size)}
+
+
+def _parallel_fraction(t1, tn, n):
+    if n <= 1 or not t1 > 0 or not tn > 0:
+        return 0.0
+    return float(np.clip((1.0 - tn / t1) / (1.0 - 1.0 / n), 0.0, 1.0))
+
+
+def calibrate(sweep):
+    """Fit the coefficients of `skyscale.cost` to a sweep's measurements."""
+    pts = sweep["points"]
+    cal = {k: (dict(v) if isinstance(v, dict) else v) for k, v in DEFAULT_CALIBRATION.items()}
+    cal["source"] = ("skyscale bench, sizes {sizes}, ".format(**sweep["settings"])
+                     + time.strftime("%Y-%m-%d"))
+    cal["fit"] = {}
+    f = sweep["fft"]
+    law = fit_power_law([cost.fft_work(r["grid"]) for r in f], [r["seconds"] for r in f])
+    cal["fft"] = {"coefficient": law["coefficient"], "exponent": law["exponents"][0]}
+    cal["fit"]["fft"] = _misfit([law["coefficient"] * cost.fft_work(r["grid"]) **
+                                 law["exponents"][0] for r in f], [r["seconds"] for r in f])
+    geo = [_geometry(r) for r in pts]
+    ffts = [step_ffts(g, cal) for g in geo]
+
+    def fit(name, keys, rows, y):
+        keep = [(row, v) for row, v in zip(rows, y) if v > 0]
+        rows, y = [k[0] for k in keep], [k[1] for k in keep]
+        coef, _ = fit_nonnegative(rows, y)
+        cal[name] = {k: float(c) for k, c in zip(keys, coef)}
+        cal["fit"][name] = _misfit(np.asarray(rows) @ coef, y)
+    fit("precompute", ("fixed", "per_psf_pixel", "per_fft_second", "per_beam_pixel"),
+        [[1.0, r["psf_shape"][0] * r["psf_shape"][1], t["precompute"],
+          r["n_scales"] * (2 * r["size"] - 1) ** 2] for r, t in zip(pts, ffts)],
+        [r["precompute_s"] for r in pts])
+    upd = [(r, t) for r, t in zip(pts, ffts) if r["updates"] > 0]
+    fit("round", ("fixed", "per_fft_second", "per_plane_pixel"),
+        [[1.0, t["round"], r["n_scales"] * r["size"] ** 2] for r, t in upd],
+        [r["round_s"] for r, _ in upd])
+    fit("major", ("fixed", "per_fft_second", "per_plane_pixel"),
+        [[1.0, t["major"], r["size"] ** 2] for r, t in zip(pts, ffts)],
+        [r["major_s"] for r in pts])
+    fit("stats", ("fixed", "per_fft_second", "per_plane_pixel"),
+        [[1.0, t["stats"], r["n_scales"] * r["size"] ** 2] for r, t in zip(pts, ffts)],
+        [r["stats_s"] for r in pts])
+    psf_s = cal["precompute"]["per_psf_pixel"]      # the operator checks the PSF too
+    fit("setup", ("fixed", "per_fft_second"), [[1.0, t["setup"]] for t in ffts],
+        [r["setup_s"] - psf_s * r["psf_shape"][0] * r["psf_shape"][1] for r in pts])
+    loops = [row for r in pts for row in r["loops"] if row[1] > 0 and row[2] > 0]
+    if len(loops) >= 4:
+        fit("loop", cost.LOOP_TERMS, [cost.loop_features(a, m) for a, m, _ in loops],
+            [t for _, _, t in loops])
+    runs = [r for r in sweep.get("runs", []) if r["major_cycles"] > 0]
+    if runs:
+        rho = [r["rounds"] / (len(r["scales"]) * r["major_cycles"]) for r in runs]
+        alpha = [r["active_pixels"] / (r["image_shape"][0] * r["image_shape"][1]) for r in runs]
+        off = [r["major_cycles"] - math.log(max(r["dynamic_range"] or 1.0, 1.0)) / math.log(5.0)
+               for r in runs]
+        cal["counts"] = {"rounds_per_scale_cycle": float(np.median(rho)),
+                         "active_fraction": float(np.median(alpha)),
+                         "cycles_offset": float(np.clip(np.median(off), 0.0, 5.0))}
+    ft = sorted(sweep.get("fft_threads", []), key=lambda r: r["threads"])
+    lt = sorted(sweep.get("loop_threads", []), key=lambda r: r["threads"])
+    cal["threads"] = {
+        "fft_parallel": _parallel_fraction(ft[0]["seconds"], ft[-1]["seconds"],
+                                           ft[-1]["threads"]) if ft else 0.0,
+        "loop_parallel": _parallel_fraction(lt[0]["seconds"], lt[-1]["seconds"],
+                                            lt[-1]["threads"]) if lt else 0.0,
+        "measured_with": float(ft[-1]["threads"]) if ft else 1.0}
+    one = dict(cal, memory={"scale": 1.0})
+    ratios = [r["traced_peak"] / cost.predict_memory(g, one)["peak"] for r, g in zip(pts, geo)]
+    cal["memory"] = {"scale": float(np.median(ratios))}
+    cal["fit"]["memory"] = _misfit(np.median(ratios), ratios)
+    cal["range"] = {"max_image_pixels": max(r["size"] ** 2 for r in pts)}
+    cold = sweep.get("cold_start", [])
+    if cold:   # imports and the first run's extra, against the warm model of that run
+        c = cold[0]
+        warm = cost.plan_run((c["size"],) * 2, (2 * c["size"],) * 2, c["scales"],
+                             components=c["components"], rounds=c["rounds"],
+                             major_cycles=c["cycles"], threads=1, calibration=cal,
+                             fresh_process=False, memory_available=1 << 62).total_seconds
+        cal["startup"] = {"fixed": max(c["imports_s"] + c["seconds"] - warm, 0.0)}
+    return cal
+
+
+def summarize(sweep, calibration=None):
+    """Exponents, model-to-measurement ratios per point and the validation's ratios."""
+    cal = calibration or sweep["calibration"]
+    pts = sweep["points"]
+    ex = {}
+    for n in sorted({r["size"] for r in pts}):
+        rows = [r for r in pts if r["size"] == n]
+        if len(rows) >= 2:
+            ns = [r["n_scales"] for r in rows]
+            ex.setdefault("precompute_vs_scales", {})[n] = fit_power_law(
+                ns, [r["precompute_s"] for r in rows])["exponents"][0]
+            ex.setdefault("round_vs_scales", {})[n] = fit_power_law(
+                ns, [max(r["round_s"], 1e-6) for r in rows])["exponents"][0]
+            ex.setdefault("memory_vs_scales", {})[n] = fit_power_law(
+                ns, [r["traced_peak"] for r in rows])["exponents"][0]
+    by_set = {}
+    for r in pts:
+        by_set.setdefault(tuple(r["scales"]), []).append(r)
+    for key, name in (("round_s", "round_vs_image_area"), ("major_s", "major_vs_image_area"),
+                      ("precompute_s", "precompute_vs_image_area")):
+        ex[name] = {",".join(f"{s:g}" for s in k): fit_power_law(
+            [r["size"] ** 2 for r in v], [max(r[key], 1e-6) for r in v])["exponents"][0]
+            for k, v in by_set.items() if len({r["size"] for r in v}) > 1}
+    for r in pts:
+        g = _geometry(r)
+        t = cost.predict_times(g, cal)
+        lp = sum(cost.loop_seconds(t, m, a) for a, m, _ in r["loops"])
+        r["model"] = {"precompute_s": t["precompute"], "round_s": t["round"],
+                      "major_s": t["major"], "stats_s": t["stats"],
+                      "loops_s": lp, "loops_measured_s": sum(x[2] for x in r["loops"]),
+                      "memory": cost.predict_memory(g, cal)["peak"]}
+    worst = {}
+    for v in sweep.get("validation", []):
+        for label, ratios in v.get("ratios", {}).items():
+            for k, x in ratios.items():
+                if x is not None:
+                    worst.setdefault(label, {}).setdefault(k, []).append(x)
+    return {"exponents": ex, "validation_ratios": worst}

@@ -1,0 +1,459 @@
+"""Multi-scale emission detection: one home for the scale advisor and the automatic mask.
+
+The residual (or dirty image) is smoothed by unit-sum Gaussians at a ladder of
+widths.  Smoothing lowers the noise (white noise of rms ``n`` smoothed by a unit-sum
+kernel ``k`` has rms ``n sqrt(sum k^2)``, analytic), so broad emission that is faint per
+pixel stands out once smoothed.  Each smoothed image is compared against its own
+noise, measured where it holds no emission: the robust noise
+(`skyscale.core.noise.robust_noise`, 1.4826 MAD [1]_) is estimated, the pixels above the
+detection level are left out together with a margin of half the smoothed beam, and
+the estimate is repeated until it settles.  A structure is found at the smoothing
+where it is significant, and measured only where it is extended: where the smoothing
+raised its peak signal-to-noise (it is resolved there) or where it had already been
+detected whole at the rung before; an unresolved source, or several of them blurred
+together, loses signal-to-noise as the smoothing grows and is mostly new blur.
+
+References
+----------
+.. [1] Rousseeuw, P. J. & Croux, C. 1993, JASA 88, 1273 (robust noise).
+.. [2] Cornwell, T. J. 2008, IEEE J. Sel. Topics Signal Process. 2(5), 793
+   (multi-scale: structure is detected at the scale that matches it).
+"""
+
+import logging
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import fft as sfft
+from scipy import ndimage
+from scipy.spatial import ConvexHull, QhullError
+from scipy.spatial.distance import pdist
+
+from skyscale.core.beam import FWHM_PER_SIGMA, gaussian_area
+from skyscale.core.noise import robust_noise
+from skyscale.masks.profiles import (fit_profile, seen_point, subtract_point, transfer_of_beam,
+                                     transfer_of_psf)
+
+__all__ = ["FWHM_PER_SIGMA", "LADDER_RATIO", "COMPACT_APART", "DIAMETER_MEASURES",
+           "Island", "Detection", "smoothing_ladder", "smoothed_images",
+           "emission_free_noise", "point_island", "detect_emission"]
+
+logger = logging.getLogger(__name__)
+
+
+#: Successive smoothing widths of the ladder grow by this factor.
+LADDER_RATIO = 2.0
+
+#: How an island's diameter is measured: the diameter of the circle with the contour's
+#: area (default; steady against noisy edges) or the maximum Feret diameter (largest
+#: distance across; never underestimates an elongated source, but reads high on a
+#: noisy edge).
+DIAMETER_MEASURES = ("equal_area", "feret")
+
+#: The noise is estimated from an even subsample of at most this many pixels.
+NOISE_SAMPLES = 1 << 16
+
+#: Rounds of the emission-excluding noise estimate (it settles in two or three).
+NOISE_ROUNDS = 4
+
+#: An island is taken as extended at a rung (and measured there) when its peak
+#: signal-to-noise is at least this multiple of the previous rung's over the same
+#: pixels (smoothing helped: it is resolved), ...
+RESOLVED_GAIN = 1.0
+
+#: ... or when at least this fraction of its pixels was already detected at the
+#: previous rung (it is the same emission, seen whole).  Unresolved sources blurred
+#: together by a wide kernel pass neither test: they lose signal-to-noise, and their
+#: island at the wider rung is mostly new blur (a quarter of it was detected before
+#: for one source when the width doubles, a Gaussian's area growing as its width
+#: squared).  The unsmoothed image and the first rung count as extended.
+RESOLVED_COVER = 0.5
+
+#: An extended island's size is trusted (``measured``) where its peak is at least this
+#: multiple of the detection level, so that its contour at half the peak lies above
+#: the detection level, ...
+MEASURE_PEAK = 2.0
+
+#: ... and where the smoothing is at most this multiple of the beam or of the size seen
+#: at half the island's peak less the smoothed beam's (in quadrature; a conservative
+#: reading: no compact source or loose fit inflates it).  Wider, the smoothing dwarfs
+#: the size: the profile no longer pins the shape nor its size, and the rung that
+#: maximises a structure's signal-to-noise is never wider than its size.
+MEASURE_WIDTH = 1.0
+
+#: A compact source fitted on a structure at least this many smoothed beams across is
+#: subtracted (seen through the PSF, sidelobes and all) and the structure fitted again;
+#: on a smaller one the two are nearly one profile (taking out the compact part would
+#: carve a flat top into a Gaussian, and fitting both lets a wider disk with a point
+#: at its centre pass for the structure): the structure is fitted alone.
+COMPACT_APART = 2.0
+
+
+# ------------------------------------------------------------------------- smoothing
+
+def smoothing_ladder(beam_fwhm_px, shape, *, ratio=LADDER_RATIO, image_fraction=0.25):
+    """Smoothing FWHMs in pixels: 0, the beam, then growing by ``ratio`` while at most
+    ``image_fraction`` of the image's smaller side.
+
+    Examples
+    --------
+    >>> smoothing_ladder(4.0, (256, 256))
+    (0.0, 4.0, 8.0, 16.0, 32.0, 64.0)
+    """
+    top = image_fraction * min(shape)
+    ladder = [0.0]
+    width = float(beam_fwhm_px)
+    while width <= top * (1 + 1e-9):
+        ladder.append(width)
+        width *= ratio
+    return tuple(ladder)
+
+
+def smoothed_images(image, smoothing_px):
+    """Yield ``(fwhm, smoothed image)`` for each FWHM, one forward FFT for all.
+
+    The kernels are unit-sum round Gaussians; FWHMs below half a pixel give the image
+    itself.  The image is zero-padded by four sigmas of the widest kernel (at most
+    its own size), so emission does not wrap around the edges.  The transforms are
+    single precision (float32 in and out), ample for finding emission.
+    """
+    sigmas = [w / FWHM_PER_SIGMA if w >= 0.5 else 0.0 for w in smoothing_px]
+    widest = max(sigmas) if sigmas else 0.0
+    ny, nx = image.shape
+    spec = fy = fx = shape = None
+    if widest > 0:
+        pad = min(int(math.ceil(4 * widest)), max(ny, nx))
+        shape = (sfft.next_fast_len(ny + 2 * pad, real=True),
+                 sfft.next_fast_len(nx + 2 * pad, real=True))
+        spec = sfft.rfft2(image.astype(np.float32, copy=False), s=shape)
+        fy = sfft.fftfreq(shape[0])[:, None] ** 2
+        fx = sfft.rfftfreq(shape[1])[None, :] ** 2
+    done = {}
+    for width, sig in zip(smoothing_px, sigmas):
+        if sig not in done:
+            if sig == 0:
+                done[sig] = image
+            else:
+                # Fourier transform of a unit-sum Gaussian (analytic).
+                transfer = np.exp(-2 * np.pi ** 2 * sig ** 2 * (fy + fx))
+                done[sig] = sfft.irfft2(spec * transfer.astype(spec.real.dtype),
+                                        s=shape)[:ny, :nx]
+        yield float(width), done[sig]
+
+
+def emission_free_noise(smoothed, sigma, *, exclude=None, margin_px=0.0):
+    """Robust noise of a smoothed image, measured where it holds no emission.
+
+    Parameters
+    ----------
+    smoothed : (ny, nx) ndarray
+    sigma : float
+        Pixels beyond ``sigma`` times the current estimate (either sign) count as
+        emission and are left out, with a margin, before the next estimate.
+    exclude : (ny, nx) ndarray of bool, optional
+        Pixels always left out (for example those holding model flux).
+    margin_px : float
+        Radius in pixels of the margin around excluded pixels.
+
+    Returns
+    -------
+    noise : float
+        ``robust_noise`` (1.4826 MAD, [1]_) of the pixels left, from an even subsample
+        of at most `NOISE_SAMPLES` pixels.  When emission would leave fewer than a
+        tenth of the pixels, the last estimate that left more is kept.
+    """
+    step = max(1, int(math.sqrt(smoothed.size / NOISE_SAMPLES)))
+    data = smoothed[::step, ::step]
+    fixed = None if exclude is None else np.asarray(exclude, dtype=bool)[::step, ::step]
+    if fixed is not None and fixed.mean() > 0.9:
+        fixed = None
+    noise = robust_noise(data, mask=fixed)
+    radius = margin_px / step
+    for _ in range(NOISE_ROUNDS):
+        if noise <= 0:
+            break
+        out = np.abs(data) > sigma * noise
+        if radius >= 1 and out.any():
+            out = ndimage.distance_transform_edt(~out) <= radius
+        if fixed is not None:
+            out |= fixed
+        if out.mean() > 0.9:
+            break
+        new = robust_noise(data, mask=out)
+        if abs(new - noise) <= 1e-3 * noise:
+            noise = new
+            break
+        noise = new
+    return float(noise)
+
+
+# --------------------------------------------------------------------------- islands
+
+def _feret(ys, xs):
+    """Largest distance across a set of pixels, centre to centre plus one pixel."""
+    pts = np.column_stack([ys, xs]).astype(np.float64)
+    if len(pts) > 3:
+        try:
+            pts = pts[ConvexHull(pts).vertices]
+        except QhullError:          # collinear pixels: the extremes are among them all
+            pass
+    if len(pts) < 2:
+        return 1.0
+    return float(pdist(pts).max()) + 1.0
+
+
+def _diameter(ys, xs, measure):
+    if measure == "feret":
+        return _feret(ys, xs)
+    return 2.0 * math.sqrt(len(ys) / math.pi)
+
+
+def point_island(fwhm, contrast, measure="equal_area"):
+    """Diameter of the island an unresolved source makes: a round Gaussian of ``fwhm``
+    pixels, ``contrast`` times the contour level at its peak pixel, sampled on the
+    pixel grid and measured like any island (0 for a contrast of 1 or less)."""
+    if contrast <= 1.0:
+        return 0.0
+    radius = 0.5 * fwhm * math.sqrt(math.log2(contrast))     # continuous contour
+    half = int(math.ceil(radius)) + 1
+    yy, xx = np.mgrid[-half:half + 1, -half:half + 1]
+    inside = contrast * np.exp2(-4.0 * (yy * yy + xx * xx) / (fwhm * fwhm)) > 1.0
+    return _diameter(*np.nonzero(inside), measure)
+
+
+@dataclass(frozen=True)
+class Island:
+    """One island of emission at one rung of the smoothing ladder.
+
+    Attributes
+    ----------
+    smoothing_px : float
+        FWHM of the smoothing where it was found (0 = none).
+    area : int
+        Pixels above the detection level.
+    peak_snr : float
+        Its peak in units of that rung's noise.
+    gain : float or None
+        ``peak_snr`` over the previous rung's peak signal-to-noise on the same pixels;
+        None at the first rung.
+    cover : float or None
+        Fraction of its pixels detected at the previous rung; None at the first.
+    diameter_px : float
+        Diameter of its contour at half the peak of its extended part (or at the
+        detection level when that is higher), as measured on the smoothed image.
+    intrinsic_px : float
+        The size of the shape fitted to its profile (`skyscale.masks.profiles.fit_profile`),
+        seen through the PSF and the smoothing, with an unresolved source on it: a
+        disk's diameter or a Gaussian's FWHM; with ``diameter='feret'``, times the
+        ratio of the seen contour's Feret diameter to its equal-area diameter.
+    resolved : bool
+        Extended at this rung (see `RESOLVED_GAIN` and `RESOLVED_COVER`).
+    measured : bool
+        Extended, and its size trusted (see `MEASURE_PEAK` and `MEASURE_WIDTH`).
+    shape : str
+        The shape fitted (`skyscale.masks.profiles.SHAPES`, or ``"point"``).
+    peak : float
+        Peak of its extended part, as seen on the smoothed image (0: none fits).
+    compact : float
+        Peak of the unresolved source fitted on it, as seen on the smoothed image.
+    """
+
+    smoothing_px: float
+    area: int
+    peak_snr: float
+    gain: float
+    cover: float
+    diameter_px: float
+    intrinsic_px: float
+    resolved: bool
+    measured: bool
+    shape: str = ""
+    peak: float = 0.0
+    compact: float = 0.0
+
+
+@dataclass
+class Detection:
+    """What `detect_emission` found.
+
+    Attributes
+    ----------
+    smoothing_px : tuple of float
+        The ladder (FWHM, pixels).
+    noise : tuple of float
+        Emission-free robust noise of each smoothed image.
+    sigma : float
+        Detection level in units of each rung's noise.
+    mask : (ny, nx) ndarray of bool
+        Pixels above the level at any rung (the union).
+    islands : list of Island
+        Positive islands of at least ``min_area`` pixels at every rung, when measured.
+    """
+
+    smoothing_px: tuple
+    noise: tuple
+    sigma: float
+    mask: np.ndarray
+    islands: list
+
+    @property
+    def thresholds(self):
+        """Detection level of each rung, ``sigma * noise``."""
+        return tuple(self.sigma * n for n in self.noise)
+
+
+def _islands(sm, sigma, noise, previous, width, beam, min_area, measure, first, transfer,
+             psf):
+    """Positive islands of one rung, measured (``beam``: ``(geometric mean, major)``)."""
+    level = sigma * noise
+    labels, n = ndimage.label(sm > level, structure=np.ones((3, 3), dtype=bool))
+    if n == 0:
+        return []
+    areas = np.bincount(labels.ravel(), minlength=n + 1)
+    spread = math.hypot(beam[1], width)
+    found, point, ranked = [], None, None
+    for k, sl in enumerate(ndimage.find_objects(labels), start=1):
+        if sl is None or areas[k] < min_area:
+            continue
+        inside = labels[sl] == k
+        values = sm[sl][inside]
+        peak = float(values.max())
+        gain = cover = None
+        if previous is not None:
+            prev_img, prev_noise = previous
+            before = prev_img[sl][inside]
+            prev_snr = float(before.max()) / prev_noise
+            gain = math.inf if prev_snr <= 0 else (peak / noise) / prev_snr
+            cover = float(np.mean(before > sigma * prev_noise))
+        # The guard: the size seen at half the island's own peak, less what an
+        # unresolved source makes there (in quadrature); small for a point, even one
+        # on a structure, and never inflated by a fit that the profile cannot pin.
+        top = max(level, 0.5 * peak)
+        seen = _diameter(*np.nonzero(inside & (sm[sl] >= top)), measure)
+        guard = math.sqrt(max(seen * seen - point_island(spread, peak / top, measure) ** 2,
+                              0.0))
+        resolved = first or (gain is not None and
+                             (gain >= RESOLVED_GAIN or cover >= RESOLVED_COVER))
+        measured = resolved and peak >= MEASURE_PEAK * level \
+            and width <= MEASURE_WIDTH * max(guard, beam[1])
+        if not measured:            # the guard's reading; no profile fitted
+            found.append(Island(width, int(areas[k]), peak / noise, gain, cover, seen,
+                                guard, resolved, False))
+            continue
+        if point is None:           # the seen point, once per rung
+            point = seen_point(psf, width, beam[0])
+            ranked = np.sort(point.ravel())[::-1]
+        fit = fit_profile(values, transfer, width, beam[0], ranked, noise)
+        compact = fit.compact
+        if fit.flux > 0 and fit.size_px >= COMPACT_APART * spread:
+            # take the compact source out, sidelobes and all, and fit again
+            box = np.where(inside, sm[sl], 0.0)
+            at = np.unravel_index(int(np.argmax(box)), box.shape)
+            fit = fit_profile(subtract_point(box, point, at, fit.flux)[inside], transfer,
+                              width, beam[0], ranked, noise)
+            compact += fit.compact
+        elif fit.shape != "point" and fit.size_px < COMPACT_APART * spread:
+            # too small to tell a compact source on it apart: the structure alone
+            fit = fit_profile(values, transfer, width, beam[0], ranked, noise,
+                              compact=False)
+            compact = 0.0
+        if fit.peak < level:        # no extended part above the detection level
+            found.append(Island(width, int(areas[k]), peak / noise, gain, cover, seen,
+                                0.0, True, True, "point", 0.0, compact))
+            continue
+        ys, xs = np.nonzero(inside & (sm[sl] >= max(level, 0.5 * fit.peak)))
+        across = _diameter(ys, xs, measure)
+        intrinsic = fit.size_px
+        if measure == "feret" and len(ys):
+            intrinsic *= max(1.0, across / _diameter(ys, xs, "equal_area"))
+        found.append(Island(width, int(areas[k]), peak / noise, gain, cover, across,
+                            intrinsic, True, True, fit.shape, fit.peak, compact))
+    return found
+
+
+def detect_emission(image, beam_fwhm_px, smoothing_px=None, *, sigma=5.0, exclude=None,
+                    include_negative=False, measure=False, beam_major_px=None,
+                    min_area=None, diameter="equal_area", reference_noise=None, psf=None):
+    """Detect emission in an image smoothed at a ladder of widths.
+
+    Parameters
+    ----------
+    image : (ny, nx) ndarray
+        Residual or dirty image (Jy/beam), finite, float64 or float32.
+    beam_fwhm_px : float
+        Beam FWHM in pixels (sets the default ladder, the noise margin and the
+        smallest island).
+    smoothing_px : sequence of float, optional
+        Smoothing FWHMs in pixels; default `smoothing_ladder`.
+    sigma : float
+        Detection level in units of each rung's own noise.  Default 5.
+    exclude : (ny, nx) ndarray of bool, optional
+        Pixels left out of every noise estimate.
+    include_negative : bool
+        Also detect significant negative values (the mask only; islands are
+        positive).
+    measure : bool
+        Measure the positive islands (`Island`); default only the mask and noise.
+    beam_major_px : float, optional
+        Beam major axis for the broadening correction; default ``beam_fwhm_px``.
+    min_area : int, optional
+        Islands with fewer pixels are not measured; default a quarter of the beam
+        area, at least 2 pixels.
+    diameter : {'equal_area', 'feret'}
+        How an island's contour is measured (`DIAMETER_MEASURES`).
+    reference_noise : float, optional
+        The unsmoothed image's noise from a better estimate (the deconvolution's own,
+        which broad emission cannot inflate).  When it is below this routine's estimate
+        at the first rung, every rung's noise is scaled down by their ratio: emission
+        the exclusion missed inflated them all.
+    psf : (py, px) ndarray, optional
+        The PSF (peak at ``(py // 2, px // 2)``) the islands' profiles are fitted
+        through; default a round Gaussian beam of ``beam_fwhm_px``.
+
+    Returns
+    -------
+    Detection
+
+    Notes
+    -----
+    An island's size is that of the disk or Gaussian whose profile, seen through the
+    PSF and the smoothing with an unresolved source on it, fits the island's
+    (`skyscale.masks.profiles.fit_profile`): its diameter at half its own peak, so a
+    Gaussian reads as its FWHM and a disk as its diameter, whatever its brightness
+    and whatever compact source sits on it.  Islands are 8-connected.
+    """
+    ladder = smoothing_ladder(beam_fwhm_px, image.shape) if smoothing_px is None \
+        else tuple(float(w) for w in smoothing_px)
+    major = float(beam_fwhm_px if beam_major_px is None else beam_major_px)
+    transfer = None
+    if measure:
+        transfer = transfer_of_beam(beam_fwhm_px) if psf is None else transfer_of_psf(psf)
+    if min_area is None:
+        min_area = max(2, int(round(0.25 * gaussian_area(beam_fwhm_px, beam_fwhm_px))))
+    mask = np.zeros(image.shape, dtype=bool)
+    noises, islands = [], []
+    previous = None
+    correction = 1.0
+    for i, (width, sm) in enumerate(smoothed_images(image, ladder)):
+        margin = 0.5 * math.hypot(beam_fwhm_px, width)
+        noise = emission_free_noise(sm, sigma, exclude=exclude, margin_px=margin)
+        if noise == 0:
+            noise = float(np.std(sm))
+        if i == 0 and reference_noise is not None and 0 < reference_noise < noise:
+            correction = float(reference_noise) / noise
+        noise *= correction
+        noises.append(noise)
+        if noise == 0:
+            previous = None
+            continue
+        level = sigma * noise
+        mask |= (np.abs(sm) if include_negative else sm) > level
+        if measure:
+            islands.extend(_islands(sm, sigma, noise, previous, width,
+                                    (float(beam_fwhm_px), major), min_area, diameter,
+                                    i < 2, transfer, psf))
+            previous = (sm, noise)
+    logger.debug("emission detected at %d rungs %s px; noise %s", len(ladder), ladder,
+                 ", ".join(f"{n:.3g}" for n in noises))
+    return Detection(ladder, tuple(noises), float(sigma), mask, islands)
