@@ -4,7 +4,7 @@ Two emission-excluding robust noise estimators exist: the engine's
 (`skyscale.core.noise.emission_free_noise`: the finite pixels outside the grown mask and
 the border, 1.4826 MAD, values beyond ``CLIP_SIGMA`` = 4 robust sigmas of the median
 dropped for good, three passes) and the emission mask's
-(`skyscale.masks.detect.emission_free_noise`: 1.4826 MAD of the pixels outside the excluded
+(`skyscale.core.noise.detection_noise`: 1.4826 MAD of the pixels outside the excluded
 ones, then up to four rounds that exclude every pixel beyond the *detection* sigma of
 zero together with a margin of half the smoothed beam around it, recomputed from all
 pixels each round, until the estimate changes by under 0.1 %).  Both are
@@ -35,7 +35,7 @@ HERE = os.path.dirname(os.path.abspath(__file__))
 sys.path.insert(0, os.path.join(HERE, "..", "engine"))
 
 import skyscale  # noqa: E402
-from skyscale import noise  # noqa: E402
+from skyscale.core import noise  # noqa: E402
 from skyscale.io.fits import read_image  # noqa: E402
 from skyscale.masks import detect
 import skyscale.core.beam  # noqa: E402
@@ -67,16 +67,16 @@ def main():
     print(f"noise of the true sky's residual: {truth.get('noise_jy_per_beam')}")
     print(f"{'width px':>8} {'mask rule':>11} {'engine rule':>12} {'ratio':>6}")
     for width, sm in detect.smoothed_images(dirty, widths):
-        a = detect.emission_free_noise(sm, 5.0, margin_px=0.5 * math.hypot(fwhm, width))
+        a = noise.detection_noise(sm, 5.0, margin_px=0.5 * math.hypot(fwhm, width))
         b = engine_rule(sm, 5.0)
         print(f"{width:>8.1f} {a:>11.4g} {b:>12.4g} {b / a:>6.3f}")
     own = run(dirty, psf)
-    saved = detect.emission_free_noise
-    detect.emission_free_noise = engine_rule
+    saved = detect.detection_noise
+    detect.detection_noise = engine_rule
     try:
         swapped = run(dirty, psf)
     finally:
-        detect.emission_free_noise = saved
+        detect.detection_noise = saved
     print(f"true flux {truth['total_flux_jy']:.4g} Jy")
     for label, r in (("mask's own estimator", own), ("engine's estimator", swapped)):
         print(f"{label:>22}: " + ", ".join(f"{k} {v:.5g}" if isinstance(v, float)

@@ -11,9 +11,9 @@ from scipy import ndimage
 from scipy.stats import ncx2
 
 from skyscale import EmissionMask
-from skyscale.masks.detect import (FWHM_PER_SIGMA, detect_emission, emission_free_noise,
-                                   smoothed_images, smoothing_ladder)
-from skyscale.core.noise import robust_noise
+from skyscale.core.noise import detection_noise, robust_noise
+from skyscale.masks.detect import (FWHM_PER_SIGMA, detect_emission, smoothed_images,
+                                   smoothing_ladder)
 from skyscale.masks.profiles import seen_profile, transfer_of_beam, transfer_of_psf
 from tests.advisor_fields import (BEAM, gaussian_psf, make_field, noise_field, point_field,
                                   source_with_compact)
@@ -59,7 +59,7 @@ def test_noise_is_measured_off_the_emission():
     yy, xx = np.mgrid[:256, :256]
     image = noise + 8.0 * (np.hypot(yy - 128, xx - 128) < 75)
     assert robust_noise(image) > 1.3
-    assert emission_free_noise(image, 5.0, margin_px=2.0) == pytest.approx(
+    assert detection_noise(image, 5.0, margin_px=2.0) == pytest.approx(
         robust_noise(noise), rel=0.05)
 
 

@@ -31,13 +31,13 @@ from scipy.spatial import ConvexHull, QhullError
 from scipy.spatial.distance import pdist
 
 from skyscale.core.beam import FWHM_PER_SIGMA, gaussian_area
-from skyscale.core.noise import robust_noise
+from skyscale.core.noise import detection_noise
 from skyscale.masks.profiles import (fit_profile, seen_point, subtract_point, transfer_of_beam,
                                      transfer_of_psf)
 
 __all__ = ["FWHM_PER_SIGMA", "LADDER_RATIO", "COMPACT_APART", "DIAMETER_MEASURES",
            "Island", "Detection", "smoothing_ladder", "smoothed_images",
-           "emission_free_noise", "point_island", "detect_emission"]
+           "point_island", "detect_emission"]
 
 logger = logging.getLogger(__name__)
 
@@ -50,12 +50,6 @@ LADDER_RATIO = 2.0
 #: distance across; never underestimates an elongated source, but reads high on a
 #: noisy edge).
 DIAMETER_MEASURES = ("equal_area", "feret")
-
-#: The noise is estimated from an even subsample of at most this many pixels.
-NOISE_SAMPLES = 1 << 16
-
-#: Rounds of the emission-excluding noise estimate (it settles in two or three).
-NOISE_ROUNDS = 4
 
 #: An island is taken as extended at a rung (and measured there) when its peak
 #: signal-to-noise is at least this multiple of the previous rung's over the same
@@ -140,52 +134,6 @@ def smoothed_images(image, smoothing_px):
                 done[sig] = sfft.irfft2(spec * transfer.astype(spec.real.dtype),
                                         s=shape)[:ny, :nx]
         yield float(width), done[sig]
-
-
-def emission_free_noise(smoothed, sigma, *, exclude=None, margin_px=0.0):
-    """Robust noise of a smoothed image, measured where it holds no emission.
-
-    Parameters
-    ----------
-    smoothed : (ny, nx) ndarray
-    sigma : float
-        Pixels beyond ``sigma`` times the current estimate (either sign) count as
-        emission and are left out, with a margin, before the next estimate.
-    exclude : (ny, nx) ndarray of bool, optional
-        Pixels always left out (for example those holding model flux).
-    margin_px : float
-        Radius in pixels of the margin around excluded pixels.
-
-    Returns
-    -------
-    noise : float
-        ``robust_noise`` (1.4826 MAD, [1]_) of the pixels left, from an even subsample
-        of at most `NOISE_SAMPLES` pixels.  When emission would leave fewer than a
-        tenth of the pixels, the last estimate that left more is kept.
-    """
-    step = max(1, int(math.sqrt(smoothed.size / NOISE_SAMPLES)))
-    data = smoothed[::step, ::step]
-    fixed = None if exclude is None else np.asarray(exclude, dtype=bool)[::step, ::step]
-    if fixed is not None and fixed.mean() > 0.9:
-        fixed = None
-    noise = robust_noise(data, mask=fixed)
-    radius = margin_px / step
-    for _ in range(NOISE_ROUNDS):
-        if noise <= 0:
-            break
-        out = np.abs(data) > sigma * noise
-        if radius >= 1 and out.any():
-            out = ndimage.distance_transform_edt(~out) <= radius
-        if fixed is not None:
-            out |= fixed
-        if out.mean() > 0.9:
-            break
-        new = robust_noise(data, mask=out)
-        if abs(new - noise) <= 1e-3 * noise:
-            noise = new
-            break
-        noise = new
-    return float(noise)
 
 
 # --------------------------------------------------------------------------- islands
@@ -437,7 +385,7 @@ def detect_emission(image, beam_fwhm_px, smoothing_px=None, *, sigma=5.0, exclud
     correction = 1.0
     for i, (width, sm) in enumerate(smoothed_images(image, ladder)):
         margin = 0.5 * math.hypot(beam_fwhm_px, width)
-        noise = emission_free_noise(sm, sigma, exclude=exclude, margin_px=margin)
+        noise = detection_noise(sm, sigma, exclude=exclude, margin_px=margin)
         if noise == 0:
             noise = float(np.std(sm))
         if i == 0 and reference_noise is not None and 0 < reference_noise < noise:
