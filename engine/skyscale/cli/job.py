@@ -133,13 +133,15 @@ def stop_rule(params):
     return f"each scale stops at {nu:g} x its own measured noise" + deeper
 
 
-def scales_in_pixels(params, cell, dirty, psf, reasons, label="scales"):
-    """Scale diameters in pixels from merged run parameters (``'auto'`` asks the advisor
-    and appends its reasons to ``reasons``; arcsec scales are divided by ``cell``)."""
+def scales_in_pixels(params, cell, dirty, psf, reasons, label="scales", beam=None):
+    """Scale diameters in pixels from merged run parameters (``'auto'`` asks the advisor,
+    with the run's restoring ``beam`` when it is known, and appends its reasons to
+    ``reasons``; arcsec scales are divided by ``cell``)."""
     scales = params["scales"]
     if isinstance(scales, str):     # 'auto': the same advisor call as deconvolve's
         from skyscale.advisor.suggest import resolve_scales
-        pixels, why = resolve_scales(scales, dirty, psf, cell_arcsec=cell)
+        options = {} if beam is None else {"beam": beam}
+        pixels, why = resolve_scales(scales, dirty, psf, cell_arcsec=cell, **options)
         reasons.extend(why)
         return list(pixels)
     values = [float(v) for v in scales]
@@ -322,7 +324,8 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
     from skyscale.core.beam import fit_beam
     fitted = beam if beam is not None else fit_beam(psf.data)   # the run's one beam fit
     reasons = []
-    scales_px = scales_in_pixels(merged, cell, data, psf.data, reasons, labels["scales"])
+    scales_px = scales_in_pixels(merged, cell, data, psf.data, reasons, labels["scales"],
+                                 beam=fitted)
     scale_warnings = []
     if not reasons:   # the user's own set: check it against the rules of thumb
         from skyscale.advisor.suggest import check_scales
