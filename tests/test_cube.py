@@ -216,6 +216,12 @@ def test_all_nan_plane_is_skipped_on_a_local_cluster_that_is_closed_after(refere
     assert result.complete and result.skipped == [2]
     assert result.report["cluster"]["kind"] == "local"
     assert result.report["cluster"]["address"].startswith("tcp://127.0.0.1:")
+    # the threads of a plane in effect are recorded, not left null (the local cluster
+    # gives each of its 2 workers cores // 2 threads, at least 1)
+    threads = result.report["cluster"]["threads"]
+    assert isinstance(threads, int) and threads >= 1
+    assert result.report["parameters"]["threads"] == threads
+    assert result.report["machine"]["threads"] == threads
     row = result.report["planes"][2]
     assert row["status"] == "skipped" and "NaN" in row["reason"]
     model = cube_data(tmp_path / "out" / "model.fits")[0]

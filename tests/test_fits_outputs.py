@@ -164,3 +164,31 @@ def test_four_d_input_with_plane_psf(tmp_path):
                               {"scales": [0], "max_components": 50, "plots": False})
     h = fits.getheader(written["restored"])
     assert h["NAXIS"] == 4 and (h["CTYPE3"], h["CTYPE4"]) == ("FREQ", "STOKES")
+
+
+def test_cube_outputs_keep_the_same_cards_as_image_outputs():
+    # The cube writer applies the rule of write_image: axis and observation cards as
+    # written (checked with astropy.wcs), nothing that described the input's data.
+    from types import SimpleNamespace
+
+    from astropy.wcs import WCS
+
+    from skyscale.cube.fits import _output_header
+    from tests.cubedata import header as cube_header
+    h = fits.Header({"SIMPLE": True, "BITPIX": -64, "NAXIS": 4, "NAXIS1": 16, "NAXIS2": 16,
+                     "NAXIS3": 5, "NAXIS4": 1})
+    h.update(cube_header(16, 5))
+    h["OBJECT"], h["TELESCOP"], h["SPECSYS"] = "test field", "TESTARRAY", "TOPOCENT"
+    h["DATAMIN"], h["DATAMAX"], h["ORIGIN"], h["BSCALE"] = -1.0, 2.0, "another writer", 1.0
+    h["COMMENT"] = "describes the input's data"
+    h["HISTORY"] = "made by another tool"
+    out = _output_header(SimpleNamespace(header=h, wcs=None), "Jy/pixel", None, ["ours"])
+    for key in ("OBJECT", "TELESCOP", "SPECSYS", "CTYPE3", "CRVAL3", "CDELT3", "CUNIT3",
+                "CTYPE4", "NAXIS3", "NAXIS4"):
+        assert out[key] == h[key], key
+    for key in ("DATAMIN", "DATAMAX", "ORIGIN", "BSCALE", "COMMENT", "MJDREF"):
+        assert key not in out, key
+    assert out["BITPIX"] == -32 and out["BUNIT"] == "Jy/pixel"
+    assert list(out["HISTORY"]) == ["ours"]
+    w_in, w_out = WCS(h), WCS(out)
+    assert w_out.spectral.pixel_to_world(2) == w_in.spectral.pixel_to_world(2)

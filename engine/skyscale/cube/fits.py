@@ -26,7 +26,8 @@ import numpy as np
 from astropy.io import fits
 from astropy.wcs import WCS, FITSFixedWarning
 
-from skyscale.io.fits import sky_position_angle, cell_size_arcsec, check_same_grid
+from skyscale.io.fits import cell_size_arcsec, check_same_grid, sky_position_angle
+from skyscale.io.fits_cards import is_axis_card, is_observation_card
 
 __all__ = ["PLANE_DTYPE", "SPECTRAL_TOLERANCE", "CubeFile", "open_cube", "check_psf_cube",
            "CubeOutput", "plane_digest"]
@@ -39,7 +40,8 @@ PLANE_DTYPE = np.dtype(">f4")
 SPECTRAL_TOLERANCE = 1e-3
 
 _BLOCK = 2880
-_DROP = ("BSCALE", "BZERO", "BLANK", "CHECKSUM", "DATASUM", "BMAJ", "BMIN", "BPA", "DATE")
+#: Structural cards of the primary header, kept with the axis lengths.
+_STRUCTURE = ("SIMPLE", "BITPIX", "NAXIS", "EXTEND")
 
 
 def plane_digest(data):
@@ -225,10 +227,18 @@ def check_psf_cube(cube, psf):
 
 
 def _output_header(like, bunit, beam, history):
-    header = like.header.copy()
-    for key in _DROP:
-        header.remove(key, ignore_missing=True, remove_all=True)
-    header.remove("HISTORY", ignore_missing=True, remove_all=True)
+    """The input cube's structure, axis and observation cards, and this output's own.
+
+    The same rule as `skyscale.io.fits.write_image` (`skyscale.io.fits_cards`): the
+    input's world-coordinate and observation cards are kept as written; its BUNIT,
+    beam, scaling, data range, checksums, HISTORY, COMMENT and unknown cards are not.
+    """
+    header = fits.Header()
+    for card in like.header.cards:
+        key = card.keyword.upper()
+        if key in _STRUCTURE or key.startswith("NAXIS") or is_axis_card(key) \
+                or is_observation_card(key):
+            header.append((card.keyword, card.value, card.comment))
     header["BITPIX"] = -32
     header["BUNIT"] = (bunit, "pixel unit")
     if beam is not None:

@@ -366,16 +366,18 @@ def _cube_report(*, cubef, psff, merged, scales_px, reasons, reference, beams, c
             row["error"] = state["failed"][i]
         planes.append(row)
     done = [p for p in planes if p["status"] == "done"]
+    # the threads of one plane in effect: the user's, else what the cluster gave each plane
+    threads = merged["threads"] if merged["threads"] is not None else info.threads
     return {
         "schema_version": 1, "kind": "cube", "complete": complete,
         "created_utc": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
         "start_utc": start.isoformat(timespec="seconds"),
-        "software": software_record(), "machine": machine_record(None),
+        "software": software_record(), "machine": machine_record(threads),
         "inputs": {"cube": cubef.identity(), "psf": psff.identity()},
         "cube": {"shape": list(cubef.shape), "planes": cubef.nplanes,
                  "plane_shape": list(cubef.plane_shape), "spectral_axis": cubef.spectral_type,
                  "cell_arcsec": cell, "psf_planes": psff.nplanes},
-        "parameters": dict(merged, scales=scales_px),
+        "parameters": dict(merged, scales=scales_px, threads=threads),
         "scales": {"pixels": scales_px,
                    "chosen": "advisor, once, on the brightest plane" if reference is not None
                    else "given, fixed for every plane",

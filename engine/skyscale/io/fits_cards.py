@@ -30,8 +30,8 @@ import re
 
 from astropy.io import fits
 
-__all__ = ["HISTORY_WIDTH", "HISTORY_INDENT", "KEPT_KEYWORDS", "is_axis_card", "kept_cards",
-           "wrap_history", "join_history"]
+__all__ = ["HISTORY_WIDTH", "HISTORY_INDENT", "KEPT_KEYWORDS", "is_axis_card",
+           "is_observation_card", "kept_cards", "wrap_history", "join_history"]
 
 #: Characters of text one HISTORY card holds [1]_.
 HISTORY_WIDTH = 72
@@ -68,7 +68,9 @@ def is_axis_card(key):
     return bool(_AXIS.match(str(key).upper()))
 
 
-def _observation_card(key):
+def is_observation_card(key):
+    """True for an observation card an output keeps (`KEPT_KEYWORDS` and their
+    alternate-WCS forms)."""
     return key in KEPT_KEYWORDS or bool(_KEPT.match(key))
 
 
@@ -117,7 +119,7 @@ def kept_cards(source, shape):
     out = fits.Header()
     for card in source.cards:
         key = card.keyword.upper()
-        if _observation_card(key) or (dims is not None and is_axis_card(key)):
+        if is_observation_card(key) or (dims is not None and is_axis_card(key)):
             out.append((card.keyword, card.value, card.comment))
     if dims is None:
         return out, tuple(shape), False
