@@ -60,7 +60,7 @@ MOVED_NAMES = {
     "load_mask": "masks",
     "regions_to_mask": "masks",
     "FitsImage": "io.fits",
-    "cell_size_arcsec": "io.fits",
+    "cell_size_arcsec": "io.grid",
     "check_same_grid": "io.fits",
     "write_table_csv": "io.fits",
     "build_report": "io.report",

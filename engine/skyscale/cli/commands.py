@@ -410,7 +410,8 @@ def cmd_cube(args):
 
 def cmd_suggest(args):
     from skyscale.advisor.suggest import check_scales, suggest_scales
-    from skyscale.io.fits import cell_size_arcsec, read_image
+    from skyscale.io.fits import read_image
+    from skyscale.io.grid import cell_size_arcsec
     from skyscale.cli import console
     dirty = read_image(args.dirty, name="dirty")
     psf = read_image(args.psf, name="psf")

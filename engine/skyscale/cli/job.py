@@ -15,8 +15,9 @@ from skyscale.io.atomic import incomplete_marker
 from skyscale.core.validate import InputError, mask_nonfinite
 from skyscale.io.components import merge_components
 from skyscale.core.driver import deconvolve
-from skyscale.io.fits import (cell_size_arcsec, check_same_grid, provenance_history,
-                              read_image, write_image, write_table_csv)
+from skyscale.io.fits import (check_same_grid, provenance_history, read_image, write_image,
+                              write_table_csv)
+from skyscale.io.grid import cell_size_arcsec
 from skyscale.cli.options import coerce_params, option_label
 from skyscale.cli.preflight import (OUTPUT_NAMES, check_units, initial_model,
                                     plan_from_headers, prepare_out, previous_outputs)

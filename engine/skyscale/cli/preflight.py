@@ -14,7 +14,8 @@ import numpy as np
 from skyscale.io.atomic import INCOMPLETE_MARKER, check_output_dir, remove_stale_temps
 from skyscale.core.validate import InputError
 from skyscale.core.beam import Beam
-from skyscale.io.fits import check_same_grid, pixel_position_angle, read_image, read_shape
+from skyscale.io.fits import check_same_grid, read_image, read_shape
+from skyscale.io.grid import pixel_position_angle
 from skyscale.cli.options import RUN_OPTION_KINDS
 
 __all__ = ["BEAM_MIN_PIXELS", "OUTPUT_NAMES", "prepare_out", "previous_outputs",

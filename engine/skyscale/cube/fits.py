@@ -26,7 +26,8 @@ import numpy as np
 from astropy.io import fits
 from astropy.wcs import WCS, FITSFixedWarning
 
-from skyscale.io.fits import cell_size_arcsec, check_same_grid, sky_position_angle
+from skyscale.io.fits import check_same_grid
+from skyscale.io.grid import cell_size_arcsec, sky_position_angle
 from skyscale.io.fits_cards import is_axis_card, is_observation_card
 
 __all__ = ["PLANE_DTYPE", "SPECTRAL_TOLERANCE", "CubeFile", "open_cube", "check_psf_cube",

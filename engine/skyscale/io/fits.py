@@ -31,23 +31,22 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 
 import numpy as np
-from astropy import units as u
 from astropy.io import fits
 from astropy.utils.exceptions import AstropyWarning
 from astropy.wcs import WCS
 
 from skyscale.core.validate import InputError, MissingFileError, as_image
 from skyscale.io.atomic import atomic_output as _atomic_output
-from skyscale.core.beam import Beam, wrap_pa
+from skyscale.core.beam import Beam
 from skyscale.io.fits_cards import HISTORY_WIDTH, is_axis_card, kept_cards, wrap_history
+from skyscale.io.grid import (SQUARE_RTOL, cell_size_arcsec, orientation, pixel_position_angle,
+                              sky_position_angle)
 
 __all__ = ["FitsImage", "HISTORY_WIDTH", "SQUARE_RTOL", "GRID_RTOL", "RESERVED_KEYWORDS",
            "read_image", "read_shape", "cell_size_arcsec", "check_same_grid", "write_image",
            "provenance_history", "write_table_csv", "sky_position_angle",
            "pixel_position_angle"]
 
-#: Largest relative difference between the x and y pixel steps of a "square" grid.
-SQUARE_RTOL = 1e-6
 #: Largest relative difference in cell size (and in the orientation matrix) between
 #: an image and its PSF.
 GRID_RTOL = 1e-5
@@ -84,90 +83,6 @@ class FitsImage:
     path: str = None
     beam: Beam = None
     bunit: str = None
-
-
-def _celestial(wcs, name):
-    if isinstance(wcs, FitsImage):
-        wcs = wcs.wcs
-    if wcs is None or not getattr(wcs, "has_celestial", False):
-        raise InputError(f"{name} has no celestial WCS; give an image whose header "
-                         "has RA/Dec-like CTYPE, CRPIX, CRVAL and CDELT or CD keywords")
-    return wcs.celestial
-
-
-def _sky_matrix(cel):
-    """Pixel (x, y) -> (east, north) intermediate offsets in arcsec, rows lng then lat."""
-    mat = np.array(cel.pixel_scale_matrix, dtype=np.float64)
-    for i, unit in enumerate(cel.wcs.cunit):
-        mat[i] *= (u.Unit(unit) if str(unit) else u.deg).to(u.arcsec)
-    return mat[[cel.wcs.lng, cel.wcs.lat]]
-
-
-def cell_size_arcsec(wcs):
-    """Return the pixel size in arcsec of a square celestial grid.
-
-    Parameters
-    ----------
-    wcs : astropy.wcs.WCS or FitsImage
-        Any WCS with celestial axes (CDELT, CD or PC with CDELT).
-
-    Returns
-    -------
-    float
-        The length of one pixel step, arcsec.
-
-    Raises
-    ------
-    ValueError
-        If there is no celestial WCS, or the x and y steps differ by more than
-        `SQUARE_RTOL` (relative), or the pixel axes are not perpendicular.
-
-    Examples
-    --------
-    >>> from astropy.wcs import WCS
-    >>> w = WCS(naxis=2); w.wcs.ctype = ["RA---SIN", "DEC--SIN"]
-    >>> w.wcs.cdelt = [-1.5 / 3600, 1.5 / 3600]
-    >>> round(cell_size_arcsec(w), 9)
-    1.5
-    """
-    mat = _sky_matrix(_celestial(wcs, "wcs"))
-    sx, sy = np.sqrt((mat ** 2).sum(axis=0))
-    if abs(sx - sy) > SQUARE_RTOL * max(sx, sy):
-        raise InputError(f"wcs pixel grid is not square: the x step is {sx:.9g} arcsec and "
-                         f"the y step {sy:.9g} arcsec; regrid the images to square pixels")
-    skew = abs(float(mat[:, 0] @ mat[:, 1])) / (sx * sy)
-    if skew > SQUARE_RTOL:
-        raise InputError(f"wcs pixel axes are not perpendicular (skew "
-                         f"{math.degrees(math.asin(min(skew, 1.0))):.6g} deg); regrid "
-                         "the images to a square, unskewed grid")
-    return float(0.5 * (sx + sy))
-
-
-def _orientation(cel):
-    """(east, north) per pixel step, normalised: a rotation, possibly with a flip."""
-    return _sky_matrix(cel) / cell_size_arcsec(cel)
-
-
-def sky_position_angle(pa_pixel, cel):
-    """Position angle east of north (degrees) of a pixel-frame angle on grid ``cel``.
-
-    The pixel frame measures from +y towards -x (east on a grid with RA increasing to
-    the left); `pixel_position_angle` is the inverse.
-    """
-    t = math.radians(pa_pixel)
-    east, north = _orientation(cel) @ np.array([-math.sin(t), math.cos(t)])
-    return wrap_pa(math.degrees(math.atan2(east, north)))
-
-
-def pixel_position_angle(pa_sky, cel):
-    """Pixel-frame angle (degrees, from +y towards -x) of a sky position angle.
-
-    ``pa_sky`` is east of north (BPA, a user's beam); the inverse of
-    `sky_position_angle` on the celestial WCS ``cel``.
-    """
-    t = math.radians(pa_sky)
-    dx, dy = np.linalg.solve(_orientation(cel), np.array([math.sin(t), math.cos(t)]))
-    return wrap_pa(math.degrees(math.atan2(-dx, dy)))
 
 
 def _header_beam(header, wcs, label):
@@ -422,7 +337,7 @@ def check_same_grid(image, psf, *, name="psf"):
     if abs(ci - cp) > GRID_RTOL * ci:
         raise InputError(f"{name} cell size is {cp:.9g} arcsec but the image's is {ci:.9g} "
                          f"arcsec; make the {name} on the image's grid (same cell size)")
-    oi, op = _orientation(cel_i), _orientation(cel_p)
+    oi, op = orientation(cel_i), orientation(cel_p)
     if np.max(np.abs(oi - op)) > GRID_RTOL:
         def describe(o):
             dx, dy = np.linalg.solve(o, [0.0, 1.0])

@@ -96,7 +96,7 @@ def figure_cell_arcsec(cell_arcsec=None, wcs=None, result=None):
                              "arcsec (> 0) or None")
         return cell
     if wcs is not None:
-        from skyscale.io.fits import cell_size_arcsec
+        from skyscale.io.grid import cell_size_arcsec
         try:
             return float(cell_size_arcsec(wcs))
         except ValueError:                 # not a square grid: pixels only
