@@ -410,7 +410,7 @@ def test_the_masks_and_advisor_packages_offer_their_modules_names():
     from skyscale.advisor import extent
     from skyscale.advisor import rules as scale_rules
     from skyscale.masks import emission as mask_emission
-    from skyscale.masks import fits_mask as mask_file
+    from skyscale.masks import loading as mask_file
     from skyscale.masks import regions
     assert masks.EmissionMask is mask_emission.EmissionMask is skyscale.EmissionMask
     assert masks.emission_mask is mask_emission.emission_mask

@@ -26,7 +26,7 @@ MOVED_MODULES = {
     "fitsio": "io.fits", "job": "cli.job", "job_vis": "cli.job_visibilities",
     "kernels": "core.kernels", "kernels.scale_loop": "core.kernels.scale_loop",
     "kernels.stamp": "core.kernels.stamp", "levels": "core.levels",
-    "mask_emission": "masks.emission", "mask_file": "masks.fits_mask",
+    "mask_emission": "masks.emission", "mask_file": "masks.loading",
     "minor": "core.engine", "noise": "core.noise", "operators": "core.operators",
     "options": "cli.options", "planner": "cost.planner", "plots": "io.figures",
     "precompute": "core.precompute", "preflight": "cli.preflight", "psf": "core.psf",

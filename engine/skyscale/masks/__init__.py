@@ -6,12 +6,12 @@ importable from ``skyscale.masks``:
 
 - `skyscale.masks.regions`: region text (circles and boxes, in pixels or on the sky), with
   its syntax;
-- `skyscale.masks.fits_mask`: masks from FITS files or arrays;
+- `skyscale.masks.loading`: masks from FITS files or arrays;
 - `skyscale.masks.emission`: the automatic mask, on `skyscale.masks.detect`.
 """
 
 from skyscale.masks.emission import EmissionMask, emission_mask
-from skyscale.masks.fits_mask import load_mask
+from skyscale.masks.loading import load_mask
 from skyscale.masks.regions import (ANGLE_UNITS, REGION_EXAMPLE, REGION_SHAPES, parse_regions,
                                     regions_to_mask)
 

@@ -63,7 +63,7 @@ from astropy.io import fits
 from astropy.wcs import WCS
 from astropy.wcs.utils import proj_plane_pixel_scales, wcs_to_celestial_frame
 
-from skyscale.masks.fits_mask import check_shape
+from skyscale.masks.loading import check_shape
 
 __all__ = ["REGION_SHAPES", "ANGLE_UNITS", "REGION_EXAMPLE", "parse_regions", "regions_to_mask"]
 
