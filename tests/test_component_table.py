@@ -17,7 +17,8 @@ from astropy.table import Table
 from astropy.wcs import WCS
 
 from skyscale.io.components import MERGED_COMPONENT_DTYPE, merge_components
-from skyscale.cli.job import component_fields, component_rows, run_files
+from skyscale.cli.job import run_files
+from skyscale.io.components import component_fields, component_rows
 from skyscale.core.result import empty_components
 
 from smallfits import CELL, write_small_pair

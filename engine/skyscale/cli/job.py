@@ -13,7 +13,8 @@ import numpy as np
 
 from skyscale.io.atomic import incomplete_marker
 from skyscale.core.validate import InputError, mask_nonfinite
-from skyscale.io.components import merge_components
+from skyscale.io.components import component_fields, component_rows
+from skyscale.core.defaults import DEFAULTS, RUN_NOISE_THRESHOLD
 from skyscale.core.driver import deconvolve
 from skyscale.io.fits import (check_same_grid, provenance_history, read_image, write_image,
                               write_table_csv)
@@ -26,15 +27,11 @@ from skyscale.cli.preflight import restoring_beam as _restoring_beam
 from skyscale.cli.preflight import resume_inputs
 from skyscale.io.report import file_sha256
 
-__all__ = ["RUN_DEFAULTS", "OUTPUT_NAMES", "run_files",
-           "run_images", "merge_params", "stop_rule", "exact_residual_cards",
-           "scales_in_pixels", "restoring_beam", "build_mask", "deconvolve_options",
-           "component_rows", "component_fields", "resume_inputs"]
-from skyscale.core.defaults import DEFAULTS, RUN_NOISE_THRESHOLD
+__all__ = ["RUN_DEFAULTS", "OUTPUT_NAMES", "run_files", "run_images", "merge_params",
+           "stop_rule", "exact_residual_cards", "scales_in_pixels", "restoring_beam",
+           "build_mask", "deconvolve_options", "resume_inputs"]
 
 logger = logging.getLogger(__name__)
-
-#: Default stop of a file-level run: each scale at this multiple of its own measured noise.
 
 #: Every run parameter with its default (the keys a configuration file may hold).  A run
 #: stops at `RUN_NOISE_THRESHOLD` times the noise unless told otherwise: a
@@ -63,42 +60,6 @@ RUN_DEFAULTS = {
     "overwrite": False,
     "nonfinite": "refuse",
 }
-
-
-
-
-def component_rows(components, wcs=None, cell_arcsec=None):
-    """Rows for ``components.csv``: one per distinct pixel and scale (flux summed).
-
-    Components at the same pixel and scale are merged (`merge_components`); each row
-    holds y, x, RA and Dec (degrees, where a WCS exists), the scale in pixels and in
-    arcsec (where ``cell_arcsec`` is known), the summed flux (Jy) and
-    ``merged_iterations``, the number of iterations merged into it.
-    """
-    merged = merge_components(components)
-    rows = []
-    if wcs is not None and merged.size:
-        sky = wcs.pixel_to_world_values(merged["x"].astype(float), merged["y"].astype(float))
-        ra, dec = np.atleast_1d(sky[0]), np.atleast_1d(sky[1])
-    for i, c in enumerate(merged):
-        row = {"y": int(c["y"]), "x": int(c["x"])}
-        if wcs is not None:
-            row["ra_deg"] = f"{ra[i]:.7f}"
-            row["dec_deg"] = f"{dec[i]:.7f}"
-        row["scale_px"] = f"{float(c['scale']):g}"
-        if cell_arcsec is not None:
-            row["scale_arcsec"] = f"{float(c['scale']) * cell_arcsec:.6g}"
-        row["flux_jy"] = f"{float(c['flux']):.9e}"
-        row["merged_iterations"] = int(c["iterations"])
-        rows.append(row)
-    return rows
-
-
-def component_fields(wcs=None, cell_arcsec=None):
-    """Column names of ``components.csv``, in order (see `component_rows`)."""
-    return (["y", "x"] + (["ra_deg", "dec_deg"] if wcs is not None else []) + ["scale_px"]
-            + (["scale_arcsec"] if cell_arcsec is not None else [])
-            + ["flux_jy", "merged_iterations"])
 
 
 def merge_params(params, sources=None):

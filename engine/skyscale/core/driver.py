@@ -15,7 +15,7 @@ import warnings
 
 import numpy as np
 
-from skyscale.core.threads import thread_limit
+from skyscale.core.threads import thread_limit, threads_in_effect
 from skyscale.core.validate import InputError, as_image, resolve_dtype
 from skyscale.core.levels import allowed_peak, scale_levels
 from skyscale.core.engine import Engine
@@ -476,8 +476,8 @@ def deconvolve(dirty, psf, *, scales=DEFAULTS.scales, loop_gain=DEFAULTS.loop_ga
         from skyscale.core.beam import fit_beam, restore as restore_image
         result.beam = beam if beam is not None else fit_beam(engine.psf)
         result.restored = restore_image(result.model, result.residual, result.beam)
-    from skyscale.io.report_records import threads_in_effect
-    result.emission_mask, result.threads = emission_mask, threads_in_effect(engine)
+    result.emission_mask = emission_mask
+    result.threads = threads_in_effect(engine.threads, engine.fft)
     return result
 
 

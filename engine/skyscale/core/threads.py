@@ -18,7 +18,7 @@ import os
 import numba
 
 __all__ = ["thread_limit", "resolve_threads", "DEFAULT_GOMP_SPINCOUNT", "SHORT_SPIN",
-           "set_openmp_spin_default", "openmp_wait"]
+           "set_openmp_spin_default", "openmp_wait", "threads_in_effect"]
 
 #: ``GOMP_SPINCOUNT`` skyscale sets when the user has not (spins before an idle OpenMP
 #: thread sleeps).
@@ -85,3 +85,26 @@ def thread_limit(threads):
         yield n
     finally:
         numba.set_num_threads(previous)
+
+
+def threads_in_effect(threads, fft):
+    """Threads a run used: Numba's count and its FFT backend's.
+
+    Parameters
+    ----------
+    threads : int or None
+        The threads asked for (None: all cores, as `resolve_threads` says).
+    fft : FFT backend
+        The run's backend (`skyscale.core.fft.get_backend`).
+
+    Returns
+    -------
+    dict
+        ``numba`` (the count `thread_limit` sets for the kernels), ``fft_backend``
+        (``'pyfftw'``, ``'numpy'`` or the injected backend's name) and ``fft_threads``
+        (numpy.fft runs on one thread; None when a backend does not say).
+    """
+    name = str(getattr(fft, "name", type(fft).__name__))
+    n = 1 if name == "numpy" else getattr(fft, "threads", None)
+    return {"numba": int(resolve_threads(threads)), "fft_backend": name,
+            "fft_threads": None if n is None else int(n)}

@@ -9,7 +9,8 @@ the table as long as the number of distinct (pixel, scale) pairs and the model t
 
 import numpy as np
 
-__all__ = ["MERGED_COMPONENT_DTYPE", "merge_components"]
+__all__ = ["MERGED_COMPONENT_DTYPE", "merge_components", "component_rows",
+           "component_fields"]
 
 #: Fields of the merged table: pixel position, scale diameter (pixels), summed flux (Jy)
 #: and the number of iterations merged into the row.
@@ -69,3 +70,37 @@ def merge_components(components):
     merged["y"], merged["x"], merged["scale"] = src["y"], src["x"], src["scale"]
     merged["flux"], merged["iterations"] = flux[order], counts[order]
     return merged
+
+
+def component_rows(components, wcs=None, cell_arcsec=None):
+    """Rows for ``components.csv``: one per distinct pixel and scale (flux summed).
+
+    Components at the same pixel and scale are merged (`merge_components`); each row
+    holds y, x, RA and Dec (degrees, where a WCS exists), the scale in pixels and in
+    arcsec (where ``cell_arcsec`` is known), the summed flux (Jy) and
+    ``merged_iterations``, the number of iterations merged into it.
+    """
+    merged = merge_components(components)
+    rows = []
+    if wcs is not None and merged.size:
+        sky = wcs.pixel_to_world_values(merged["x"].astype(float), merged["y"].astype(float))
+        ra, dec = np.atleast_1d(sky[0]), np.atleast_1d(sky[1])
+    for i, c in enumerate(merged):
+        row = {"y": int(c["y"]), "x": int(c["x"])}
+        if wcs is not None:
+            row["ra_deg"] = f"{ra[i]:.7f}"
+            row["dec_deg"] = f"{dec[i]:.7f}"
+        row["scale_px"] = f"{float(c['scale']):g}"
+        if cell_arcsec is not None:
+            row["scale_arcsec"] = f"{float(c['scale']) * cell_arcsec:.6g}"
+        row["flux_jy"] = f"{float(c['flux']):.9e}"
+        row["merged_iterations"] = int(c["iterations"])
+        rows.append(row)
+    return rows
+
+
+def component_fields(wcs=None, cell_arcsec=None):
+    """Column names of ``components.csv``, in order (see `component_rows`)."""
+    return (["y", "x"] + (["ra_deg", "dec_deg"] if wcs is not None else []) + ["scale_px"]
+            + (["scale_arcsec"] if cell_arcsec is not None else [])
+            + ["flux_jy", "merged_iterations"])

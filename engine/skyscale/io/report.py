@@ -35,10 +35,10 @@ from skyscale.io.atomic import atomic_write_bytes
 from skyscale.core.beam import gaussian_area
 from skyscale.io.components import merge_components
 from skyscale.io.report_records import (REPORT_UNITS, emission_mask_record, scales_record,
-                                        threads_in_effect, timings_record)
+                                        timings_record)
 
 __all__ = ["REPORT_SCHEMA_VERSION", "build_report", "file_sha256", "write_report", "beam_record",
-           "machine_record", "software_record", "plain_json", "threads_in_effect",
+           "machine_record", "software_record", "plain_json",
            "REPORT_UNITS"]
 
 log = logging.getLogger(__name__)

@@ -1,16 +1,16 @@
-"""What a run used and how long it took, for the report: threads, scales, mask level, time.
+"""What a run used and how long it took, for the report: scales, mask level, time.
 
-`skyscale.io.report.build_report` puts these records into ``report.json``: the threads in
-effect (`threads_in_effect`, taken from the run's engine), the scales in pixels and
-arcsec, the emission mask's detection level, and timings that add up to the run's total.
+`skyscale.io.report.build_report` puts these records into ``report.json``: the scales
+in pixels and arcsec, the emission mask's detection level, and timings that add up to
+the run's total (the threads in effect come with the result, from
+`skyscale.core.threads.threads_in_effect`).
 """
 
 import math
 
 import numpy as np
 
-__all__ = ["REPORT_UNITS", "threads_in_effect", "scales_record", "emission_mask_record",
-           "timings_record"]
+__all__ = ["REPORT_UNITS", "scales_record", "emission_mask_record", "timings_record"]
 
 #: Units of the report's figures whose key does not name one (``units`` in the report).
 REPORT_UNITS = {
@@ -44,29 +44,6 @@ _TIMING_NOTES = {
                "(report.json itself is written after)",
     "total": "start to end of the run: precompute + minor + major + other + outputs",
 }
-
-
-def threads_in_effect(engine):
-    """Threads a run's engine used: Numba's count and its FFT backend's.
-
-    Parameters
-    ----------
-    engine : skyscale.core.engine.Engine
-        The engine of the run (``threads`` as requested, ``fft`` its backend).
-
-    Returns
-    -------
-    dict
-        ``numba`` (the count `skyscale.core.threads.thread_limit` sets for the kernels),
-        ``fft_backend`` (``'pyfftw'``, ``'numpy'`` or the injected backend's name) and
-        ``fft_threads`` (numpy.fft runs on one thread; None when a backend does not say).
-    """
-    from skyscale.core.threads import resolve_threads
-    fft = engine.fft
-    name = str(getattr(fft, "name", type(fft).__name__))
-    n = 1 if name == "numpy" else getattr(fft, "threads", None)
-    return {"numba": int(resolve_threads(engine.threads)), "fft_backend": name,
-            "fft_threads": None if n is None else int(n)}
 
 
 def scales_record(result, cell, requested_unit):

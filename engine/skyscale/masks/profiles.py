@@ -38,6 +38,8 @@ import numpy as np
 from scipy.optimize import minimize_scalar, nnls
 from scipy.special import j0, j1, ndtr
 
+from skyscale.core.beam import gaussian_area
+
 __all__ = ["SHAPES", "SHAPE_TIE", "MIN_EXTENDED", "Transfer", "ProfileFit",
            "transfer_of_psf", "transfer_of_beam", "seen_profile", "seen_point",
            "subtract_point", "fit_profile"]
@@ -105,9 +107,7 @@ def transfer_of_psf(psf):
 def transfer_of_beam(fwhm_px):
     """`Transfer` of a round Gaussian beam of peak 1 and FWHM ``fwhm_px`` (analytic)."""
     q = np.linspace(0.0, 0.5, 4097)
-    a = math.pi * fwhm_px * fwhm_px / _FOUR_LN2
-    t = a * np.exp(-math.pi * math.pi * fwhm_px * fwhm_px * q * q / _FOUR_LN2)
-    return Transfer(q, t, "gaussian beam")
+    return Transfer(q, _source("gaussian", fwhm_px, q), "gaussian beam")
 
 
 def _source(shape, size, q):
@@ -115,8 +115,8 @@ def _source(shape, size, q):
     if shape == "point":
         return np.ones_like(q)
     if shape == "gaussian":
-        return (math.pi * size * size / _FOUR_LN2) * \
-            np.exp(-math.pi * math.pi * size * size * q * q / _FOUR_LN2)
+        return gaussian_area(size, size) * np.exp(
+            -math.pi * math.pi * size * size * q * q / _FOUR_LN2)
     radius = 0.5 * size
     return radius * j1(2.0 * math.pi * radius * q) / q       # q > 0 on the grid
 
