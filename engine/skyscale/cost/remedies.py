@@ -37,7 +37,8 @@ def _peak(image_shape, psf_shape, scales, itemsize, scale_shape, cal):
 
 
 def _fits(peak, available):
-    return peak is not None and peak * cost.MEMORY_HEADROOM <= available
+    """The planner's rule (`skyscale.cost.fits_memory`); a peak of None never fits."""
+    return peak is not None and cost.fits_memory(peak, available)
 
 
 def _remedy(kind, peak, available, option, text):

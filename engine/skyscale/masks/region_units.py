@@ -17,7 +17,7 @@ from astropy import units as u
 from astropy.coordinates import Angle
 from astropy.wcs.utils import wcs_to_celestial_frame
 
-from skyscale.masks.regions import _POSITIONS, _celestial_wcs, _window
+from skyscale.masks.regions import SHAPE_POSITIONS, region_wcs, pixel_window
 
 __all__ = ["degree_like"]
 
@@ -84,12 +84,12 @@ def degree_like(shape_, shape, wcs, selected):
     lie within one pixel).  Without a celestial WCS nothing can be told and nothing is
     refused.
     """
-    starts = _POSITIONS[shape_.kind]
+    starts = SHAPE_POSITIONS[shape_.kind]
     if wcs is None or not starts or not all(shape_.bare[i] and shape_.bare[i + 1]
                                             for i in starts):
         return None
     try:
-        cel = _celestial_wcs(wcs, "")
+        cel = region_wcs(wcs, "")
     except ValueError:
         return None
     pairs = [(shape_.values[i][1], shape_.values[i + 1][1]) for i in starts]
@@ -99,7 +99,7 @@ def degree_like(shape_, shape, wcs, selected):
         warnings.simplefilter("ignore")
         where = [tuple(float(v) for v in cel.world_to_pixel_values(a, b)) for a, b in pairs]
     xs, ys = [p[0] for p in where], [p[1] for p in where]
-    if _window(min(xs) - 0.5, max(xs) + 0.5, min(ys) - 0.5, max(ys) + 0.5, shape) is None:
+    if pixel_window(min(xs) - 0.5, max(xs) + 0.5, min(ys) - 0.5, max(ys) + 0.5, shape) is None:
         return None                                # in degrees it is not on this image
     lon_name, lat_name = _frame_words(cel)
     if selected:

@@ -65,7 +65,8 @@ from astropy.wcs.utils import proj_plane_pixel_scales, wcs_to_celestial_frame
 
 from skyscale.masks.loading import check_shape
 
-__all__ = ["REGION_SHAPES", "ANGLE_UNITS", "REGION_EXAMPLE", "parse_regions", "regions_to_mask"]
+__all__ = ["REGION_SHAPES", "ANGLE_UNITS", "REGION_EXAMPLE", "SHAPE_POSITIONS", "parse_regions",
+           "regions_to_mask", "region_wcs", "pixel_window"]
 
 logger = logging.getLogger(__name__)
 
@@ -83,7 +84,8 @@ _BARE_RE = re.compile(rf"^{_NUM}$")
 _UNIT_RE = re.compile(rf"^({_NUM})({'|'.join(ANGLE_UNITS)})$")
 _HMS_RE = re.compile(r"^\d+h\d+m(?:\d+\.?\d*|\.\d+)s$")
 _DMS_RE = re.compile(r"^[+-]?\d+d\d+m(?:\d+\.?\d*|\.\d+)s$")
-_POSITIONS = {"circle": (0,), "box": (0, 2), "all": ()}   # where (x, y) pairs start
+#: Where each shape's (x, y) position pairs start among its numbers.
+SHAPE_POSITIONS = {"circle": (0,), "box": (0, 2), "all": ()}
 _EDGE_TOL = 1e-6          # pixels: corners computed through a WCS may miss by rounding
 
 
@@ -161,7 +163,7 @@ def parse_regions(regions):
             raise ValueError(f"{where}: {name} takes {REGION_SHAPES[name]} values, got "
                              f"{len(args)}; {REGION_EXAMPLE}")
         values = tuple(_token(t, where) for t in args)
-        for i in _POSITIONS[name]:
+        for i in SHAPE_POSITIONS[name]:
             if values[i][0] != values[i + 1][0]:
                 raise ValueError(f"{where}: the position {args[i]} {args[i + 1]} mixes a "
                                  "pixel value with a sky coordinate; give both in pixels "
@@ -174,7 +176,9 @@ def parse_regions(regions):
     return shapes
 
 
-def _celestial_wcs(wcs, where):
+def region_wcs(wcs, where):
+    """The celestial WCS of ``wcs`` (a WCS, a FITS header or an image carrying one), for
+    the region entry ``where`` that needs it; ValueError naming it when there is none."""
     if wcs is None:
         raise ValueError(f"{where} uses sky coordinates or angles but wcs is None; pass "
                          "the image's WCS (astropy.wcs.WCS or its FITS header), or give "
@@ -200,7 +204,9 @@ def _to_pixel(cel, lon, lat):
     return float(x), float(y)
 
 
-def _window(lo_x, hi_x, lo_y, hi_y, shape):
+def pixel_window(lo_x, hi_x, lo_y, hi_y, shape):
+    """``(rows, columns)`` slices of the pixels whose centres lie in the given x and y
+    ranges, clipped to the image; None when no pixel does."""
     ny, nx = shape
     if not np.all(np.isfinite([lo_x, hi_x, lo_y, hi_y])):
         return None                               # off the projection: no pixel
@@ -225,20 +231,20 @@ def _rasterise(shape_, shape, wcs):
             if kind == "px":
                 corners.append((a, b))
             else:
-                corners.append(_to_pixel(_celestial_wcs(wcs, where), a, b))
+                corners.append(_to_pixel(region_wcs(wcs, where), a, b))
         (ax, ay), (bx, by) = corners
-        win = _window(min(ax, bx), max(ax, bx), min(ay, by), max(ay, by), shape)
+        win = pixel_window(min(ax, bx), max(ax, bx), min(ay, by), max(ay, by), shape)
         if win is not None:
             out[win] = True
         return out
     (cx_kind, cx), (_, cy), (r_kind, r) = vals
     if cx_kind == "px" and r_kind == "px":               # circle in pixels
-        win = _window(cx - r, cx + r, cy - r, cy + r, shape)
+        win = pixel_window(cx - r, cx + r, cy - r, cy + r, shape)
         if win is not None:
             yy, xx = np.ogrid[win[0], win[1]]
             out[win] = (xx - cx) ** 2 + (yy - cy) ** 2 <= r * r * (1 + 1e-12)
         return out
-    cel = _celestial_wcs(wcs, where)
+    cel = region_wcs(wcs, where)
     if cx_kind == "sky":
         centre = SkyCoord(cx, cy, frame=wcs_to_celestial_frame(cel))
         px, py = (float(c) for c in cel.world_to_pixel(centre))
@@ -249,7 +255,7 @@ def _rasterise(shape_, shape, wcs):
         return _rasterise(_Shape("circle", True, (("px", px), ("px", py), ("px", r)),
                                  shape_.text, shape_.entry), shape, wcs)
     r_px = r.to_value(u.deg) / _pixel_scale_deg(cel).min() + 1.0
-    win = _window(px - r_px, px + r_px, py - r_px, py + r_px, shape)
+    win = pixel_window(px - r_px, px + r_px, py - r_px, py + r_px, shape)
     if win is not None:
         yy, xx = np.mgrid[win[0], win[1]]
         sep = cel.pixel_to_world(xx.ravel(), yy.ravel()).separation(centre)
