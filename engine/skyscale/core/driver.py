@@ -172,7 +172,7 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
     stop = "max_major_cycles"
     stagnant = 0
     depth = cycle_depth
-    retries = rollbacks = rounds = rejected = 0
+    retries = rollbacks = rounds = rejected = fft_updates = 0
     progress = _progress(state.peaks, levels)
     try:
         for cycle in range(1, max_major_cycles + 1):
@@ -190,10 +190,11 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
                                     noise_threshold=noise_threshold,
                                     extended_depth=extended_depth, cycle_depth=depth,
                                     max_components=max_components - n_comp, callback=callback,
-                                    noise_region=region, state=state)
+                                    noise_region=region, state=state, exact_residual=False)
             t2 = time.perf_counter()
             t_minor += t2 - t1
             rounds += mc.rounds
+            fft_updates += mc.fft_updates
             rejected += mc.rejected
             if mc.components.size == 0:
                 stop = run_stop_after_empty_cycle(
@@ -272,7 +273,7 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
         warnings=warnings_seen, rollbacks=rollbacks, scale_noise=state.noise.tolist(),
         scale_levels=levels.tolist(), scale_peaks=state.peaks.tolist(), active_scales=active,
         noise_region=_describe_region(region, state, mask),
-        sub_loops=rounds, rejected_sub_loops=rejected)
+        sub_loops=rounds, rejected_sub_loops=rejected, fft_updates=fft_updates)
 
 
 def _describe_region(region, state, mask):
