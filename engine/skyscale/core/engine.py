@@ -31,7 +31,8 @@ from skyscale.core.validate import (NUMBER_RULES, InputError, as_image, check_nu
                                     resolve_dtype)
 from skyscale.core.fft import Convolver, MultiConvolver, get_backend
 from skyscale.core.kernels import scale_loop, stamp_components
-from skyscale.core.kernels.tracked import direct_subtract, pixel_runs, tracked_peaks
+from skyscale.core.kernels.tracked import (direct_subtract, masked_peak, pixel_runs,
+                                          tracked_peaks)
 from skyscale.core.levels import allowed_peak, scale_levels
 from skyscale.core.noise import scale_noise
 from skyscale.cost.model import MEMORY_HEADROOM, engine_memory, fits_memory
@@ -605,11 +606,17 @@ class _CycleWork:
         self.planes = planes[:, y0:y1, x0:x1].copy()      # FFT updates write here
         allowed = allowed[:, y0:y1, x0:x1]
         guard_px = in_mask[y0:y1, x0:x1]
+        self.guard_px = np.ascontiguousarray(guard_px)
         tracked = guard_px | allowed.any(axis=0)
         self.tys, self.txs = np.nonzero(tracked)
+        self.full = self.tys.size == tracked.size     # every pixel: views, no gathers
         self.runs = pixel_runs(self.tys, self.txs)
-        self.allowed_t = np.ascontiguousarray(allowed[:, self.tys, self.txs])
-        self.guard_t = guard_px[self.tys, self.txs]
+        if self.full:
+            self.allowed_t = allowed.reshape(allowed.shape[0], -1)
+            self.guard_t = guard_px.ravel()
+        else:
+            self.allowed_t = np.ascontiguousarray(allowed[:, self.tys, self.txs])
+            self.guard_t = guard_px[self.tys, self.txs]
         self.psf_convolver, self.smoother = engine._tools(self.shape)
         with_pairs = engine._direct_ok(self.tys.size * (engine.n_scales + 1),
                                        engine._fft_update_cost(self.shape))
@@ -617,6 +624,7 @@ class _CycleWork:
                          + (engine._pair_keys() if with_pairs else []), self.shape)
         self._gather()
         self.pending = []                                 # (k, ys, xs, flux) since last FFT
+        self._scratch = None
         self.fft_updates = self.direct_updates = 0
         self.seconds = 0.0
         n_t = self.tys.size
@@ -624,8 +632,12 @@ class _CycleWork:
         self._direct_cost = n_t * (engine.n_scales + 1)
 
     def _gather(self):
-        self.resid_t = self.sub[self.tys, self.txs]
-        self.planes_t = np.ascontiguousarray(self.planes[:, self.tys, self.txs])
+        if self.full:
+            self.resid_t = self.sub.ravel()
+            self.planes_t = self.planes.reshape(self.planes.shape[0], -1)
+        else:
+            self.resid_t = self.sub[self.tys, self.txs]
+            self.planes_t = np.ascontiguousarray(self.planes[:, self.tys, self.txs])
 
     def peaks(self):
         return tracked_peaks(self.planes_t, self.allowed_t)
@@ -689,13 +701,15 @@ class _CycleWork:
                          np.concatenate([np.full(len(p[3]), p[0], np.int64) for p in parts]),
                          np.concatenate([p[3] for p in parts]))
         full = self.psf_convolver.transform(step)
-        resid = self.sub[self.tys, self.txs] - full[self.tys, self.txs]
-        peak = float(np.max(np.abs(resid), where=self.guard_t, initial=0.0))
+        ny, nx = self.shape
+        if self._scratch is None:
+            self._scratch = np.empty_like(self.sub)
+        np.subtract(self.sub, full[:ny, :nx], out=self._scratch)
+        del full
+        peak = masked_peak(self._scratch, self.guard_px)
         if peak > guard:
             return None
-        ny, nx = self.shape
-        np.subtract(self.sub, full[:ny, :nx], out=self.sub)
-        del full
+        self.sub, self._scratch = self._scratch, self.sub
         self.smoother(self.sub, out=self.planes)
         self._gather()
         self.pending = []
