@@ -145,10 +145,10 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
     exact = getattr(user_operator, "exact", True)
     centres = (model != 0).astype(np.uint8)
 
-    def stats(residual, model, mask, previous=None, planes=None):
+    def stats(residual, model, mask, previous=None, planes=None, smallest_only=False):
         region = None if exact else exact_region(shape, model, offsets)
         state = engine.measure(residual, mask, noise_region=region, previous=previous,
-                               planes=planes)
+                               planes=planes, smallest_only=smallest_only)
         inside = mask if region is None else (region if mask is None else mask & region)
         peak, rms = masked_stats(residual, inside)
         levels = scale_levels(state.noise, threshold=threshold, noise_threshold=noise_threshold,
@@ -210,8 +210,10 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
                 warnings_seen.append(msg)
                 stop = "diverging"
                 break
+            # With an automatic mask only the smallest scale's noise (the mask's level)
+            # is needed before the mask is renewed and every scale measured again.
             new_state, new_region, new_peak, new_rms, new_levels = stats(
-                new_residual, mc.model, mask, state)
+                new_residual, mc.model, mask, state, smallest_only=mask_updater is not None)
             highest = allowed_peak(peak, levels, engine.scales.has_delta)
             if new_peak > highest * (1.0 + PEAK_TOLERANCE):
                 rollbacks += 1

@@ -294,7 +294,7 @@ class Engine:
     def pair_memory(self, shape=None):
         """Bytes of the pair beams direct updates use for a box of ``shape`` (default
         the image: the most they can take)."""
-        ey, ex = self.bank._extent_for(shape or self.image_shape)
+        ey, ex = shape or self.image_shape
         return len(self._pair_keys()) * (2 * ey - 1) * (2 * ex - 1) * self.dtype.itemsize
 
     @property
@@ -374,7 +374,8 @@ class Engine:
         return np.array([float(np.max(np.abs(p), where=a, initial=0.0))
                          for p, a in zip(planes, allowed)])
 
-    def measure(self, residual, mask=None, noise_region=None, previous=None, planes=None):
+    def measure(self, residual, mask=None, noise_region=None, previous=None, planes=None,
+                smallest_only=False):
         """Smooth ``residual`` by every scale; return peaks and noise as a `ScaleState`.
 
         Noise is measured outside ``mask`` (grown by each scale's radius), inside
@@ -384,18 +385,28 @@ class Engine:
         the smallest scale's noise).  ``previous`` (a `ScaleState`) supplies the
         smallest scale's noise when too little of the image is left to measure it;
         ``planes``, this residual already smoothed (a new mask, the same residual), saves
-        the smoothing.
+        the smoothing.  ``smallest_only`` measures the smallest scale's noise alone (the
+        same value; the others are NaN), for a caller that renews the mask from it and
+        then measures again.
         """
         residual = np.asarray(residual)
         if planes is None:
             with thread_limit(self.threads):
                 planes = self.smooth(residual)
         allowed = self.allowed(None if mask is None else np.asarray(mask, dtype=bool))
-        sigma, used, how = scale_noise(planes, self.scales.support_radii, mask=mask,
-                                       region=noise_region, ratios=np.sqrt(self.beam_peaks),
-                                       cross=self.cross_peaks,
+        n = self.n_scales
+        pick = [0, n - 1] if smallest_only and n > 2 else list(range(n))
+        radii = np.asarray(self.scales.support_radii)[pick]
+        sigma, used, how = scale_noise(planes[pick], radii, mask=mask,
+                                       region=noise_region,
+                                       ratios=np.sqrt(self.beam_peaks)[pick],
+                                       cross=self.cross_peaks[pick],
                                        previous=None if previous is None
                                        else float(previous.noise[0]))
+        if len(pick) < n:
+            sigma = np.concatenate([sigma[:1], np.full(n - 1, np.nan)])
+            used = np.concatenate([used[:1], np.zeros(n - 1, used.dtype)])
+            how = how[:1] + ["not measured"] * (n - 1)
         return ScaleState(planes, self._peaks(planes, allowed), sigma, used, how)
 
     # --------------------------------------------------------------- the cycle

@@ -211,8 +211,17 @@ class BeamBank:
         self._beams = {}
 
     def _extent_for(self, shape):
-        return tuple(min(n, -(-int(b) // EXTENT_STEP) * EXTENT_STEP)
-                     for b, n in zip(shape, self.image_shape))
+        """The extent to make for a box of ``shape``: the current one when it covers
+        the box, else at least twice the current (a box that grows over the major
+        cycles remakes the beams a few times at most), rounded up to `EXTENT_STEP` and
+        at most the image."""
+        out = []
+        for b, n, e in zip(shape, self.image_shape, self.extent):
+            if b <= e:
+                out.append(e)
+            else:
+                out.append(min(n, -(-max(int(b), 2 * e) // EXTENT_STEP) * EXTENT_STEP))
+        return tuple(out)
 
     def get(self, j, k, shape):
         """``PSF (*) s_j (*) s_k`` covering every offset within a box of ``shape``
