@@ -629,10 +629,7 @@ class _CycleWork:
             self.allowed_t = np.ascontiguousarray(allowed[:, self.tys, self.txs])
             self.guard_t = guard_px[self.tys, self.txs]
         self.psf_convolver, self.smoother = engine._tools(self.shape)
-        with_pairs = engine._direct_ok(self.tys.size * (engine.n_scales + 1),
-                                       engine._fft_update_cost(self.shape))
-        engine.bank.make([(k, k) for k in range(engine.n_scales)]
-                         + (engine._pair_keys() if with_pairs else []), self.shape)
+        engine.bank.make([(k, k) for k in range(engine.n_scales)], self.shape)
         self._gather()
         self.pending = []                                 # (k, ys, xs, flux) since last FFT
         self._scratch = None
@@ -686,6 +683,9 @@ class _CycleWork:
 
     def _apply_direct(self, k, ys, xs, flux, guard):
         e = self.e
+        resid_index = e._unit_delta()
+        e.bank.make([(j, k) for j in range(e.n_scales)]
+                    + [(e.n_scales if resid_index is None else resid_index, k)], self.shape)
         resid = self.resid_t.copy()
         direct_subtract(resid, self.tys, self.txs, ys, xs, flux,
                         e.pair_beam(None, k, self.shape),
