@@ -347,7 +347,8 @@ def deconvolve(dirty, psf, *, scales=DEFAULTS.scales, loop_gain=DEFAULTS.loop_ga
         No longer used; a DeprecationWarning when given.
     threads : int, optional
         Default all cores.  The result does not depend on it.
-    fft : {'auto', 'numpy', 'pyfftw'}
+    fft : {'auto', 'scipy', 'numpy', 'pyfftw'}
+        FFT backend; default scipy.fft, whose results do not depend on the thread count.
     dtype : {float32, float64}
         Default float32.
     cell_arcsec : float, optional

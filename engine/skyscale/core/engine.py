@@ -139,8 +139,9 @@ class Engine:
         Working precision of the smoothed residuals; default float32.
     threads : int, optional
         Threads for kernels and FFTs; default all cores.
-    fft : {'auto', 'numpy', 'pyfftw'} or backend
-        FFT backend; default pyfftw when installed.
+    fft : {'auto', 'scipy', 'numpy', 'pyfftw'} or backend
+        FFT backend; default scipy.fft (the same bits at any thread count, see
+        `skyscale.core.fft`).
     cell_arcsec : float, optional
         Cell size, needed when scales are angles.
     max_memory : int, optional
