@@ -652,7 +652,8 @@ class _CycleWork:
         return tracked_peaks(self.planes_t, self.allowed_t)
 
     def tracked_peak(self):
-        r = self.resid_t[self.guard_t]
+        d = self.e._unit_delta()
+        r = (self.resid_t if self.resid_t is not None else self.planes_t[d])[self.guard_t]
         return float(np.abs(r).max()) if r.size else 0.0
 
     def active(self, k, level, floors, blocked):
@@ -684,22 +685,26 @@ class _CycleWork:
 
     def _apply_direct(self, k, ys, xs, flux, guard):
         e = self.e
-        resid_index = e._unit_delta()
-        e.bank.make([(j, k) for j in range(e.n_scales)]
-                    + [(e.n_scales if resid_index is None else resid_index, k)], self.shape)
-        resid = self.resid_t.copy()
-        direct_subtract(resid, self.tys, self.txs, ys, xs, flux,
-                        e.pair_beam(None, k, self.shape),
-                        runs=self.runs)
-        peak = float(np.max(np.abs(resid), where=self.guard_t, initial=0.0))
+        d = e._unit_delta()          # a unit delta scale's plane is the residual itself
+        resid_index = e.n_scales if d is None else d
+        e.bank.make([(j, k) for j in range(e.n_scales)] + [(resid_index, k)], self.shape)
+        first = (self.resid_t if d is None else self.planes_t[d]).copy()
+        direct_subtract(first, self.tys, self.txs, ys, xs, flux,
+                        e.pair_beam(resid_index, k, self.shape), runs=self.runs)
+        peak = float(np.max(np.abs(first), where=self.guard_t, initial=0.0))
         if peak > guard:
             return None
         planes = self.planes_t
         for j in range(e.n_scales):
-            direct_subtract(planes[j], self.tys, self.txs, ys, xs, flux,
-                            e.pair_beam(j, k, self.shape),
-                            runs=self.runs)
-        self.resid_t = resid
+            if j == d:
+                planes[j][:] = first
+            else:
+                direct_subtract(planes[j], self.tys, self.txs, ys, xs, flux,
+                                e.pair_beam(j, k, self.shape), runs=self.runs)
+        if d is None:
+            self.resid_t = first
+        else:
+            self.resid_t = None       # the delta scale's plane holds it now
         self.pending.append((k, ys, xs, flux))
         self.direct_updates += 1
         return peak
