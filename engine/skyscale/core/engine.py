@@ -645,8 +645,9 @@ class _CycleWork:
             self.resid_t = self.sub.ravel()
             self.planes_t = self.planes.reshape(self.planes.shape[0], -1)
         else:
-            self.resid_t = self.sub[self.tys, self.txs]
-            self.planes_t = np.ascontiguousarray(self.planes[:, self.tys, self.txs])
+            flat = self.tys * self.shape[1] + self.txs
+            self.resid_t = self.sub.ravel().take(flat)
+            self.planes_t = self.planes.reshape(self.planes.shape[0], -1).take(flat, axis=1)
 
     def peaks(self):
         return tracked_peaks(self.planes_t, self.allowed_t)
