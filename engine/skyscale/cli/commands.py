@@ -136,9 +136,9 @@ def _add_run_options(p, defaults=None):
                    "E.g. 'circle 120 130 15; -box 10 20 50 60' or 'circle 09h41m17s +25d18m00s "
                    "30arcsec'; with --mask the two are intersected [none]")
     m.add_argument("--emission-mask", action="store_true", default=None,
-                   help="renew an automatic mask at each major cycle [" + d["emission_mask"] +
-                   ("; --mask or --mask-regions without this option turn it off"
-                    if d["emission_mask"] == "on" else "") + "]")
+                   help="renew an automatic mask at each major cycle; with --mask or "
+                   "--mask-regions it is kept inside them, so a generous mask bounds the "
+                   "cleaning without turning noise into model [" + d["emission_mask"] + "]")
     m.add_argument("--no-emission-mask", dest="emission_mask", action="store_false",
                    default=None, help="no automatic mask")
     m.add_argument("--emission-mask-sigma",
@@ -275,9 +275,6 @@ def _params(args, base=None, base_source="the resumed run's report"):
             sources[key] = "cli"
     if "threshold" in later and "noise_threshold" not in later:
         params.pop("noise_threshold", None)
-    if base_source == _DEMO_SOURCE and ("mask" in later or "mask_regions" in later) \
-            and "emission_mask" not in later:
-        params.pop("emission_mask", None)       # the user's mask replaces the demo's
     params.update(later)
     return params, sources
 

@@ -52,7 +52,7 @@ RUN_DEFAULTS = {
     "psf_patch": None,
     "mask": None,
     "mask_regions": None,
-    "emission_mask": False,
+    "emission_mask": True,
     "emission_mask_sigma": None,
     "threads": None,
     "beam": None,
@@ -306,8 +306,6 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
                                           beam=fitted,
                                           max_affordable_scales=len(afford.scales))
     mask = build_mask(merged, dirty, data.shape, labels)
-    if blank is not None:
-        mask = ~blank if mask is None else (mask & ~blank)
     from skyscale.cost.planner import check_fits_memory, plan_run
     plan = plan_run(data.shape, psf.data, scales_px,
                     max_components=merged["max_components"], threads=merged["threads"],
@@ -320,6 +318,7 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         result = deconvolve(data, psf.data, operator=operator, callback=callback, **extra_kw,
+                            blank=blank,
                             **deconvolve_options(merged, psf.data, cell, scales_px, mask, fitted))
     for text in notes + scale_warnings + [str(w.message) for w in caught]:
         if text not in result.warnings:      # the engine logs and warns the same words

@@ -86,7 +86,8 @@ def outcome_warnings(result, *, threshold, noise_threshold, region=None, user_ma
                 f"the run stopped ({stop}) with the residual in the mask still above the "
                 "stop level on scales " + level_words(peaks, levels, result.scales) +
                 ": the result is not cleaned to the noise; " + _fix_for(stop))
-    if result.mask is not None and noise[0] > 0 and "whole image" not in how[0]:
+    if result.mask is not None and noise[0] > 0 and "whole image" not in how[0] and (
+            user_mask is not None or stop in LEVEL_STOPS):
         outside = ~result.mask if region is None else (region & ~result.mask)
         if outside.any():
             res = np.abs(np.asarray(result.residual, float))
