@@ -272,6 +272,11 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
     previous = previous_outputs(out_dir) if ow else []     # read before report.json is replaced
     notes = []
     check_units(dirty, notes)
+    from skyscale.core.psf import check_psf
+    with warnings.catch_warnings():      # the one real error first, before any advice
+        warnings.simplefilter("ignore")
+        check_psf(np.nan_to_num(psf.data) if merged["nonfinite"] == "mask" else psf.data,
+                  dirty.data.shape)
     cell = cell_size_arcsec(dirty.wcs) if dirty.wcs is not None else cell_arcsec
     data, blank = dirty.data, None
     if merged["nonfinite"] == "mask":
@@ -285,6 +290,8 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
     beam = restoring_beam(merged, cell, labels["beam"], dirty.wcs)
     from skyscale.core.beam import fit_beam
     fitted = beam if beam is not None else fit_beam(psf.data)   # the run's one beam fit
+    if beam is not None:
+        notes.extend(beam_size_notes(beam, fit_beam(psf.data), cell, labels["beam"]))
     reasons = []
     scales_px = scales_in_pixels(merged, cell, data, psf.data, reasons, labels["scales"],
                                  beam=fitted)
@@ -342,6 +349,28 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
                                          reasons, inputs, cell, ow, extra_images, major,
                                          stale=(previous, keep))
     return result, written, report
+
+
+#: A restoring beam given more than this many times wider (or narrower) than the beam
+#: fitted to the PSF is said to be unusual (a beam given in pixels where arcsec are
+#: expected is several times too wide for 3 to 5 pixels across the beam).
+BEAM_RATIO_WARN = 3.0
+
+
+def beam_size_notes(beam, fitted, cell, label="beam"):
+    """Words for a restoring beam far from the one fitted to the PSF (likely the wrong
+    unit), or nothing."""
+    ratio = float(beam.major) / max(float(fitted.major), 1e-12)
+    if 1.0 / BEAM_RATIO_WARN <= ratio <= BEAM_RATIO_WARN:
+        return []
+    unit = "" if cell is None else (
+        f"; {label} takes arcsec: {beam.major * cell:.4g} arcsec is {beam.major:.3g} pixels "
+        f"of {cell:.4g} arcsec, and the fitted beam is {fitted.major * cell:.4g} arcsec "
+        "(was the beam given in pixels?)")
+    return [f"the restoring beam given ({beam.major:.3g} x {beam.minor:.3g} pixels) is "
+            f"{ratio:.3g} times the beam fitted to the PSF ({fitted.major:.3g} x "
+            f"{fitted.minor:.3g} pixels)" + unit + "; the restored image is smoothed "
+            "accordingly"]
 
 
 def exact_residual_cards(result):

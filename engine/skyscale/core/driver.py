@@ -24,7 +24,7 @@ from skyscale.core.operators import (ImagePlaneOperator, as_operator, describe_o
 from skyscale.core.result import COMPONENT_DTYPE, CycleRecord, DeconvolutionResult
 from skyscale.core.noise import keep_outside_noise
 from skyscale.core.outcome import outcome_warnings
-from skyscale.core.stops import run_stop_after_empty_cycle
+from skyscale.core.stops import MINOR_STOP_REASONS, run_stop_after_empty_cycle
 from skyscale.core.defaults import DEFAULTS
 
 __all__ = ["deconvolve", "run_cycles", "masked_stats"]
@@ -190,6 +190,7 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
     n_comp = 0
     stop = "max_major_cycles"
     stagnant = 0
+    detail = None          # the stop in a sentence, from what happened (result.stop_detail)
     depth = cycle_depth
     retries = rollbacks = rounds = rejected = 0
     progress = _progress(state.peaks, levels)
@@ -217,6 +218,10 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
             if mc.components.size == 0:
                 stop = run_stop_after_empty_cycle(
                     mc.stop_reason, _level_stop(noise_threshold, levels, threshold))
+                if stop == "no_progress":
+                    detail = (f"minor cycle {cycle} added nothing: "
+                              + MINOR_STOP_REASONS[mc.stop_reason]
+                              + f" ({mc.rejected} sub-loops rejected in it)")
                 break
             new_residual = as_image(operator(mc.model), "residual returned by the operator",
                                     dtype=np.float64, allow_nan=True)
@@ -242,6 +247,9 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
                     depth = 0.5 * (1.0 + depth)
                     continue
                 stop = "no_progress" if new_peak <= highest * 1.01 else "diverging"
+                detail = (f"major cycle {cycle} raised the peak residual in the mask "
+                          f"{peak:.4g} -> {new_peak:.4g} Jy/beam after {MAX_RETRIES} "
+                          "shallower retries; the model of the cycle before is kept")
                 break
             model, residual = mc.model, new_residual
             depth, retries = cycle_depth, 0
@@ -267,10 +275,14 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
                 stop = _level_stop(noise_threshold, levels, threshold)
                 break
             new_progress = _progress(state.peaks, levels)
-            stagnant = stagnant + 1 if new_progress > 0.99 * progress else 0
+            fell = history[-1].peak < 0.99 * history[-2].peak
+            stagnant = stagnant + 1 if new_progress > 0.99 * progress and not fell else 0
             progress = new_progress
             if stagnant >= 3:
                 stop = "no_progress"
+                detail = (f"for 3 major cycles neither the peak residual in the mask "
+                          f"(now {peak:.4g} Jy/beam) nor any scale's residual relative to "
+                          f"its stop level (now {progress:.3g} x) fell by 1 %")
                 break
         else:
             stop = "max_major_cycles"
@@ -291,7 +303,7 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
         warnings=warnings_seen, rollbacks=rollbacks, scale_noise=state.noise.tolist(),
         scale_levels=levels.tolist(), scale_peaks=state.peaks.tolist(), active_scales=active,
         noise_region=_describe_region(region, state, mask, blank),
-        sub_loops=rounds, rejected_sub_loops=rejected)
+        sub_loops=rounds, rejected_sub_loops=rejected, stop_detail=detail)
 
 
 def _describe_region(region, state, mask, blank=None):
@@ -424,6 +436,10 @@ def deconvolve(dirty, psf, *, scales=DEFAULTS.scales, loop_gain=DEFAULTS.loop_ga
     """
     from skyscale.masks import EmissionMask
     if isinstance(scales, str):       # 'auto': the advisor's set; its reasons in parameters
+        from skyscale.core.psf import check_psf
+        with warnings.catch_warnings():   # the one real error first, before any advice
+            warnings.simplefilter("ignore")
+            check_psf(psf, np.shape(dirty))
         from skyscale.advisor.suggest import resolve_scales
         scales, scale_reasons = resolve_scales(scales, dirty, psf, cell_arcsec=cell_arcsec)
         del resolve_scales

@@ -85,6 +85,9 @@ class DeconvolutionResult:
     threads : dict or None
         Threads in effect during the run: ``numba`` (the kernels' count),
         ``fft_backend`` and ``fft_threads``; None when nothing was cleaned.
+    stop_detail : str or None
+        What happened at an early stop, in a sentence (for 'no_progress' and
+        'diverging'); None when `stop_description` says it all.
     """
 
     model: np.ndarray
@@ -109,11 +112,13 @@ class DeconvolutionResult:
     rejected_sub_loops: int = 0
     emission_mask: object = None
     threads: dict = None
+    stop_detail: str = None
 
     @property
     def stop_description(self):
-        """One sentence saying why the run stopped."""
-        return STOP_REASONS.get(self.stop_reason, self.stop_reason)
+        """One sentence saying why the run stopped (with what happened, when known)."""
+        text = STOP_REASONS.get(self.stop_reason, self.stop_reason)
+        return text if not self.stop_detail else f"{text}: {self.stop_detail}"
 
     def per_scale(self):
         """Component count and total flux per scale, as a list of dicts."""
