@@ -270,3 +270,35 @@ def test_a_stall_is_described_by_what_happened():
     assert r.stop_description.startswith("cleaning stalled")
     assert r.stop_description.endswith(": minor cycle 4 added nothing")
     assert "stopped lowering the peak residual" not in r.stop_description
+
+
+def test_mask_regions_may_name_a_file(files, capsys):
+    d, p, tmp = files
+    regions = tmp / "regions.txt"
+    regions.write_text("circle 40 40 30\ncircle 90 80 30\n")
+    out = tmp / "o"
+    assert main(["--quiet", "run", d, p, "--out", str(out), "--scales", "0,4",
+                 "--mask-regions", str(regions), "--max-components", "20",
+                 "--no-plots"]) == 0
+    mask = fits.getdata(out / "mask.fits").astype(bool)
+    yy, xx = np.mgrid[:N, :N]
+    allowed = (np.hypot(xx - 40, yy - 40) <= 30) | (np.hypot(xx - 90, yy - 80) <= 30)
+    assert not (mask & ~allowed).any()
+
+
+def test_command_line_words_are_options_not_python(files, capsys):
+    d, p, tmp = files
+    out = tmp / "o"
+    assert main(["--quiet", "run", d, p, "--out", str(out), "--scales", "0",
+                 "--max-components", "5", "--no-plots"]) == 0
+    capsys.readouterr()
+    assert main(["run", d, p, "--out", str(out), "--scales", "0"]) == 2
+    line = _one_error(capsys)
+    assert "--overwrite" in line and "overwrite=True" not in line
+    nan = tmp / "nan.fits"
+    data = fits.getdata(d).copy()
+    data[0, 0] = np.nan
+    write_fits(nan, data, sky_header(N))
+    assert main(["run", str(nan), p, "--out", str(tmp / "o2")]) == 2
+    line = _one_error(capsys)
+    assert "--nonfinite mask" in line and "skyscale." not in line

@@ -126,7 +126,8 @@ def _add_run_options(p, defaults=None):
                    f"(leave them out of cleaning, blank in the outputs) [{d['nonfinite']}]")
     m = p.add_argument_group("masks")
     m.add_argument("--mask", help="FITS mask on the image grid, non-zero = may clean [none]")
-    m.add_argument("--mask-regions", help="regions where components may go: "
+    m.add_argument("--mask-regions", help="regions where components may go, or a text "
+                   "file holding them: "
                    "shapes 'circle X Y R', 'box X1 Y1 X2 Y2' and 'all', separated by ';' "
                    "or lines, applied in order ('-' before a shape removes it, '#' comments). "
                    "Plain numbers are pixels, 0-based, X = column, Y = row (the array index is "

@@ -188,7 +188,9 @@ def run_files(dirty_path, psf_path, out_dir, params=None, *, callback=None, inpu
         Progress callback passed to `deconvolve`.
     sources : dict, optional
         Where each parameter came from (``'cli'`` or a configuration file name), so
-        that messages name the option as the user wrote it.
+        that messages name the option as the user wrote it.  The command line always
+        passes one (maybe empty), and messages then speak of options (``--overwrite``);
+        None, the default, is a Python caller (``overwrite=True``).
     resume_from : str, optional
         Output folder of an earlier run: cleaning continues from its ``model.fits``.
         Budgets (components, major cycles) count this run only.
@@ -209,11 +211,12 @@ def run_files(dirty_path, psf_path, out_dir, params=None, *, callback=None, inpu
     InputError, FileExistsError
         Bad input, found before the deconvolution starts.
     """
+    cli = sources is not None          # the command line passes its (maybe empty) sources
     sources = sources or {}
     merged = merge_params(params, sources)
     start = _dt.datetime.now(_dt.timezone.utc)
     names = {k: os.path.join(out_dir, v) for k, v in OUTPUT_NAMES.items()}
-    prepare_out(out_dir, names, merged["overwrite"], "--out" if sources else "out_dir")
+    prepare_out(out_dir, names, merged["overwrite"], "--out" if cli else "out_dir")
     plan_from_headers(dirty_path, psf_path, merged)
     dirty = read_image(dirty_path, name="dirty")
     psf = read_image(psf_path, name="psf")
@@ -223,7 +226,8 @@ def run_files(dirty_path, psf_path, out_dir, params=None, *, callback=None, inpu
               for name, p, img in (("dirty", dirty_path, dirty), ("psf", psf_path, psf))}
     inputs.update(inputs_extra or {})
     return run_images(dirty, psf, out_dir, merged, start=start, inputs=inputs,
-                      callback=callback, sources=sources, resume_from=resume_from)
+                      callback=callback, sources=sources if cli else None,
+                      resume_from=resume_from)
 
 
 def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback=None,
@@ -260,6 +264,7 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
     result, written, report
         As `run_files`.
     """
+    cli = sources is not None          # the command line passes its (maybe empty) sources
     sources = sources or {}
     labels = {k: option_label(k, sources.get(k)) for k in RUN_DEFAULTS}
     merged = merge_params(params, sources)
@@ -268,7 +273,7 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
     names = {k: os.path.join(out_dir, v) for k, v in OUTPUT_NAMES.items()}
     names.update({k: os.path.join(out_dir, v[0]) for k, v in extra_images.items()})
     ow = merged["overwrite"]
-    prepare_out(out_dir, names, ow, "--out" if sources else "out_dir")
+    prepare_out(out_dir, names, ow, "--out" if cli else "out_dir")
     previous = previous_outputs(out_dir) if ow else []     # read before report.json is replaced
     notes = []
     check_units(dirty, notes)
@@ -279,6 +284,12 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
                   dirty.data.shape)
     cell = cell_size_arcsec(dirty.wcs) if dirty.wcs is not None else cell_arcsec
     data, blank = dirty.data, None
+    if merged["nonfinite"] != "mask" and not np.all(np.isfinite(data)):
+        bad = int(np.count_nonzero(~np.isfinite(data)))
+        how = "--nonfinite mask" if cli else "nonfinite='mask'"
+        raise InputError(f"the dirty image has {bad} non-finite pixels (NaN or inf) of "
+                         f"{data.size}; give {how} to leave them out of cleaning and blank "
+                         "in the outputs, or replace them")
     if merged["nonfinite"] == "mask":
         data, nan_mask, blank = mask_nonfinite(dirty.data)
         if blank.any():
