@@ -312,6 +312,10 @@ def _execute(args, dirty, psf, out, base=None, resume=None, visibilities=None,
         print(f"skyscale: interrupted: every output in {out} holds the last complete major "
               "cycle (stop reason 'interrupted')", file=sys.stderr)
         return EXIT_INTERRUPTED
+    if getattr(result, "interrupted_while_writing", False):
+        print(f"skyscale: interrupted while writing: the run had finished, and every output "
+              f"in {out} was written (stop reason '{result.stop_reason}')", file=sys.stderr)
+        return EXIT_INTERRUPTED
     return EXIT_OK
 
 
@@ -396,7 +400,7 @@ def cmd_cube(args):
         except KeyboardInterrupt:
             print(f"skyscale: interrupted; the finished planes are kept in {args.out}, rerun "
                   "the same command to resume", file=sys.stderr)
-            return 1
+            return EXIT_INTERRUPTED
     if not args.quiet:
         console.cube_summary(result)
     if not result.complete:

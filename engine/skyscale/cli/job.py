@@ -12,6 +12,7 @@ import warnings
 import numpy as np
 
 from skyscale.io.atomic import incomplete_marker
+from skyscale.io.interrupts import finish_on_first_interrupt
 from skyscale.core.validate import InputError, mask_nonfinite
 from skyscale.io.components import component_fields, component_rows
 from skyscale.core.defaults import DEFAULTS, RUN_NOISE_THRESHOLD
@@ -355,10 +356,12 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
     major = result.parameters["operator"]
     keep = [v["path"] for v in inputs.values() if isinstance(v, dict) and "path" in v]
     keep += [merged["mask"]] if merged["mask"] else []
-    with incomplete_marker(out_dir):
+    with finish_on_first_interrupt(already=result.stop_reason == "interrupted") as writing, \
+            incomplete_marker(out_dir):
         written, report = _write_outputs(result, dirty, psf, names, record, start, end, plan,
                                          reasons, inputs, cell, ow, extra_images, major,
                                          stale=(previous, keep))
+    result.interrupted_while_writing = writing.interrupted
     return result, written, report
 
 
