@@ -263,7 +263,8 @@ def test_command_line_writes_the_cubes_and_the_report(data, reference, cluster, 
     out = tmp_path / "out"
     code = main(["--quiet", "cube", str(data["cube"]), str(data["psf"]), "--out", str(out),
                  "--scales", "0,4", "--max-components", "300", "--max-major-cycles", "5",
-                 "--threads", "1", "--scheduler", cluster.scheduler.address])
+                 "--threads", "1", "--no-emission-mask", "--scheduler",
+                 cluster.scheduler.address])
     assert code == 0
     for kind in ("model", "residual", "restored"):
         assert np.array_equal(cube_data(out / f"{kind}.fits")[0], reference["serial"][kind])
@@ -289,9 +290,10 @@ def test_a_plane_that_fails_leaves_the_run_unfinished_and_resumable(data, cluste
     assert not (tmp_path / "out" / "model.fits").exists()
     code = main(["--quiet", "cube", str(cube), str(psf), "--out", str(tmp_path / "out"),
                  "--scales", "0,4", "--max-components", "300", "--max-major-cycles", "5",
-                 "--threads", "1", "--scheduler", cluster.scheduler.address])
+                 "--threads", "1", "--no-emission-mask", "--scheduler",
+                 cluster.scheduler.address])
     err = capsys.readouterr().err
-    assert code == 1 and "1 planes failed" in err and "rerun the same command" in err
+    assert code == 1 and "1 planes failed" in err and "rerun the same command" in err, err
 
 
 def test_auto_scales_are_chosen_once_on_the_brightest_plane(data, cluster, tmp_path):
@@ -340,7 +342,8 @@ def test_tls_cluster_as_the_readme_says(data, reference, tmp_path):
         proc = subprocess.run(
             [sys.executable, "-m", "skyscale.cli", "--quiet", "cube", str(data["cube"]),
              str(data["psf"]), "--out", str(out), "--scales", "0,4", "--max-components", "300",
-             "--max-major-cycles", "5", "--threads", "1", "--scheduler", address,
+             "--max-major-cycles", "5", "--threads", "1", "--no-emission-mask",
+             "--scheduler", address,
              "--connect-timeout", "30"], env=env, timeout=TIMEOUT, capture_output=True,
             text=True)
         assert proc.returncode == 0, proc.stderr

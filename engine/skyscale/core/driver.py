@@ -528,6 +528,7 @@ def deconvolve(dirty, psf, *, scales=DEFAULTS.scales, loop_gain=DEFAULTS.loop_ga
                         max_major_cycles=max_major_cycles, cycle_depth=cycle_depth,
                         mask_updater=updater, callback=callback, blank=blank)
     result.parameters = params
+    result.emission_mask = emission_mask
     region = None if getattr(operator, "exact", True) else \
         exact_region(dirty_arr.shape, result.model, operator.exact_offsets)
     if blank is not None:

@@ -380,10 +380,12 @@ def keep_outside_noise(sigma, how, kept, ratios):
     """Hold on to the last noise measured outside the mask when it can no longer be.
 
     When the mask leaves too few trustworthy pixels outside it (`scale_noise` then
-    measures over the whole image, inside the mask, where cleaning lowers the residual),
-    the smallest scale's noise of the last cycle that could measure it outside the mask
-    is used instead, and the scales scaled from it follow.  An estimate made over the
-    whole image is never carried: on a dirty image it holds the emission's sidelobes.
+    measures over the whole image, inside the mask, where cleaning may lower the
+    residual), the lowest of the smallest scale's noises measured outside the mask in
+    earlier cycles is used instead (cleaning removes sidelobes there but never cleans
+    there, so the lowest is the least contaminated), and the scales scaled from it
+    follow.  An estimate made over the whole image is never carried: on a dirty image
+    it holds the emission's sidelobes.
 
     Parameters
     ----------
@@ -392,7 +394,7 @@ def keep_outside_noise(sigma, how, kept, ratios):
     how : list of str
         How each was found (`scale_noise`); changed in place.
     kept : float or None
-        The smallest scale's last noise measured outside the mask, or None.
+        The lowest smallest-scale noise measured outside the mask so far, or None.
     ratios : (n_scales,) array_like
         ``sqrt(B_kk(0))`` per scale.
 
@@ -402,11 +404,11 @@ def keep_outside_noise(sigma, how, kept, ratios):
         What to pass as ``kept`` next time.
     """
     if how[0].startswith("measured outside") or how[0].endswith("outside the mask"):
-        return float(sigma[0])
-    if kept is None or "mask leaves only" not in how[0]:
+        return float(sigma[0]) if kept is None or not 0 < kept < sigma[0] else kept
+    if kept is None or "mask leaves only" not in how[0] or not kept > 0:
         return kept
     sigma[0] = float(kept)
-    how[0] = ("kept from the last cycle that could measure it outside the mask (the mask "
+    how[0] = ("kept: the lowest measured outside the mask in an earlier cycle (the mask "
               "now leaves too few pixels outside it)")
     for k in range(1, len(sigma)):
         if how[k].startswith("scaled"):

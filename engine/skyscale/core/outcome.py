@@ -69,14 +69,17 @@ def outcome_warnings(result, *, threshold, noise_threshold, region=None, user_ma
             "the noise could not be measured (no trustworthy pixel free of emission), so "
             "the noise stop had no level; give a fixed threshold, or a mask that leaves "
             "some empty sky outside it")
-    elif user_mask is not None and "whole image" in how[0]:
-        pct = 100.0 * float(user_mask.mean())
+    elif result.mask is not None and ("whole image" in how[0] or "kept from" in how[0]):
+        pct = 100.0 * float(result.mask.mean())
+        fix = ("give a tighter mask, or add the automatic mask (emission_mask='auto', "
+               "--emission-mask), which is then kept inside yours" if user_mask is not None
+               and result.emission_mask is None else
+               "check the stop levels against the residual, or give a mask of your own "
+               "around the emission")
         out.append(
             f"the mask covers {pct:.0f} % of the image and leaves too few pixels outside "
-            "it to measure the noise there: it was measured over the whole image "
-            f"({how[0]}), where cleaning lowers it; give a tighter mask, or add the "
-            "automatic mask (emission_mask='auto', --emission-mask), which is then "
-            "kept inside yours")
+            f"it to measure the noise there: {how[0]}; the noise (and so the stop "
+            f"levels) may be off; {fix}")
     peaks, levels = result.scale_peaks, result.scale_levels
     if peaks is not None and levels is not None and stop not in LEVEL_STOPS \
             and stop not in ("nothing_to_clean",) and result.components.size > 0:
