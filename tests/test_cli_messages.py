@@ -65,7 +65,7 @@ def test_demo_help_shows_the_demos_settings(capsys):
     assert main(["run", "--help"]) == 0
     run = " ".join(capsys.readouterr().out.split())
     assert "asks the scale advisor [0,4,8,16,32]" in demo
-    assert "asks the scale advisor [0,4,8,16]" in run
+    assert "asks the scale advisor [auto]" in run
     assert "without turning noise into model [on]" in demo
     assert "without turning noise into model [on]" in run
     assert "'off' for no noise stop [3]" in demo

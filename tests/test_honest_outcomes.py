@@ -302,3 +302,15 @@ def test_command_line_words_are_options_not_python(files, capsys):
     assert main(["run", str(nan), p, "--out", str(tmp / "o2")]) == 2
     line = _one_error(capsys)
     assert "--nonfinite mask" in line and "skyscale." not in line
+
+
+def test_plan_reads_scales_and_thresholds_as_run_does(files, capsys):
+    # 4 and 8 arcsec on the test grid's 2 arcsec cell (smallfits.CELL) are 2 and 4
+    # pixels (arithmetic); 0.6mJy is accepted as run accepts it (it used to be refused).
+    d, p, tmp = files
+    assert main(["plan", d, p, "--scales", "0,4arcsec,8arcsec", "--threshold", "0.6mJy",
+                 "--json"]) == 0
+    plan = json.loads(capsys.readouterr().out)
+    assert plan["scales"] == pytest.approx([0.0, 2.0, 4.0])
+    assert main(["plan", "--size", "256", "--scales", "0,2arcsec"]) == 2
+    assert "no cell size" in _one_error(capsys)

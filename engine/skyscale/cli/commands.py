@@ -21,7 +21,8 @@ __all__ = ["main", "build_parser", "demo_data_dir", "EXIT_CODES"]
 #: Every exit code of the command line and what it means.
 EXIT_CODES = {
     0: "success",
-    1: "failure while running (a bug or a system fault; --debug shows the traceback)",
+    1: "failure while running (a bug or a system fault; --debug shows the traceback); "
+       "for suggest --check: the set breaks a rule of thumb",
     2: "bad input: one line on stderr names the problem and the fix; nothing was written",
     3: "interrupted (Ctrl-C or SIGTERM): the run stopped after its last complete step and "
        "every output was written, stop reason 'interrupted'",
@@ -74,7 +75,9 @@ DEMO_SETTINGS = {"scales": [0, 4, 8, 16, 32], "emission_mask": True}
 def _shown(defaults):
     """How the defaults of the run options read in --help, from the values themselves."""
     nu, thr = defaults["noise_threshold"], float(defaults["threshold"])
-    return {"scales": ",".join(f"{float(v):g}" for v in defaults["scales"]),
+    scales = defaults["scales"]
+    return {"scales": scales if isinstance(scales, str) else
+            ",".join(f"{float(v):g}" for v in scales),
             "scale_unit": defaults["scale_unit"], "scale_shape": defaults["scale_shape"],
             "loop_gain": f"{defaults['loop_gain']:g}", "threshold": f"{thr:g}",
             "noise_threshold": "off" if nu is None else f"{nu:g}",
@@ -227,7 +230,8 @@ def build_parser():
                          help="shortest projected baseline, wavelengths [unknown]")
     suggest.add_argument("--max-count", type=int, default=4,
                          help="most scales, the delta scale included [4]")
-    suggest.add_argument("--check", type=_scales, help="check this scale set (pixels) instead")
+    suggest.add_argument("--check", type=_scales, help="check this scale set (pixels) "
+                         "instead; exits 1 when it breaks a rule")
     _add_global_flags(suggest)
     suggest.set_defaults(func=cmd_suggest)
 
@@ -429,7 +433,7 @@ def cmd_suggest(args):
             warnings.simplefilter("ignore")
             problems = check_scales(args.check, suggestion=s)
         console.show_check(args.check, problems)
-        return 0
+        return EXIT_FAILED if problems else EXIT_OK
     console.show_suggestion(s)
     return 0
 

@@ -37,9 +37,11 @@ logger = logging.getLogger(__name__)
 #: Every run parameter with its default (the keys a configuration file may hold).  A run
 #: stops at `RUN_NOISE_THRESHOLD` times the noise unless told otherwise: a
 #: ``threshold`` given without ``noise_threshold`` is a fixed level with no noise stop
-#: (`merge_params`), and ``noise_threshold = "off"`` turns the noise stop off.
+#: (`merge_params`), and ``noise_threshold = "off"`` turns the noise stop off.  Scales
+#: are chosen for the image by the scale advisor (``"auto"``) and the automatic mask is
+#: on (kept inside a user's mask): what a careful user would choose (CHANGELOG, issue 19).
 RUN_DEFAULTS = {
-    "scales": [int(s) if float(s).is_integer() else s for s in DEFAULTS.scales],
+    "scales": "auto",
     "scale_unit": "pixel",
     "scale_shape": DEFAULTS.scale_shape,
     "loop_gain": DEFAULTS.loop_gain,
