@@ -259,7 +259,8 @@ def test_scheduler_that_does_not_answer_is_one_line_exit_2(data, tmp_path, capsy
     assert f"tcp://127.0.0.1:{port}" in err[0] and "dask scheduler" in err[0]
 
 
-def test_command_line_writes_the_cubes_and_the_report(data, reference, cluster, tmp_path):
+def test_command_line_writes_the_cubes_and_the_report(data, reference, cluster, tmp_path,
+                                                      capsys):
     out = tmp_path / "out"
     code = main(["--quiet", "cube", str(data["cube"]), str(data["psf"]), "--out", str(out),
                  "--scales", "0,4", "--max-components", "300", "--max-major-cycles", "5",
@@ -273,6 +274,7 @@ def test_command_line_writes_the_cubes_and_the_report(data, reference, cluster, 
     assert report["scales"]["chosen"] == "given, fixed for every plane"
     assert main(["--quiet", "cube", str(data["cube"]), str(data["psf"]), "--out", str(out),
                  "--scheduler", cluster.scheduler.address]) == 2   # no clobbering
+    assert "already holds a complete run" in capsys.readouterr().err
 
 
 def test_a_plane_that_fails_leaves_the_run_unfinished_and_resumable(data, cluster, tmp_path,

@@ -314,3 +314,22 @@ def test_plan_reads_scales_and_thresholds_as_run_does(files, capsys):
     assert plan["scales"] == pytest.approx([0.0, 2.0, 4.0])
     assert main(["plan", "--size", "256", "--scales", "0,2arcsec"]) == 2
     assert "no cell size" in _one_error(capsys)
+
+
+def test_fits_history_records_the_values_in_effect_and_the_inputs(files):
+    # FITS Standard 4.0: HISTORY cards; the report and the files must say the same.
+    from skyscale.io.fits_cards import join_history
+    d, p, tmp = files
+    out = tmp / "o"
+    assert main(["--quiet", "run", d, p, "--out", str(out), "--scales", "0,4",
+                 "--max-components", "20", "--no-plots"]) == 0
+    rep = json.loads((out / "report.json").read_text())
+    history = join_history(fits.getheader(out / "model.fits")["HISTORY"])
+    text = "\n".join(history)
+    sigma = rep["emission_mask"]["sigma"]
+    assert f"skyscale parameter emission_mask_sigma = {sigma}" in text
+    assert f"skyscale parameter threads = {rep['threads']['numba']}" in text
+    assert "skyscale parameter input_dirty = dirty.fits" in text
+    assert "= None" not in text.replace("psf_patch = None", "").replace("beam = None", "") \
+        .replace("mask = None", "").replace("mask_regions = None", "")
+    assert rep["image"]["cell_arcsec"] == 2.0      # the grid's 2 arcsec (smallfits.CELL)

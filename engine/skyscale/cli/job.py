@@ -447,9 +447,26 @@ def _remove_stale(previous, keep, written, out_dir):
     return removed
 
 
+def _values_in_effect(record, result, inputs):
+    """The run's parameters for FITS HISTORY with the values in effect where the user left
+    them unset (the automatic mask's sigma, the threads), and the input file names."""
+    shown = dict(record)
+    auto = getattr(result, "emission_mask", None)
+    if shown.get("emission_mask") and shown.get("emission_mask_sigma") is None and \
+            getattr(auto, "sigma", None) is not None:
+        shown["emission_mask_sigma"] = auto.sigma
+    threads = getattr(result, "threads", None) or {}
+    if shown.get("threads") is None and threads.get("numba") is not None:
+        shown["threads"] = threads["numba"]
+    for name, rec in (inputs or {}).items():
+        if isinstance(rec, dict) and rec.get("path"):
+            shown[f"input_{name}"] = os.path.basename(rec["path"])
+    return shown
+
+
 def _write_outputs(result, dirty, psf, names, record, start, end, plan, reasons,
                    inputs, cell, ow, extra_images, major, stale=((), ())):
-    history = provenance_history(record, start, end)
+    history = provenance_history(_values_in_effect(record, result, inputs), start, end)
     exact_cards, exact_history = exact_residual_cards(result)
     written = {kind: write_image(names[kind], image.data, like=image, bunit=image.bunit,
                                  history=history, overwrite=ow)

@@ -118,6 +118,8 @@ class DeconvolutionResult:
     def stop_description(self):
         """One sentence saying why the run stopped (with what happened, when known)."""
         text = STOP_REASONS.get(self.stop_reason, self.stop_reason)
+        if self.mask is None:           # no mask: the residual is measured everywhere
+            text = text.replace(" in the mask", "")
         return text if not self.stop_detail else f"{text}: {self.stop_detail}"
 
     def per_scale(self):

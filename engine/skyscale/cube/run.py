@@ -232,6 +232,11 @@ def deconvolve_cube(cube, psf, out_dir, params=None, *, client=None, scheduler=N
     overwrite = bool(merged["overwrite"])
     if not overwrite:
         clash = [p for p in paths.values() if os.path.exists(p)]
+        if clash and os.path.exists(paths["report"]):
+            raise FileExistsError(f"{out_dir} already holds a complete run "
+                                  f"({os.path.basename(paths['report'])} is written): "
+                                  "nothing to resume; choose another output folder, or "
+                                  "rerun with --overwrite to compute it again")
         if clash:
             raise FileExistsError(f"{clash[0]} exists; choose another output folder or "
                                   "rerun with --overwrite")
