@@ -15,7 +15,7 @@ from skyscale.io.atomic import incomplete_marker
 from skyscale.io.interrupts import finish_on_first_interrupt
 from skyscale.core.validate import InputError, mask_nonfinite
 from skyscale.io.components import component_fields, component_rows
-from skyscale.core.defaults import DEFAULTS, RUN_NOISE_THRESHOLD
+from skyscale.core.defaults import DEFAULTS, RUN_NOISE_THRESHOLD, RUN_SCALES
 from skyscale.core.driver import deconvolve
 from skyscale.io.fits import (check_same_grid, provenance_history, read_image, write_image,
                               write_table_csv)
@@ -41,7 +41,7 @@ logger = logging.getLogger(__name__)
 #: are chosen for the image by the scale advisor (``"auto"``) and the automatic mask is
 #: on (kept inside a user's mask): what a careful user would choose (CHANGELOG, issue 19).
 RUN_DEFAULTS = {
-    "scales": "auto",
+    "scales": RUN_SCALES,
     "scale_unit": "pixel",
     "scale_shape": DEFAULTS.scale_shape,
     "loop_gain": DEFAULTS.loop_gain,
