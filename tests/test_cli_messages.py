@@ -159,6 +159,8 @@ def test_residual_header_says_where_it_is_exact(same_size, tmp_path):
         hdr, res = h[0].header, h[0].data.astype(np.float64)
     half = min(N // 2, N - 1 - N // 2)                     # the cut PSF covers these offsets
     assert hdr["EXACTRES"] is False
+    restored = fits.getheader(out / "restored.fits")   # it holds the residual: marked too
+    assert restored["EXACTRES"] is False and restored["EXACTREG"] == hdr["EXACTREG"]
     assert hdr["EXACTDY"] == half and hdr["EXACTDX"] == half
     assert hdr.comments["EXACTDY"] and hdr.comments["EXACTREG"]
     history = " ".join(str(v) for v in hdr["HISTORY"])

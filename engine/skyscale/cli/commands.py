@@ -90,7 +90,13 @@ def _shown(defaults):
             "nonfinite": defaults["nonfinite"]}
 
 
-def _add_run_options(p, defaults=None):
+#: What --threads means and defaults to for ``cube`` (README, "The local cluster").
+CUBE_THREADS_HELP = ("threads per plane [1 on the local cluster, which then runs as many "
+                     "planes at once as there are cores; on a running cluster the worker's "
+                     "NUMBA_NUM_THREADS divided by its --nthreads]")
+
+
+def _add_run_options(p, defaults=None, threads_help=None):
     # Values are read by skyscale.cli.options (the same reader as the TOML file), so every
     # option takes text here and a bad value gets one line naming it.  The bracketed
     # defaults come from the values the command uses (RUN_DEFAULTS, or the demo's).
@@ -148,7 +154,8 @@ def _add_run_options(p, defaults=None):
     m.add_argument("--emission-mask-sigma",
                    help="automatic-mask level, multiples of the robust noise [5]")
     o = p.add_argument_group("run")
-    o.add_argument("--threads", help="threads for kernels and FFTs [all cores]")
+    o.add_argument("--threads", help=threads_help or "threads for kernels and FFTs "
+                   "[all cores]")
     o.add_argument("--config", help="TOML file with any of these options (the command line "
                    "overrides it)")
     o.add_argument("--no-plots", dest="plots", action="store_false", default=None,
@@ -243,7 +250,7 @@ def build_parser():
     cube.add_argument("cube", help="FITS cube, Jy/beam (3 axes, or 4 with a degenerate one)")
     cube.add_argument("psf", help="FITS PSF cube on the same spectral axis, or one PSF for all")
     cube.add_argument("--out", required=True, help="output directory")
-    _add_run_options(cube)
+    _add_run_options(cube, threads_help=CUBE_THREADS_HELP)
     c = cube.add_argument_group("cluster")
     c.add_argument("--scheduler", metavar="ADDRESS", help="address of a running Dask scheduler, "
                    "e.g. tcp://10.0.0.5:8786 [a local cluster on 127.0.0.1]")

@@ -480,7 +480,8 @@ def _write_outputs(result, dirty, psf, names, record, start, end, plan, reasons,
                                 overwrite=ow),
         "restored": write_image(names["restored"], result.restored, like=dirty,
                                 bunit="Jy/beam", beam=result.beam if dirty.wcs else None,
-                                history=history, overwrite=ow),
+                                history=history + exact_history, extra=exact_cards,
+                                overwrite=ow),   # restored = model (*) beam + residual
     })
     if result.mask is not None:
         written["mask"] = write_image(names["mask"], result.mask.astype(np.float32), like=dirty,
