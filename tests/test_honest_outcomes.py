@@ -333,3 +333,19 @@ def test_fits_history_records_the_values_in_effect_and_the_inputs(files):
     assert "= None" not in text.replace("psf_patch = None", "").replace("beam = None", "") \
         .replace("mask = None", "").replace("mask_regions = None", "")
     assert rep["image"]["cell_arcsec"] == 2.0      # the grid's 2 arcsec (smallfits.CELL)
+
+
+def test_a_noise_kept_from_an_earlier_cycle_is_said():
+    # outcome_warnings reads the result only: a run whose mask grew over most of the
+    # image and whose noise was therefore kept says so, with the mask's coverage.
+    from skyscale.core.outcome import outcome_warnings
+    from skyscale.core.result import DeconvolutionResult
+    mask = np.ones((10, 10), bool)
+    mask[0, :5] = False                                   # 95 % of the image
+    r = DeconvolutionResult(model=np.zeros((10, 10)), residual=np.zeros((10, 10)),
+                            components=np.zeros(0), stop_reason="noise", mask=mask,
+                            scale_noise=[1.0], scale_levels=[3.0], scale_peaks=[2.0],
+                            noise_region={"how": ["kept: the lowest measured outside the "
+                                                  "mask in an earlier cycle"]})
+    (text,) = outcome_warnings(r, threshold=0.0, noise_threshold=3.0)
+    assert "the mask covers 95 % of the image" in text and "kept: the lowest" in text

@@ -69,7 +69,7 @@ def outcome_warnings(result, *, threshold, noise_threshold, region=None, user_ma
             "the noise could not be measured (no trustworthy pixel free of emission), so "
             "the noise stop had no level; give a fixed threshold, or a mask that leaves "
             "some empty sky outside it")
-    elif result.mask is not None and ("whole image" in how[0] or "kept from" in how[0]):
+    elif result.mask is not None and ("whole image" in how[0] or how[0].startswith("kept")):
         pct = 100.0 * float(result.mask.mean())
         fix = ("give a tighter mask, or add the automatic mask (emission_mask='auto', "
                "--emission-mask), which is then kept inside yours" if user_mask is not None
