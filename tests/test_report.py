@@ -376,15 +376,14 @@ def test_report_of_a_run_gives_the_threads_and_mask_level_in_effect(small_runs):
         result, _, rep, out = runs[name]
         threads = rep["threads"]
         # Reference: numba's own thread count (NUMBA_NUM_THREADS is what "all cores"
-        # means to numba), and FFTW's default of one thread per CPU (os.cpu_count).
+        # means to numba), and scipy.fft's workers, one per CPU by default (os.cpu_count).
         expect = numba.config.NUMBA_NUM_THREADS if requested is None else requested
         assert threads["numba"] == expect == rep["parameters"]["threads"]
         assert rep["machine"]["threads"] == expect
-        if threads["fft_backend"] == "pyfftw":
-            assert threads["fft_threads"] == (os.cpu_count() if requested is None
-                                              else requested)
-        else:
-            assert threads["fft_backend"] == "numpy" and threads["fft_threads"] == 1
+        # The default backend, scipy.fft, takes one worker per CPU when none is given.
+        assert threads["fft_backend"] == "scipy"
+        assert threads["fft_threads"] == (os.cpu_count() if requested is None
+                                          else requested)
         # The emission mask's level: the sigma used (EmissionMask's documented default
         # 5, or the option) and, per scale, the level in Jy/beam = sigma x noise.
         em = rep["emission_mask"]

@@ -158,14 +158,14 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
     centres = (model != 0).astype(np.uint8)
 
     valid = None if blank is None else ~np.asarray(blank, dtype=bool)
-    kept = [None]      # the last noise measured outside the mask (`keep_outside_noise`)
+    kept = [None]      # the lowest noise measured outside the mask (`keep_outside_noise`)
 
-    def stats(residual, model, mask, previous=None, planes=None):
+    def stats(residual, model, mask, previous=None, planes=None, smallest_only=False):
         region = None if exact else exact_region(shape, model, offsets)
         if valid is not None:
             region = valid if region is None else (region & valid)
         state = engine.measure(residual, mask, noise_region=region, previous=previous,
-                               planes=planes)
+                               planes=planes, smallest_only=smallest_only)
         kept[0] = keep_outside_noise(state.noise, state.noise_how, kept[0],
                                      np.sqrt(engine.beam_peaks))
         inside = mask if region is None else (region if mask is None else mask & region)
@@ -192,7 +192,7 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
     stagnant = 0
     detail = None          # the stop in a sentence, from what happened (result.stop_detail)
     depth = cycle_depth
-    retries = rollbacks = rounds = rejected = 0
+    retries = rollbacks = rounds = rejected = fft_updates = 0
     progress = _progress(state.peaks, levels)
     try:
         for cycle in range(1, max_major_cycles + 1):
@@ -210,10 +210,11 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
                                     noise_threshold=noise_threshold,
                                     extended_depth=extended_depth, cycle_depth=depth,
                                     max_components=max_components - n_comp, callback=callback,
-                                    noise_region=region, state=state)
+                                    noise_region=region, state=state, exact_residual=False)
             t2 = time.perf_counter()
             t_minor += t2 - t1
             rounds += mc.rounds
+            fft_updates += mc.fft_updates
             rejected += mc.rejected
             if mc.components.size == 0:
                 stop = run_stop_after_empty_cycle(
@@ -233,8 +234,10 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
                 warnings_seen.append(msg)
                 stop = "diverging"
                 break
+            # With an automatic mask only the smallest scale's noise (the mask's level)
+            # is needed before the mask is renewed and every scale measured again.
             new_state, new_region, new_peak, new_rms, new_levels = stats(
-                new_residual, mc.model, mask, state)
+                new_residual, mc.model, mask, state, smallest_only=mask_updater is not None)
             highest = allowed_peak(peak, levels, engine.scales.has_delta)
             if new_peak > highest * (1.0 + PEAK_TOLERANCE):
                 rollbacks += 1
@@ -303,7 +306,8 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
         warnings=warnings_seen, rollbacks=rollbacks, scale_noise=state.noise.tolist(),
         scale_levels=levels.tolist(), scale_peaks=state.peaks.tolist(), active_scales=active,
         noise_region=_describe_region(region, state, mask, blank),
-        sub_loops=rounds, rejected_sub_loops=rejected, stop_detail=detail)
+        sub_loops=rounds, rejected_sub_loops=rejected, fft_updates=fft_updates,
+        stop_detail=detail)
 
 
 def _describe_region(region, state, mask, blank=None):
@@ -382,7 +386,8 @@ def deconvolve(dirty, psf, *, scales=DEFAULTS.scales, loop_gain=DEFAULTS.loop_ga
         No longer used; a DeprecationWarning when given.
     threads : int, optional
         Default all cores.  The result does not depend on it.
-    fft : {'auto', 'numpy', 'pyfftw'}
+    fft : {'auto', 'scipy', 'numpy', 'pyfftw'}
+        FFT backend; default scipy.fft, whose results do not depend on the thread count.
     dtype : {float32, float64}
         Default float32.
     cell_arcsec : float, optional

@@ -31,10 +31,13 @@ from skyscale.core.validate import (NUMBER_RULES, InputError, as_image, check_nu
                                     resolve_dtype)
 from skyscale.core.fft import Convolver, MultiConvolver, get_backend
 from skyscale.core.kernels import scale_loop, stamp_components
+from skyscale.core.kernels.tracked import (direct_subtract, masked_peak, pixel_runs,
+                                          tracked_peaks)
 from skyscale.core.levels import allowed_peak, scale_levels
 from skyscale.core.noise import scale_noise
 from skyscale.cost.model import MEMORY_HEADROOM, engine_memory, fits_memory
-from skyscale.core.precompute import scale_beams
+from skyscale.core.precompute import BeamBank, beam_peaks
+from skyscale.cost.model import fft_work
 from skyscale.core.psf import check_psf, describe_psf
 from skyscale.core.result import COMPONENT_DTYPE
 from skyscale.core.scales import ScaleSet
@@ -43,11 +46,6 @@ from skyscale.core.defaults import DEFAULTS
 __all__ = ["Engine", "MinorCycleResult", "ScaleState"]
 
 logger = logging.getLogger(__name__)
-
-#: Default bias toward small scales (see `Engine` for the derivation).
-
-#: A sub-loop cleans its scale down to this fraction of the scale's peak (or its floor)
-#: before every scale's residual is brought up to date and the next scale is chosen.
 
 #: A sub-loop may not raise the peak residual in the cycle's mask (within the box the
 #: cycle works in) above the cycle's start (or `skyscale.core.levels.LEVEL_ALLOWANCE` times
@@ -59,6 +57,19 @@ PEAK_RISE_TOLERANCE = 1e-5
 #: A sub-loop that would raise the peak is retried with half its components this many
 #: times before its scale is given up for the rest of the cycle.
 MAX_HALVINGS = 3
+
+#: Within a minor cycle, a scale cleaned down to a floor above its stop level is chosen
+#: again only when its peak is back above this multiple of the floor: scales that
+#: alternate just above their floors would otherwise each pay an update for a component
+#: or two.  A floor that is the stop level itself is kept exactly.
+REENTRY = 1.05
+
+#: A sub-loop is applied directly to the tracked pixels (exact, see
+#: `skyscale.core.kernels.tracked`) when its multiply-adds (components x tracked pixels x
+#: (scales + 1)) are at most this multiple of the FFT update's work (``S log2 S`` summed
+#: over its transforms); otherwise by an FFT update of the whole box.  Measured on the
+#: development machine: a direct multiply-add costs about ten times an FFT work unit.
+DIRECT_COST_RATIO = 0.1
 
 
 
@@ -96,6 +107,8 @@ class MinorCycleResult:
     scale_levels: np.ndarray = None       #: per-scale stop level of the run
     scale_noise: np.ndarray = None        #: per-scale noise used for the levels
     rounds: int = 0            #: sub-loops run (each ends with an exact update)
+    fft_updates: int = 0       #: sub-loops applied by an FFT update of the whole box
+    direct_updates: int = 0    #: sub-loops applied directly to the tracked pixels
     rejected: int = 0          #: sub-loops undone because they raised the peak
     seconds: float = 0.0
     timings: dict = field(default_factory=dict)
@@ -126,8 +139,9 @@ class Engine:
         Working precision of the smoothed residuals; default float32.
     threads : int, optional
         Threads for kernels and FFTs; default all cores.
-    fft : {'auto', 'numpy', 'pyfftw'} or backend
-        FFT backend; default pyfftw when installed.
+    fft : {'auto', 'scipy', 'numpy', 'pyfftw'} or backend
+        FFT backend; default scipy.fft (the same bits at any thread count, see
+        `skyscale.core.fft`).
     cell_arcsec : float, optional
         Cell size, needed when scales are angles.
     max_memory : int, optional
@@ -204,7 +218,6 @@ class Engine:
         self.weights = self.scales.weights(size_penalty)
         self.threads = threads
         self.fft = get_backend(fft, threads=threads)
-        self.psf_info = describe_psf(self.psf, self.image_shape)
         self.memory = engine_memory(self.image_shape, self.psf.shape,
                                     self.scales.support_radii, self.dtype.itemsize)
         if max_memory is not None and not fits_memory(self.memory["total"], max_memory):
@@ -213,17 +226,21 @@ class Engine:
                              f"max_memory {max_memory / 2**20:.0f} MiB; use fewer or smaller "
                              "scales, a smaller image, or raise max_memory")
         self.kernels = self.scales.kernels(self.dtype)
+        self._kernels64 = [k.astype(np.float64) for k in self.kernels]
+        self.beam_peaks = beam_peaks(self.psf, self._kernels64)
+        bad = [s for s, b in zip(self.scales.pixels, self.beam_peaks) if not b > 0]
+        if bad:
+            raise InputError(f"scales {bad} px see a PSF whose doubly smoothed peak is "
+                             "<= 0 (the array does not recover structure that large); "
+                             "drop them or use smaller scales")
+        #: Scale and pair beams, made for the extent each minor cycle's box needs.
+        self.bank = BeamBank(self.psf, self._kernels64, self.image_shape, self.fft,
+                             dtype=self.dtype)
         with thread_limit(threads):
-            self.beams, self.beam_peaks = scale_beams(
-                self.psf, [k.astype(np.float64) for k in self.kernels], self.image_shape,
-                self.fft, dtype=self.dtype)
-            bad = [s for s, b in zip(self.scales.pixels, self.beam_peaks) if not b > 0]
-            if bad:
-                raise InputError(f"scales {bad} px see a PSF whose doubly smoothed peak is "
-                                 "<= 0 (the array does not recover structure that large); "
-                                 "drop them or use smaller scales")
-            self.smoother = MultiConvolver(self.kernels, self.image_shape, backend=self.fft)
-            self.psf_convolver = Convolver(self.psf, self.image_shape, backend=self.fft)
+            self.smoother = MultiConvolver(self.kernels, self.image_shape, backend=self.fft,
+                                           precision=self.dtype)
+        self._psf_convolver = None
+        self.max_memory = max_memory
         self._box_tools = {}
         #: ``B_0k(0)``: the PSF smoothed once by scale k, at its centre.
         py, px = self.psf.shape
@@ -244,6 +261,79 @@ class Engine:
     @property
     def n_scales(self):
         return len(self.scales)
+
+    @property
+    def psf_info(self):
+        """`skyscale.core.psf.describe_psf` of the engine's PSF (made on first use)."""
+        if getattr(self, "_psf_info", None) is None:
+            self._psf_info = describe_psf(self.psf, self.image_shape)
+        return self._psf_info
+
+    @property
+    def psf_convolver(self):
+        """The PSF convolution over the whole image (float64), made on first use."""
+        if self._psf_convolver is None:
+            self._psf_convolver = Convolver(self.psf, self.image_shape, backend=self.fft)
+        return self._psf_convolver
+
+    def _pair_keys(self):
+        """The beams direct updates need beyond ``beams``: every pair of scales, and
+        each scale's response in the unsmoothed residual (index ``n_scales``) unless a
+        delta scale of unit weight stands for it."""
+        n = self.n_scales
+        keys = [(j, k) for j in range(n) for k in range(j + 1, n)]
+        if self._unit_delta() is None:
+            keys += [(n, k) for k in range(n)]
+        return keys
+
+    def _unit_delta(self):
+        for i, kern in enumerate(self.kernels):
+            if kern.size == 1 and float(kern.ravel()[0]) == 1.0:
+                return i
+        return None
+
+    def pair_memory(self, shape=None):
+        """Bytes of the pair beams direct updates use for a box of ``shape`` (default
+        the image: the most they can take)."""
+        ey, ex = shape or self.image_shape
+        return len(self._pair_keys()) * (2 * ey - 1) * (2 * ex - 1) * self.dtype.itemsize
+
+    @property
+    def beams(self):
+        """Each scale's beam ``PSF (*) s_k (*) s_k`` at every offset within the image,
+        ``(2 ny - 1, 2 nx - 1)``, zero offset at ``(ny - 1, nx - 1)`` (made on first use;
+        minor cycles use beams of their box's extent)."""
+        ny, nx = self.image_shape
+        out = []
+        for k in range(self.n_scales):
+            b = self.bank.get(k, k, self.image_shape)
+            hy, hx = b.shape[0] // 2, b.shape[1] // 2
+            out.append(b[hy - ny + 1:hy + ny, hx - nx + 1:hx + nx])
+        return out
+
+    def pair_beam(self, j, k, shape):
+        """``PSF (*) s_j (*) s_k`` covering the offsets of a box of ``shape`` (``j`` None:
+        the unsmoothed residual's response to scale ``k``)."""
+        if j is None:
+            d = self._unit_delta()
+            j = self.n_scales if d is None else d
+        return self.bank.get(j, k, shape)
+
+    def _direct_ok(self, direct_work, fft_work_units):
+        """Whether a sub-loop of ``direct_work`` multiply-adds is applied directly."""
+        if direct_work > DIRECT_COST_RATIO * fft_work_units:
+            return False
+        if self.max_memory is not None and not fits_memory(
+                self.memory["total"] + self.pair_memory(), self.max_memory):
+            return False
+        return True
+
+    def _fft_update_cost(self, shape):
+        """FFT work units (``S log2 S``) of one update of a box of ``shape``."""
+        conv, smooth = self._tools(shape)
+        n_fin = sum(1 for k in self.kernels if k.size > 1)
+        return 2 * fft_work(conv.fshape) + (1 + n_fin) * fft_work(smooth.fshape) * (
+            1 if n_fin else 0)
 
     def smooth(self, residual):
         """Residual smoothed by every scale kernel: ``(n_scales, ny, nx)``."""
@@ -282,10 +372,11 @@ class Engine:
 
     @staticmethod
     def _peaks(planes, allowed):
-        return np.array([float(np.abs(p[a]).max()) if a.any() else 0.0
+        return np.array([float(np.max(np.abs(p), where=a, initial=0.0))
                          for p, a in zip(planes, allowed)])
 
-    def measure(self, residual, mask=None, noise_region=None, previous=None, planes=None):
+    def measure(self, residual, mask=None, noise_region=None, previous=None, planes=None,
+                smallest_only=False):
         """Smooth ``residual`` by every scale; return peaks and noise as a `ScaleState`.
 
         Noise is measured outside ``mask`` (grown by each scale's radius), inside
@@ -295,25 +386,36 @@ class Engine:
         the smallest scale's noise).  ``previous`` (a `ScaleState`) supplies the
         smallest scale's noise when too little of the image is left to measure it;
         ``planes``, this residual already smoothed (a new mask, the same residual), saves
-        the smoothing.
+        the smoothing.  ``smallest_only`` measures the smallest scale's noise alone (the
+        same value; the others are NaN), for a caller that renews the mask from it and
+        then measures again.
         """
         residual = np.asarray(residual)
         if planes is None:
             with thread_limit(self.threads):
                 planes = self.smooth(residual)
         allowed = self.allowed(None if mask is None else np.asarray(mask, dtype=bool))
-        sigma, used, how = scale_noise(planes, self.scales.support_radii, mask=mask,
-                                       region=noise_region, ratios=np.sqrt(self.beam_peaks),
-                                       cross=self.cross_peaks,
+        n = self.n_scales
+        pick = [0, n - 1] if smallest_only and n > 2 else list(range(n))
+        radii = np.asarray(self.scales.support_radii)[pick]
+        sigma, used, how = scale_noise(planes[pick], radii, mask=mask,
+                                       region=noise_region,
+                                       ratios=np.sqrt(self.beam_peaks)[pick],
+                                       cross=self.cross_peaks[pick],
                                        previous=None if previous is None
                                        else float(previous.noise[0]))
+        if len(pick) < n:
+            sigma = np.concatenate([sigma[:1], np.full(n - 1, np.nan)])
+            used = np.concatenate([used[:1], np.zeros(n - 1, used.dtype)])
+            how = how[:1] + ["not measured"] * (n - 1)
         return ScaleState(planes, self._peaks(planes, allowed), sigma, used, how)
 
     # --------------------------------------------------------------- the cycle
     def minor_cycle(self, residual, model=None, *, mask=None, threshold=0.0,
                     noise_threshold=None, extended_depth=DEFAULTS.extended_depth,
                     cycle_depth=DEFAULTS.cycle_depth,
-                    max_components=DEFAULTS.max_components, callback=None, noise_region=None, state=None):
+                    max_components=DEFAULTS.max_components, callback=None, noise_region=None,
+                    state=None, exact_residual=True):
         """Clean ``residual`` down to this cycle's floors and return the updated model.
 
         Parameters
@@ -343,6 +445,11 @@ class Engine:
             Where the residual is exact, for the noise; default everywhere.
         state : ScaleState, optional
             `measure` of this very residual, when the caller already has it.
+        exact_residual : bool
+            Compute the whole residual at the end (``result.residual``, one PSF
+            convolution of the image); default True.  A driver whose major cycle
+            recomputes it anyway passes False and gets ``residual=None``, with
+            ``peak_end`` over the mask's pixels in the cycle's box.
 
         Returns
         -------
@@ -377,10 +484,11 @@ class Engine:
         with thread_limit(self.threads):
             return self._minor_cycle(residual, model, mask, float(threshold), noise_threshold,
                                      float(extended_depth), float(cycle_depth),
-                                     int(max_components), callback, noise_region, state, t0)
+                                     int(max_components), callback, noise_region, state, t0,
+                                     bool(exact_residual))
 
     def _minor_cycle(self, residual, model, mask, threshold, noise_threshold, extended_depth,
-                     cycle_depth, budget, callback, noise_region, state, t0):
+                     cycle_depth, budget, callback, noise_region, state, t0, exact_residual):
         if state is None:
             state = self.measure(residual, mask, noise_region)
         planes = state.planes
@@ -392,7 +500,7 @@ class Engine:
         start = self._peaks(planes, allowed)
         floors = np.maximum(levels, cycle_depth * start)
         in_mask = np.ones(residual.shape, bool) if mask is None else mask
-        peak_start = float(np.abs(residual[in_mask]).max()) if in_mask.any() else 0.0
+        peak_start = float(np.max(np.abs(residual), where=in_mask, initial=0.0))
         guard = allowed_peak(peak_start, levels, self.scales.has_delta)
         guard *= 1.0 + PEAK_RISE_TOLERANCE
         out = dict(scale_peaks_start=start, scale_floors=floors, scale_levels=levels,
@@ -403,23 +511,23 @@ class Engine:
                                     scale_peaks_end=start, **out)
         # Work on the box that holds every allowed centre, grown by the largest kernel
         # radius: there the smoothed residuals are exact, and the FFTs are that size.
-        y0, y1, x0, x1 = self._box(allowed)
-        sub = residual[y0:y1, x0:x1].copy()
-        planes = np.ascontiguousarray(planes[:, y0:y1, x0:x1])
-        allowed = allowed[:, y0:y1, x0:x1]
-        in_box = in_mask[y0:y1, x0:x1]
-        psf_convolver, smoother = self._tools(sub.shape)
-        total = np.zeros(sub.shape, dtype=np.float64)
-        peaks = start.copy()
+        box = self._box(allowed)
+        work = _CycleWork(self, residual, planes, allowed, in_mask, box)
+        del planes, allowed
+        total = np.zeros(work.shape, dtype=np.float64)
+        peaks = work.peaks()
         pieces = []
         added = rounds = rejected = 0
         blocked = np.zeros(self.n_scales, dtype=bool)
+        entry = floors.copy()          # a scale cleaned to its floor re-enters above this
+        reentry = np.where(floors > levels, REENTRY * floors, floors)   # not at the stop
         reason = "depth"
-        t_loop = t_update = 0.0
+        t_loop = 0.0
         while True:
-            live = (peaks > floors) & ~blocked
+            entry = np.where(peaks <= floors, np.maximum(entry, reentry), entry)
+            live = (peaks > entry) & ~blocked
             if not live.any():
-                reason = ("peak_rose" if (peaks > floors).any() else
+                reason = ("peak_rose" if ((peaks > entry) & blocked).any() else
                           "threshold" if np.all(peaks <= levels) else "depth")
                 break
             if added >= budget:
@@ -429,55 +537,35 @@ class Engine:
             k = int(np.argmax(response))
             level = max(floors[k], self.scale_loop_depth * peaks[k])
             ta = time.perf_counter()
-            # Active pixels: above the sub-loop's level, and where no other scale that is
-            # still above its own floor there has a larger penalised response (a bright
-            # compact source seen through a broad scale's smoothing stays the delta
-            # scale's, as it would with a per-component choice of scale).
-            mine = allowed[k] & (np.abs(planes[k]) > level)
-            ys, xs = np.nonzero(mine)
-            resp = self.response_scale[k] * np.abs(planes[k][ys, xs])
-            for j in range(self.n_scales):
-                if j != k:
-                    pj = np.abs(planes[j][ys, xs])
-                    claims = allowed[j][ys, xs] & (pj > floors[j]) & ~blocked[j]
-                    resp = np.where(claims & (self.response_scale[j] * pj > resp), -1.0, resp)
-            best = resp >= 0
-            ys, xs = ys[best], xs[best]
-            values = planes[k][ys, xs]
-            idx, flux, _, _ = scale_loop(values, ys, xs, self.beams[k],
+            active = work.active(k, level, floors, blocked)
+            values = work.planes_t[k][active]
+            ys, xs = work.tys[active], work.txs[active]
+            idx, flux, _, _ = scale_loop(values, ys, xs, self.bank.get(k, k, work.shape),
                                          beam_peak=self.beam_peaks[k], gain=self.loop_gain,
                                          level=level, max_iter=budget - added)
-            tb = time.perf_counter()
-            t_loop += tb - ta
+            t_loop += time.perf_counter() - ta
             rounds += 1
             # Apply the sub-loop; if it would raise the peak in the mask, try its first
             # half, then quarter, ... (the rise grows with the flux taken) before
             # giving the scale up for this cycle.
             tries = 0
+            peak0 = None
             while idx.size:
-                step = np.zeros(sub.shape, dtype=np.float64)
-                stamp_components(step, [self.kernels[k].astype(np.float64)], ys[idx],
-                                 xs[idx], np.zeros(idx.size, np.int64), flux)
-                change = psf_convolver(step, out_dtype=np.float64)
-                sub -= change
-                peak0 = float(np.abs(sub[in_box]).max())
-                if peak0 <= guard:
+                peak0 = work.apply(k, ys[idx], xs[idx], flux, guard)
+                if peak0 is not None:
                     break
-                sub += change        # undo
                 rejected += 1
                 tries += 1
                 keep = idx.size // 2 if tries <= MAX_HALVINGS else 0
                 idx, flux = idx[:keep], flux[:keep]
             if idx.size == 0:
                 blocked[k] = True
-                t_update += time.perf_counter() - tb
                 continue
-            total += step
-            planes = smoother(sub, dtype=self.dtype)
-            peaks = self._peaks(planes, allowed)
-            t_update += time.perf_counter() - tb
+            stamp_components(total, [self._kernels64[k]], ys[idx], xs[idx],
+                             np.zeros(idx.size, np.int64), flux)
+            peaks = work.peaks()
             table = np.zeros(idx.size, dtype=COMPONENT_DTYPE)
-            table["y"], table["x"], table["flux"] = ys[idx] + y0, xs[idx] + x0, flux
+            table["y"], table["x"], table["flux"] = ys[idx] + box[0], xs[idx] + box[2], flux
             table["scale"] = np.float32(self.scales.pixels[k])
             pieces.append(table)
             added += idx.size
@@ -485,21 +573,163 @@ class Engine:
             if callback is not None:
                 callback({"stage": "minor", "components": added, "peak": peak0,
                           "scale": self.scales.pixels[k]})
+        y0, y1, x0, x1 = box
         new_model = model.astype(np.float64)
         new_model[y0:y1, x0:x1] += total
-        if added:
-            step = np.zeros(residual.shape, dtype=np.float64)
-            step[y0:y1, x0:x1] = total
-            residual = residual - self.psf_convolver(step, out_dtype=np.float64)
+        if exact_residual:
+            if added:
+                step = np.zeros(residual.shape, dtype=np.float64)
+                step[y0:y1, x0:x1] = total
+                residual = residual - self.psf_convolver(step, out_dtype=np.float64)
+            peak_end = float(np.max(np.abs(residual), where=in_mask, initial=0.0))
+        else:
+            residual = None
+            peak_end = work.tracked_peak()
         table = np.concatenate(pieces) if pieces else np.zeros(0, COMPONENT_DTYPE)
-        peak_end = float(np.abs(residual[in_mask]).max())
-        box = (y0, y1, x0, x1)
         t1 = time.perf_counter()
-        logger.debug("minor cycle: %d components in %d sub-loops (%d rejected), peak "
-                     "%.4g -> %.4g, %s", table.size, rounds, rejected, peak_start, peak_end,
+        logger.debug("minor cycle: %d components in %d sub-loops (%d rejected; %d FFT "
+                     "updates, %d direct), peak %.4g -> %.4g, %s", table.size, rounds,
+                     rejected, work.fft_updates, work.direct_updates, peak_start, peak_end,
                      reason)
         return MinorCycleResult(
             new_model.astype(self.dtype), table, reason, peak_start, peak_end,
             float(floors[0]), residual, box, scale_peaks_end=peaks, rounds=rounds,
-            rejected=rejected, seconds=t1 - t0,
-            timings={"smooth": t_smooth - t0, "loop": t_loop, "update": t_update}, **out)
+            rejected=rejected, seconds=t1 - t0, fft_updates=work.fft_updates,
+            direct_updates=work.direct_updates,
+            timings={"smooth": t_smooth - t0, "loop": t_loop, "update": work.seconds}, **out)
+
+
+class _CycleWork:
+    """One minor cycle's residual and smoothed residuals in its box, kept exact.
+
+    The box's residual and planes are exact as of the last FFT update; the tracked
+    pixels (the mask in the box, or the whole box without one) are exact now.  A
+    sub-loop is applied to the tracked pixels directly (`direct_subtract` with the
+    scale's pair beams) when that costs less than an FFT update, which otherwise
+    applies every component since the last one to the whole box.
+    """
+
+    def __init__(self, engine, residual, planes, allowed, in_mask, box):
+        self.e = engine
+        y0, y1, x0, x1 = box
+        self.box = box
+        self.shape = (y1 - y0, x1 - x0)
+        self.sub = residual[y0:y1, x0:x1].copy()          # float64, exact at last FFT
+        self.planes = planes[:, y0:y1, x0:x1].copy()      # FFT updates write here
+        allowed = allowed[:, y0:y1, x0:x1]
+        guard_px = in_mask[y0:y1, x0:x1]
+        self.guard_px = np.ascontiguousarray(guard_px)
+        tracked = guard_px | allowed.any(axis=0)
+        self.tys, self.txs = np.nonzero(tracked)
+        self.full = self.tys.size == tracked.size     # every pixel: views, no gathers
+        self.runs = pixel_runs(self.tys, self.txs)
+        if self.full:
+            self.allowed_t = allowed.reshape(allowed.shape[0], -1)
+            self.guard_t = guard_px.ravel()
+        else:
+            self.allowed_t = np.ascontiguousarray(allowed[:, self.tys, self.txs])
+            self.guard_t = guard_px[self.tys, self.txs]
+        self.psf_convolver, self.smoother = engine._tools(self.shape)
+        engine.bank.make([(k, k) for k in range(engine.n_scales)], self.shape)
+        self._gather()
+        self.pending = []                                 # (k, ys, xs, flux) since last FFT
+        self._scratch = None
+        self.fft_updates = self.direct_updates = 0
+        self.seconds = 0.0
+        n_t = self.tys.size
+        self._fft_cost = engine._fft_update_cost(self.shape)
+        self._direct_cost = n_t * (engine.n_scales + 1)
+
+    def _gather(self):
+        if self.full:
+            self.resid_t = self.sub.ravel()
+            self.planes_t = self.planes.reshape(self.planes.shape[0], -1)
+        else:
+            flat = self.tys * self.shape[1] + self.txs
+            self.resid_t = self.sub.ravel().take(flat)
+            self.planes_t = self.planes.reshape(self.planes.shape[0], -1).take(flat, axis=1)
+
+    def peaks(self):
+        return tracked_peaks(self.planes_t, self.allowed_t)
+
+    def tracked_peak(self):
+        d = self.e._unit_delta()
+        r = (self.resid_t if self.resid_t is not None else self.planes_t[d])[self.guard_t]
+        return float(np.abs(r).max()) if r.size else 0.0
+
+    def active(self, k, level, floors, blocked):
+        """Indices (into the tracked pixels) of scale ``k``'s sub-loop: allowed, above
+        ``level``, and not claimed by another live scale with a larger penalised
+        response (a bright compact source seen through a broad scale's smoothing stays
+        the delta scale's, as with a per-component choice of scale)."""
+        e = self.e
+        mag = np.abs(self.planes_t[k])
+        idx = np.flatnonzero(self.allowed_t[k] & (mag > level))
+        resp = e.response_scale[k] * mag[idx]
+        for j in range(e.n_scales):
+            if j != k and not blocked[j]:
+                pj = np.abs(self.planes_t[j][idx])
+                claims = self.allowed_t[j][idx] & (pj > floors[j])
+                resp = np.where(claims & (e.response_scale[j] * pj > resp), -1.0, resp)
+        return idx[resp >= 0]
+
+    def apply(self, k, ys, xs, flux, guard):
+        """Subtract scale ``k``'s components; return the new peak in the mask, or None
+        (nothing changed) when it would exceed ``guard``."""
+        t0 = time.perf_counter()
+        try:
+            if self.e._direct_ok(len(flux) * self._direct_cost, self._fft_cost):
+                return self._apply_direct(k, ys, xs, flux, guard)
+            return self._apply_fft(k, ys, xs, flux, guard)
+        finally:
+            self.seconds += time.perf_counter() - t0
+
+    def _apply_direct(self, k, ys, xs, flux, guard):
+        e = self.e
+        d = e._unit_delta()          # a unit delta scale's plane is the residual itself
+        resid_index = e.n_scales if d is None else d
+        e.bank.make([(j, k) for j in range(e.n_scales)] + [(resid_index, k)], self.shape)
+        first = (self.resid_t if d is None else self.planes_t[d]).copy()
+        direct_subtract(first, self.tys, self.txs, ys, xs, flux,
+                        e.pair_beam(resid_index, k, self.shape), runs=self.runs)
+        peak = float(np.max(np.abs(first), where=self.guard_t, initial=0.0))
+        if peak > guard:
+            return None
+        planes = self.planes_t
+        for j in range(e.n_scales):
+            if j == d:
+                planes[j][:] = first
+            else:
+                direct_subtract(planes[j], self.tys, self.txs, ys, xs, flux,
+                                e.pair_beam(j, k, self.shape), runs=self.runs)
+        if d is None:
+            self.resid_t = first
+        else:
+            self.resid_t = None       # the delta scale's plane holds it now
+        self.pending.append((k, ys, xs, flux))
+        self.direct_updates += 1
+        return peak
+
+    def _apply_fft(self, k, ys, xs, flux, guard):
+        e = self.e
+        parts = self.pending + [(k, ys, xs, flux)]
+        step = np.zeros(self.shape, dtype=e.dtype)
+        stamp_components(step, e._kernels64, np.concatenate([p[1] for p in parts]),
+                         np.concatenate([p[2] for p in parts]),
+                         np.concatenate([np.full(len(p[3]), p[0], np.int64) for p in parts]),
+                         np.concatenate([p[3] for p in parts]))
+        full = self.psf_convolver.transform(step)
+        ny, nx = self.shape
+        if self._scratch is None:
+            self._scratch = np.empty_like(self.sub)
+        np.subtract(self.sub, full[:ny, :nx], out=self._scratch)
+        del full
+        peak = masked_peak(self._scratch, self.guard_px)
+        if peak > guard:
+            return None
+        self.sub, self._scratch = self._scratch, self.sub
+        self.smoother(self.sub, out=self.planes)
+        self._gather()
+        self.pending = []
+        self.fft_updates += 1
+        return peak

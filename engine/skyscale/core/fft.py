@@ -1,35 +1,57 @@
-"""FFT backend and linear-convolution helpers.
+"""FFT backends and linear-convolution helpers.
 
-pyfftw is used when it is installed (plans with threads, wisdom kept in a cache
-file); numpy.fft otherwise.  The plans use ``FFTW_ESTIMATE`` (no timed planning), so
-the wisdom cache only makes building a plan faster: a few milliseconds per plan,
-measured by ``benchmarks/fftw_wisdom.py``; it does not make the transforms faster.  The backend is injectable so that tests can run both
-paths against each other.
+The default backend is ``scipy.fft`` (pocketfft): it needs no plans, keeps float32 in
+float32, and computes every one-dimensional transform the same way whatever the number
+of worker threads, so results are bit-identical at any thread count and depend on no
+cache.  numpy.fft and pyfftw can be chosen by name.  pyfftw's plans (``FFTW_ESTIMATE``)
+are kept for the process, shared by every engine, and no wisdom is read or written:
+with wisdom, FFTW may pick another algorithm and round differently, and its threaded
+plans also round differently from its serial ones, so a pyfftw run is reproducible only
+at the same thread count.  The backend is injectable so that tests can run the paths
+against each other.
 """
 
 import logging
 import os
-import pickle
 import threading
 
 import numpy as np
+import scipy.fft as _sfft
 from scipy.fft import next_fast_len
 
-from skyscale.io.atomic import atomic_write_bytes
-from skyscale.core.validate import check_choice
+from skyscale.core.validate import FFT_BACKENDS, check_choice
 
-__all__ = ["FFT_BACKENDS", "NumpyFFT", "FFTWFFT", "get_backend", "fast_shape",
-           "convolve_centred", "Convolver",
-           "MultiConvolver"]
+__all__ = ["FFT_BACKENDS", "ScipyFFT", "NumpyFFT", "FFTWFFT", "get_backend", "fast_shape",
+           "convolve_centred", "Convolver", "MultiConvolver"]
 
 logger = logging.getLogger(__name__)
 
-#: Backend names accepted by `get_backend`.
-FFT_BACKENDS = ("auto", "numpy", "pyfftw")
+def _workers(threads):
+    return max(int(threads or os.cpu_count() or 1), 1)
+
+
+class ScipyFFT:
+    """Real 2-D FFTs with ``scipy.fft`` (pocketfft): the default backend.
+
+    Deterministic whatever ``threads`` is: the worker threads share out whole
+    one-dimensional transforms, each computed the same way.  float32 input gives
+    complex64 transforms.
+    """
+
+    name = "scipy"
+
+    def __init__(self, threads=None):
+        self.threads = _workers(threads)
+
+    def rfft2(self, a, s):
+        return _sfft.rfft2(a, s=s, workers=self.threads)
+
+    def irfft2(self, a, s):
+        return _sfft.irfft2(a, s=s, workers=self.threads)
 
 
 class NumpyFFT:
-    """Real 2-D FFTs with numpy.fft (always available)."""
+    """Real 2-D FFTs with numpy.fft (one thread)."""
 
     name = "numpy"
 
@@ -44,75 +66,53 @@ class NumpyFFT:
 
 
 class FFTWFFT:
-    """Real 2-D FFTs with pyfftw's builders, threads and a wisdom cache.
+    """Real 2-D FFTs with pyfftw's builders and threads; plans kept for the process.
 
     Parameters
     ----------
     threads : int, optional
         FFT threads; default the number of CPUs.
-    wisdom_path : str, optional
-        Wisdom file; default ``~/.cache/skyscale/fftw_wisdom.pkl``.  Set the
-        environment variable ``SKYSCALE_FFTW_WISDOM`` to override.
+
+    Notes
+    -----
+    Plans use ``FFTW_ESTIMATE`` and no wisdom is imported or exported, so the plan,
+    and with it the rounding, does not depend on any file a user's earlier runs left.
+    FFTW's threaded plans round differently from its serial ones: use the default
+    backend for results that do not depend on the thread count.
     """
 
     name = "pyfftw"
-    _lock = threading.Lock()
-    _wisdom_loaded = False
-    _planned = set()          # plan keys whose wisdom this process has saved
+    _lock = threading.RLock()
+    _plans = {}               # (kind, shape, dtype, s, threads) -> plan, for the process
 
-    def __init__(self, threads=None, wisdom_path=None):
+    def __init__(self, threads=None):
         import pyfftw
         import pyfftw.builders  # noqa: F401
         self._pyfftw = pyfftw
-        self.threads = int(threads or os.cpu_count() or 1)
-        self.wisdom_path = wisdom_path or os.environ.get(
-            "SKYSCALE_FFTW_WISDOM",
-            os.path.join(os.path.expanduser("~"), ".cache", "skyscale", "fftw_wisdom.pkl"))
-        self._plans = {}
-        self._load_wisdom()
-
-    def _load_wisdom(self):
-        with FFTWFFT._lock:
-            if FFTWFFT._wisdom_loaded:
-                return
-            FFTWFFT._wisdom_loaded = True
-            try:
-                with open(self.wisdom_path, "rb") as fh:
-                    self._pyfftw.import_wisdom(pickle.load(fh))
-                logger.debug("loaded FFTW wisdom from %s", self.wisdom_path)
-            except (OSError, ValueError, pickle.UnpicklingError, EOFError):
-                pass
-
-    def _save_wisdom(self):
-        try:
-            os.makedirs(os.path.dirname(os.path.abspath(self.wisdom_path)), exist_ok=True)
-            atomic_write_bytes(self.wisdom_path, pickle.dumps(self._pyfftw.export_wisdom()),
-                               overwrite=True)
-        except OSError:  # a read-only home is fine: wisdom is only a speed-up
-            pass
+        self.threads = _workers(threads)
 
     def _plan(self, kind, shape, dtype, s):
-        key = (kind, shape, np.dtype(dtype).str, s)
-        plan = self._plans.get(key)
+        key = (kind, shape, np.dtype(dtype).str, s, self.threads)
+        plan = FFTWFFT._plans.get(key)
         if plan is None:
-            builders = self._pyfftw.builders
-            template = self._pyfftw.empty_aligned(shape, dtype=dtype)
-            build = builders.rfft2 if kind == "r" else builders.irfft2
-            plan = build(template, s=s, threads=self.threads,
-                         planner_effort="FFTW_ESTIMATE", avoid_copy=False)
-            self._plans[key] = plan
-            if key not in FFTWFFT._planned:
-                FFTWFFT._planned.add(key)
-                self._save_wisdom()
+            with FFTWFFT._lock:
+                builders = self._pyfftw.builders
+                template = self._pyfftw.empty_aligned(shape, dtype=dtype)
+                build = builders.rfft2 if kind == "r" else builders.irfft2
+                plan = build(template, s=s, threads=self.threads,
+                             planner_effort="FFTW_ESTIMATE", avoid_copy=False)
+                FFTWFFT._plans[key] = plan
         return plan
 
     def rfft2(self, a, s):
         a = np.asarray(a)
-        return self._plan("r", a.shape, a.dtype, tuple(s))(a).copy()
+        with FFTWFFT._lock:      # a plan owns its buffers: one caller at a time
+            return self._plan("r", a.shape, a.dtype, tuple(s))(a).copy()
 
     def irfft2(self, a, s):
         a = np.asarray(a)
-        return self._plan("i", a.shape, a.dtype, tuple(s))(a).copy()
+        with FFTWFFT._lock:
+            return self._plan("i", a.shape, a.dtype, tuple(s))(a).copy()
 
 
 def get_backend(name="auto", threads=None):
@@ -120,23 +120,24 @@ def get_backend(name="auto", threads=None):
 
     Parameters
     ----------
-    name : {'auto', 'numpy', 'pyfftw'} or backend object
-        ``'auto'`` picks pyfftw when it imports, numpy otherwise.  An object with
-        ``rfft2`` and ``irfft2`` methods is returned as it is.
+    name : {'auto', 'scipy', 'numpy', 'pyfftw'} or backend object
+        ``'auto'`` and ``'scipy'`` give `ScipyFFT`; an object with ``rfft2`` and
+        ``irfft2`` methods is returned as it is.
     threads : int, optional
-        Threads for pyfftw.
+        Worker threads (scipy, pyfftw); default all CPUs.
     """
     if hasattr(name, "rfft2") and hasattr(name, "irfft2"):
         return name
     check_choice(name, "fft", FFT_BACKENDS)
-    if name in ("auto", "pyfftw"):
+    if name == "pyfftw":
         try:
             return FFTWFFT(threads=threads)
         except ImportError:
-            if name == "pyfftw":
-                raise ImportError("fft='pyfftw' but pyfftw is not installed; "
-                                  "pip install skyscale[fftw] or pass fft='numpy'") from None
-    return NumpyFFT(threads=threads)
+            raise ImportError("fft='pyfftw' but pyfftw is not installed; "
+                              "pip install skyscale[fftw] or pass fft='scipy'") from None
+    if name == "numpy":
+        return NumpyFFT(threads=threads)
+    return ScipyFFT(threads=threads)
 
 
 def fast_shape(shape_a, shape_b):
@@ -228,15 +229,31 @@ class Convolver:
         wrapped, self.fshape = _wrapped_kernel(kernel, self.image_shape)
         self._kf = self.backend.rfft2(wrapped, self.fshape).astype(_complex(self.precision))
 
-    def __call__(self, image, out_dtype=None):
+    def transform(self, image):
+        """The convolution on the whole grid (``image`` at its origin): the first
+        ``image.shape`` of it is the result; nothing is copied."""
         image = np.asarray(image)
         if image.shape != self.image_shape:
             raise ValueError(f"image has shape {image.shape}, this convolver was built for "
                              f"{self.image_shape}; build a new one")
         spectrum = self.backend.rfft2(image.astype(self.precision, copy=False), self.fshape)
-        full = self.backend.irfft2(spectrum * self._kf, self.fshape)
-        out = full[:image.shape[0], :image.shape[1]]
+        if spectrum.dtype == self._kf.dtype:
+            spectrum *= self._kf
+        else:
+            spectrum = spectrum * self._kf
+        return self.backend.irfft2(spectrum, self.fshape)
+
+    def __call__(self, image, out_dtype=None):
+        image = np.asarray(image)
+        out = self.transform(image)[:image.shape[0], :image.shape[1]]
         return np.ascontiguousarray(out, dtype=out_dtype or image.dtype)
+
+    def subtract(self, target, image):
+        """``target -= kernel (*) image`` in place (``target`` of the image's shape)."""
+        full = self.transform(image)
+        np.subtract(target, full[:target.shape[0], :target.shape[1]], out=target,
+                    casting="unsafe")
+        return target
 
 
 class MultiConvolver:
@@ -290,5 +307,7 @@ class MultiConvolver:
             if spectrum is None:
                 spectrum = self.backend.rfft2(image.astype(self.precision, copy=False),
                                               self.fshape)
-            out[i] = self.backend.irfft2(spectrum * kf, self.fshape)[:ny, :nx]
+                work = np.empty_like(spectrum)
+            np.multiply(spectrum, kf, out=work, casting="unsafe")
+            out[i] = self.backend.irfft2(work, self.fshape)[:ny, :nx]
         return out

@@ -64,7 +64,8 @@ class ImagePlaneOperator:
         self.dtype = resolve_dtype(dtype)
         self.dirty = as_image(dirty, "dirty", dtype=self.dtype)
         self.psf = check_psf(psf, self.dirty.shape, dtype=self.dtype)
-        self._conv = Convolver(self.psf, self.dirty.shape, backend=get_backend(fft, threads))
+        self._conv = Convolver(self.psf, self.dirty.shape, backend=get_backend(fft, threads),
+                               precision=self.dtype)
         ny, nx = self.dirty.shape
         py, px = self.psf.shape
         cy, cx = py // 2, px // 2
