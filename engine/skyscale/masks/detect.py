@@ -35,7 +35,7 @@ from skyscale.core.noise import detection_noise
 from skyscale.masks.profiles import (fit_profile, seen_point, subtract_point, transfer_of_beam,
                                      transfer_of_psf)
 
-__all__ = ["FWHM_PER_SIGMA", "LADDER_RATIO", "COMPACT_APART", "DIAMETER_MEASURES",
+__all__ = ["FWHM_PER_SIGMA", "LADDER_RATIO", "COMPACT_APART", "ELONGATED", "DIAMETER_MEASURES",
            "Island", "Detection", "smoothing_ladder", "smoothed_images",
            "point_island", "detect_emission"]
 
@@ -75,6 +75,14 @@ MEASURE_PEAK = 2.0
 #: the size: the profile no longer pins the shape nor its size, and the rung that
 #: maximises a structure's signal-to-noise is never wider than its size.
 MEASURE_WIDTH = 1.0
+
+#: An island is elongated when the diameter of the largest disk inside its contour is
+#: under this fraction of its equal-area diameter (a round island's noisy edge costs
+#: the inscribed disk a pixel or two, so round ones are left as they are); its size is
+#: then its smaller extent: the fitted size times that ratio.  The largest scale
+#: follows the smaller extent of the largest structure (common practice: a scale
+#: wider than the structure pulls in what surrounds it).
+ELONGATED = 0.9
 
 #: A compact source fitted on a structure at least this many smoothed beams across is
 #: subtracted (seen through the PSF, sidelobes and all) and the structure fitted again;
@@ -151,6 +159,16 @@ def _feret(ys, xs):
     return float(pdist(pts).max()) + 1.0
 
 
+def _width_ratio(inside):
+    """Diameter of the largest disk inside a contour over its equal-area diameter
+    (Euclidean distance transform, ``scipy.ndimage.distance_transform_edt``), at most 1."""
+    if inside.sum() < 4:
+        return 1.0
+    depth = ndimage.distance_transform_edt(np.pad(inside, 1))
+    inscribed = 2.0 * float(depth.max()) - 1.0
+    return min(1.0, inscribed / (2.0 * math.sqrt(inside.sum() / math.pi)))
+
+
 def _diameter(ys, xs, measure):
     if measure == "feret":
         return _feret(ys, xs)
@@ -205,6 +223,13 @@ class Island:
         Peak of its extended part, as seen on the smoothed image (0: none fits).
     compact : float
         Peak of the unresolved source fitted on it, as seen on the smoothed image.
+    parts : int
+        Islands of the rung before, each bright enough to be measured there, that it
+        joins (0 at the first rung).  Two or more: a group of separate objects
+        blurred together, not one structure, and not measured.
+    width_ratio : float
+        Its half-peak contour's inscribed diameter over its equal-area diameter; under
+        `ELONGATED` the size given is the smaller extent.
     """
 
     smoothing_px: float
@@ -219,6 +244,8 @@ class Island:
     shape: str = ""
     peak: float = 0.0
     compact: float = 0.0
+    parts: int = 0
+    width_ratio: float = 1.0
 
 
 @dataclass
@@ -251,6 +278,14 @@ class Detection:
         return tuple(self.sigma * n for n in self.noise)
 
 
+def _largest_piece(mask):
+    """The largest 8-connected piece of a mask."""
+    labels, n = ndimage.label(mask, structure=np.ones((3, 3), dtype=bool))
+    if n <= 1:
+        return mask
+    return labels == (1 + int(np.argmax(np.bincount(labels.ravel())[1:])))
+
+
 def _islands(sm, sigma, noise, previous, width, beam, min_area, measure, first, transfer,
              psf):
     """Positive islands of one rung, measured (``beam``: ``(geometric mean, major)``)."""
@@ -261,6 +296,18 @@ def _islands(sm, sigma, noise, previous, width, beam, min_area, measure, first, 
     areas = np.bincount(labels.ravel(), minlength=n + 1)
     spread = math.hypot(beam[1], width)
     found, point, ranked = [], None, None
+    bright_before = None
+    if previous is not None:        # the rung before's islands bright enough to measure
+        prev_img, prev_noise = previous
+        prev_labels, m = ndimage.label(prev_img > sigma * prev_noise,
+                                       structure=np.ones((3, 3), dtype=bool))
+        if m:
+            idx = np.arange(1, m + 1)
+            peaks = np.asarray(ndimage.maximum(prev_img, prev_labels, idx))
+            sizes = np.bincount(prev_labels.ravel(), minlength=m + 1)[1:]
+            bright = np.zeros(m + 1, dtype=bool)
+            bright[1:] = (peaks >= MEASURE_PEAK * sigma * prev_noise) & (sizes >= min_area)
+            bright_before = (prev_labels, bright)
     for k, sl in enumerate(ndimage.find_objects(labels), start=1):
         if sl is None or areas[k] < min_area:
             continue
@@ -268,6 +315,10 @@ def _islands(sm, sigma, noise, previous, width, beam, min_area, measure, first, 
         values = sm[sl][inside]
         peak = float(values.max())
         gain = cover = None
+        parts = 0
+        if bright_before is not None:
+            under = bright_before[0][sl][inside]
+            parts = int(np.count_nonzero(bright_before[1][np.unique(under[under > 0])]))
         if previous is not None:
             prev_img, prev_noise = previous
             before = prev_img[sl][inside]
@@ -284,21 +335,23 @@ def _islands(sm, sigma, noise, previous, width, beam, min_area, measure, first, 
         resolved = first or (gain is not None and
                              (gain >= RESOLVED_GAIN or cover >= RESOLVED_COVER))
         measured = resolved and peak >= MEASURE_PEAK * level \
-            and width <= MEASURE_WIDTH * max(guard, beam[1])
+            and width <= MEASURE_WIDTH * max(guard, beam[1]) and parts < 2
         if not measured:            # the guard's reading; no profile fitted
             found.append(Island(width, int(areas[k]), peak / noise, gain, cover, seen,
-                                guard, resolved, False))
+                                guard, resolved, False, parts=parts))
             continue
         if point is None:           # the seen point, once per rung
             point = seen_point(psf, width, beam[0])
             ranked = np.sort(point.ravel())[::-1]
         fit = fit_profile(values, transfer, width, beam[0], ranked, noise)
         compact = fit.compact
+        structure = sm[sl]
         if fit.flux > 0 and fit.size_px >= COMPACT_APART * spread:
             # take the compact source out, sidelobes and all, and fit again
             box = np.where(inside, sm[sl], 0.0)
             at = np.unravel_index(int(np.argmax(box)), box.shape)
-            fit = fit_profile(subtract_point(box, point, at, fit.flux)[inside], transfer,
+            structure = subtract_point(box, point, at, fit.flux)
+            fit = fit_profile(structure[inside], transfer,
                               width, beam[0], ranked, noise)
             compact += fit.compact
         elif fit.shape != "point" and fit.size_px < COMPACT_APART * spread:
@@ -308,15 +361,23 @@ def _islands(sm, sigma, noise, previous, width, beam, min_area, measure, first, 
             compact = 0.0
         if fit.peak < level:        # no extended part above the detection level
             found.append(Island(width, int(areas[k]), peak / noise, gain, cover, seen,
-                                0.0, True, True, "point", 0.0, compact))
+                                0.0, True, True, "point", 0.0, compact, parts))
             continue
-        ys, xs = np.nonzero(inside & (sm[sl] >= max(level, 0.5 * fit.peak)))
+        half = inside & (sm[sl] >= max(level, 0.5 * fit.peak))
+        ys, xs = np.nonzero(half)
         across = _diameter(ys, xs, measure)
         intrinsic = fit.size_px
+        ratio = 1.0
         if measure == "feret" and len(ys):
             intrinsic *= max(1.0, across / _diameter(ys, xs, "equal_area"))
+        elif len(ys):       # the shape without the compact source taken out above
+            ratio = _width_ratio(_largest_piece(
+                inside & (structure >= max(level, 0.5 * fit.peak))))
+            if ratio < ELONGATED:
+                intrinsic *= ratio
         found.append(Island(width, int(areas[k]), peak / noise, gain, cover, across,
-                            intrinsic, True, True, fit.shape, fit.peak, compact))
+                            intrinsic, True, True, fit.shape, fit.peak, compact, parts,
+                            ratio))
     return found
 
 
