@@ -7,7 +7,7 @@ The compiled kernels must give the same components and the same values.
 
 import numpy as np
 
-__all__ = ["scale_loop", "smooth_all", "stamp_components", "convolve_centred"]
+__all__ = ["scale_loop", "smooth_all", "stamp_components", "convolve_centred", "view_loop"]
 
 
 def scale_loop(values, ys, xs, beam, *, beam_peak, gain, level, max_iter):
@@ -71,3 +71,31 @@ def convolve_centred(image, kernel):
         xa, xb = max(px - cx, 0), min(px - cx + kx, nx)
         out[ya:yb, xa:xb] += image[py, px] * kernel[ya - py + cy:yb - py + cy, xa - px + cx:xb - px + cx]
     return out
+
+
+def view_loop(values, ys, xs, scale, levels, patches, pair, *, gain, budget):
+    """Multi-scale Hogbom steps over candidates, whole-array numpy (twin of
+    masks.view_loop.view_loop).
+
+    At each step: the candidate with the largest value over its scale's level (first
+    index on ties, as ``np.argmax``); stop when none is above 1; take ``gain`` times
+    its value over its own scale's patch peak; subtract that times the patch of the
+    pair (its scale, each candidate's scale) at every candidate within the patch.
+    ``values`` is updated in place.  Returns ``(index, flux)``.
+    """
+    half = (patches.shape[1] - 1) // 2
+    index, flux = [], []
+    while len(index) < budget and values.size:
+        ratio = values / levels[scale]
+        k = int(np.argmax(ratio))
+        if not ratio[k] > 1.0:
+            break
+        j = scale[k]
+        f = gain * float(values[k]) / float(patches[pair[j, j], half, half])
+        dy, dx = ys - ys[k], xs - xs[k]
+        near = (np.abs(dy) <= half) & (np.abs(dx) <= half)
+        values[near] -= f * patches[pair[j, scale[near]], dy[near] + half,
+                                    dx[near] + half].astype(np.float64)
+        index.append(k)
+        flux.append(f)
+    return np.array(index, dtype=np.int64), np.array(flux)

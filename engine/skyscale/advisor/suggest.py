@@ -194,7 +194,7 @@ def suggest_scales(dirty, psf=None, *, cell_arcsec=None, largest_size=None,
         noise.  Default 5.
     clean_first : bool
         With a ``psf``, measure the emission on the image with its bright emission
-        taken out by a short delta-scale clean and restored through the beam
+        taken out by a short clean and restored through the beam
         (`skyscale.masks.sky_view.sky_view`): the PSF's sidelobes of bright compact
         sources otherwise dominate the noise and hide the structures.  Default True;
         without a ``psf`` the image is measured as given.

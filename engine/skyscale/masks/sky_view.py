@@ -2,12 +2,14 @@
 
 A dirty image's off-source pixels are dominated by the PSF's sidelobes of its bright
 compact sources: their robust noise reads many times the thermal noise, and their
-sidelobes read as islands.  `sky_view` takes that emission out with a short clean of
-the delta scale (Högbom [1]_: the peak, times the loop gain, is taken out with the
-PSF centred on it; the minor cycle runs on the pixels above the cycle's level with
-the exact PSF values between them, and a major cycle recomputes the whole residual
-exactly, as in Clark [2]_), and returns the residual with those components put back
-through the restoring beam (a restored image, common practice).  The sidelobes are
+sidelobes read as islands; so do those of bright extended emission.  `sky_view`
+takes that emission out with a short clean of two scales, the delta and a Gaussian a
+few beams wide (Högbom [1]_ with the scale chosen as in Cornwell [4]_: the peak,
+times the loop gain, is taken out with the PSF seen through the scale centred on
+it; the minor cycle runs on the pixels above the cycle's level within a patch of the
+PSF, and a major cycle recomputes the whole residual exactly, as in Clark [2]_), and
+returns the residual with those components put back through the restoring beam (a
+restored image, common practice).  The sidelobes are
 gone, the emission is where it was, and the noise of that image is measured the same
 way as the image the structures are measured on.
 
@@ -18,6 +20,7 @@ References
 .. [2] Clark, B. G. 1980, "An efficient implementation of the algorithm 'CLEAN'",
    A&A 89, 377.
 .. [3] Rousseeuw, P. J. & Croux, C. 1993, JASA 88, 1273 (robust noise).
+.. [4] Cornwell, T. J. 2008, IEEE J. Sel. Topics Signal Process. 2(5), 793.
 """
 
 import logging
@@ -28,11 +31,12 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import fft as sfft
 
-from skyscale.core.beam import Beam, fit_beam, restore
+from skyscale.core.beam import FWHM_PER_SIGMA, Beam, fit_beam, restore
 from skyscale.core.noise import detection_noise, robust_noise
+from skyscale.masks.view_loop import view_loop
 
-__all__ = ["VIEW_GAIN", "VIEW_DEPTH", "VIEW_COMPONENTS", "VIEW_CYCLES", "CYCLE_FRACTION",
-           "PIXELS_PER_COMPONENT", "MAX_CANDIDATES", "TILE_PX", "TILE_QUANTILE", "SkyView", "quiet_noise",
+__all__ = ["VIEW_GAIN", "VIEW_DEPTH", "VIEW_SCALE_BEAMS", "VIEW_COMPONENTS", "VIEW_CYCLES", "CYCLE_FRACTION",
+           "PIXELS_PER_COMPONENT", "PATCH_PX", "MAX_CANDIDATES", "TILE_PX", "TILE_QUANTILE", "SkyView", "quiet_noise",
            "sky_view"]
 
 logger = logging.getLogger(__name__)
@@ -66,10 +70,20 @@ PIXELS_PER_COMPONENT = 256
 VIEW_CYCLES = 8
 
 #: A minor cycle goes down to this fraction of its starting peak (or to the final
-#: level): the pixels below it wait for the next major cycle, as in Clark 1980.
+#: level), or to 1.5 times the largest sidelobe beyond the patch when that is more:
+#: the pixels below it wait for the next major cycle, as in Clark 1980.
 CYCLE_FRACTION = 0.05
 
-#: The minor cycle works on at most this many of the brightest pixels.
+#: Components are deltas and round Gaussians of FWHM this many beams (unit sum): a
+#: broad component takes extended emission out many beams at a time (Cornwell 2008),
+#: where deltas alone spend the whole budget on it.
+VIEW_SCALE_BEAMS = 4.0
+
+#: The minor cycle updates the pixels within this many pixels of each component; the
+#: major cycle sets the rest right (Clark 1980).
+PATCH_PX = 512
+
+#: The minor cycle works on at most this many of the brightest pixels of each scale.
 MAX_CANDIDATES = 1 << 16
 
 #: The clean's level rests on the noise of the quietest part of the residual: its
@@ -110,6 +124,8 @@ class SkyView:
         The restoring beam.
     seconds : float
         Time taken.
+    scales : tuple of float
+        FWHMs in pixels of the components' Gaussians (0: delta).
     """
 
     image: np.ndarray
@@ -123,6 +139,7 @@ class SkyView:
     stop: str
     beam: Beam
     seconds: float
+    scales: tuple = (0.0,)
 
     def describe(self):
         """Which image was measured, in words, with its numbers."""
@@ -130,7 +147,8 @@ class SkyView:
             return (f"measured on the image as given ({self.stop}; its noise "
                     f"{self.noise_before:.3g})")
         return (f"measured on the image with its bright emission taken out by a short "
-                f"delta-scale clean ({self.components} components, {self.cycles} major "
+                f"clean of scales {', '.join(f'{w:.0f}' for w in self.scales)} px "
+                f"({self.components} components, {self.cycles} major "
                 f"cycle(s), down to {self.level:.3g}: {self.stop}) and restored through "
                 f"the beam; its noise {self.noise_after:.3g} where the image as given "
                 f"read {self.noise_before:.3g}")
@@ -169,12 +187,13 @@ def quiet_noise(image):
     return float(np.quantile(tiles, TILE_QUANTILE)) if tiles else 0.0
 
 
-class _Convolver:
-    """``model (*) psf`` on the image's grid, exact (linear), the PSF's transform once.
+class _Grid:
+    """The PSF and its smoothings on a periodic grid where image offsets never wrap.
 
-    The PSF (peak at ``(py // 2, px // 2)``) is laid on a periodic grid large enough
-    that offsets between two image pixels never wrap onto another PSF value: twice the
-    image when the PSF covers every such offset, the image plus the PSF otherwise.
+    The PSF (peak at ``(py // 2, px // 2)``) is laid with its peak at index 0 of a grid
+    large enough that the offset between two image pixels never reaches another PSF
+    value: twice the image when the PSF covers every such offset, the image plus the
+    PSF otherwise.  Convolutions on it are then exact linear ones on the image.
     """
 
     def __init__(self, psf, shape):
@@ -194,47 +213,85 @@ class _Convolver:
         self.grid = (gy, gx)
         self.shape = shape
         self.spectrum = sfft.rfft2(kernel)
+        self._f2 = (sfft.fftfreq(gy)[:, None] ** 2 +
+                    sfft.rfftfreq(gx)[None, :] ** 2).astype(np.float32)
 
-    def __call__(self, model):
+    def transfer(self, var):
+        """Fourier transform of a unit-sum round Gaussian of variance ``var`` (analytic)."""
+        return np.exp(np.float32(-2 * np.pi ** 2 * var) * self._f2)
+
+    def beam(self, var):
+        """The PSF smoothed by a unit-sum Gaussian of variance ``var``, on the grid."""
+        return sfft.irfft2(self.spectrum * self.transfer(var), s=self.grid) \
+            .astype(np.float32)
+
+    def smooth(self, image, var):
+        """``image`` smoothed by a unit-sum Gaussian of variance ``var`` (zero outside)."""
+        if var == 0:
+            return image
         ny, nx = self.shape
-        spec = sfft.rfft2(model.astype(np.float32, copy=False), s=self.grid)
-        return sfft.irfft2(spec * self.spectrum, s=self.grid)[:ny, :nx]
+        spec = sfft.rfft2(image, s=self.grid)
+        return sfft.irfft2(spec * self.transfer(var), s=self.grid)[:ny, :nx] \
+            .astype(np.float32)
+
+    def planes(self, image_spectrum, models, variances):
+        """The residual ``image - sum_j models[j] (*) G(variances[j]) (*) psf`` and
+        its smoothings at ``variances[1:]`` (zero outside the image)."""
+        ny, nx = self.shape
+        total = image_spectrum
+        seen = 0
+        for model, var in zip(models, variances):
+            if model.any():
+                seen = seen + sfft.rfft2(model, s=self.grid) * self.transfer(var)
+        if not isinstance(seen, int):
+            total = image_spectrum - seen * self.spectrum
+        residual = sfft.irfft2(total, s=self.grid)[:ny, :nx].astype(np.float32)
+        return [residual] + [self.smooth(residual, v) for v in variances[1:]]
 
 
-def _minor_cycle(residual, psf, level, budget, gain):
-    """Högbom's loop on the pixels above ``level``, with the exact PSF between them.
-
-    Returns the components as ``(ys, xs, fluxes)`` and the peak left.
-    """
-    ys, xs = np.nonzero(residual > level)
-    values = residual[ys, xs].astype(np.float64)
-    if values.size > MAX_CANDIDATES:
-        keep = np.argpartition(values, -MAX_CANDIDATES)[-MAX_CANDIDATES:]
-        ys, xs, values = ys[keep], xs[keep], values[keep]
-    cy, cx = psf.shape[0] // 2, psf.shape[1] // 2
-    py, px = psf.shape
-    cy_, cx_, fl = [], [], []
-    peak = float(values.max()) if values.size else 0.0
-    while values.size and len(fl) < budget:
-        i = int(np.argmax(values))
-        peak = float(values[i])
-        if peak <= level:
-            break
-        flux = gain * peak
-        dy = ys - ys[i] + cy
-        dx = xs - xs[i] + cx
-        inside = (dy >= 0) & (dy < py) & (dx >= 0) & (dx < px)
-        if inside.all():
-            values -= flux * psf[dy, dx]
-        else:
-            values[inside] -= flux * psf[dy[inside], dx[inside]]
-        cy_.append(ys[i])
-        cx_.append(xs[i])
-        fl.append(flux)
-    return np.array(cy_, dtype=np.intp), np.array(cx_, dtype=np.intp), np.array(fl), peak
+def _candidates(planes, levels):
+    """The brightest pixels of every plane above its level (at most `MAX_CANDIDATES`
+    each): ``(values, ys, xs, scale)``."""
+    out = [], [], [], []
+    for j, (plane, level) in enumerate(zip(planes, levels)):
+        ys, xs = np.nonzero(plane > level)
+        values = plane[ys, xs].astype(np.float64)
+        if values.size > MAX_CANDIDATES:
+            keep = np.sort(np.argpartition(values, -MAX_CANDIDATES)[-MAX_CANDIDATES:])
+            ys, xs, values = ys[keep], xs[keep], values[keep]
+        for part, a in zip(out, (values, ys, xs, np.full(values.size, j))):
+            part.append(a)
+    return tuple(np.concatenate(a) for a in out)
 
 
-def sky_view(image, psf, *, beam=None, gain=VIEW_GAIN, depth=VIEW_DEPTH,
+def _patches(grid, variances, half):
+    """The PSF smoothed by every pair of scales, cut to ``half`` pixels around its
+    peak: ``(patches, pair)`` for `skyscale.masks.view_loop.view_loop`."""
+    sums = sorted({vj + vt for vj in variances for vt in variances})
+    gy, gx = grid.grid
+    iy = np.arange(-half, half + 1) % gy
+    ix = np.arange(-half, half + 1) % gx
+    patches, beyond = [], 0.0
+    for v in sums:
+        full = grid.beam(v)
+        cut = full[np.ix_(iy, ix)]
+        patches.append(cut)
+        # the largest sidelobe the patch leaves out, relative to its peak (Clark 1980)
+        outside = np.abs(full).max(axis=None, initial=0.0, where=_outside(full.shape, half))
+        beyond = max(beyond, float(outside) / float(cut[half, half]))
+    pair = np.array([[sums.index(vj + vt) for vt in variances] for vj in variances])
+    return (np.stack(patches), pair), beyond
+
+
+def _outside(shape, half):
+    """Grid cells farther than ``half`` from index 0 in y or x (periodic)."""
+    gy, gx = shape
+    dy = np.minimum(np.arange(gy), gy - np.arange(gy))
+    dx = np.minimum(np.arange(gx), gx - np.arange(gx))
+    return (dy[:, None] > half) | (dx[None, :] > half)
+
+
+def sky_view(image, psf, *, beam=None, scales=None, gain=VIEW_GAIN, depth=VIEW_DEPTH,
              max_components=None, max_cycles=VIEW_CYCLES):
     """The image with its bright emission cleaned out and restored: the sky as seen.
 
@@ -247,6 +304,9 @@ def sky_view(image, psf, *, beam=None, gain=VIEW_GAIN, depth=VIEW_DEPTH,
         major cycle exact everywhere (a smaller one is exact where it reaches).
     beam : Beam, optional
         Restoring beam in pixels; default the fit to ``psf``.
+    scales : sequence of float, optional
+        FWHMs in pixels of the unit-sum Gaussian components (0: the delta, always
+        used); default 0 and `VIEW_SCALE_BEAMS` beams.
     gain : float
         Loop gain.  Default `VIEW_GAIN` (0.3).
     depth : float
@@ -265,15 +325,18 @@ def sky_view(image, psf, *, beam=None, gain=VIEW_GAIN, depth=VIEW_DEPTH,
 
     Notes
     -----
-    Each major cycle: the noise ``sigma`` of the residual is measured
-    (`skyscale.core.noise.detection_noise`, 1.4826 MAD [3]_ with what lies beyond 5
-    sigma left out with a margin of half a beam); the final level is ``depth *
-    sigma``; the minor cycle takes components of flux ``gain`` times the peak at the
-    peak (only positive peaks: emission is positive) down to ``max(final level,
-    CYCLE_FRACTION * peak)`` [1]_ [2]_, on the brightest pixels above that level; then
-    the residual is recomputed exactly, ``image - model (*) psf``.  It ends when the
-    peak is under the final level, the components or cycles are spent, or a cycle
-    takes nothing.  Everything the clean took is put back through the beam, so
+    Each major cycle, for every scale: the residual smoothed by the scale's unit-sum
+    Gaussian, and its noise ``sigma``, the lesser of its robust noise with what lies
+    beyond 5 sigma left out with a margin (`skyscale.core.noise.detection_noise`,
+    1.4826 MAD [3]_) and that of its quiet tiles (`quiet_noise`); the scale's level
+    is ``depth * sigma``.  The minor cycle (`skyscale.masks.view_loop.view_loop`)
+    takes the candidate standing highest over its scale's level, with flux ``gain``
+    times its value over the scale's own smoothed PSF peak (only positive peaks:
+    emission is positive) [1]_ [4]_, down to a fraction of the highest peak (Clark's
+    rule [2]_: at least what the sidelobes beyond the patch could raise); then the
+    residual is recomputed exactly, ``image - model (*) psf``.  It ends when every
+    scale is under its level, the components or cycles are spent, or a cycle takes
+    nothing.  Everything the clean took is put back through the beam, so
     extended emission it reached is still seen, without its sidelobes.
 
     References
@@ -281,6 +344,7 @@ def sky_view(image, psf, *, beam=None, gain=VIEW_GAIN, depth=VIEW_DEPTH,
     .. [1] Högbom 1974, A&AS 15, 417.
     .. [2] Clark 1980, A&A 89, 377.
     .. [3] Rousseeuw & Croux 1993, JASA 88, 1273.
+    .. [4] Cornwell 2008, IEEE J. Sel. Topics Signal Process. 2(5), 793.
 
     Examples
     --------
@@ -299,18 +363,27 @@ def sky_view(image, psf, *, beam=None, gain=VIEW_GAIN, depth=VIEW_DEPTH,
         max_components = max(VIEW_COMPONENTS, img.size // PIXELS_PER_COMPONENT)
     psf32 = np.ascontiguousarray(psf, dtype=np.float32)
     used = beam if beam is not None else fit_beam(psf)
-    margin = 0.5 * math.sqrt(used.major * used.minor)
+    beam_px = math.sqrt(used.major * used.minor)
+    widths = (0.0, VIEW_SCALE_BEAMS * beam_px) if scales is None \
+        else tuple(sorted({0.0} | {float(w) for w in scales}))
+    variances = [(w / FWHM_PER_SIGMA) ** 2 for w in widths]
+    margin = 0.5 * beam_px
     before = detection_noise(img, 5.0, margin_px=margin)
-    convolve = None
-    model = np.zeros(img.shape, dtype=np.float32)
-    residual = img
-    noise = min(before, quiet_noise(img))
-    n_comp, cycles, level, stop = 0, 0, depth * before, "nothing above the level"
+    grid = _Grid(psf32, img.shape)
+    models = [np.zeros(img.shape, dtype=np.float32) for _ in widths]
+    patches = None
+    spectrum = sfft.rfft2(img, s=grid.grid)
+    planes = grid.planes(spectrum, models, variances)
+    n_comp, cycles, stop = 0, 0, "nothing above the level"
+    levels = [depth * before] * len(widths)
     while True:
-        level = depth * noise
-        peak = float(residual.max())
-        if noise <= 0 or peak <= level:
-            stop = f"the peak left is under {depth:g} times the residual's noise"
+        noises = [min(detection_noise(p, 5.0, margin_px=0.5 * math.hypot(beam_px, w)),
+                      quiet_noise(p)) for p, w in zip(planes, widths)]
+        levels = [depth * n for n in noises]
+        peaks = [float(p.max()) / lv if lv > 0 else 0.0 for p, lv in zip(planes, levels)]
+        top = max(peaks)
+        if top <= 1.0:
+            stop = f"every scale's peak left is under {depth:g} times its noise"
             break
         if n_comp >= max_components:
             stop = f"its {max_components} components were spent"
@@ -318,23 +391,35 @@ def sky_view(image, psf, *, beam=None, gain=VIEW_GAIN, depth=VIEW_DEPTH,
         if cycles >= max_cycles:
             stop = f"its {max_cycles} major cycles were run"
             break
-        cycle_level = max(level, CYCLE_FRACTION * peak)
-        ys, xs, fl, _ = _minor_cycle(residual, psf32, cycle_level,
-                                     max_components - n_comp, gain)
-        if not fl.size:
+        if patches is None:
+            patches, beyond = _patches(grid, variances, min(PATCH_PX, min(img.shape) - 1))
+            fraction = max(CYCLE_FRACTION, 1.5 * beyond)
+        # down to a fraction of the highest peak (relative to each level): at least
+        # what the sidelobes beyond the patch could raise elsewhere (Clark 1980)
+        cycle = np.array([lv * max(1.0, fraction * top) for lv in levels])
+        values, ys, xs, which = _candidates(planes, cycle)
+        index, fluxes = view_loop(values, ys, xs, which, cycle, *patches, gain=gain,
+                                  budget=max_components - n_comp)
+        if not index.size:
             stop = "a minor cycle found nothing to take"
             break
-        np.add.at(model, (ys, xs), fl.astype(np.float32))
-        n_comp += fl.size
+        for j, model in enumerate(models):
+            mine = which[index] == j
+            np.add.at(model, (ys[index][mine], xs[index][mine]),
+                      fluxes[mine].astype(np.float32))
+        n_comp += index.size
         cycles += 1
-        if convolve is None:
-            convolve = _Convolver(psf32, img.shape)
-        residual = (img - convolve(model)).astype(np.float32)
-        noise = min(detection_noise(residual, 5.0, margin_px=margin), quiet_noise(residual))
-    view = restore(model, residual, used) if n_comp else residual
+        planes = grid.planes(spectrum, models, variances)
+    residual = planes[0]
+    if n_comp:
+        model = sum(grid.smooth(m, v) for m, v in zip(models, variances))
+        view = restore(model, residual, used)
+        after = detection_noise(residual, 5.0, margin_px=margin)
+        flux = float(sum(m.sum(dtype=np.float64) for m in models))
+    else:
+        view, after, flux = residual, before, 0.0
     seconds = time.perf_counter() - t0
     logger.debug("sky view: %d components in %d major cycles, noise %.3g -> %.3g (%s), "
-                 "%.2f s", n_comp, cycles, before, noise, stop, seconds)
-    after = detection_noise(residual, 5.0, margin_px=margin) if n_comp else before
-    return SkyView(view, residual, n_comp, float(model.sum(dtype=np.float64)), cycles,
-                   float(before), float(after), float(level), stop, used, seconds)
+                 "%.2f s", n_comp, cycles, before, after, stop, seconds)
+    return SkyView(view, residual, n_comp, flux, cycles, float(before), float(after),
+                   float(levels[0]), stop, used, seconds, widths)
