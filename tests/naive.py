@@ -73,22 +73,25 @@ def convolve_centred(image, kernel):
     return out
 
 
-def view_loop(values, ys, xs, scale, levels, patches, pair, *, gain, budget):
+def view_loop(values, ys, xs, scale, levels, patches, pair, *, gain, budget, weights=None):
     """Multi-scale Hogbom steps over candidates, whole-array numpy (twin of
     masks.view_loop.view_loop).
 
-    At each step: the candidate with the largest value over its scale's level (first
-    index on ties, as ``np.argmax``); stop when none is above 1; take ``gain`` times
+    At each step: of the candidates whose value over its scale's level is above 1,
+    the one with the largest such ratio times its scale's weight (first index on
+    ties, as ``np.argmax``); stop when none is above 1; take ``gain`` times
     its value over its own scale's patch peak; subtract that times the patch of the
     pair (its scale, each candidate's scale) at every candidate within the patch.
     ``values`` is updated in place.  Returns ``(index, flux)``.
     """
     half = (patches.shape[1] - 1) // 2
     index, flux = [], []
+    weights = np.ones(len(levels)) if weights is None else np.asarray(weights, float)
     while len(index) < budget and values.size:
         ratio = values / levels[scale]
-        k = int(np.argmax(ratio))
-        if not ratio[k] > 1.0:
+        score = np.where(ratio > 1.0, ratio * weights[scale], 0.0)
+        k = int(np.argmax(score))
+        if not score[k] > 0.0:
             break
         j = scale[k]
         f = gain * float(values[k]) / float(patches[pair[j, j], half, half])

@@ -35,7 +35,7 @@ from skyscale.core.noise import detection_noise
 from skyscale.masks.profiles import (fit_profile, seen_point, subtract_point, transfer_of_beam,
                                      transfer_of_psf)
 
-__all__ = ["FWHM_PER_SIGMA", "LADDER_RATIO", "COMPACT_APART", "ELONGATED", "DIAMETER_MEASURES",
+__all__ = ["FWHM_PER_SIGMA", "LADDER_RATIO", "COMPACT_APART", "ELONGATED", "POINT_AREA", "DIAMETER_MEASURES",
            "Island", "Detection", "smoothing_ladder", "smoothed_images",
            "point_island", "detect_emission"]
 
@@ -79,7 +79,9 @@ MEASURE_WIDTH = 1.0
 #: An island is elongated when the diameter of the largest disk inside its contour is
 #: under this fraction of its equal-area diameter (a round island's noisy edge costs
 #: the inscribed disk a pixel or two, so round ones are left as they are); its size is
-#: then its smaller extent: the fitted size times that ratio.  The largest scale
+#: then its smaller extent: the inscribed diameter less the broadening of the contour
+#: (the seen less the fitted size, in quadrature), at most the fitted size times the
+#: ratio.  The largest scale
 #: follows the smaller extent of the largest structure (common practice: a scale
 #: wider than the structure pulls in what surrounds it).
 ELONGATED = 0.9
@@ -384,7 +386,12 @@ def _islands(sm, sigma, noise, previous, width, beam, min_area, measure, first, 
             ratio = _width_ratio(_largest_piece(
                 inside & (structure >= max(level, 0.5 * fit.peak))))
             if ratio < ELONGATED:
-                intrinsic *= ratio
+                # the seen contour is the structure broadened on every side: take the
+                # broadening (seen less fitted size, in quadrature) off its width too
+                blur = max(across * across - intrinsic * intrinsic, 0.0)
+                intrinsic = min(intrinsic * ratio,
+                                math.sqrt(max((ratio * across) ** 2 - blur, 0.0)) or
+                                intrinsic * ratio)
         found.append(Island(width, int(areas[k]), peak / noise, gain, cover, across,
                             intrinsic, True, True, fit.shape, fit.peak, compact, parts,
                             ratio))
@@ -453,7 +460,10 @@ def detect_emission(image, beam_fwhm_px, smoothing_px=None, *, sigma=5.0, exclud
     is counted as negative islands (``spurious``: as many positive islands are
     expected to be false), and the rung's level is raised to the deepest such value,
     so that a sidelobe is not taken for emission where one of the same depth but the
-    other sign lies off it (a rule of our own).  On noise alone the deepest of ``N``
+    other sign lies off it (a rule of our own); an island no larger than an
+    unresolved source of its peak makes is cut to its core above a quarter of its peak
+    (`POINT_AREA`), and a wider rung adds only islands the smoothing made more
+    significant.  On noise alone the deepest of ``N``
     independent Gaussian values is near ``sqrt(2 ln N)`` sigma (analytic, an upper
     estimate): 5.0 for 512 x 512 independent pixels, less for noise correlated over
     the beam, so it raises a 5 sigma level little there.
@@ -502,6 +512,9 @@ def detect_emission(image, beam_fwhm_px, smoothing_px=None, *, sigma=5.0, exclud
         if guard_negative and finer is not None:
             found_here = _resolved_part(found_here, sm, noise, *finer,
                                         include_negative, mask)
+        elif guard_negative:
+            found_here = _point_cores(found_here, sm, level,
+                                      math.hypot(beam_fwhm_px, width))
         finer = (sm, noise)
         mask |= found_here
         if measure:
@@ -513,6 +526,32 @@ def detect_emission(image, beam_fwhm_px, smoothing_px=None, *, sigma=5.0, exclud
                  ", ".join(f"{n:.3g}" for n in noises))
     return Detection(ladder, tuple(noises), float(sigma), mask, islands, tuple(levels),
                      tuple(spurious))
+
+
+#: An island no larger than this multiple of the island an unresolved source of its
+#: peak would make (`point_island`) is an unresolved source: the mask keeps its core,
+#: the pixels above a quarter of its peak (one delta component models it; its faint
+#: wings are not emission of their own).  A round Gaussian's area above a fraction f
+#: of its peak is pi (FWHM / 2)^2 log2(1 / f) (analytic): 1.39 beam areas at f = 1/4,
+#: so the core passes a smallest-island rule of one beam area.
+POINT_AREA = 1.5
+
+
+def _point_cores(found, sm, level, spread):
+    """Islands of unresolved sources cut to their cores (see `POINT_AREA`)."""
+    labels, n = ndimage.label(found, structure=np.ones((3, 3), dtype=bool))
+    if n == 0:
+        return found
+    out = found.copy()
+    for k, sl in enumerate(ndimage.find_objects(labels), start=1):
+        if sl is None:
+            continue
+        inside = labels[sl] == k
+        peak = float(sm[sl][inside].max())
+        point = point_island(spread, peak / level)
+        if inside.sum() <= POINT_AREA * math.pi * point * point / 4.0:
+            out[sl] &= ~inside | (sm[sl] >= 0.25 * peak)
+    return out
 
 
 def _resolved_part(found, sm, noise, before, before_noise, signed, known):

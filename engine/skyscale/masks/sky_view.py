@@ -35,7 +35,7 @@ from skyscale.core.beam import FWHM_PER_SIGMA, Beam, fit_beam, restore
 from skyscale.core.noise import detection_noise, robust_noise
 from skyscale.masks.view_loop import view_loop
 
-__all__ = ["VIEW_GAIN", "VIEW_DEPTH", "VIEW_SCALE_BEAMS", "VIEW_COMPONENTS", "VIEW_CYCLES", "CYCLE_FRACTION",
+__all__ = ["VIEW_GAIN", "VIEW_DEPTH", "VIEW_SCALE_BEAMS", "SCALE_BIAS", "VIEW_COMPONENTS", "VIEW_CYCLES", "CYCLE_FRACTION",
            "PIXELS_PER_COMPONENT", "PATCH_PX", "MAX_CANDIDATES", "TILE_PX", "TILE_QUANTILE", "SkyView", "quiet_noise",
            "sky_view"]
 
@@ -78,6 +78,12 @@ CYCLE_FRACTION = 0.05
 #: broad component takes extended emission out many beams at a time (Cornwell 2008),
 #: where deltas alone spend the whole budget on it.
 VIEW_SCALE_BEAMS = 4.0
+
+#: Bias toward small scales, weight ``1 - SCALE_BIAS * s / s_max`` (Cornwell 2008,
+#: b about 0.6, from memory): without it a broad component is taken on a bright
+#: point, whose smoothed peak stands as high over the smoothed noise as the point's
+#: own over the noise, and the view's model of a point is wrong by its sidelobes.
+SCALE_BIAS = 0.6
 
 #: The minor cycle updates the pixels within this many pixels of each component; the
 #: major cycle sets the rest right (Clark 1980).
@@ -367,6 +373,9 @@ def sky_view(image, psf, *, beam=None, scales=None, gain=VIEW_GAIN, depth=VIEW_D
     widths = (0.0, VIEW_SCALE_BEAMS * beam_px) if scales is None \
         else tuple(sorted({0.0} | {float(w) for w in scales}))
     variances = [(w / FWHM_PER_SIGMA) ** 2 for w in widths]
+    # Cornwell 2008's bias toward small scales: weight 1 - b * s / s_max
+    weights = np.array([1.0 - SCALE_BIAS * w / max(widths) if max(widths) > 0 else 1.0
+                        for w in widths])
     margin = 0.5 * beam_px
     before = detection_noise(img, 5.0, margin_px=margin)
     grid = _Grid(psf32, img.shape)
@@ -399,7 +408,7 @@ def sky_view(image, psf, *, beam=None, scales=None, gain=VIEW_GAIN, depth=VIEW_D
         cycle = np.array([lv * max(1.0, fraction * top) for lv in levels])
         values, ys, xs, which = _candidates(planes, cycle)
         index, fluxes = view_loop(values, ys, xs, which, cycle, *patches, gain=gain,
-                                  budget=max_components - n_comp)
+                                  budget=max_components - n_comp, weights=weights)
         if not index.size:
             stop = "a minor cycle found nothing to take"
             break

@@ -18,17 +18,18 @@ __all__ = ["view_loop"]
 
 
 @numba.njit(**JIT_OPTIONS)
-def _view_loop(values, ys, xs, scale, levels, patches, pair, gain, budget, out_k, out_f):
+def _view_loop(values, ys, xs, scale, levels, weights, patches, pair, gain, budget, out_k,
+               out_f):
     n = values.shape[0]
     half = (patches.shape[1] - 1) // 2
     count = 0
     while count < budget:
-        best = 1.0
+        best = 0.0
         k = -1
         for i in range(n):
             r = values[i] / levels[scale[i]]
-            if r > best:
-                best = r
+            if r > 1.0 and r * weights[scale[i]] > best:
+                best = r * weights[scale[i]]
                 k = i
         if k < 0:
             break
@@ -48,7 +49,7 @@ def _view_loop(values, ys, xs, scale, levels, patches, pair, gain, budget, out_k
     return count
 
 
-def view_loop(values, ys, xs, scale, levels, patches, pair, *, gain, budget):
+def view_loop(values, ys, xs, scale, levels, patches, pair, *, gain, budget, weights=None):
     """Högbom steps over candidate pixels of several scales, until each is under its level.
 
     Parameters
@@ -66,6 +67,9 @@ def view_loop(values, ys, xs, scale, levels, patches, pair, *, gain, budget):
         smoothed residual is ``patches[pair[j, t]]``; offsets beyond ``h`` are left
         for the major cycle.
     pair : (s, s) ndarray of int
+    weights : (s,) ndarray of float, optional
+        Each scale's weight in the choice (Cornwell 2008's bias toward small scales);
+        default 1 for all.
     gain : float
         Loop gain.
     budget : int
@@ -80,9 +84,10 @@ def view_loop(values, ys, xs, scale, levels, patches, pair, *, gain, budget):
 
     Notes
     -----
-    At each step the candidate whose value stands highest over its scale's level is
-    taken (the first on ties), as in the multi-scale CLEAN of Cornwell 2008 [2]_ with
-    the level as each scale's weight, and every candidate is updated exactly within
+    At each step, of the candidates above their scale's level, the one whose value
+    over its level times its scale's weight is highest is taken (the first on ties),
+    as in the multi-scale CLEAN of Cornwell 2008 [2]_ with the level as each scale's
+    noise normalisation and ``weights`` as its bias; and every candidate is updated exactly within
     the patch (Högbom 1974 [1]_).  The order of the arithmetic is fixed, so the result
     does not depend on the thread count.
     """
@@ -93,6 +98,8 @@ def view_loop(values, ys, xs, scale, levels, patches, pair, *, gain, budget):
                        np.ascontiguousarray(xs, dtype=np.int64),
                        np.ascontiguousarray(scale, dtype=np.int64),
                        np.ascontiguousarray(levels, dtype=np.float64),
+                       np.ones(len(levels)) if weights is None
+                       else np.ascontiguousarray(weights, dtype=np.float64),
                        np.ascontiguousarray(patches, dtype=np.float32),
                        np.ascontiguousarray(pair, dtype=np.int64), float(gain),
                        int(budget), out_k, out_f)
