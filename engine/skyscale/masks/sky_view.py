@@ -35,25 +35,27 @@ from skyscale.core.beam import FWHM_PER_SIGMA, Beam, fit_beam, restore
 from skyscale.core.noise import detection_noise, robust_noise
 from skyscale.masks.view_loop import view_loop
 
-__all__ = ["VIEW_GAIN", "VIEW_DEPTH", "VIEW_SCALE_BEAMS", "SCALE_BIAS", "VIEW_COMPONENTS", "VIEW_CYCLES", "CYCLE_FRACTION",
-           "PIXELS_PER_COMPONENT", "PATCH_PX", "MAX_CANDIDATES", "TILE_PX", "TILE_QUANTILE", "SkyView", "quiet_noise",
-           "sky_view"]
+__all__ = ["VIEW_GAIN", "VIEW_DEPTH", "VIEW_SCALE_BEAMS", "SCALE_BIAS", "VIEW_COMPONENTS",
+           "VIEW_CYCLES", "CYCLE_FRACTION", "PIXELS_PER_COMPONENT", "PATCH_PX",
+           "MAX_CANDIDATES", "TILE_PX", "TILE_QUANTILE", "SkyView", "quiet_noise", "sky_view"]
 
 logger = logging.getLogger(__name__)
 
 #: Loop gain of the short clean.  The view is not a model: what the clean takes is put
 #: back through the beam, so a gain above the usual 0.1 (Högbom 1974, common practice)
-#: only makes it cheaper.  On the invented 1024 px field of `VIEW_DEPTH` with its
-#: structures twice as large, 0.3 and 4000 components leave the same noise as 0.1 and
-#: 12000 (2.1e-4 against 2.1e-4, the true 1e-4) in a third of the time.
+#: only makes it cheaper.  With deltas alone, on the invented 1024 px field of
+#: `VIEW_DEPTH` with its structures twice as large, 0.3 and 4000 components left the
+#: same noise as 0.1 and 12000 (2.1e-4 against 2.1e-4, the true 1e-4) in a third of
+#: the time.
 VIEW_GAIN = 0.3
 
 #: The short clean stops at this many times the noise of the residual (measured after
 #: each major cycle with `skyscale.core.noise.detection_noise`).  The noise it
 #: measures holds the sidelobes of what is left, so a shallow stop stalls where they
-#: are: on an invented 1024 px field (a PSF of rms sidelobe 0.55 %, a point at 1e4
-#: times the noise and 0.7 of its flux in extended emission) a stop at 10 or 5 sigma
-#: leaves the noise 10 or 8.6 times the true one, at 3 sigma 2.2 times.
+#: are: with deltas alone, on an invented 1024 px field (a PSF of rms sidelobe 0.55 %,
+#: a point at 1e4 times the noise and 0.7 of its flux in extended emission;
+#: tests/advisor_fields.group_field) a stop at 10 or 5 sigma left the noise 10 or 8.6
+#: times the true one, at 3 sigma 2.2 times.
 VIEW_DEPTH = 3.0
 
 #: At most this many components in all, or one per `PIXELS_PER_COMPONENT` pixels of
