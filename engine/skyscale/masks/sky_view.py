@@ -340,8 +340,9 @@ def sky_view(image, psf, *, beam=None, scales=None, gain=VIEW_GAIN, depth=VIEW_D
     is ``depth * sigma``.  The minor cycle (`skyscale.masks.view_loop.view_loop`)
     takes the candidate standing highest over its scale's level, with flux ``gain``
     times its value over the scale's own smoothed PSF peak (only positive peaks:
-    emission is positive) [1]_ [4]_, down to a fraction of the highest peak (Clark's
-    rule [2]_: at least what the sidelobes beyond the patch could raise); then the
+    emission is positive) [1]_ [4]_, each scale down to a fraction of its own peak
+    (Clark's rule [2]_: at least what the sidelobes beyond the patch could raise);
+    then the
     residual is recomputed exactly, ``image - model (*) psf``.  It ends when every
     scale is under its level, the components or cycles are spent, or a cycle takes
     nothing.  Everything the clean took is put back through the beam, so
@@ -405,9 +406,9 @@ def sky_view(image, psf, *, beam=None, scales=None, gain=VIEW_GAIN, depth=VIEW_D
         if patches is None:
             patches, beyond = _patches(grid, variances, min(PATCH_PX, min(img.shape) - 1))
             fraction = max(CYCLE_FRACTION, 1.5 * beyond)
-        # down to a fraction of the highest peak (relative to each level): at least
-        # what the sidelobes beyond the patch could raise elsewhere (Clark 1980)
-        cycle = np.array([lv * max(1.0, fraction * top) for lv in levels])
+        # each scale down to a fraction of its own peak: at least what the sidelobes
+        # beyond the patch could raise elsewhere (Clark 1980)
+        cycle = np.array([lv * max(1.0, fraction * p) for lv, p in zip(levels, peaks)])
         values, ys, xs, which = _candidates(planes, cycle)
         index, fluxes = view_loop(values, ys, xs, which, cycle, *patches, gain=gain,
                                   budget=max_components - n_comp, weights=weights)
