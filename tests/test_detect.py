@@ -91,8 +91,10 @@ def test_emission_mask_calls_the_one_detection_routine():
     dirty, _ = make_field("disk", 60, 2.0, 256, seed=3)
     am = EmissionMask([0, 8, 16, 32], BEAM)
     mask = am.update(dirty)
-    found = detect_emission(dirty.astype(np.float32), BEAM, [0, 4, 8, 16])
+    found = detect_emission(dirty.astype(np.float32), BEAM, [0, 4, 8, 16],
+                            guard_negative=True)        # the mask's guard (default on)
     assert list(am.noise.values()) == pytest.approx(list(found.noise))
+    assert list(am.levels.values()) == pytest.approx(list(found.levels))
     assert (mask | ~found.mask).all()            # grown from the same detections
 
 
