@@ -7,7 +7,8 @@ The compiled kernels must give the same components and the same values.
 
 import numpy as np
 
-__all__ = ["scale_loop", "smooth_all", "stamp_components", "convolve_centred", "view_loop"]
+__all__ = ["scale_loop", "smooth_all", "stamp_components", "convolve_centred", "view_loop",
+           "direct_subtract", "tracked_peaks", "masked_peak"]
 
 
 def scale_loop(values, ys, xs, beam, *, beam_peak, gain, level, max_iter):
