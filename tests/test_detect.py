@@ -150,3 +150,15 @@ def test_compact_source_on_a_disk_is_set_apart():
     assert disk.shape == "disk" and disk.measured
     assert disk.intrinsic_px == pytest.approx(50.0, rel=0.05)
     assert disk.compact / disk.peak == pytest.approx(40.0, rel=0.1)
+
+
+def test_label_max_matches_scipy_ndimage_maximum():
+    # Reference library: scipy.ndimage.maximum over labels 1..n.
+    from scipy import ndimage
+
+    from skyscale.masks.detect import _label_max
+    rng = np.random.default_rng(11)
+    image = rng.normal(size=(60, 70)).astype(np.float32)
+    labels, n = ndimage.label(rng.random((60, 70)) < 0.3)
+    np.testing.assert_array_equal(_label_max(image, labels, n),
+                                  ndimage.maximum(image, labels, np.arange(1, n + 1)))

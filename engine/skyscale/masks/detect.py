@@ -314,8 +314,7 @@ def _islands(sm, sigma, noise, previous, width, beam, min_area, measure, first, 
         prev_labels, m = ndimage.label(prev_img > sigma * prev_noise,
                                        structure=np.ones((3, 3), dtype=bool))
         if m:
-            idx = np.arange(1, m + 1)
-            peaks = np.asarray(ndimage.maximum(prev_img, prev_labels, idx))
+            peaks = _label_max(prev_img, prev_labels, m)
             sizes = np.bincount(prev_labels.ravel(), minlength=m + 1)[1:]
             bright = np.zeros(m + 1, dtype=bool)
             bright[1:] = (peaks >= MEASURE_PEAK * sigma * prev_noise) & (sizes >= min_area)
@@ -566,6 +565,15 @@ def _point_cores(found, sm, level, spread):
     return out
 
 
+def _label_max(values, labels, n):
+    """Largest value of each label ``1..n`` (what ``scipy.ndimage.maximum`` gives for
+    ``index=range(1, n + 1)``), read from the labelled pixels alone."""
+    sel = labels > 0
+    out = np.full(n + 1, -np.inf)
+    np.maximum.at(out, labels[sel], values[sel].astype(np.float64, copy=False))
+    return out[1:]
+
+
 def _resolved_part(found, sm, noise, before, before_noise, signed, known):
     """What a wider rung adds to the mask: its islands where smoothing helped.
 
@@ -580,9 +588,8 @@ def _resolved_part(found, sm, noise, before, before_noise, signed, known):
         return found
     now = np.abs(sm) if signed else sm
     then = np.abs(before) if signed else before
-    idx = np.arange(1, n + 1)
-    gain = np.asarray(ndimage.maximum(now, labels, idx)) / noise
-    base = np.asarray(ndimage.maximum(then, labels, idx)) / before_noise
+    gain = _label_max(now, labels, n) / noise
+    base = _label_max(then, labels, n) / before_noise
     keep = np.zeros(n + 1, dtype=bool)
     keep[1:] = gain >= MASK_GAIN * np.maximum(base, 0.0)
     return keep[labels] & (then > TRIM_SIGMA * before_noise)
