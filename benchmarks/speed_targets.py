@@ -158,13 +158,14 @@ def row_update(threads, log, n=1024, repeats=5):
     return row
 
 
-def _compact_field(n, sigma=1e-4, seed=5, small=256):
+def _compact_field(n, sigma=1e-4, seed=5):
     """An invented compact field (a point, a Gaussian and a disk within 40 px) in an
-    ``n x n`` image: the same array, cell size, sky and noise level at every ``n``."""
+    ``n x n`` image: the same array, beam in pixels, sky and noise level at every ``n``
+    (`fields.natural_psf` keeps the pixel a fixed fraction of the beam)."""
     from scipy.signal import fftconvolve
     from fields import correlated_noise, invented_array, natural_psf, uv_tracks
     u, v = uv_tracks(invented_array(27, seed=seed))
-    psf, w = natural_psf(u, v, n, fill=0.7 * small / n)       # the same cell size
+    psf, w = natural_psf(u, v, n)
     yy, xx = np.mgrid[:n, :n].astype(np.float64) - n // 2
     sky = np.zeros((n, n))
     sky[n // 2, n // 2] += 100 * sigma
