@@ -176,3 +176,20 @@ def test_whole_runs_do_not_depend_on_the_thread_count():
     assert runs[0].fft_updates > 0 and runs[0].sub_loops > runs[0].fft_updates
     np.testing.assert_array_equal(runs[0].components, runs[1].components)
     np.testing.assert_array_equal(runs[0].model, runs[1].model)
+
+
+@pytest.mark.parametrize("radius", [0, 1, 4, 15])
+def test_grow_mask_matches_scipy_binary_dilation(radius):
+    # Reference library: scipy.ndimage.binary_dilation with a (2r + 1) square, the
+    # outside empty; a compact mask in a large image and an empty one.
+    from scipy import ndimage
+
+    from skyscale.core.noise import grow_mask
+    rng = np.random.default_rng(radius)
+    mask = np.zeros((90, 120), bool)
+    mask[40:50, 60:75] = rng.random((10, 15)) < 0.3
+    mask[0, 3] = mask[89, 119] = True
+    ref = ndimage.binary_dilation(mask, np.ones((2 * radius + 1, 2 * radius + 1)),
+                                  border_value=0) if radius else mask
+    np.testing.assert_array_equal(grow_mask(mask, radius), ref)
+    assert not grow_mask(np.zeros((8, 9), bool), 3).any()

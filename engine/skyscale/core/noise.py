@@ -26,7 +26,7 @@ from scipy import ndimage
 
 __all__ = ["MAD_TO_SIGMA", "CLIP_SIGMA", "DETECTION_SAMPLES", "DETECTION_ROUNDS",
            "MIN_OUTSIDE_PIXELS",
-           "robust_noise", "emission_free_noise", "detection_noise", "scale_noise",
+           "robust_noise", "emission_free_noise", "detection_noise", "scale_noise", "grow_mask",
            "keep_outside_noise"]
 
 #: Factor turning the median absolute deviation into a Gaussian sigma [1]_.
@@ -98,13 +98,32 @@ MAX_SAMPLES = 1 << 17
 MIN_NOISE_PIXELS = 400
 
 
-def _grow(mask, radius):
-    """Square dilation of ``mask`` by ``radius`` pixels (separable running maximum)."""
+def grow_mask(mask, radius):
+    """Square dilation of ``mask`` by ``radius`` pixels (separable running maximum).
+
+    Only the mask's bounding box grown by the radius is filtered, so a compact mask in
+    a large image costs what its box costs.  The same as
+    ``scipy.ndimage.binary_dilation`` with a ``(2 r + 1)`` square and the outside empty.
+    """
+    mask = np.asarray(mask, dtype=bool)
+    radius = int(radius)
     if radius <= 0:
         return mask
-    size = 2 * int(radius) + 1
-    grown = ndimage.maximum_filter1d(mask.view(np.uint8), size, axis=0, mode="constant")
-    return ndimage.maximum_filter1d(grown, size, axis=1, mode="constant").astype(bool)
+    rows = np.flatnonzero(mask.any(axis=1))
+    if rows.size == 0:
+        return np.zeros_like(mask)
+    cols = np.flatnonzero(mask.any(axis=0))
+    ny, nx = mask.shape
+    y0, y1 = max(rows[0] - radius, 0), min(rows[-1] + radius + 1, ny)
+    x0, x1 = max(cols[0] - radius, 0), min(cols[-1] + radius + 1, nx)
+    size = 2 * radius + 1
+    box = np.ascontiguousarray(mask[y0:y1, x0:x1]).view(np.uint8)
+    grown = ndimage.maximum_filter1d(box, size, axis=0, mode="constant")
+    grown = ndimage.maximum_filter1d(grown, size, axis=1, mode="constant")
+    out = np.zeros_like(mask)
+    out[y0:y1, x0:x1] = grown.astype(bool)
+    return out
+
 
 
 def emission_free_noise(image, *, exclude=None, region=None, border=0, passes=3):
@@ -190,7 +209,7 @@ def _trusted(region, shape, radius):
     region = np.asarray(region, dtype=bool)
     if radius <= 0 or region.all():
         return region
-    return region & ~_grow(~region, radius)
+    return region & ~grow_mask(~region, radius)
 
 
 def _high_passed(planes, ratios, cross, radii, exclude, region):
@@ -292,7 +311,7 @@ def scale_noise(planes, radii, *, mask=None, region=None, ratios=None, previous=
     for k in range(n):
         r = int(radii[k])
         trusted = _trusted(region, (ny, nx), r)
-        grown = None if mask is None else _grow(mask, r)
+        grown = None if mask is None else grow_mask(mask, r)
         sigma[k], used[k] = emission_free_noise(planes[k], exclude=grown, region=trusted,
                                                 border=r)
         if k > 0:
@@ -314,7 +333,7 @@ def scale_noise(planes, radii, *, mask=None, region=None, ratios=None, previous=
             if mask is not None:
                 how[0] += f" (the mask leaves only {left} pixels outside it)"
         hp, hp_used = _high_passed(planes, ratios, cross, radii,
-                                   None if whole else _grow(mask, int(radii[-1])), region)
+                                   None if whole else grow_mask(mask, int(radii[-1])), region)
         if hp_used >= MIN_NOISE_PIXELS and 0 < hp and hp * CONTAMINATED < sigma[0]:
             sigma[0], used[0] = hp, hp_used
             how[0] = ("high-passed (residual minus its largest-scale smoothing) over the "

@@ -31,7 +31,7 @@ from scipy.spatial import ConvexHull, QhullError
 from scipy.spatial.distance import pdist
 
 from skyscale.core.beam import FWHM_PER_SIGMA, gaussian_area
-from skyscale.core.noise import detection_noise
+from skyscale.core.noise import detection_noise, grow_mask
 from skyscale.masks.profiles import (fit_profile, seen_point, subtract_point, transfer_of_beam,
                                      transfer_of_psf)
 
@@ -599,10 +599,8 @@ def _off_emission(sm, level, margin, exclude):
     """Pixels farther than ``margin`` from any above ``level``, and not in ``exclude``."""
     above = sm > level
     off = ~above
-    if above.any() and margin >= 1:     # square dilation, separable running maximum
-        size = 2 * int(round(margin)) + 1
-        grown = ndimage.maximum_filter1d(above.view(np.uint8), size, axis=0, mode="constant")
-        off = ~ndimage.maximum_filter1d(grown, size, axis=1, mode="constant").astype(bool)
+    if above.any() and margin >= 1:
+        off = ~grow_mask(above, int(round(margin)))
     if exclude is not None:
         off &= ~np.asarray(exclude, dtype=bool)
     return off

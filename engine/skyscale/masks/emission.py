@@ -191,16 +191,25 @@ class EmissionMask:
         r = int(np.floor(radius))
         yy, xx = np.mgrid[-r:r + 1, -r:r + 1]
         disk = (xx ** 2 + yy ** 2 <= radius ** 2).astype(np.float64)
-        ny, nx = mask.shape
+        # only the mask's bounding box grown by r can change: a compact mask in a large
+        # image costs what its box costs
+        rows = np.flatnonzero(mask.any(axis=1))
+        cols = np.flatnonzero(mask.any(axis=0))
+        y0, y1 = max(rows[0] - r, 0), min(rows[-1] + r + 1, mask.shape[0])
+        x0, x1 = max(cols[0] - r, 0), min(cols[-1] + r + 1, mask.shape[1])
+        box = mask[y0:y1, x0:x1]
+        ny, nx = box.shape
         shape = (sfft.next_fast_len(ny + 2 * r + 1, real=True),
                  sfft.next_fast_len(nx + 2 * r + 1, real=True))
         kern = np.zeros(shape)
         kern[:2 * r + 1, :2 * r + 1] = disk
-        conv = sfft.irfft2(sfft.rfft2(mask.astype(np.float64), s=shape) * sfft.rfft2(kern),
+        conv = sfft.irfft2(sfft.rfft2(box.astype(np.float64), s=shape) * sfft.rfft2(kern),
                            s=shape)
         # Linear convolution with the disk centred: output offset by r.  Counts are
         # integers, so > 0.5 is exact dilation.
-        return conv[r:r + ny, r:r + nx] > 0.5
+        out = np.zeros(mask.shape, dtype=bool)
+        out[y0:y1, x0:x1] = conv[r:r + ny, r:r + nx] > 0.5
+        return out
 
     def update(self, residual, model=None, previous=None, noise=None):
         """Compute the mask for this major cycle.
