@@ -13,13 +13,18 @@ import numpy as np
 
 from skyscale.io.atomic import atomic_write_bytes
 
-__all__ = ["DEFAULT_CALIBRATION", "CALIBRATION_ENV", "default_calibration_path",
+__all__ = ["DEFAULT_CALIBRATION", "CALIBRATION_ENV", "MODEL_VERSION", "default_calibration_path",
            "load_calibration", "save_calibration", "fit_power_law", "fit_nonnegative"]
 
 logger = logging.getLogger(__name__)
 
 #: Environment variable naming a calibration file (overrides the default path).
 CALIBRATION_ENV = "SKYSCALE_COST_CALIBRATION"
+
+#: The cost model's terms these coefficients belong to: 2 since minor cycles make their
+#: beams themselves and apply sub-loops by FFT or direct updates.  A calibration of
+#: another version is not used.
+MODEL_VERSION = 2
 
 #: Coefficients measured on this machine (2 cores, shared, load average 5 to 8; 1 thread,
 #: float32, CPU seconds) on 2026-12-02 by ``PYTHONPATH=engine python -m skyscale.cli
@@ -29,18 +34,22 @@ CALIBRATION_ENV = "SKYSCALE_COST_CALIBRATION"
 #: predicted FFT seconds and in pixels (see `skyscale.cost`).  Two threads were slower
 #: than one on the loaded machine, so the parallel fractions came out 0.
 DEFAULT_CALIBRATION = {
+    "model": MODEL_VERSION,
     "source": "built-in: skyscale bench --sizes 512,1024,2048, 2026-12-02 (CPU seconds, load 5-8)",
     "fft": {"coefficient": 6.28e-11, "exponent": 1.11},
-    "precompute": {"fixed": 0.0209, "per_psf_pixel": 0.0, "per_fft_second": 1.16,
-                   "per_beam_pixel": 2.92e-08},
+    "precompute": {"fixed": 0.0209, "per_psf_pixel": 0.0, "per_fft_second": 1.16},
+    "beams": {"fixed": 0.0, "per_fft_second": 1.0, "per_beam_pixel": 0.0},
     "setup": {"fixed": 0.0, "per_fft_second": 0.836},
     "round": {"fixed": 0.0, "per_fft_second": 1.26, "per_plane_pixel": 0.0},
+    "direct": {"fixed": 0.0, "per_madd": 1e-9, "allowance_used": 0.3},
+    "scan": {"per_tracked_pixel": 1e-9, "cycle_fixed": 0.0, "per_plane_pixel": 1e-8},
     "loop": {"per_component_pixel": 5.18e-09, "per_active_pixel": 0.0, "per_sub_loop": 0.000114},
     "major": {"fixed": 0.0, "per_fft_second": 1.02, "per_plane_pixel": 0.0},
     "stats": {"fixed": 0.0281, "per_fft_second": 1.64, "per_plane_pixel": 1.37e-08},
-    "counts": {"rounds_per_scale_cycle": 6.17, "active_fraction": 0.00324, "cycles_offset": 0.727},
+    "counts": {"rounds_per_scale_cycle": 6.17, "active_fraction": 0.00324, "cycles_offset": 0.727,
+               "fft_update_fraction": 0.3},
     "threads": {"fft_parallel": 0.0, "loop_parallel": 0.0, "measured_with": 2.0},
-    "memory": {"scale": 0.94},
+    "memory": {"scale": 1.0},
     "range": {"max_image_pixels": 2048 * 2048},
     "startup": {"fixed": 1.9},
 }
@@ -53,6 +62,9 @@ def default_calibration_path():
 
 
 def _merged(data, source):
+    if data.get("model") != MODEL_VERSION:
+        raise ValueError(f"it was made for cost model {data.get('model', 1)}, this is "
+                         f"model {MODEL_VERSION}")
     cal = json.loads(json.dumps(DEFAULT_CALIBRATION))
     for section, values in data.items():
         if isinstance(values, dict) and section in cal:
@@ -60,7 +72,7 @@ def _merged(data, source):
             if unknown:
                 raise ValueError(f"section {section!r} has unknown keys {sorted(unknown)}")
             cal[section].update({k: float(v) for k, v in values.items()})
-        elif section not in ("source", "fit"):
+        elif section not in ("source", "fit", "model"):
             raise ValueError(f"unknown section {section!r}")
     cal["source"] = f"{source} ({data['source']})" if data.get("source") else source
     return cal

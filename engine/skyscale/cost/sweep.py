@@ -34,7 +34,7 @@ from skyscale.core.engine import Engine
 from skyscale.core.operators import ImagePlaneOperator
 
 __all__ = ["SCALE_SETS", "DEFAULT_SIZES", "QUICK_SETTINGS", "synthetic_field", "PeakMemory",
-           "cpu_clock", "record_sub_loops", "fft_probe", "measure_point", "measure_run",
+           "cpu_clock", "record_sub_loops", "SubLoopRecord", "fft_probe", "measure_point", "measure_run",
            "run_sweep", "VALIDATION_RUNS", "sweep_shapes", "sweep_memory"]
 
 logger = logging.getLogger(__name__)
@@ -159,27 +159,79 @@ def cpu_clock():
         minor.time, cycles.time = saved
 
 
+class SubLoopRecord(list):
+    """What `record_sub_loops` saw: the sub-loops ``(active pixels, components, CPU
+    seconds)`` as the list itself, and beside them ``updates`` (each application of a
+    sub-loop: ``(kind, components, tracked pixels, CPU seconds, accepted)``, ``kind``
+    'fft' or 'direct'), ``beams`` (each making of beams: ``(beams made, pixels each,
+    CPU seconds)``) and ``tools`` (CPU seconds of each box's convolvers made)."""
+
+    def __init__(self):
+        super().__init__()
+        self.updates = []
+        self.beams = []
+        self.tools = []
+
+
 @contextlib.contextmanager
 def record_sub_loops():
-    """Record every sub-loop the engine runs: ``(active pixels, components, seconds)``.
+    """Record every sub-loop the engine runs, how it was applied, and the beams and box
+    convolvers it made (a `SubLoopRecord`).
 
-    Wraps the engine's reference to the compiled sub-loop for the block (measurement
-    only: the arguments and results pass through unchanged).
+    Wraps, for the block, the engine's reference to the compiled sub-loop, its two ways
+    of applying a sub-loop (an FFT update of the box, a direct update of the tracked
+    pixels), the making of beams and of the box's convolvers (measurement only: the
+    arguments and results pass through unchanged).
     """
     from skyscale.core import engine as minor
+    from skyscale.core import precompute
     inner = minor.scale_loop
-    rows = []
+    work = minor._CycleWork
+    apply_fft, apply_direct = work._apply_fft, work._apply_direct
+    make_pairs, tools = precompute.pair_beams, minor.Engine._tools
+    rows = SubLoopRecord()
 
     def timed(values, ys, xs, beam, **kw):
         t0 = time.process_time()
         out = inner(values, ys, xs, beam, **kw)
         rows.append((int(np.size(values)), int(out[0].size), time.process_time() - t0))
         return out
+
+    def applied(kind, fn):
+        def wrapper(self, k, ys, xs, flux, guard):
+            t0 = time.process_time()
+            out = fn(self, k, ys, xs, flux, guard)
+            rows.updates.append((kind, int(np.size(flux)), int(self.tys.size),
+                                 time.process_time() - t0, out is not None))
+            return out
+        return wrapper
+
+    def beams(psf, kernels, image_shape, backend, pairs, **kw):
+        t0 = time.process_time()
+        pairs = list(pairs)
+        out = make_pairs(psf, kernels, image_shape, backend, pairs, **kw)
+        rows.beams.append((len(pairs), (2 * image_shape[0] - 1) * (2 * image_shape[1] - 1),
+                           time.process_time() - t0))
+        return out
+
+    def box_tools(self, shape):
+        new = tuple(shape) not in self._box_tools
+        t0 = time.process_time()
+        out = tools(self, shape)
+        if new:
+            rows.tools.append(time.process_time() - t0)
+        return out
+
     minor.scale_loop = timed
+    work._apply_fft, work._apply_direct = applied("fft", apply_fft), applied(
+        "direct", apply_direct)
+    precompute.pair_beams, minor.Engine._tools = beams, box_tools
     try:
         yield rows
     finally:
         minor.scale_loop = inner
+        work._apply_fft, work._apply_direct = apply_fft, apply_direct
+        precompute.pair_beams, minor.Engine._tools = make_pairs, tools
 
 
 def fft_probe(grids, *, threads=1, repeats=3, backend="auto"):
@@ -217,36 +269,56 @@ def _timed(fn, *args, **kw):
     return out, time.process_time() - t0
 
 
+def _cycle_rows(mc, rec, n_scales, pixels):
+    """One minor cycle's own overhead (CPU seconds outside its sub-loops, updates, beams
+    and convolvers) with its features: ``[seconds, sub-loops, tracked pixels]``."""
+    inside = (sum(t for _, _, t in rec) + sum(u[3] for u in rec.updates)
+              + sum(b[2] for b in rec.beams) + sum(rec.tools))
+    tracked = max((u[2] for u in rec.updates), default=pixels)
+    return [max(mc.seconds - mc.timings.get("smooth", 0.0) - inside, 0.0), int(mc.rounds),
+            int(tracked)]
+
+
+def _update_rows(rec):
+    return [[kind, m, n_t, t] for kind, m, n_t, t, ok in rec.updates if ok]
+
+
 def measure_point(dirty, psf, scales, *, components=POINT_COMPONENTS, dtype=None):
-    """One sweep point at one thread: precompute, set-up, the rounds and sub-loops of
-    one minor cycle, one major cycle and its statistics, and the peak memory (CPU
-    seconds)."""
+    """One sweep point at one thread: precompute, set-up, the beams, the sub-loops and
+    updates of one minor cycle (FFT and direct), one major cycle and its statistics,
+    and the peak memory (CPU seconds)."""
     with PeakMemory(RSS_INTERVAL) as mem, cpu_clock():
         engine = Engine(psf, scales, image_shape=dirty.shape, threads=1, dtype=dtype)
         op, setup = _timed(ImagePlaneOperator, dirty, engine.psf, fft=engine.fft,
                            dtype=engine.dtype)
         state, stats_first = _timed(engine.measure, dirty)
-        with record_sub_loops() as first_loops:     # the cycle's FFT plans made
+        with record_sub_loops() as first_loops:     # the beams and convolvers made
             first = engine.minor_cycle(dirty, max_components=max(components // 20, 1),
-                                       state=state)
+                                       state=state, exact_residual=False)
         with record_sub_loops() as loops:
-            mc = engine.minor_cycle(dirty, max_components=components, state=state)
+            mc = engine.minor_cycle(dirty, max_components=components, state=state,
+                                    exact_residual=False)
         residual, major = _timed(op, mc.model)
         masked_stats(residual, None)
         _, stats = _timed(engine.measure, residual)
         residual, major2 = _timed(op, mc.model)
-    updated = sum(1 for _, m, _ in loops if m > 0)
-    round_s = mc.timings["update"] / max(updated, 1)
-    first_updates = sum(1 for _, m, _ in first_loops if m > 0)
-    first_use = max(first.timings["update"] - first_updates * round_s, 0.0)
+    npx = dirty.size
+    updates = _update_rows(first_loops) + _update_rows(loops)
+    fft = [u[3] for u in updates if u[0] == "fft"]
     rec = _record(engine, dirty, psf)
-    rec.update({"precompute_s": engine.precompute_seconds, "setup_s": setup + first_use,
-                "rounds": int(mc.rounds), "updates": updated,
-                "round_s": round_s,
+    rec.update({"precompute_s": engine.precompute_seconds,
+                "setup_s": setup + sum(first_loops.tools) + sum(loops.tools),
+                "beams_s": sum(b[2] for b in first_loops.beams + loops.beams),
+                "beams_made": sum(b[0] for b in first_loops.beams + loops.beams),
+                "beam_pixels": max((b[1] for b in first_loops.beams), default=0),
+                "rounds": int(mc.rounds), "updates": len(fft),
+                "round_s": float(np.mean(fft)) if fft else 0.0,
+                "update_rows": updates,
+                "cycle_rows": [_cycle_rows(first, first_loops, engine.n_scales, npx),
+                               _cycle_rows(mc, loops, engine.n_scales, npx)],
                 "loops": [list(r) for r in loops], "components": int(mc.components.size),
                 "major_s": min(major, major2), "stats_first_s": stats_first,
-                # a major cycle's statistics and the next minor cycle's own set-up
-                "stats_s": stats + mc.seconds - mc.timings["update"] - mc.timings["loop"],
+                "stats_s": stats,
                 "traced_peak": int(mem.traced_peak), "rss_increase": int(mem.rss_increase),
                 "engine_memory": int(engine.memory["total"])})
     return rec
@@ -255,7 +327,8 @@ def measure_point(dirty, psf, scales, *, components=POINT_COMPONENTS, dtype=None
 def measure_run(dirty, psf, scales, *, max_components, noise_threshold=3.0, threads=1,
                 seed_note=""):
     """A whole `skyscale.deconvolve` run at one thread: its time by step (CPU seconds;
-    ``wall`` beside), its counts and peak memory."""
+    ``wall`` beside), its counts (sub-loops, FFT updates, direct updates and the share of
+    their allowance the direct ones used) and peak memory."""
     if resolve_threads(threads) != 1:
         raise ValueError(f"threads is {threads}: measure_run times CPU seconds and needs 1")
     from skyscale.core.driver import deconvolve
@@ -267,10 +340,18 @@ def measure_run(dirty, psf, scales, *, max_components, noise_threshold=3.0, thre
     act = [a for a, _, _ in loops]
     sigma = res.scale_noise[0] if res.scale_noise else 0.0
     level = noise_threshold * sigma
+    g = cost.run_geometry(dirty.shape, psf.shape, _radii(scales))
+    n1 = len(scales) + 1
+    allowance = cost.direct_cost_ratio() * g.fft_update_work()
+    used = [m * n_t * n1 / allowance for kind, m, n_t, _, ok in loops.updates
+            if kind == "direct" and ok]
     return {"image_shape": list(dirty.shape), "psf_shape": list(psf.shape),
             "scales": list(scales), "field": seed_note, "threads": resolve_threads(threads),
             "max_components": int(max_components), "stop_reason": res.stop_reason,
             "components": int(res.components.size), "rounds": int(res.sub_loops),
+            "fft_updates": int(res.fft_updates),
+            "direct_updates": sum(1 for u in loops.updates if u[0] == "direct" and u[4]),
+            "allowance_used": float(np.mean(used)) if used else 0.0,
             "major_cycles": len(res.history) - 1,
             "active_pixels": float(np.mean(act)) if act else 0.0,
             "dynamic_range": float(np.abs(dirty).max() / level) if level > 0 else None,
@@ -284,7 +365,7 @@ def predicted_for(run, calibration, *, a_priori):
     """The planner's figures for a measured run: with its own counts (``a_priori``
     False: the model per step) or from its dynamic range and budget alone."""
     kw = {} if a_priori else {k: run[k] for k in ("components", "rounds", "major_cycles",
-                                                  "active_pixels")}
+                                                  "active_pixels", "fft_updates")}
     p = cost.plan_run(run["image_shape"], run["psf_shape"], run["scales"],
                       max_components=run["max_components"], threads=run["threads"],
                       calibration=calibration, memory_available=1 << 62, fresh_process=False,

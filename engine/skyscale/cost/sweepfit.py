@@ -13,7 +13,7 @@ import numpy as np
 from skyscale.cost import model as cost
 from skyscale.cost.calibration import DEFAULT_CALIBRATION, fit_nonnegative, fit_power_law
 
-__all__ = ["calibrate", "summarize", "step_ffts"]
+__all__ = ["calibrate", "summarize", "step_ffts", "one_thread"]
 
 
 def _geometry(rec):
@@ -21,10 +21,14 @@ def _geometry(rec):
                              itemsize=rec.get("itemsize", 4))
 
 
+def one_thread(cal):
+    """``cal`` with no parallel fractions: the sweep's points run on one thread."""
+    return dict(cal, threads={"fft_parallel": 0.0, "loop_parallel": 0.0})
+
+
 def step_ffts(geom, cal):
     """Predicted FFT seconds of each step at one thread under ``cal``'s FFT law."""
-    one = dict(cal, threads={"fft_parallel": 0.0, "loop_parallel": 0.0})
-    return {k: cost.fft_seconds(v, one) for k, v in geom.transforms().items()}
+    return {k: cost.fft_seconds(v, one_thread(cal)) for k, v in geom.transforms().items()}
 
 
 def _misfit(model, y):
@@ -60,14 +64,30 @@ def calibrate(sweep):
         coef, _ = fit_nonnegative(rows, y)
         cal[name] = {k: float(c) for k, c in zip(keys, coef)}
         cal["fit"][name] = _misfit(np.asarray(rows) @ coef, y)
-    fit("precompute", ("fixed", "per_psf_pixel", "per_fft_second", "per_beam_pixel"),
-        [[1.0, r["psf_shape"][0] * r["psf_shape"][1], t["precompute"],
-          r["n_scales"] * (2 * r["size"] - 1) ** 2] for r, t in zip(pts, ffts)],
-        [r["precompute_s"] for r in pts])
+    fit("precompute", ("fixed", "per_psf_pixel", "per_fft_second"),
+        [[1.0, r["psf_shape"][0] * r["psf_shape"][1], t["precompute"]]
+         for r, t in zip(pts, ffts)], [r["precompute_s"] for r in pts])
+    made = [(r, g) for r, g in zip(pts, geo) if r.get("beams_made")]
+    if made:      # the FFTs of the beams the point made (all pairs, or the scales' only)
+        fit("beams", ("fixed", "per_fft_second", "per_beam_pixel"),
+            [[1.0, cost.fft_seconds([(g.precompute_grid, 1 + g.n_finite + r["beams_made"])],
+                                    one_thread(cal)), r["beams_made"] * r["beam_pixels"]]
+             for r, g in made], [r["beams_s"] for r, _ in made])
     upd = [(r, t) for r, t in zip(pts, ffts) if r["updates"] > 0]
     fit("round", ("fixed", "per_fft_second", "per_plane_pixel"),
         [[1.0, t["round"], r["n_scales"] * r["size"] ** 2] for r, t in upd],
         [r["round_s"] for r, _ in upd])
+    direct = [(r, u) for r in pts for u in r.get("update_rows", []) if u[0] == "direct"]
+    if len(direct) >= 3:
+        fit("direct", ("fixed", "per_madd"),
+            [[1.0, u[1] * u[2] * (r["n_scales"] + 1)] for r, u in direct],
+            [u[3] for _, u in direct])
+        cal["direct"]["allowance_used"] = DEFAULT_CALIBRATION["direct"]["allowance_used"]
+    cyc = [(r, c) for r in pts for c in r.get("cycle_rows", [])]
+    if len(cyc) >= 3:
+        fit("scan", ("cycle_fixed", "per_plane_pixel", "per_tracked_pixel"),
+            [[1.0, r["n_scales"] * r["size"] ** 2, c[1] * r["n_scales"] * c[2]]
+             for r, c in cyc], [c[0] for _, c in cyc])
     fit("major", ("fixed", "per_fft_second", "per_plane_pixel"),
         [[1.0, t["major"], r["size"] ** 2] for r, t in zip(pts, ffts)],
         [r["major_s"] for r in pts])
@@ -87,9 +107,15 @@ def calibrate(sweep):
         alpha = [r["active_pixels"] / (r["image_shape"][0] * r["image_shape"][1]) for r in runs]
         off = [r["major_cycles"] - math.log(max(r["dynamic_range"] or 1.0, 1.0)) / math.log(5.0)
                for r in runs]
+        phi = [r["fft_updates"] / r["rounds"] for r in runs if r.get("rounds")]
+        used = [r["allowance_used"] for r in runs if r.get("allowance_used")]
         cal["counts"] = {"rounds_per_scale_cycle": float(np.median(rho)),
                          "active_fraction": float(np.median(alpha)),
-                         "cycles_offset": float(np.clip(np.median(off), 0.0, 5.0))}
+                         "cycles_offset": float(np.clip(np.median(off), 0.0, 5.0)),
+                         "fft_update_fraction": float(np.median(phi)) if phi else
+                         DEFAULT_CALIBRATION["counts"]["fft_update_fraction"]}
+        if used:
+            cal["direct"]["allowance_used"] = float(np.median(used))
     ft = sorted(sweep.get("fft_threads", []), key=lambda r: r["threads"])
     lt = sorted(sweep.get("loop_threads", []), key=lambda r: r["threads"])
     cal["threads"] = {
