@@ -533,6 +533,28 @@ def test_plan_command(capsys):
     assert (counts["components"], counts["rounds"], counts["major_cycles"]) == (100, 9, 3)
 
 
+def test_suggest_and_plan_quote_the_same_time_and_memory(tmp_path, capsys):
+    # The same files and scales give the same figures from skyscale suggest (its offer
+    # of more scales) and skyscale plan: one planner, one dynamic range, one format.
+    from astropy.io import fits
+    from skyscale.cost.planner import bytes_text, seconds_text
+    from tests.advisor_fields import gaussian_psf, make_field
+    dirty = make_field("disk", 40, 10, 160, seed=1)[0].astype(np.float32)
+    psf = gaussian_psf(160).astype(np.float32)
+    fits.writeto(tmp_path / "d.fits", dirty)
+    fits.writeto(tmp_path / "p.fits", psf)
+    s = skyscale.suggest_scales(dirty, psf)
+    assert s.fuller is not None
+    for key, scales in (("", s.pixels), ("fuller_", s.fuller)):
+        assert main(["plan", str(tmp_path / "d.fits"), str(tmp_path / "p.fits"), "--scales",
+                     ",".join(f"{v:g}" for v in scales), "--json"]) == 0
+        plan = json.loads(capsys.readouterr().out)
+        assert s.costs[key + "seconds"] == pytest.approx(plan["total_seconds"], rel=1e-12)
+        assert s.costs[key + "bytes"] == plan["memory_bytes"]
+        assert f"{seconds_text(plan['total_seconds'])} and {bytes_text(plan['memory_bytes'])}" \
+            in " ".join(s.reasons)
+
+
 def test_plan_command_bad_input(capsys):
     assert main(["plan"]) == 2
     assert "--size" in capsys.readouterr().err
@@ -582,7 +604,7 @@ def test_bench_quick_writes_table_json_figure_and_calibration(tmp_path, capsys):
     # the command line speaks to users: what was measured, what it means, where the
     # calibration went; the developer's tables are in benchmarks/sweep_tables.py
     assert "skyscale bench measured this machine" in text and "--quick: tiny images" in text
-    assert "what it means for your runs" in text and "each sub-loop update" in text
+    assert "what it means for your runs" in text and "each FFT update" in text
     assert "run(s) the fit did not see" in text
     assert f"Calibration written to {cal}: give it to skyscale plan --calibration" in text
     for developer in ("fitted exponents", "cost model coefficients", "misfit", "MISSED"):

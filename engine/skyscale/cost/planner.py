@@ -16,7 +16,7 @@ from skyscale.core.validate import resolve_dtype
 from skyscale.core.defaults import DEFAULTS
 
 __all__ = ["Plan", "plan_run", "check_fits_memory", "max_affordable_scales",
-           "AffordableScales", "InsufficientMemoryError"]
+           "AffordableScales", "InsufficientMemoryError", "seconds_text", "bytes_text"]
 
 
 class InsufficientMemoryError(ValueError, MemoryError):
@@ -25,6 +25,22 @@ class InsufficientMemoryError(ValueError, MemoryError):
 
 def _gib(nbytes):
     return f"{nbytes / 2**30:.2f} GiB"
+
+
+def seconds_text(seconds):
+    """A planned time in words as ``skyscale plan`` and ``skyscale suggest`` quote it."""
+    if seconds < 1e-3:
+        return f"{seconds * 1e6:.3g} us"
+    if seconds < 1:
+        return f"{seconds * 1e3:.3g} ms"
+    if seconds < 600:
+        return f"{seconds:.3g} s"
+    return f"{seconds / 60:.3g} min"
+
+
+def bytes_text(nbytes):
+    """A planned memory figure as ``skyscale plan`` and ``skyscale suggest`` quote it."""
+    return "unknown" if nbytes is None else f"{nbytes / 2**20:,.0f} MiB"
 
 
 @dataclass

@@ -168,6 +168,7 @@ def summarize(sweep, calibration=None):
         t = cost.predict_times(g, cal)
         lp = sum(cost.loop_seconds(t, m, a) for a, m, _ in r["loops"])
         r["model"] = {"precompute_s": t["precompute"], "round_s": t["round"],
+                      "beams_s": t["beams"],
                       "major_s": t["major"], "stats_s": t["stats"],
                       "loops_s": lp, "loops_measured_s": sum(x[2] for x in r["loops"]),
                       "memory": cost.predict_memory(g, cal)["peak"]}
