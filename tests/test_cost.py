@@ -490,6 +490,12 @@ def test_calibrate_inverts_the_model_on_noiseless_data():
     true["loop"] = {"per_component_pixel": 1.5e-9, "per_active_pixel": 3e-9,
                     "per_sub_loop": 2e-5}
     true["setup"] = {"fixed": 1e-2, "per_fft_second": 0.9}
+    true["beams"] = {"fixed": 3e-3, "per_fft_second": 1.3, "per_beam_pixel": 2e-9}
+    delta = cost.DEFAULT_CALIBRATION["direct"]["pixel_exponent"]   # kept without a probe
+    true["direct"] = {"fixed": 5e-5, "per_madd": 1.2e-9, "per_pixel_plane": 3e-9,
+                      "pixel_exponent": delta,
+                      "allowance_used": cost.DEFAULT_CALIBRATION["direct"]["allowance_used"]}
+    true["scan"] = {"cycle_fixed": 4e-3, "per_plane_pixel": 6e-9, "per_tracked_pixel": 2e-9}
     grids = set()
     points = []
     for n in (128, 256, 512):
@@ -500,15 +506,24 @@ def test_calibrate_inverts_the_model_on_noiseless_data():
             t = cost.predict_times(g, true)
             loops = [[a, m, 1.5e-9 * a * m + 3e-9 * a + 2e-5]
                      for a, m in ((5000, 40), (20000, 7), (900, 300), (100, 2))]
+            k = len(scales)
+            direct = [["direct", m, nt, 5e-5 + 1.2e-9 * m * nt * (k + 1)
+                       + 3e-9 * cost.direct_pixel_planes(k, nt, delta)]
+                      for m, nt in ((1, n * n), (3, n * n // 2), (6, n * n // 5))]
+            cycles = [[4e-3 + 6e-9 * k * n * n + 2e-9 * r * k * nt, r, nt]
+                      for r, nt in ((3, n * n), (40, n * n // 3))]
             points.append({"size": n, "image_shape": [n, n], "psf_shape": [2 * n, 2 * n],
                            "radii": list(radii), "itemsize": 4, "n_scales": len(scales),
+                           "beams_made": k + g.n_pairs, "beam_pixels": g.beam_pixels,
+                           "beams_s": t["beams"], "update_rows": direct,
+                           "cycle_rows": cycles,
                            "scales": scales, "precompute_s": t["precompute"],
                            "round_s": t["round"], "updates": 3, "major_s": t["major"],
                            "stats_s": t["stats"], "loops": loops, "setup_s": t["setup"],
                            "traced_peak": cost.predict_memory(g, true)["peak"]})
     fft = [{"grid": list(g), "seconds": 3e-9 * cost.fft_work(g) ** 1.1} for g in grids]
     cal = calibrate({"settings": {"sizes": [128, 256, 512]}, "points": points, "fft": fft})
-    for sec in ("fft", "round", "major", "loop", "setup"):
+    for sec in ("fft", "round", "major", "loop", "setup", "beams", "direct", "scan"):
         for k, v in true[sec].items():
             assert cal[sec][k] == pytest.approx(v, rel=1e-5), (sec, k)
     assert cal["memory"]["scale"] == pytest.approx(true["memory"]["scale"])

@@ -19,7 +19,7 @@ twice-size PSF) and ``S`` (the smoothing, about ``N + r_max``).
     t_\mathrm{setup} = e_0 + a_1 n_\mathrm{psf} + e_1 [2 f(M) + N_f f(S)]
 
     t_\mathrm{fft} = b_0 + b_1 [2 f(M) + (1 + N_f) f(S)] + b_2 N_s N^2, \qquad
-    t_\mathrm{direct} = d_0 + d_1 W
+    t_\mathrm{direct} = d_0 + d_1 W + d_2 (N_s + 1) N_t (N_t / 2^{20})^\delta
 
     t_\mathrm{sub} = \ell_1 m A + \ell_2 A + \ell_0 + g_1 N_s N_t, \qquad
     t_\mathrm{cycle} = h_0 + h_1 N_s N^2
@@ -35,7 +35,9 @@ A minor cycle makes the beams once (the first one; the beams are kept), and appl
 of its ``R`` sub-loops either by an FFT update of its box (``U`` of them) or directly to
 the tracked pixels, whose multiply-adds ``W = m N_t (N_s + 1)`` the engine allows up to
 ``DIRECT_COST_RATIO`` of an FFT update's work units (`skyscale.core.engine`); a direct
-update uses ``kappa`` of that allowance on average (calibrated).  ``A`` is the sub-loop's
+update uses ``kappa`` of that allowance on average (calibrated); each also passes over
+every tracked pixel of every plane, at a cost per pixel that grows (``delta``) once the
+tracked set outgrows the caches.  ``A`` is the sub-loop's
 active set (pixels of the chosen scale above the sub-loop's level, in the mask), ``m``
 its components, ``C`` the major cycles; ``t_sub`` holds the sub-loop's Hogbom iterations
 and its scans of the tracked pixels (peaks, the active set), ``t_cycle`` a minor cycle's
@@ -67,7 +69,7 @@ __all__ = ["DEFAULT_CALIBRATION", "CALIBRATION_ENV", "DEFAULT_DYNAMIC_RANGE",
            "estimate_counts", "predict_memory", "engine_memory", "fits_memory",
            "available_memory", "load_calibration", "save_calibration",
            "default_calibration_path", "fit_power_law", "fit_nonnegative",
-           "direct_cost_ratio"]
+           "direct_cost_ratio", "direct_pixel_planes"]
 
 #: Peak over stop level assumed when neither the dirty image nor a dynamic range is given.
 DEFAULT_DYNAMIC_RANGE = 1000.0
@@ -209,7 +211,9 @@ def predict_times(geom, calibration=None, *, threads=1, tracked_pixels=None):
         + cal["setup"]["per_fft_second"] * ffts["setup"],
         "round": rnd["fixed"] + rnd["per_fft_second"] * ffts["round"]
         + rnd["per_plane_pixel"] * geom.n_scales * geom.pixels,
-        "direct": d["fixed"] + d["per_madd"] * madds * loop,
+        "direct": d["fixed"] + (d["per_madd"] * madds + d["per_pixel_plane"]
+                                * direct_pixel_planes(geom.n_scales, n_t, d["pixel_exponent"]))
+        * loop,
         "per_direct_madd": d["per_madd"] * loop,
         "per_sub_loop_scan": sc["per_tracked_pixel"] * geom.n_scales * n_t * loop,
         "cycle": sc["cycle_fixed"] + sc["per_plane_pixel"] * geom.n_scales * geom.pixels,
@@ -221,6 +225,13 @@ def predict_times(geom, calibration=None, *, threads=1, tracked_pixels=None):
         "per_active_pixel": cal["loop"]["per_active_pixel"] * loop,
         "per_sub_loop": cal["loop"]["per_sub_loop"],
     }
+
+
+def direct_pixel_planes(n_scales, tracked, exponent):
+    """The direct update's pass over the tracked pixels, in units of the calibration's
+    ``direct.per_pixel_plane``: ``(N_s + 1) N_t (N_t / 2^20)^delta``."""
+    t = float(tracked)
+    return (n_scales + 1) * t * (max(t, 1.0) / 2.0 ** 20) ** float(exponent)
 
 
 #: The sub-loop's cost terms, in the order of `loop_features` (seconds per component

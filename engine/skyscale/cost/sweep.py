@@ -34,7 +34,7 @@ from skyscale.core.engine import Engine
 from skyscale.core.operators import ImagePlaneOperator
 
 __all__ = ["SCALE_SETS", "DEFAULT_SIZES", "QUICK_SETTINGS", "synthetic_field", "PeakMemory",
-           "cpu_clock", "record_sub_loops", "SubLoopRecord", "fft_probe", "measure_point", "measure_run",
+           "cpu_clock", "record_sub_loops", "SubLoopRecord", "direct_probe", "fft_probe", "measure_point", "measure_run",
            "run_sweep", "VALIDATION_RUNS", "sweep_shapes", "sweep_memory"]
 
 logger = logging.getLogger(__name__)
@@ -338,6 +338,10 @@ def measure_run(dirty, psf, scales, *, max_components, noise_threshold=3.0, thre
                          noise_threshold=noise_threshold, threads=threads, restore=False)
         wall, cpu = time.perf_counter() - t0, time.process_time() - c0
     act = [a for a, _, _ in loops]
+    took = sum(m for _, m, _ in loops)
+    # the active set a component's sub-loop scans, on average (each sub-loop weighted by
+    # its components: the loop's cost m A sums over them)
+    weighted = sum(a * m for a, m, _ in loops) / took if took else 0.0
     sigma = res.scale_noise[0] if res.scale_noise else 0.0
     level = noise_threshold * sigma
     g = cost.run_geometry(dirty.shape, psf.shape, _radii(scales))
@@ -353,12 +357,15 @@ def measure_run(dirty, psf, scales, *, max_components, noise_threshold=3.0, thre
             "direct_updates": sum(1 for u in loops.updates if u[0] == "direct" and u[4]),
             "allowance_used": float(np.mean(used)) if used else 0.0,
             "major_cycles": len(res.history) - 1,
-            "active_pixels": float(np.mean(act)) if act else 0.0,
+            "active_pixels": float(weighted),
+            "active_pixels_per_sub_loop": float(np.mean(act)) if act else 0.0,
             "dynamic_range": float(np.abs(dirty).max() / level) if level > 0 else None,
             "measured": {"precompute": res.timings["precompute"], "minor": res.timings["minor"],
                          "major": res.timings["major"], "total": cpu,
                          "memory": int(mem.traced_peak)},
-            "wall": wall, "load": list(os.getloadavg()), "rss_increase": int(mem.rss_increase)}
+            "wall": wall, "load": list(os.getloadavg()), "rss_increase": int(mem.rss_increase),
+            "loops": [list(r) for r in loops], "update_rows": _update_rows(loops),
+            "beam_rows": [list(b) for b in loops.beams]}
 
 
 def predicted_for(run, calibration, *, a_priori):
@@ -409,6 +416,36 @@ def loop_threads_probe(n=512, iterations=40, thread_counts=(1, 2), repeats=3):
                 best[t] = min(best[t], time.perf_counter() - t0)
     return [{"threads": int(resolve_threads(t)), "seconds": best[t], "active": int(plane.size),
              "iterations": iterations} for t in thread_counts]
+
+
+def direct_probe(sizes, scales=(0, 4, 8, 16), components=(1, 8), repeats=3):
+    """Direct updates of the whole image's pixels (the largest tracked set) at each size:
+    ``[{'size', 'n_scales', 'tracked', 'components', 'seconds'}]`` (CPU seconds, best of
+    ``repeats``).  Their cost per pixel and plane grows with the tracked set once it
+    outgrows the caches, which the calibration runs at small sizes do not see."""
+    from skyscale.core import engine as minor
+    out = []
+    for n in sorted({int(v) for v in sizes}):
+        sc = [s for s in scales if s <= n // 4]
+        dirty, psf = synthetic_field(n, seed=0)
+        e = Engine(psf, sc, image_shape=dirty.shape, threads=1)
+        with thread_limit(1):
+            state = e.measure(dirty)
+            allowed = e.allowed(None)
+            work = minor._CycleWork(e, dirty.astype(np.float64), state.planes, allowed,
+                                    np.ones(dirty.shape, bool), e._box(allowed))
+            for m in components:
+                ys = n // 2 + np.arange(m) % 7
+                xs = n // 2 + np.arange(m) // 7
+                best = np.inf
+                for _ in range(repeats):
+                    t0 = time.process_time()
+                    work._apply_direct(0, ys, xs, np.full(m, 1e-6), np.inf)
+                    best = min(best, time.process_time() - t0)
+                out.append({"size": n, "n_scales": len(sc), "tracked": int(work.tys.size),
+                            "components": int(m), "seconds": float(best)})
+        del e, work, state
+    return out
 
 
 _COLD_RUN = """
@@ -550,6 +587,8 @@ def run_sweep(sizes=DEFAULT_SIZES, *, scale_sets=SCALE_SETS, components=POINT_CO
     _notify(callback, what="loop threads")
     out["loop_threads"] = loop_threads_probe(n=q.get("sizes", (512,))[0] if quick else 512,
                                              thread_counts=thread_counts)
+    _notify(callback, what="direct updates")
+    out["direct_probe"] = direct_probe(sizes)
     out["runs"] = []
     budget = q.get("run_components", 20000)
     cal_runs = _calibration_runs(sizes)

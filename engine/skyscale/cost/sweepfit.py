@@ -26,6 +26,18 @@ def one_thread(cal):
     return dict(cal, threads={"fft_parallel": 0.0, "loop_parallel": 0.0})
 
 
+def _run_radii(run):
+    from skyscale.core.scales import ScaleSet
+    return list(ScaleSet(run["scales"]).support_radii)
+
+
+def _beam_features(geom, made, pixels, cal):
+    """Features of making ``made`` beams of ``pixels`` each on the beams' grid (one
+    forward FFT of the PSF and of each finite kernel, one inverse per beam)."""
+    return [1.0, cost.fft_seconds([(geom.precompute_grid, 1 + geom.n_finite + made)],
+                                  one_thread(cal)), made * pixels]
+
+
 def step_ffts(geom, cal):
     """Predicted FFT seconds of each step at one thread under ``cal``'s FFT law."""
     return {k: cost.fft_seconds(v, one_thread(cal)) for k, v in geom.transforms().items()}
@@ -67,21 +79,43 @@ def calibrate(sweep):
     fit("precompute", ("fixed", "per_psf_pixel", "per_fft_second"),
         [[1.0, r["psf_shape"][0] * r["psf_shape"][1], t["precompute"]]
          for r, t in zip(pts, ffts)], [r["precompute_s"] for r in pts])
-    made = [(r, g) for r, g in zip(pts, geo) if r.get("beams_made")]
-    if made:      # the FFTs of the beams the point made (all pairs, or the scales' only)
-        fit("beams", ("fixed", "per_fft_second", "per_beam_pixel"),
-            [[1.0, cost.fft_seconds([(g.precompute_grid, 1 + g.n_finite + r["beams_made"])],
-                                    one_thread(cal)), r["beams_made"] * r["beam_pixels"]]
-             for r, g in made], [r["beams_s"] for r, _ in made])
+    # the beams: each point's (its first minor cycle), and each making of beams in the
+    # calibration runs; the FFTs of the beams made (all pairs, or the scales' only)
+    runs_all = sweep.get("runs", [])
+    rows, ys = [], []
+    for r, g in zip(pts, geo):
+        if r.get("beams_made"):
+            rows.append(_beam_features(g, r["beams_made"], r["beam_pixels"], cal))
+            ys.append(r["beams_s"])
+    for r in runs_all:
+        g = _geometry(dict(r, radii=_run_radii(r)))
+        for made, pixels, secs in r.get("beam_rows", []):
+            rows.append(_beam_features(g, made, pixels, cal))
+            ys.append(secs)
+    if rows:
+        fit("beams", ("fixed", "per_fft_second", "per_beam_pixel"), rows, ys)
     upd = [(r, t) for r, t in zip(pts, ffts) if r["updates"] > 0]
     fit("round", ("fixed", "per_fft_second", "per_plane_pixel"),
         [[1.0, t["round"], r["n_scales"] * r["size"] ** 2] for r, t in upd],
         [r["round_s"] for r, _ in upd])
-    direct = [(r, u) for r in pts for u in r.get("update_rows", []) if u[0] == "direct"]
-    if len(direct) >= 3:
-        fit("direct", ("fixed", "per_madd"),
-            [[1.0, u[1] * u[2] * (r["n_scales"] + 1)] for r, u in direct],
-            [u[3] for _, u in direct])
+    # direct updates: the points', the calibration runs' and the probe's of the whole
+    # image; the exponent of the pass over the tracked pixels from the probe's
+    # one-component updates (their cost per pixel and plane against the tracked set)
+    direct = [(len(r["scales"]), u[1], u[2], u[3]) for r in pts + runs_all
+              for u in r.get("update_rows", []) if u[0] == "direct"]
+    probe = sweep.get("direct_probe", [])
+    direct += [(p["n_scales"], p["components"], p["tracked"], p["seconds"]) for p in probe]
+    ones = [p for p in probe if p["components"] == 1]
+    if len({p["tracked"] for p in ones}) >= 2:
+        law = fit_power_law([p["tracked"] for p in ones],
+                            [p["seconds"] / ((p["n_scales"] + 1) * p["tracked"]) for p in ones])
+        cal["direct"]["pixel_exponent"] = float(np.clip(law["exponents"][0], 0.0, 1.0))
+    delta = cal["direct"]["pixel_exponent"]
+    if len(direct) >= 4:
+        fit("direct", ("fixed", "per_madd", "per_pixel_plane"),
+            [[1.0, m * nt * (ns + 1), cost.direct_pixel_planes(ns, nt, delta)]
+             for ns, m, nt, _ in direct], [t for *_, t in direct])
+        cal["direct"]["pixel_exponent"] = delta
         cal["direct"]["allowance_used"] = DEFAULT_CALIBRATION["direct"]["allowance_used"]
     cyc = [(r, c) for r in pts for c in r.get("cycle_rows", [])]
     if len(cyc) >= 3:
@@ -97,7 +131,7 @@ def calibrate(sweep):
     psf_s = cal["precompute"]["per_psf_pixel"]      # the operator checks the PSF too
     fit("setup", ("fixed", "per_fft_second"), [[1.0, t["setup"]] for t in ffts],
         [r["setup_s"] - psf_s * r["psf_shape"][0] * r["psf_shape"][1] for r in pts])
-    loops = [row for r in pts for row in r["loops"] if row[1] > 0 and row[2] > 0]
+    loops = [row for r in pts + runs_all for row in r.get("loops", []) if row[1] > 0 and row[2] > 0]
     if len(loops) >= 4:
         fit("loop", cost.LOOP_TERMS, [cost.loop_features(a, m) for a, m, _ in loops],
             [t for _, _, t in loops])
