@@ -26,33 +26,35 @@ CALIBRATION_ENV = "SKYSCALE_COST_CALIBRATION"
 #: another version is not used.
 MODEL_VERSION = 2
 
-#: Coefficients measured on this machine (2 cores, shared, load average 5 to 8; 1 thread,
-#: float32, CPU seconds) on 2026-12-02 by ``PYTHONPATH=engine python -m skyscale.cli
+#: Coefficients measured on this machine (2 cores, shared, load average 5 to 5.5; 1 thread,
+#: float32, scipy.fft, CPU seconds) on 2026-12-04 by ``nice -n 10 python -m skyscale.cli
 #: bench --sizes 512,1024,2048 --out bench-out`` (the calibration it wrote, rounded).
 #: Seconds; an FFT of S points has work U = S log2 S and takes
 #: ``fft.coefficient * U ** fft.exponent``; the other families are linear in the
 #: predicted FFT seconds and in pixels (see `skyscale.cost`).  Two threads were slower
-#: than one on the loaded machine, so the parallel fractions came out 0.
+#: than one on the loaded machine, so the parallel fractions came out 0.  On the runs
+#: the fit did not see (768 px, scales 0-16; 1536 px and 640 px, scales 0-32) the
+#: planner's total was 1.07, 0.86 and 0.93 x the measured with the runs' own counts.
 DEFAULT_CALIBRATION = {
     "model": MODEL_VERSION,
-    "source": "built-in: skyscale bench --sizes 512,1024,2048, 2026-12-02 (CPU seconds, load 5-8)",
-    "fft": {"coefficient": 6.28e-11, "exponent": 1.11},
-    "precompute": {"fixed": 0.0209, "per_psf_pixel": 0.0, "per_fft_second": 1.16},
-    "beams": {"fixed": 0.0, "per_fft_second": 1.0, "per_beam_pixel": 0.0},
-    "setup": {"fixed": 0.0, "per_fft_second": 0.836},
-    "round": {"fixed": 0.0, "per_fft_second": 1.26, "per_plane_pixel": 0.0},
-    "direct": {"fixed": 0.0, "per_madd": 3.3e-10, "per_pixel_plane": 4e-9,
-               "pixel_exponent": 0.3, "allowance_used": 0.35},
-    "scan": {"per_tracked_pixel": 1e-9, "cycle_fixed": 0.0, "per_plane_pixel": 1e-8},
-    "loop": {"per_component_pixel": 5.18e-09, "per_active_pixel": 0.0, "per_sub_loop": 0.000114},
-    "major": {"fixed": 0.0, "per_fft_second": 1.02, "per_plane_pixel": 0.0},
-    "stats": {"fixed": 0.0281, "per_fft_second": 1.64, "per_plane_pixel": 1.37e-08},
-    "counts": {"rounds_per_scale_cycle": 6.17, "active_fraction": 0.00324, "cycles_offset": 0.727,
-               "fft_update_fraction": 0.3},
+    "source": "built-in: skyscale bench --sizes 512,1024,2048, 2026-12-04 (CPU seconds, load 5-5.5)",
+    "fft": {"coefficient": 2.98e-11, "exponent": 1.13},
+    "precompute": {"fixed": 0.00488, "per_psf_pixel": 1.95e-09, "per_fft_second": 1.35},
+    "beams": {"fixed": 0.000588, "per_fft_second": 0.378, "per_beam_pixel": 6.11e-09},
+    "setup": {"fixed": 0.0123, "per_fft_second": 0.901},
+    "round": {"fixed": 0.00474, "per_fft_second": 0.72, "per_plane_pixel": 2.47e-09},
+    "direct": {"fixed": 0.00176, "per_madd": 3e-10, "per_pixel_plane": 3.91e-09,
+               "pixel_exponent": 0.549, "allowance_used": 0.356},
+    "scan": {"cycle_fixed": 0.00802, "per_plane_pixel": 1.71e-08, "per_tracked_pixel": 2.18e-10},
+    "loop": {"per_component_pixel": 2.29e-09, "per_active_pixel": 1.04e-07, "per_sub_loop": 0.00019},
+    "major": {"fixed": 0.00176, "per_fft_second": 0.468, "per_plane_pixel": 0.0},
+    "stats": {"fixed": 0.0225, "per_fft_second": 2.06, "per_plane_pixel": 3.22e-09},
+    "counts": {"rounds_per_scale_cycle": 7.6, "active_fraction": 0.0189, "cycles_offset": 1.73,
+               "fft_update_fraction": 0.376},
     "threads": {"fft_parallel": 0.0, "loop_parallel": 0.0, "measured_with": 2.0},
-    "memory": {"scale": 1.0},
+    "memory": {"scale": 0.92},
     "range": {"max_image_pixels": 2048 * 2048},
-    "startup": {"fixed": 1.9},
+    "startup": {"fixed": 1.46},
 }
 
 
