@@ -210,9 +210,18 @@ def test_recorded_sub_loops_add_up_to_the_component_table():
     assert len(rows) == res.sub_loops
     assert sum(m for _, m, _ in rows) == res.components.size
     assert all(a >= m for a, m, _ in rows if m)
+    # the components kept were applied by FFT updates (the run counts them) or directly,
+    # each once; the beams of every scale were made
+    kept = [u for u in rows.updates if u[4]]
+    assert sum(1 for u in kept if u[0] == "fft") == res.fft_updates
+    assert sum(u[1] for u in kept) == res.components.size
+    assert sum(b[0] for b in rows.beams) >= 3
     from skyscale.core import engine as minor
+    from skyscale.core import precompute
     from skyscale.core.kernels import scale_loop
     assert minor.scale_loop is scale_loop          # restored after the block
+    assert precompute.pair_beams.__module__ == "skyscale.core.precompute"
+    assert minor._CycleWork._apply_fft.__qualname__ == "_CycleWork._apply_fft"
 
 
 def test_fft_probe_times_each_grid_once():
