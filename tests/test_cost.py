@@ -272,6 +272,39 @@ def test_plan_totals_add_up():
     assert json.loads(json.dumps(p.as_dict()))["scales"] == [0.0, 4.0, 8.0]
 
 
+def test_a_mask_box_makes_the_updates_and_beams_those_of_the_box():
+    # Reference: the engine's own work for an FFT update of a box (Engine._fft_update_cost,
+    # with the convolvers it builds for that box) and the extent it makes beams for
+    # (BeamBank._extent_for); without a box the plan is the whole image's.
+    dirty, psf = synthetic_field(256, seed=1)
+    scales = [0, 4, 8]
+    e = Engine(psf, scales, image_shape=dirty.shape, threads=1)
+    box = (100, 120)
+    radii = ScaleSet(scales).support_radii
+    g = cost.run_geometry(dirty.shape, psf.shape, radii)
+    gb = cost.run_geometry(box, psf.shape, radii)
+    assert gb.fft_update_work() == e._fft_update_cost(box)
+    assert cost.beam_extent(box, dirty.shape) == e.bank._extent_for(box) == (128, 128)
+    cal = cost.DEFAULT_CALIBRATION
+    whole = cost.predict_times(g, cal)
+    assert cost.predict_times(g, cal, box_shape=dirty.shape) == whole
+    t = cost.predict_times(g, cal, box_shape=box)
+    assert t["round"] == pytest.approx(cost.predict_times(gb, cal)["round"], rel=1e-12)
+    assert t["beams"] == pytest.approx(cost.predict_times(
+        cost.run_geometry((128, 128), psf.shape, radii), cal)["beams"], rel=1e-12)
+    assert t["round"] < whole["round"] and t["beams"] < whole["beams"]
+    assert t["major"] == whole["major"] and t["stats"] == whole["stats"]
+    kw = dict(components=500, rounds=20, major_cycles=3, active_pixels=300.0,
+              fft_updates=8, threads=1, calibration=cal, memory_available=1 << 40)
+    boxed = cost.plan_run(dirty.shape, psf, scales, box_shape=box, mask_fraction=0.1, **kw)
+    plain = cost.plan_run(dirty.shape, psf, scales, mask_fraction=0.1, **kw)
+    assert boxed.memory_bytes == plain.memory_bytes         # memory: the whole image
+    assert boxed.fft_update_seconds == pytest.approx(8 * t["round"], rel=1e-12)
+    assert boxed.total_seconds < plain.total_seconds
+    with pytest.raises(ValueError, match="box_shape"):
+        cost.plan_run(dirty.shape, psf, scales, box_shape=(300, 10))
+
+
 def test_counts_follow_the_dynamic_range():
     # Analytic: the peak falls 1 / cycle_depth per major cycle; rounds rho per scale and cycle.
     cal = json.loads(json.dumps(cost.DEFAULT_CALIBRATION))
@@ -555,6 +588,10 @@ def test_plan_command(capsys):
                  "--major-cycles", "3", "--json"]) == 0
     counts = json.loads(capsys.readouterr().out)["counts"]
     assert (counts["components"], counts["rounds"], counts["major_cycles"]) == (100, 9, 3)
+    assert main(["plan", "--size", "256", "--mask-box", "100x120", "--mask-fraction", "0.1",
+                 "--json"]) == 0
+    boxed = json.loads(capsys.readouterr().out)
+    assert any("box of 100 x 120 pixels" in m for m in boxed["messages"])
 
 
 def test_suggest_and_plan_quote_the_same_time_and_memory(tmp_path, capsys):

@@ -84,6 +84,9 @@ def register(subparsers):
                    "dirty image, else 1000]")
     p.add_argument("--mask-fraction", type=float, default=1.0,
                    help="fraction of the image where components may go [1]")
+    p.add_argument("--mask-box", type=_shape, help="N or NYxNX: the mask's bounding box, "
+                   "grown by the largest scale's radius, where minor cycles work [the "
+                   "whole image]")
     for name, what in (("components", "components the run will take"),
                        ("sub-loops", "sub-loops (single-scale rounds) the run will run"),
                        ("fft-updates", "sub-loops applied by an FFT update (the others "
@@ -155,7 +158,7 @@ def cmd_plan(args):
                     fresh_process=not args.warm_process, dirty=dirty,
                     dynamic_range=args.dynamic_range, threshold=args.threshold,
                     noise_threshold=args.noise_threshold, mask_fraction=args.mask_fraction,
-                    **known)
+                    box_shape=args.mask_box, **known)
     if planes > 1:
         plan.messages.append(_cube_words(plan, planes, threads))
     if args.json:

@@ -69,7 +69,7 @@ __all__ = ["DEFAULT_CALIBRATION", "CALIBRATION_ENV", "DEFAULT_DYNAMIC_RANGE",
            "estimate_counts", "predict_memory", "engine_memory", "fits_memory",
            "available_memory", "load_calibration", "save_calibration",
            "default_calibration_path", "fit_power_law", "fit_nonnegative",
-           "direct_cost_ratio", "direct_pixel_planes"]
+           "direct_cost_ratio", "direct_pixel_planes", "beam_extent"]
 
 #: Peak over stop level assumed when neither the dirty image nor a dynamic range is given.
 DEFAULT_DYNAMIC_RANGE = 1000.0
@@ -183,7 +183,15 @@ def fft_seconds(pieces, calibration, threads=1):
     return t * _amdahl(calibration["threads"]["fft_parallel"], threads)
 
 
-def predict_times(geom, calibration=None, *, threads=1, tracked_pixels=None):
+def beam_extent(box_shape, image_shape):
+    """The extent the engine makes beams for, for a cycle's box: each side rounded up to
+    `skyscale.core.precompute.EXTENT_STEP`, at most the image's."""
+    from skyscale.core.precompute import EXTENT_STEP
+    return tuple(min(int(n), -(-int(b) // EXTENT_STEP) * EXTENT_STEP)
+                 for b, n in zip(box_shape, image_shape))
+
+
+def predict_times(geom, calibration=None, *, threads=1, tracked_pixels=None, box_shape=None):
     """Seconds of each step: ``precompute`` (the engine), ``beams`` (made by the first
     minor cycle), ``setup`` (the residual operator and the cycle's convolvers),
     ``round`` (one FFT update), ``direct`` (one direct update of a typical size:
@@ -192,25 +200,37 @@ def predict_times(geom, calibration=None, *, threads=1, tracked_pixels=None):
     ``major`` (one residual), ``stats`` (smoothing and noise after a major cycle), and
     the loop's ``per_component_pixel``, ``per_active_pixel`` and ``per_sub_loop``.
 
-    ``tracked_pixels`` defaults to the whole image."""
+    ``box_shape`` is the box the minor cycles work in (the mask's bounding box grown by
+    the largest scale's radius; default the whole image): the beams, the FFT updates
+    and the direct updates follow it.  ``tracked_pixels`` defaults to the box's."""
     cal = calibration or load_calibration()
+    box = geom if box_shape is None else run_geometry(
+        [min(int(b), n) for b, n in zip(box_shape, geom.image_shape)], geom.psf_shape,
+        geom.radii, itemsize=geom.itemsize)
+    ext = box if box_shape is None else run_geometry(
+        beam_extent(box.image_shape, geom.image_shape), geom.psf_shape, geom.radii,
+        itemsize=geom.itemsize)
     ffts = {k: fft_seconds(v, cal, threads) for k, v in geom.transforms().items()}
+    bffts = {k: fft_seconds(v, cal, threads) for k, v in box.transforms().items()}
+    setup = fft_seconds([(geom.major_grid, 1)] + box.transforms()["setup"][1:]
+                        + [(box.major_grid, 1)], cal, threads)
     n_psf = geom.psf_shape[0] * geom.psf_shape[1]
-    n_t = float(geom.pixels if tracked_pixels is None else tracked_pixels)
+    n_t = float(box.pixels if tracked_pixels is None else min(tracked_pixels, box.pixels))
     pre, bm, rnd, maj, sts = (cal[k] for k in ("precompute", "beams", "round", "major",
                                                "stats"))
     d, sc = cal["direct"], cal["scan"]
     loop = _amdahl(cal["threads"]["loop_parallel"], threads)
-    madds = d["allowance_used"] * direct_cost_ratio() * geom.fft_update_work()
+    madds = d["allowance_used"] * direct_cost_ratio() * box.fft_update_work()
     return {
         "precompute": pre["fixed"] + pre["per_psf_pixel"] * n_psf
         + pre["per_fft_second"] * ffts["precompute"],
-        "beams": bm["fixed"] + bm["per_fft_second"] * ffts["beams"]
-        + bm["per_beam_pixel"] * (geom.n_scales + geom.n_pairs) * geom.beam_pixels,
+        "beams": bm["fixed"] + bm["per_fft_second"] * fft_seconds(
+            ext.transforms()["beams"], cal, threads)
+        + bm["per_beam_pixel"] * (ext.n_scales + ext.n_pairs) * ext.beam_pixels,
         "setup": cal["setup"]["fixed"] + pre["per_psf_pixel"] * n_psf
-        + cal["setup"]["per_fft_second"] * ffts["setup"],
-        "round": rnd["fixed"] + rnd["per_fft_second"] * ffts["round"]
-        + rnd["per_plane_pixel"] * geom.n_scales * geom.pixels,
+        + cal["setup"]["per_fft_second"] * setup,
+        "round": rnd["fixed"] + rnd["per_fft_second"] * bffts["round"]
+        + rnd["per_plane_pixel"] * box.n_scales * box.pixels,
         "direct": d["fixed"] + (d["per_madd"] * madds + d["per_pixel_plane"]
                                 * direct_pixel_planes(geom.n_scales, n_t, d["pixel_exponent"]))
         * loop,

@@ -140,7 +140,7 @@ def plan_run(image_shape, psf, scales, *, max_components=DEFAULTS.max_components
              threshold=DEFAULTS.threshold, noise_threshold=None,
              cycle_depth=DEFAULTS.cycle_depth, mask_fraction=1.0,
              components=None, rounds=None, major_cycles=None, active_pixels=None,
-             fft_updates=None):
+             fft_updates=None, box_shape=None):
     """Predict the time and memory of a run before anything large is allocated.
 
     Parameters
@@ -174,7 +174,12 @@ def plan_run(image_shape, psf, scales, *, max_components=DEFAULTS.max_components
     cycle_depth : float
         As `skyscale.deconvolve`; default 0.2.
     mask_fraction : float
-        Fraction of the image where components may go; default 1.
+        Fraction of the image where components may go (the tracked pixels); default 1.
+    box_shape : (int, int), optional
+        The box the minor cycles work in: the mask's bounding box grown by the largest
+        scale's radius; default the whole image.  The beams, the FFT updates and the
+        direct updates follow it (the peak memory stays counted for the whole image,
+        the most a later cycle's mask may take).
     components, rounds, major_cycles, active_pixels, fft_updates : optional
         Known counts (an earlier run of the field: ``result.components``,
         ``sub_loops``, major cycles, ``fft_updates``) instead of the estimates
@@ -228,8 +233,18 @@ def plan_run(image_shape, psf, scales, *, max_components=DEFAULTS.max_components
     for key, words in counts["how"].items():
         if words != "given":
             messages.append(f"{key.replace('_', ' ')}: {words}")
+    if box_shape is not None:
+        box_shape = _shape2(box_shape, "box_shape")
+        if box_shape[0] > image_shape[0] or box_shape[1] > image_shape[1]:
+            raise ValueError(f"box_shape is {box_shape}, larger than the image "
+                             f"{image_shape}; give the mask's bounding box (grown by the "
+                             "largest scale's radius), at most the image")
+        counts["tracked_pixels"] = min(counts["tracked_pixels"],
+                                       float(box_shape[0] * box_shape[1]))
+        messages.append(f"minor cycles in a box of {box_shape[0]} x {box_shape[1]} pixels "
+                        "(given); peak memory counted for the whole image")
     t = cost.predict_times(geom, cal, threads=threads,
-                           tracked_pixels=counts["tracked_pixels"])
+                           tracked_pixels=counts["tracked_pixels"], box_shape=box_shape)
     rounds, fft_updates = counts["rounds"], counts["fft_updates"]
     loop = cost.loop_seconds(t, counts["components"], counts["active_pixels"], rounds)
     updates = fft_updates * t["round"]
