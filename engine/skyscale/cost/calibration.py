@@ -28,7 +28,8 @@ MODEL_VERSION = 2
 
 #: Coefficients measured on this machine (2 cores, shared, load average 5 to 5.5; 1 thread,
 #: float32, scipy.fft, CPU seconds) on 2026-12-04 by ``nice -n 10 python -m skyscale.cli
-#: bench --sizes 512,1024,2048 --out bench-out`` (the calibration it wrote, rounded).
+#: bench --sizes 512,1024,2048 --out bench-out`` (the calibration it wrote, rounded to three
+#: figures; the exponents to four decimals, since U ** 0.004 is 7 % at U = 1e8).
 #: Seconds; an FFT of S points has work U = S log2 S and takes
 #: ``fft.coefficient * U ** fft.exponent``; the other families are linear in the
 #: predicted FFT seconds and in pixels (see `skyscale.cost`).  Two threads were slower
@@ -38,13 +39,13 @@ MODEL_VERSION = 2
 DEFAULT_CALIBRATION = {
     "model": MODEL_VERSION,
     "source": "built-in: skyscale bench --sizes 512,1024,2048, 2026-12-04 (CPU seconds, load 5-5.5)",
-    "fft": {"coefficient": 2.98e-11, "exponent": 1.13},
+    "fft": {"coefficient": 2.979e-11, "exponent": 1.1338},
     "precompute": {"fixed": 0.00488, "per_psf_pixel": 1.95e-09, "per_fft_second": 1.35},
     "beams": {"fixed": 0.000588, "per_fft_second": 0.378, "per_beam_pixel": 6.11e-09},
     "setup": {"fixed": 0.0123, "per_fft_second": 0.901},
     "round": {"fixed": 0.00474, "per_fft_second": 0.72, "per_plane_pixel": 2.47e-09},
     "direct": {"fixed": 0.00176, "per_madd": 3e-10, "per_pixel_plane": 3.91e-09,
-               "pixel_exponent": 0.549, "allowance_used": 0.356},
+               "pixel_exponent": 0.5490, "allowance_used": 0.356},
     "scan": {"cycle_fixed": 0.00802, "per_plane_pixel": 1.71e-08, "per_tracked_pixel": 2.18e-10},
     "loop": {"per_component_pixel": 2.29e-09, "per_active_pixel": 1.04e-07, "per_sub_loop": 0.00019},
     "major": {"fixed": 0.00176, "per_fft_second": 0.468, "per_plane_pixel": 0.0},
