@@ -158,20 +158,21 @@ def row_update(threads, log, n=1024, repeats=5):
     return row
 
 
-def _compact_field(n, sigma=1e-4, seed=5):
-    base = invented_field(256, largest_scale=8, seed=seed, dynamic_range=300)
-    if n == 256:
-        return base
-    big = invented_field(n, largest_scale=8, seed=seed, dynamic_range=300)
-    # the 256 x 256 sky and its noise in the middle of an n x n sky of that noise
-    sky = np.zeros((n, n))
-    o = (n - 256) // 2
-    sky[o:o + 256, o:o + 256] = base["sky"]
+def _compact_field(n, sigma=1e-4, seed=5, small=256):
+    """An invented compact field (a point, a Gaussian and a disk within 40 px) in an
+    ``n x n`` image: the same array, cell size, sky and noise level at every ``n``."""
     from scipy.signal import fftconvolve
-    psf = big["psf"].astype(np.float64)
+    from fields import correlated_noise, invented_array, natural_psf, uv_tracks
+    u, v = uv_tracks(invented_array(27, seed=seed))
+    psf, w = natural_psf(u, v, n, fill=0.7 * small / n)       # the same cell size
+    yy, xx = np.mgrid[:n, :n].astype(np.float64) - n // 2
+    sky = np.zeros((n, n))
+    sky[n // 2, n // 2] += 100 * sigma
+    sky += 3 * sigma * np.exp(-((yy - 15) ** 2 + (xx + 10) ** 2) / (2 * 4.0 ** 2))
+    sky += 0.5 * sigma * (((yy + 12) ** 2 + (xx - 14) ** 2) <= 9.0 ** 2)
     dirty = fftconvolve(sky, psf, mode="full")[n:2 * n, n:2 * n]
-    dirty += big["dirty"] - fftconvolve(big["sky"], psf, mode="full")[n:2 * n, n:2 * n]
-    return {"dirty": dirty.astype(np.float32), "psf": big["psf"], "sky": sky,
+    dirty += correlated_noise(w, n, sigma, np.random.default_rng(seed))
+    return {"dirty": dirty.astype(np.float32), "psf": psf.astype(np.float32), "sky": sky,
             "sigma": sigma}
 
 

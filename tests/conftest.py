@@ -61,3 +61,14 @@ def ring_psf_128():
 def extended_case(ring_psf_128):
     sky = extended_field(128)
     return sky, ring_psf_128, observe(sky, ring_psf_128, noise=NOISE)
+
+
+@pytest.fixture(autouse=True, scope="session")
+def _private_caches(tmp_path_factory):
+    """Tests never read or write the user's caches: results must not depend on them."""
+    root = tmp_path_factory.mktemp("caches")
+    patch = pytest.MonkeyPatch()
+    patch.setenv("XDG_CACHE_HOME", str(root))
+    patch.setenv("MPLCONFIGDIR", str(root / "matplotlib"))
+    yield root
+    patch.undo()

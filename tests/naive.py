@@ -71,3 +71,26 @@ def convolve_centred(image, kernel):
         xa, xb = max(px - cx, 0), min(px - cx + kx, nx)
         out[ya:yb, xa:xb] += image[py, px] * kernel[ya - py + cy:yb - py + cy, xa - px + cx:xb - px + cx]
     return out
+
+
+def direct_subtract(values, tys, txs, cys, cxs, flux, beam):
+    """Twin of `skyscale.core.kernels.tracked.direct_subtract`: pixel by pixel, the
+    components summed in their order in float64, then subtracted in the values' dtype."""
+    cy, cx = beam.shape[0] // 2, beam.shape[1] // 2
+    for q in range(values.shape[0]):
+        acc = 0.0
+        for i in range(len(flux)):
+            acc += float(flux[i]) * float(beam[cy + tys[q] - cys[i], cx + txs[q] - cxs[i]])
+        values[q] = values.dtype.type(float(values[q]) - acc)
+    return values
+
+
+def tracked_peaks(planes, allowed):
+    """Twin of `skyscale.core.kernels.tracked.tracked_peaks`."""
+    return np.array([float(np.abs(p[a]).max()) if a.any() else 0.0
+                     for p, a in zip(planes, allowed)])
+
+
+def masked_peak(image, mask):
+    """Twin of `skyscale.core.kernels.tracked.masked_peak`."""
+    return float(np.abs(image[mask]).max()) if mask.any() else 0.0

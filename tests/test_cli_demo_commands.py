@@ -69,7 +69,8 @@ def test_suggest_proposes_a_set_that_follows_the_rules_of_thumb(capsys):
 
 def test_suggest_check_flags_a_scale_above_the_emission(capsys):
     assert 64 > _largest_island_px()
-    assert main(["suggest", DIRTY, PSF, "--check", "0 4 64"]) == 0   # spaces read as commas
+    # spaces read as commas; 64 px breaks a rule, so the check exits 1
+    assert main(["suggest", DIRTY, PSF, "--check", "0 4 64"]) == 1
     out = capsys.readouterr().out
     assert "scales 0,4,64" in out
     flagged = [line for line in out.splitlines() if "64 px" in line]

@@ -65,9 +65,9 @@ def test_demo_help_shows_the_demos_settings(capsys):
     assert main(["run", "--help"]) == 0
     run = " ".join(capsys.readouterr().out.split())
     assert "asks the scale advisor [0,4,8,16,32]" in demo
-    assert "asks the scale advisor [0,4,8,16]" in run
-    assert "renew an automatic mask at each major cycle [on" in demo
-    assert "renew an automatic mask at each major cycle [off]" in run
+    assert "asks the scale advisor [auto]" in run
+    assert "without turning noise into model [on]" in demo
+    assert "without turning noise into model [on]" in run
     assert "'off' for no noise stop [3]" in demo
 
 
@@ -78,9 +78,10 @@ def test_demo_settings_yield_to_a_config_and_to_a_mask(tmp_path):
     params, _ = _params(args, DEMO_SETTINGS, _DEMO_SOURCE)
     assert params["scales"] == [0, 4, 8, 16, 32] and params["emission_mask"] is True
     assert params["loop_gain"] == 0.2
+    # a mask of the user's own bounds the automatic mask, which stays on
     args = build_parser().parse_args(["demo", "--mask-regions", "circle 10 10 5"])
     params, _ = _params(args, DEMO_SETTINGS, _DEMO_SOURCE)
-    assert "emission_mask" not in params
+    assert params["emission_mask"] is True and params["mask_regions"] == "circle 10 10 5"
     args = build_parser().parse_args(["demo", "--scales", "0,4"])
     assert _params(args, DEMO_SETTINGS, _DEMO_SOURCE)[0]["scales"] == "0,4"
 
@@ -158,6 +159,8 @@ def test_residual_header_says_where_it_is_exact(same_size, tmp_path):
         hdr, res = h[0].header, h[0].data.astype(np.float64)
     half = min(N // 2, N - 1 - N // 2)                     # the cut PSF covers these offsets
     assert hdr["EXACTRES"] is False
+    restored = fits.getheader(out / "restored.fits")   # it holds the residual: marked too
+    assert restored["EXACTRES"] is False and restored["EXACTREG"] == hdr["EXACTREG"]
     assert hdr["EXACTDY"] == half and hdr["EXACTDX"] == half
     assert hdr.comments["EXACTDY"] and hdr.comments["EXACTREG"]
     history = " ".join(str(v) for v in hdr["HISTORY"])
@@ -199,7 +202,8 @@ def test_overwrite_removes_the_earlier_runs_files_it_does_not_write(pair, tmp_pa
     (out / "notes.txt").write_text("mine")
     (out / "mine.fits").write_bytes(b"y")
     assert main(["--quiet", "run", pair[0], pair[1], "--out", str(out), "--scales", "0",
-                 "--no-plots", "--max-components", "10", "--overwrite"]) == 0
+                 "--no-plots", "--no-emission-mask", "--max-components", "10",
+                 "--overwrite"]) == 0
     rep = json.load(open(out / "report.json"))
     outputs = rep["extra"]["outputs"]
     present = sorted(os.listdir(out))

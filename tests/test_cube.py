@@ -22,7 +22,10 @@ from cubedata import plane_sigmas, write_cube
 distributed = pytest.importorskip("distributed")
 
 #: Options of every cube run here (kept small so the tests stay fast).
-PARAMS = dict(scales=[0, 4], max_components=300, max_major_cycles=5, threads=1)
+# the serial reference below is a plain deconvolve: no automatic mask (on by default in
+# run and cube since issue 19)
+PARAMS = dict(scales=[0, 4], max_components=300, max_major_cycles=5, threads=1,
+              emission_mask=False)
 NPLANES = 6
 TIMEOUT = 120   # seconds: no single wait in these tests lasts longer
 
@@ -256,11 +259,13 @@ def test_scheduler_that_does_not_answer_is_one_line_exit_2(data, tmp_path, capsy
     assert f"tcp://127.0.0.1:{port}" in err[0] and "dask scheduler" in err[0]
 
 
-def test_command_line_writes_the_cubes_and_the_report(data, reference, cluster, tmp_path):
+def test_command_line_writes_the_cubes_and_the_report(data, reference, cluster, tmp_path,
+                                                      capsys):
     out = tmp_path / "out"
     code = main(["--quiet", "cube", str(data["cube"]), str(data["psf"]), "--out", str(out),
                  "--scales", "0,4", "--max-components", "300", "--max-major-cycles", "5",
-                 "--threads", "1", "--scheduler", cluster.scheduler.address])
+                 "--threads", "1", "--no-emission-mask", "--scheduler",
+                 cluster.scheduler.address])
     assert code == 0
     for kind in ("model", "residual", "restored"):
         assert np.array_equal(cube_data(out / f"{kind}.fits")[0], reference["serial"][kind])
@@ -269,6 +274,7 @@ def test_command_line_writes_the_cubes_and_the_report(data, reference, cluster, 
     assert report["scales"]["chosen"] == "given, fixed for every plane"
     assert main(["--quiet", "cube", str(data["cube"]), str(data["psf"]), "--out", str(out),
                  "--scheduler", cluster.scheduler.address]) == 2   # no clobbering
+    assert "already holds a complete run" in capsys.readouterr().err
 
 
 def test_a_plane_that_fails_leaves_the_run_unfinished_and_resumable(data, cluster, tmp_path,
@@ -286,9 +292,10 @@ def test_a_plane_that_fails_leaves_the_run_unfinished_and_resumable(data, cluste
     assert not (tmp_path / "out" / "model.fits").exists()
     code = main(["--quiet", "cube", str(cube), str(psf), "--out", str(tmp_path / "out"),
                  "--scales", "0,4", "--max-components", "300", "--max-major-cycles", "5",
-                 "--threads", "1", "--scheduler", cluster.scheduler.address])
+                 "--threads", "1", "--no-emission-mask", "--scheduler",
+                 cluster.scheduler.address])
     err = capsys.readouterr().err
-    assert code == 1 and "1 planes failed" in err and "rerun the same command" in err
+    assert code == 1 and "1 planes failed" in err and "rerun the same command" in err, err
 
 
 def test_auto_scales_are_chosen_once_on_the_brightest_plane(data, cluster, tmp_path):
@@ -337,7 +344,8 @@ def test_tls_cluster_as_the_readme_says(data, reference, tmp_path):
         proc = subprocess.run(
             [sys.executable, "-m", "skyscale.cli", "--quiet", "cube", str(data["cube"]),
              str(data["psf"]), "--out", str(out), "--scales", "0,4", "--max-components", "300",
-             "--max-major-cycles", "5", "--threads", "1", "--scheduler", address,
+             "--max-major-cycles", "5", "--threads", "1", "--no-emission-mask",
+             "--scheduler", address,
              "--connect-timeout", "30"], env=env, timeout=TIMEOUT, capture_output=True,
             text=True)
         assert proc.returncode == 0, proc.stderr

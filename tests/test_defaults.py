@@ -39,11 +39,13 @@ def test_the_engine_and_planner_agree_with_the_options(func, names):
         assert _default(func, name) == getattr(DEFAULTS, name), name
 
 
-def test_the_command_line_differs_only_in_its_stated_noise_stop():
+def test_the_command_line_differs_only_in_its_stated_noise_stop_and_scales():
+    from skyscale.core.defaults import RUN_SCALES
     for name, value in DEFAULTS.as_dict().items():
-        if name in RUN_DEFAULTS and name != "noise_threshold":
+        if name in RUN_DEFAULTS and name not in ("noise_threshold", "scales"):
             assert RUN_DEFAULTS[name] == value, name
     assert RUN_DEFAULTS["noise_threshold"] == RUN_NOISE_THRESHOLD
+    assert RUN_DEFAULTS["scales"] == RUN_SCALES == "auto"
 
 
 def test_options_pass_on_as_keywords():

@@ -104,7 +104,7 @@ def test_per_scale_noise_of_smoothed_white_noise_is_sigma_sqrt_sum_kernel_square
     measured, used, how = scale_noise(planes, radii)
     expected = sigma * np.sqrt([np.sum(k ** 2) for k in kernels])
     np.testing.assert_allclose(measured, expected, rtol=0.05)
-    assert how == ["measured"] * 4 and np.all(used > 1000)
+    assert all(h.startswith("measured") for h in how) and np.all(used > 1000)
 
 
 def test_noise_is_not_inflated_by_unmasked_emission():

@@ -50,8 +50,13 @@ DRIVER = textwrap.dedent("""
     if "write" in hooks:
         real = job.write_table_csv
         def slow(*a, **k):
+            import signal
             print("WRITING", flush=True)
-            time.sleep(60)
+            handler = signal.getsignal(signal.SIGINT)    # a deferred first interrupt
+            for _ in range(600):                         # ends the wait at once
+                if getattr(handler, "interrupted", False):
+                    break
+                time.sleep(0.1)
             return real(*a, **k)
         job.write_table_csv = slow
     from skyscale.cli.commands import main
@@ -146,6 +151,24 @@ def test_second_interrupt_while_writing_leaves_the_marker_and_exits_4(inputs, tm
     assert main(again) == 2
     assert main(again + ["--overwrite"]) == 0
     assert not (out / INCOMPLETE_MARKER).exists() and (out / "report.json").exists()
+
+
+def test_first_interrupt_while_writing_finishes_the_outputs_and_exits_3(inputs, tmp_path):
+    # The run had finished: one Ctrl-C while its outputs are written must not throw it
+    # away (README: only a second Ctrl-C abandons the outputs).
+    out = tmp_path / "out"
+    proc = _start("write", ["run", inputs[0], inputs[1], "--out", str(out),
+                            "--max-components", "30", "--no-plots"], tmp_path)
+    _wait_for(proc, "WRITING")
+    proc.send_signal(signal.SIGINT)
+    _, err = proc.communicate(timeout=120)
+    assert proc.returncode == 3, err
+    assert "interrupted while writing" in err and "Traceback" not in err
+    rep = json.load(open(out / "report.json"))
+    assert rep["stop"]["reason"] != "interrupted"
+    assert not (out / INCOMPLETE_MARKER).exists() and (out / "components.csv").exists()
+    for name in ("model.fits", "residual.fits", "restored.fits"):
+        assert _fits_ok(out / name)
 
 
 def test_hard_kill_while_writing_keeps_outputs_complete_and_marked(inputs, tmp_path):

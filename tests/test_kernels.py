@@ -196,3 +196,26 @@ def test_stamp_wrapper_converts_and_refuses(engine):
     with pytest.raises(ValueError, match="one of each"):
         stamp_components(model, engine.kernels, ys, xs, ks, fs[:2])
     assert not model.any()
+
+
+def test_scale_loop_by_runs_matches_its_twin_and_the_pixel_path(engine):
+    # Active pixels in long runs along x take the run-by-run path (MIN_RUN_LENGTH); the
+    # same pixels in another order take the pixel path: same components, same values.
+    import importlib
+    module = importlib.import_module("skyscale.core.kernels.scale_loop")
+    dirty, planes = _extended_planes(engine)
+    yy, xx = np.mgrid[:N, :N]
+    disk = np.hypot(yy - 24, xx - 22) < 12
+    ys, xs = np.nonzero(disk)
+    assert ys.size >= module.MIN_RUN_LENGTH * len(np.unique(ys))
+    values = planes[2][ys, xs].astype(np.float32)
+    fast, slow, v1, v2 = _run_both(engine, 2, values, ys, xs, level=0.05 * np.abs(values).max())
+    _assert_same(fast, slow, v1, v2)
+    order = np.random.default_rng(0).permutation(ys.size)
+    v3 = values[order].copy()
+    kw = dict(beam_peak=engine.beam_peaks[2], gain=0.1, level=0.05 * np.abs(values).max(),
+              max_iter=80)
+    shuffled = scale_loop(v3, ys[order], xs[order], engine.beams[2], **kw)
+    np.testing.assert_array_equal(order[shuffled[0]], fast[0])
+    np.testing.assert_array_equal(shuffled[1], fast[1])
+    np.testing.assert_array_equal(v3, v1[order])

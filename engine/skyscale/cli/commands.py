@@ -21,7 +21,8 @@ __all__ = ["main", "build_parser", "demo_data_dir", "EXIT_CODES"]
 #: Every exit code of the command line and what it means.
 EXIT_CODES = {
     0: "success",
-    1: "failure while running (a bug or a system fault; --debug shows the traceback)",
+    1: "failure while running (a bug or a system fault; --debug shows the traceback); "
+       "for suggest --check: the set breaks a rule of thumb",
     2: "bad input: one line on stderr names the problem and the fix; nothing was written",
     3: "interrupted (Ctrl-C or SIGTERM): the run stopped after its last complete step and "
        "every output was written, stop reason 'interrupted'",
@@ -74,7 +75,9 @@ DEMO_SETTINGS = {"scales": [0, 4, 8, 16, 32], "emission_mask": True}
 def _shown(defaults):
     """How the defaults of the run options read in --help, from the values themselves."""
     nu, thr = defaults["noise_threshold"], float(defaults["threshold"])
-    return {"scales": ",".join(f"{float(v):g}" for v in defaults["scales"]),
+    scales = defaults["scales"]
+    return {"scales": scales if isinstance(scales, str) else
+            ",".join(f"{float(v):g}" for v in scales),
             "scale_unit": defaults["scale_unit"], "scale_shape": defaults["scale_shape"],
             "loop_gain": f"{defaults['loop_gain']:g}", "threshold": f"{thr:g}",
             "noise_threshold": "off" if nu is None else f"{nu:g}",
@@ -87,7 +90,13 @@ def _shown(defaults):
             "nonfinite": defaults["nonfinite"]}
 
 
-def _add_run_options(p, defaults=None):
+#: What --threads means and defaults to for ``cube`` (README, "The local cluster").
+CUBE_THREADS_HELP = ("threads per plane [1 on the local cluster, which then runs as many "
+                     "planes at once as there are cores; on a running cluster the worker's "
+                     "NUMBA_NUM_THREADS divided by its --nthreads]")
+
+
+def _add_run_options(p, defaults=None, threads_help=None):
     # Values are read by skyscale.cli.options (the same reader as the TOML file), so every
     # option takes text here and a bad value gets one line naming it.  The bracketed
     # defaults come from the values the command uses (RUN_DEFAULTS, or the demo's).
@@ -126,7 +135,8 @@ def _add_run_options(p, defaults=None):
                    f"(leave them out of cleaning, blank in the outputs) [{d['nonfinite']}]")
     m = p.add_argument_group("masks")
     m.add_argument("--mask", help="FITS mask on the image grid, non-zero = may clean [none]")
-    m.add_argument("--mask-regions", help="regions where components may go: "
+    m.add_argument("--mask-regions", help="regions where components may go, or a text "
+                   "file holding them: "
                    "shapes 'circle X Y R', 'box X1 Y1 X2 Y2' and 'all', separated by ';' "
                    "or lines, applied in order ('-' before a shape removes it, '#' comments). "
                    "Plain numbers are pixels, 0-based, X = column, Y = row (the array index is "
@@ -136,15 +146,16 @@ def _add_run_options(p, defaults=None):
                    "E.g. 'circle 120 130 15; -box 10 20 50 60' or 'circle 09h41m17s +25d18m00s "
                    "30arcsec'; with --mask the two are intersected [none]")
     m.add_argument("--emission-mask", action="store_true", default=None,
-                   help="renew an automatic mask at each major cycle [" + d["emission_mask"] +
-                   ("; --mask or --mask-regions without this option turn it off"
-                    if d["emission_mask"] == "on" else "") + "]")
+                   help="renew an automatic mask at each major cycle; with --mask or "
+                   "--mask-regions it is kept inside them, so a generous mask bounds the "
+                   "cleaning without turning noise into model [" + d["emission_mask"] + "]")
     m.add_argument("--no-emission-mask", dest="emission_mask", action="store_false",
                    default=None, help="no automatic mask")
     m.add_argument("--emission-mask-sigma",
                    help="automatic-mask level, multiples of the robust noise [5]")
     o = p.add_argument_group("run")
-    o.add_argument("--threads", help="threads for kernels and FFTs [all cores]")
+    o.add_argument("--threads", help=threads_help or "threads for kernels and FFTs "
+                   "[all cores]")
     o.add_argument("--config", help="TOML file with any of these options (the command line "
                    "overrides it)")
     o.add_argument("--no-plots", dest="plots", action="store_false", default=None,
@@ -226,7 +237,8 @@ def build_parser():
                          help="shortest projected baseline, wavelengths [unknown]")
     suggest.add_argument("--max-count", type=int, default=4,
                          help="most scales, the delta scale included [4]")
-    suggest.add_argument("--check", type=_scales, help="check this scale set (pixels) instead")
+    suggest.add_argument("--check", type=_scales, help="check this scale set (pixels) "
+                         "instead; exits 1 when it breaks a rule")
     _add_global_flags(suggest)
     suggest.set_defaults(func=cmd_suggest)
 
@@ -238,7 +250,7 @@ def build_parser():
     cube.add_argument("cube", help="FITS cube, Jy/beam (3 axes, or 4 with a degenerate one)")
     cube.add_argument("psf", help="FITS PSF cube on the same spectral axis, or one PSF for all")
     cube.add_argument("--out", required=True, help="output directory")
-    _add_run_options(cube)
+    _add_run_options(cube, threads_help=CUBE_THREADS_HELP)
     c = cube.add_argument_group("cluster")
     c.add_argument("--scheduler", metavar="ADDRESS", help="address of a running Dask scheduler, "
                    "e.g. tcp://10.0.0.5:8786 [a local cluster on 127.0.0.1]")
@@ -275,9 +287,6 @@ def _params(args, base=None, base_source="the resumed run's report"):
             sources[key] = "cli"
     if "threshold" in later and "noise_threshold" not in later:
         params.pop("noise_threshold", None)
-    if base_source == _DEMO_SOURCE and ("mask" in later or "mask_regions" in later) \
-            and "emission_mask" not in later:
-        params.pop("emission_mask", None)       # the user's mask replaces the demo's
     params.update(later)
     return params, sources
 
@@ -313,6 +322,10 @@ def _execute(args, dirty, psf, out, base=None, resume=None, visibilities=None,
     if result.stop_reason == "interrupted":
         print(f"skyscale: interrupted: every output in {out} holds the last complete major "
               "cycle (stop reason 'interrupted')", file=sys.stderr)
+        return EXIT_INTERRUPTED
+    if getattr(result, "interrupted_while_writing", False):
+        print(f"skyscale: interrupted while writing: the run had finished, and every output "
+              f"in {out} was written (stop reason '{result.stop_reason}')", file=sys.stderr)
         return EXIT_INTERRUPTED
     return EXIT_OK
 
@@ -398,7 +411,7 @@ def cmd_cube(args):
         except KeyboardInterrupt:
             print(f"skyscale: interrupted; the finished planes are kept in {args.out}, rerun "
                   "the same command to resume", file=sys.stderr)
-            return 1
+            return EXIT_INTERRUPTED
     if not args.quiet:
         console.cube_summary(result)
     if not result.complete:
@@ -427,7 +440,7 @@ def cmd_suggest(args):
             warnings.simplefilter("ignore")
             problems = check_scales(args.check, suggestion=s)
         console.show_check(args.check, problems)
-        return 0
+        return EXIT_FAILED if problems else EXIT_OK
     console.show_suggestion(s)
     return 0
 

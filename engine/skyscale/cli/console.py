@@ -105,6 +105,15 @@ def stop_words(result, report=None):
     reason = result.stop_reason
     text = result.stop_description
     if reason in LEVEL_STOPS and rule:
+        peaks, levels = result.scale_peaks, result.scale_levels
+        over = [] if peaks is None or levels is None else \
+            [(p / lv - 1.0, s) for p, lv, s in zip(peaks, levels, result.scales)
+             if lv > 0 and p > lv]
+        if over:
+            worst, at = max(over)
+            return (f"every scale reached its stop level or came within 5 % of it (the "
+                    f"peak left is up to {100 * worst:.0f} % above it, on the {at:g} px "
+                    f"scale): {rule}")
         return f"every scale reached its stop level: {rule}"
     if reason in ("max_components", "max_major_cycles", "no_progress") and rule:
         return f"{text}, before every scale reached its stop level ({rule})"

@@ -29,14 +29,6 @@ def _int_list(text):
     return values
 
 
-def _floats(text):
-    try:
-        return [float(v) for v in re.split(r"[,;\s]+", text.strip()) if v]
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"{text!r}: give numbers separated by commas or "
-                                         "spaces, such as 0,4,8,16") from None
-
-
 def _shape(text):
     m = re.fullmatch(r"\s*(\d+)\s*(?:[xX,]\s*(\d+)\s*)?", text)
     if not m or int(m.group(1)) < 1 or (m.group(2) and int(m.group(2)) < 1):
@@ -73,13 +65,15 @@ def register(subparsers):
     p.add_argument("psf", nargs="?", help="PSF, FITS (its shape is used)")
     p.add_argument("--size", type=_shape, help="image size N or NYxNX instead of FITS files")
     p.add_argument("--psf-size", type=_shape, help="PSF size with --size [twice the image]")
-    p.add_argument("--scales", type=_floats, default=[0.0, 4.0, 8.0, 16.0],
-                   help="scale diameters in pixels, comma-separated [0,4,8,16]")
+    p.add_argument("--scales", default="0,4,8,16",
+                   help="scale diameters as for run: pixels, or with a unit (0,8arcsec,"
+                   "16arcsec) or 'auto' with FITS files [0,4,8,16]")
     p.add_argument("--max-components", type=int, default=20000, help="component budget [20000]")
     p.add_argument("--max-major-cycles", type=int, default=20, help="major-cycle budget [20]")
     p.add_argument("--noise-threshold", type=float, help="stop multiple of the noise, for the "
                    "dynamic range of a FITS dirty image [3]")
-    p.add_argument("--threshold", type=float, default=0.0, help="stop level, Jy/beam [0]")
+    p.add_argument("--threshold", default="0", help="stop level, Jy/beam; a unit may be "
+                   "written (0.1mJy) [0]")
     p.add_argument("--dynamic-range", type=float, help="peak over stop level [measured from the "
                    "dirty image, else 1000]")
     p.add_argument("--mask-fraction", type=float, default=1.0,
@@ -122,7 +116,7 @@ def cmd_plan(args):
         raise ValueError("give either FITS files or --size, not both")
     if args.size is None and not args.dirty:
         raise ValueError("give the dirty image and PSF (FITS), or --size N for an image size")
-    psf = dirty = None
+    psf = dirty = psf_data = cell = None
     planes = 1
     if args.size is not None:
         shape = args.size
@@ -142,9 +136,18 @@ def cmd_plan(args):
             psf = (open_cube(args.psf, name="psf").plane_shape if _planes(args.psf) > 1
                    else read_image(args.psf, name="psf").data.shape)
         else:
-            dirty = read_image(args.dirty, name="dirty").data
+            dirty_img = read_image(args.dirty, name="dirty")
+            dirty = dirty_img.data
             shape = dirty.shape
-            psf = read_image(args.psf, name="psf").data.shape
+            psf_data = read_image(args.psf, name="psf").data
+            psf = psf_data.shape
+            cell = None
+            if dirty_img.wcs is not None:
+                from skyscale.io.grid import cell_size_arcsec
+                cell = cell_size_arcsec(dirty_img.wcs)
+    scales = _plan_scales(args.scales, dirty, psf_data, cell)
+    from skyscale.cli.options import parse_flux
+    threshold = parse_flux(args.threshold, "--threshold")
     memory = None if args.memory is None else int(args.memory * 2**30)
     known = {k: (None if getattr(args, a) is None else
                  (float if k == "active_pixels" else int)(getattr(args, a)))
@@ -152,11 +155,11 @@ def cmd_plan(args):
                           ("major_cycles", "major_cycles"), ("active_pixels", "active_pixels"),
                           ("fft_updates", "fft_updates"))}
     threads = args.threads if planes == 1 else (args.threads or 1)   # cube: 1 a plane
-    plan = plan_run(shape, psf, args.scales, max_components=args.max_components,
+    plan = plan_run(shape, psf, scales, max_components=args.max_components,
                     max_major_cycles=args.max_major_cycles, threads=threads,
                     dtype=args.dtype, memory_available=memory, calibration=args.calibration,
                     fresh_process=not args.warm_process, dirty=dirty,
-                    dynamic_range=args.dynamic_range, threshold=args.threshold,
+                    dynamic_range=args.dynamic_range, threshold=threshold,
                     noise_threshold=args.noise_threshold, mask_fraction=args.mask_fraction,
                     box_shape=args.mask_box, **known)
     if planes > 1:
@@ -301,6 +304,27 @@ def cmd_bench(args):
     if not quiet:
         show_bench(sweep, out, calibration_path=cal_path, files=written)
     return 0
+
+
+def _plan_scales(text, dirty, psf, cell):
+    """Scale diameters in pixels from ``--scales`` read as ``run`` reads them."""
+    from skyscale.cli.options import parse_scales
+    from skyscale.core.validate import InputError
+    scales, unit = parse_scales(text, "--scales")
+    if scales == "auto":
+        if dirty is None or psf is None:
+            raise InputError("--scales auto asks the scale advisor, which needs the dirty "
+                             "image and the PSF: give both FITS files (not --size), or "
+                             "scales in pixels")
+        from skyscale.advisor.suggest import resolve_scales
+        return list(resolve_scales("auto", dirty, psf, cell_arcsec=cell)[0])
+    if unit == "arcsec":
+        if cell is None:
+            raise InputError(f"--scales is {text!r}, in arcsec, but there is no cell size to "
+                             "turn it into pixels: give a dirty image with a celestial WCS "
+                             "(not --size), or scales in pixels")
+        return [v / cell for v in scales]
+    return scales
 
 
 def _jsonable(value):

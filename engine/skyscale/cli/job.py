@@ -12,9 +12,10 @@ import warnings
 import numpy as np
 
 from skyscale.io.atomic import incomplete_marker
+from skyscale.io.interrupts import finish_on_first_interrupt
 from skyscale.core.validate import InputError, mask_nonfinite
 from skyscale.io.components import component_fields, component_rows
-from skyscale.core.defaults import DEFAULTS, RUN_NOISE_THRESHOLD
+from skyscale.core.defaults import DEFAULTS, RUN_NOISE_THRESHOLD, RUN_SCALES
 from skyscale.core.driver import deconvolve
 from skyscale.io.fits import (check_same_grid, provenance_history, read_image, write_image,
                               write_table_csv)
@@ -36,9 +37,11 @@ logger = logging.getLogger(__name__)
 #: Every run parameter with its default (the keys a configuration file may hold).  A run
 #: stops at `RUN_NOISE_THRESHOLD` times the noise unless told otherwise: a
 #: ``threshold`` given without ``noise_threshold`` is a fixed level with no noise stop
-#: (`merge_params`), and ``noise_threshold = "off"`` turns the noise stop off.
+#: (`merge_params`), and ``noise_threshold = "off"`` turns the noise stop off.  Scales
+#: are chosen for the image by the scale advisor (``"auto"``) and the automatic mask is
+#: on (kept inside a user's mask): what a careful user would choose (CHANGELOG, issue 19).
 RUN_DEFAULTS = {
-    "scales": [int(s) if float(s).is_integer() else s for s in DEFAULTS.scales],
+    "scales": RUN_SCALES,
     "scale_unit": "pixel",
     "scale_shape": DEFAULTS.scale_shape,
     "loop_gain": DEFAULTS.loop_gain,
@@ -52,7 +55,7 @@ RUN_DEFAULTS = {
     "psf_patch": None,
     "mask": None,
     "mask_regions": None,
-    "emission_mask": False,
+    "emission_mask": True,
     "emission_mask_sigma": None,
     "threads": None,
     "beam": None,
@@ -188,7 +191,9 @@ def run_files(dirty_path, psf_path, out_dir, params=None, *, callback=None, inpu
         Progress callback passed to `deconvolve`.
     sources : dict, optional
         Where each parameter came from (``'cli'`` or a configuration file name), so
-        that messages name the option as the user wrote it.
+        that messages name the option as the user wrote it.  The command line always
+        passes one (maybe empty), and messages then speak of options (``--overwrite``);
+        None, the default, is a Python caller (``overwrite=True``).
     resume_from : str, optional
         Output folder of an earlier run: cleaning continues from its ``model.fits``.
         Budgets (components, major cycles) count this run only.
@@ -209,11 +214,12 @@ def run_files(dirty_path, psf_path, out_dir, params=None, *, callback=None, inpu
     InputError, FileExistsError
         Bad input, found before the deconvolution starts.
     """
+    cli = sources is not None          # the command line passes its (maybe empty) sources
     sources = sources or {}
     merged = merge_params(params, sources)
     start = _dt.datetime.now(_dt.timezone.utc)
     names = {k: os.path.join(out_dir, v) for k, v in OUTPUT_NAMES.items()}
-    prepare_out(out_dir, names, merged["overwrite"], "--out" if sources else "out_dir")
+    prepare_out(out_dir, names, merged["overwrite"], "--out" if cli else "out_dir")
     plan_from_headers(dirty_path, psf_path, merged)
     dirty = read_image(dirty_path, name="dirty")
     psf = read_image(psf_path, name="psf")
@@ -223,7 +229,8 @@ def run_files(dirty_path, psf_path, out_dir, params=None, *, callback=None, inpu
               for name, p, img in (("dirty", dirty_path, dirty), ("psf", psf_path, psf))}
     inputs.update(inputs_extra or {})
     return run_images(dirty, psf, out_dir, merged, start=start, inputs=inputs,
-                      callback=callback, sources=sources, resume_from=resume_from)
+                      callback=callback, sources=sources if cli else None,
+                      resume_from=resume_from)
 
 
 def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback=None,
@@ -260,6 +267,7 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
     result, written, report
         As `run_files`.
     """
+    cli = sources is not None          # the command line passes its (maybe empty) sources
     sources = sources or {}
     labels = {k: option_label(k, sources.get(k)) for k in RUN_DEFAULTS}
     merged = merge_params(params, sources)
@@ -268,12 +276,23 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
     names = {k: os.path.join(out_dir, v) for k, v in OUTPUT_NAMES.items()}
     names.update({k: os.path.join(out_dir, v[0]) for k, v in extra_images.items()})
     ow = merged["overwrite"]
-    prepare_out(out_dir, names, ow, "--out" if sources else "out_dir")
+    prepare_out(out_dir, names, ow, "--out" if cli else "out_dir")
     previous = previous_outputs(out_dir) if ow else []     # read before report.json is replaced
     notes = []
     check_units(dirty, notes)
+    from skyscale.core.psf import check_psf
+    with warnings.catch_warnings():      # the one real error first, before any advice
+        warnings.simplefilter("ignore")
+        check_psf(np.nan_to_num(psf.data) if merged["nonfinite"] == "mask" else psf.data,
+                  dirty.data.shape)
     cell = cell_size_arcsec(dirty.wcs) if dirty.wcs is not None else cell_arcsec
     data, blank = dirty.data, None
+    if merged["nonfinite"] != "mask" and not np.all(np.isfinite(data)):
+        bad = int(np.count_nonzero(~np.isfinite(data)))
+        how = "--nonfinite mask" if cli else "nonfinite='mask'"
+        raise InputError(f"the dirty image has {bad} non-finite pixels (NaN or inf) of "
+                         f"{data.size}; give {how} to leave them out of cleaning and blank "
+                         "in the outputs, or replace them")
     if merged["nonfinite"] == "mask":
         data, nan_mask, blank = mask_nonfinite(dirty.data)
         if blank.any():
@@ -285,6 +304,8 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
     beam = restoring_beam(merged, cell, labels["beam"], dirty.wcs)
     from skyscale.core.beam import fit_beam
     fitted = beam if beam is not None else fit_beam(psf.data)   # the run's one beam fit
+    if beam is not None:
+        notes.extend(beam_size_notes(beam, fit_beam(psf.data), cell, labels["beam"]))
     reasons = []
     scales_px = scales_in_pixels(merged, cell, data, psf.data, reasons, labels["scales"],
                                  beam=fitted)
@@ -306,8 +327,6 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
                                           beam=fitted,
                                           max_affordable_scales=len(afford.scales))
     mask = build_mask(merged, dirty, data.shape, labels)
-    if blank is not None:
-        mask = ~blank if mask is None else (mask & ~blank)
     from skyscale.cost.planner import check_fits_memory, plan_run
     plan = plan_run(data.shape, psf.data, scales_px,
                     max_components=merged["max_components"], threads=merged["threads"],
@@ -320,6 +339,7 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         result = deconvolve(data, psf.data, operator=operator, callback=callback, **extra_kw,
+                            blank=blank,
                             **deconvolve_options(merged, psf.data, cell, scales_px, mask, fitted))
     for text in notes + scale_warnings + [str(w.message) for w in caught]:
         if text not in result.warnings:      # the engine logs and warns the same words
@@ -338,11 +358,35 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
     major = result.parameters["operator"]
     keep = [v["path"] for v in inputs.values() if isinstance(v, dict) and "path" in v]
     keep += [merged["mask"]] if merged["mask"] else []
-    with incomplete_marker(out_dir):
+    with finish_on_first_interrupt(already=result.stop_reason == "interrupted") as writing, \
+            incomplete_marker(out_dir):
         written, report = _write_outputs(result, dirty, psf, names, record, start, end, plan,
                                          reasons, inputs, cell, ow, extra_images, major,
                                          stale=(previous, keep))
+    result.interrupted_while_writing = writing.interrupted
     return result, written, report
+
+
+#: A restoring beam given more than this many times wider (or narrower) than the beam
+#: fitted to the PSF is said to be unusual (a beam given in pixels where arcsec are
+#: expected is several times too wide for 3 to 5 pixels across the beam).
+BEAM_RATIO_WARN = 3.0
+
+
+def beam_size_notes(beam, fitted, cell, label="beam"):
+    """Words for a restoring beam far from the one fitted to the PSF (likely the wrong
+    unit), or nothing."""
+    ratio = float(beam.major) / max(float(fitted.major), 1e-12)
+    if 1.0 / BEAM_RATIO_WARN <= ratio <= BEAM_RATIO_WARN:
+        return []
+    unit = "" if cell is None else (
+        f"; {label} takes arcsec: {beam.major * cell:.4g} arcsec is {beam.major:.3g} pixels "
+        f"of {cell:.4g} arcsec, and the fitted beam is {fitted.major * cell:.4g} arcsec "
+        "(was the beam given in pixels?)")
+    return [f"the restoring beam given ({beam.major:.3g} x {beam.minor:.3g} pixels) is "
+            f"{ratio:.3g} times the beam fitted to the PSF ({fitted.major:.3g} x "
+            f"{fitted.minor:.3g} pixels)" + unit + "; the restored image is smoothed "
+            "accordingly"]
 
 
 def exact_residual_cards(result):
@@ -403,9 +447,26 @@ def _remove_stale(previous, keep, written, out_dir):
     return removed
 
 
+def _values_in_effect(record, result, inputs):
+    """The run's parameters for FITS HISTORY with the values in effect where the user left
+    them unset (the automatic mask's sigma, the threads), and the input file names."""
+    shown = dict(record)
+    auto = getattr(result, "emission_mask", None)
+    if shown.get("emission_mask") and shown.get("emission_mask_sigma") is None and \
+            getattr(auto, "sigma", None) is not None:
+        shown["emission_mask_sigma"] = auto.sigma
+    threads = getattr(result, "threads", None) or {}
+    if shown.get("threads") is None and threads.get("numba") is not None:
+        shown["threads"] = threads["numba"]
+    for name, rec in (inputs or {}).items():
+        if isinstance(rec, dict) and rec.get("path"):
+            shown[f"input_{name}"] = os.path.basename(rec["path"])
+    return shown
+
+
 def _write_outputs(result, dirty, psf, names, record, start, end, plan, reasons,
                    inputs, cell, ow, extra_images, major, stale=((), ())):
-    history = provenance_history(record, start, end)
+    history = provenance_history(_values_in_effect(record, result, inputs), start, end)
     exact_cards, exact_history = exact_residual_cards(result)
     written = {kind: write_image(names[kind], image.data, like=image, bunit=image.bunit,
                                  history=history, overwrite=ow)
@@ -419,7 +480,8 @@ def _write_outputs(result, dirty, psf, names, record, start, end, plan, reasons,
                                 overwrite=ow),
         "restored": write_image(names["restored"], result.restored, like=dirty,
                                 bunit="Jy/beam", beam=result.beam if dirty.wcs else None,
-                                history=history, overwrite=ow),
+                                history=history + exact_history, extra=exact_cards,
+                                overwrite=ow),   # restored = model (*) beam + residual
     })
     if result.mask is not None:
         written["mask"] = write_image(names["mask"], result.mask.astype(np.float32), like=dirty,

@@ -53,10 +53,14 @@ def build_mask(params, image, shape, labels):
                              "0); give a mask that covers the emission")
     if params.get("mask_regions"):
         from skyscale.masks import regions_to_mask
+        text = params["mask_regions"]
+        if isinstance(text, str) and not text.split()[1:] and os.path.isfile(text):
+            import pathlib
+            text = pathlib.Path(text)       # a file holding the regions, one per line
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
             try:
-                region = regions_to_mask(params["mask_regions"], shape, wcs=image.wcs)
+                region = regions_to_mask(text, shape, wcs=image.wcs)
             except ValueError as exc:
                 raise InputError(f"{labels['mask_regions']}: {exc}") from None
         for w in caught:
@@ -145,13 +149,14 @@ def prepare_out(out_dir, names, overwrite, label):
         return
     marker = os.path.join(out_dir, INCOMPLETE_MARKER)
     clash = [p for p in names.values() if os.path.exists(p)]
+    again = "--overwrite" if label.startswith("--") else "overwrite=True"
     if os.path.exists(marker):
         raise FileExistsError(f"{out_dir} holds the incomplete outputs of an earlier run "
-                              f"({INCOMPLETE_MARKER}); pass --overwrite (overwrite=True) to "
-                              "replace them, or choose another output directory")
+                              f"({INCOMPLETE_MARKER}); pass {again} to replace them, or "
+                              "choose another output directory")
     if clash:
         raise FileExistsError(f"{clash[0]} exists; choose another output directory or "
-                              "pass --overwrite (overwrite=True)")
+                              f"pass {again}")
 
 
 def previous_outputs(out_dir):

@@ -4,8 +4,9 @@
 the instance the Python API (`skyscale.deconvolve`, `skyscale.Engine`, the planner),
 the command line and its TOML files (`skyscale.cli.job.RUN_DEFAULTS` is built from it) and
 the report all take their defaults from, so they cannot drift apart.  The command line
-differs in one stated place: it stops at `RUN_NOISE_THRESHOLD` times the noise unless
-told otherwise, where the API's default is no noise stop.
+differs in two stated places: it stops at `RUN_NOISE_THRESHOLD` times the noise unless
+told otherwise, where the API's default is no noise stop, and it asks the scale advisor
+for the image's scales (`RUN_SCALES`) where the API's default is a fixed set.
 
 Examples
 --------
@@ -19,7 +20,7 @@ Examples
 
 import dataclasses
 
-__all__ = ["CleanOptions", "DEFAULTS", "RUN_NOISE_THRESHOLD"]
+__all__ = ["CleanOptions", "DEFAULTS", "RUN_NOISE_THRESHOLD", "RUN_SCALES"]
 
 
 @dataclasses.dataclass(frozen=True)
@@ -68,3 +69,7 @@ DEFAULTS = CleanOptions()
 
 #: The command line's (and TOML files', `run_files`', cubes') default noise stop.
 RUN_NOISE_THRESHOLD = 3.0
+
+#: The command line's (and TOML files', `run_files`', cubes') default scales: the scale
+#: advisor's set for the image (a fixed set suits few images; CHANGELOG, issue 19).
+RUN_SCALES = "auto"

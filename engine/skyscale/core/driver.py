@@ -22,7 +22,9 @@ from skyscale.core.engine import Engine
 from skyscale.core.operators import (ImagePlaneOperator, as_operator, describe_operator,
                                      exact_box, exact_region)
 from skyscale.core.result import COMPONENT_DTYPE, CycleRecord, DeconvolutionResult
-from skyscale.core.stops import run_stop_after_empty_cycle
+from skyscale.core.noise import keep_outside_noise
+from skyscale.core.outcome import outcome_warnings
+from skyscale.core.stops import MINOR_STOP_REASONS, run_stop_after_empty_cycle
 from skyscale.core.defaults import DEFAULTS
 
 __all__ = ["deconvolve", "run_cycles", "masked_stats"]
@@ -69,7 +71,7 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
                noise_threshold=None, extended_depth=DEFAULTS.extended_depth,
                max_components=DEFAULTS.max_components, max_major_cycles=DEFAULTS.max_major_cycles,
                cycle_depth=DEFAULTS.cycle_depth, mask_updater=None,
-               callback=None):
+               callback=None, blank=None):
     """Alternate minor cycles of ``engine`` with major cycles of ``operator``.
 
     Parameters
@@ -91,6 +93,8 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
         kernel's radius every cycle) and ``sigma`` is the smallest scale's noise.
     callback : callable, optional
         Receives progress dicts (``stage`` 'major' or 'minor').
+    blank : (ny, nx) bool ndarray, optional
+        Pixels without data (see `deconvolve`): left out of the noise and of the stop.
 
     Returns
     -------
@@ -121,13 +125,21 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
 
     def operator(model):          # the operator's own threads follow the run's
         with thread_limit(engine.threads):
-            return user_operator(model)
+            residual = user_operator(model)
+        if blank is not None:         # no data there: zero, like the world beyond the edge
+            residual = np.array(residual, copy=True)
+            residual[blank] = 0
+        return residual
 
+    if blank is not None:
+        blank = np.asarray(blank, dtype=bool)
     if model is None:
         model = np.zeros(shape, dtype=engine.dtype)
         if dirty is None:
             dirty = operator(model)
         residual = as_image(dirty, "dirty", dtype=np.float64)
+        if blank is not None:
+            residual = np.where(blank, 0.0, residual)
     else:
         model = as_image(model, "model", dtype=engine.dtype)
         if model.shape != shape:
@@ -145,10 +157,17 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
     exact = getattr(user_operator, "exact", True)
     centres = (model != 0).astype(np.uint8)
 
-    def stats(residual, model, mask, previous=None, planes=None):
+    valid = None if blank is None else ~np.asarray(blank, dtype=bool)
+    kept = [None]      # the lowest noise measured outside the mask (`keep_outside_noise`)
+
+    def stats(residual, model, mask, previous=None, planes=None, smallest_only=False):
         region = None if exact else exact_region(shape, model, offsets)
+        if valid is not None:
+            region = valid if region is None else (region & valid)
         state = engine.measure(residual, mask, noise_region=region, previous=previous,
-                               planes=planes)
+                               planes=planes, smallest_only=smallest_only)
+        kept[0] = keep_outside_noise(state.noise, state.noise_how, kept[0],
+                                     np.sqrt(engine.beam_peaks))
         inside = mask if region is None else (region if mask is None else mask & region)
         peak, rms = masked_stats(residual, inside)
         levels = scale_levels(state.noise, threshold=threshold, noise_threshold=noise_threshold,
@@ -171,6 +190,7 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
     n_comp = 0
     stop = "max_major_cycles"
     stagnant = 0
+    detail = None          # the stop in a sentence, from what happened (result.stop_detail)
     depth = cycle_depth
     retries = rollbacks = rounds = rejected = fft_updates = 0
     progress = _progress(state.peaks, levels)
@@ -199,6 +219,10 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
             if mc.components.size == 0:
                 stop = run_stop_after_empty_cycle(
                     mc.stop_reason, _level_stop(noise_threshold, levels, threshold))
+                if stop == "no_progress":
+                    detail = (f"minor cycle {cycle} added nothing: "
+                              + MINOR_STOP_REASONS[mc.stop_reason]
+                              + f" ({mc.rejected} sub-loops rejected in it)")
                 break
             new_residual = as_image(operator(mc.model), "residual returned by the operator",
                                     dtype=np.float64, allow_nan=True)
@@ -210,8 +234,10 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
                 warnings_seen.append(msg)
                 stop = "diverging"
                 break
+            # With an automatic mask only the smallest scale's noise (the mask's level)
+            # is needed before the mask is renewed and every scale measured again.
             new_state, new_region, new_peak, new_rms, new_levels = stats(
-                new_residual, mc.model, mask, state)
+                new_residual, mc.model, mask, state, smallest_only=mask_updater is not None)
             highest = allowed_peak(peak, levels, engine.scales.has_delta)
             if new_peak > highest * (1.0 + PEAK_TOLERANCE):
                 rollbacks += 1
@@ -224,6 +250,9 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
                     depth = 0.5 * (1.0 + depth)
                     continue
                 stop = "no_progress" if new_peak <= highest * 1.01 else "diverging"
+                detail = (f"major cycle {cycle} raised the peak residual in the mask "
+                          f"{peak:.4g} -> {new_peak:.4g} Jy/beam after {MAX_RETRIES} "
+                          "shallower retries; the model of the cycle before is kept")
                 break
             model, residual = mc.model, new_residual
             depth, retries = cycle_depth, 0
@@ -249,10 +278,14 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
                 stop = _level_stop(noise_threshold, levels, threshold)
                 break
             new_progress = _progress(state.peaks, levels)
-            stagnant = stagnant + 1 if new_progress > 0.99 * progress else 0
+            fell = history[-1].peak < 0.99 * history[-2].peak
+            stagnant = stagnant + 1 if new_progress > 0.99 * progress and not fell else 0
             progress = new_progress
             if stagnant >= 3:
                 stop = "no_progress"
+                detail = (f"for 3 major cycles neither the peak residual in the mask "
+                          f"(now {peak:.4g} Jy/beam) nor any scale's residual relative to "
+                          f"its stop level (now {progress:.3g} x) fell by 1 %")
                 break
         else:
             stop = "max_major_cycles"
@@ -272,16 +305,23 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
         timings={"precompute": engine.precompute_seconds, "minor": t_minor, "major": t_major},
         warnings=warnings_seen, rollbacks=rollbacks, scale_noise=state.noise.tolist(),
         scale_levels=levels.tolist(), scale_peaks=state.peaks.tolist(), active_scales=active,
-        noise_region=_describe_region(region, state, mask),
-        sub_loops=rounds, rejected_sub_loops=rejected, fft_updates=fft_updates)
+        noise_region=_describe_region(region, state, mask, blank),
+        sub_loops=rounds, rejected_sub_loops=rejected, fft_updates=fft_updates,
+        stop_detail=detail)
 
 
-def _describe_region(region, state, mask):
+def _describe_region(region, state, mask, blank=None):
     """Words for where the noise was measured (the report records them)."""
-    where = "the whole image" if region is None else \
-        f"the {int(region.sum())} pixels where the residual is exact"
+    if region is None:
+        where = "the whole image"
+    elif blank is not None and region.sum() == (~blank).sum():
+        where = f"the {int(region.sum())} pixels with data (blank pixels left out)"
+    else:
+        where = f"the {int(region.sum())} pixels where the residual is exact" + (
+            " and the image has data" if blank is not None else "")
     if mask is not None:
-        where += ", outside the mask grown by each scale's radius"
+        where += (", outside the mask grown by each scale's radius where enough of the "
+                  "image lies outside it")
     return {"where": where + ", emission beyond 4 robust sigmas clipped; a scale with too "
                      "few independent samples there is scaled from the smallest scale by "
                      "sqrt(B_kk(0))",
@@ -297,7 +337,8 @@ def deconvolve(dirty, psf, *, scales=DEFAULTS.scales, loop_gain=DEFAULTS.loop_ga
                model=None, size_penalty=DEFAULTS.size_penalty,
                scale_loop_depth=DEFAULTS.scale_loop_depth, scale_shape=DEFAULTS.scale_shape,
                psf_patch=None, threads=None, fft="auto", dtype=None, cell_arcsec=None,
-               operator=None, restore=True, beam=None, emission_mask=None, callback=None):
+               operator=None, restore=True, beam=None, emission_mask=None, callback=None,
+               blank=None):
     """Multi-scale CLEAN of a dirty image with its PSF, with image-plane major cycles.
 
     Parameters
@@ -345,7 +386,8 @@ def deconvolve(dirty, psf, *, scales=DEFAULTS.scales, loop_gain=DEFAULTS.loop_ga
         No longer used; a DeprecationWarning when given.
     threads : int, optional
         Default all cores.  The result does not depend on it.
-    fft : {'auto', 'numpy', 'pyfftw'}
+    fft : {'auto', 'scipy', 'numpy', 'pyfftw'}
+        FFT backend; default scipy.fft, whose results do not depend on the thread count.
     dtype : {float32, float64}
         Default float32.
     cell_arcsec : float, optional
@@ -361,6 +403,10 @@ def deconvolve(dirty, psf, *, scales=DEFAULTS.scales, loop_gain=DEFAULTS.loop_ga
         Same as ``mask=EmissionMask(...)``, combined with an array ``mask`` (intersection).
     callback : callable, optional
         Progress: called with dicts, ``stage`` 'major' or 'minor'.
+    blank : (ny, nx) bool ndarray, optional
+        Pixels without data (NaN in the input, set to 0 in ``dirty``; see
+        `skyscale.core.validate.mask_nonfinite`): no component goes there, and the
+        noise and the stop leave them out.  Default none.
 
     Returns
     -------
@@ -395,12 +441,16 @@ def deconvolve(dirty, psf, *, scales=DEFAULTS.scales, loop_gain=DEFAULTS.loop_ga
     """
     from skyscale.masks import EmissionMask
     if isinstance(scales, str):       # 'auto': the advisor's set; its reasons in parameters
+        from skyscale.core.psf import check_psf
+        with warnings.catch_warnings():   # the one real error first, before any advice
+            warnings.simplefilter("ignore")
+            check_psf(psf, np.shape(dirty))
         from skyscale.advisor.suggest import resolve_scales
         scales, scale_reasons = resolve_scales(scales, dirty, psf, cell_arcsec=cell_arcsec)
         del resolve_scales
     params = {k: v for k, v in locals().items()
               if k not in ("dirty", "psf", "mask", "model", "operator", "callback", "beam",
-                           "emission_mask", "EmissionMask")}
+                           "emission_mask", "EmissionMask", "blank")}
     # --- input checks (issue 12): every option is checked in _validate.check_run_options ---
     from skyscale.core.validate import check_run_options
     early, psf = check_run_options(
@@ -434,6 +484,17 @@ def deconvolve(dirty, psf, *, scales=DEFAULTS.scales, loop_gain=DEFAULTS.loop_ga
             operator = ImagePlaneOperator(dirty_arr, engine.psf, fft=engine.fft, dtype=dt)
     params["operator"] = describe_operator(operator)
     operator = as_operator(operator, dirty_arr.shape, dt)
+    if blank is not None:
+        blank = np.asarray(blank, dtype=bool)
+        if blank.shape != dirty_arr.shape:
+            raise InputError(f"blank has shape {blank.shape}, expected the image's "
+                             f"{dirty_arr.shape}; give one flag per dirty pixel")
+        if not blank.any():
+            blank = None
+        else:
+            if mask is None and emission_mask is None:
+                extended_depth = 1.0   # a mask of blank pixels says nothing about emission
+            mask = ~blank if mask is None else (np.asarray(mask, dtype=bool) & ~blank)
     user_mask = None if mask is None else np.asarray(mask, dtype=bool)
     notes = []
     box = None
@@ -470,9 +531,21 @@ def deconvolve(dirty, psf, *, scales=DEFAULTS.scales, loop_gain=DEFAULTS.loop_ga
                         threshold=threshold, noise_threshold=noise_threshold,
                         extended_depth=extended_depth, max_components=max_components,
                         max_major_cycles=max_major_cycles, cycle_depth=cycle_depth,
-                        mask_updater=updater, callback=callback)
+                        mask_updater=updater, callback=callback, blank=blank)
     result.parameters = params
-    result.warnings = notes + result.warnings
+    result.emission_mask = emission_mask
+    region = None if getattr(operator, "exact", True) else \
+        exact_region(dirty_arr.shape, result.model, operator.exact_offsets)
+    if blank is not None:
+        region = ~blank if region is None else (region & ~blank)
+    told = outcome_warnings(result, threshold=float(threshold),
+                            noise_threshold=noise_threshold, region=region,
+                            user_mask=None if user_mask is None or (
+                                blank is not None and np.array_equal(user_mask, ~blank))
+                            else user_mask)
+    for text in told:
+        logger.warning(text)
+    result.warnings = notes + result.warnings + told
     if restore:
         from skyscale.core.beam import fit_beam, restore as restore_image
         result.beam = beam if beam is not None else fit_beam(engine.psf)

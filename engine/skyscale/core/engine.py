@@ -31,7 +31,8 @@ from skyscale.core.validate import (NUMBER_RULES, InputError, as_image, check_nu
                                     resolve_dtype)
 from skyscale.core.fft import Convolver, MultiConvolver, get_backend
 from skyscale.core.kernels import scale_loop, stamp_components
-from skyscale.core.kernels.tracked import direct_subtract, pixel_runs, tracked_peaks
+from skyscale.core.kernels.tracked import (direct_subtract, masked_peak, pixel_runs,
+                                          tracked_peaks)
 from skyscale.core.levels import allowed_peak, scale_levels
 from skyscale.core.noise import scale_noise
 from skyscale.cost.model import MEMORY_HEADROOM, engine_memory, fits_memory
@@ -138,8 +139,9 @@ class Engine:
         Working precision of the smoothed residuals; default float32.
     threads : int, optional
         Threads for kernels and FFTs; default all cores.
-    fft : {'auto', 'numpy', 'pyfftw'} or backend
-        FFT backend; default pyfftw when installed.
+    fft : {'auto', 'scipy', 'numpy', 'pyfftw'} or backend
+        FFT backend; default scipy.fft (the same bits at any thread count, see
+        `skyscale.core.fft`).
     cell_arcsec : float, optional
         Cell size, needed when scales are angles.
     max_memory : int, optional
@@ -293,7 +295,7 @@ class Engine:
     def pair_memory(self, shape=None):
         """Bytes of the pair beams direct updates use for a box of ``shape`` (default
         the image: the most they can take)."""
-        ey, ex = self.bank._extent_for(shape or self.image_shape)
+        ey, ex = shape or self.image_shape
         return len(self._pair_keys()) * (2 * ey - 1) * (2 * ex - 1) * self.dtype.itemsize
 
     @property
@@ -373,7 +375,8 @@ class Engine:
         return np.array([float(np.max(np.abs(p), where=a, initial=0.0))
                          for p, a in zip(planes, allowed)])
 
-    def measure(self, residual, mask=None, noise_region=None, previous=None, planes=None):
+    def measure(self, residual, mask=None, noise_region=None, previous=None, planes=None,
+                smallest_only=False):
         """Smooth ``residual`` by every scale; return peaks and noise as a `ScaleState`.
 
         Noise is measured outside ``mask`` (grown by each scale's radius), inside
@@ -383,18 +386,28 @@ class Engine:
         the smallest scale's noise).  ``previous`` (a `ScaleState`) supplies the
         smallest scale's noise when too little of the image is left to measure it;
         ``planes``, this residual already smoothed (a new mask, the same residual), saves
-        the smoothing.
+        the smoothing.  ``smallest_only`` measures the smallest scale's noise alone (the
+        same value; the others are NaN), for a caller that renews the mask from it and
+        then measures again.
         """
         residual = np.asarray(residual)
         if planes is None:
             with thread_limit(self.threads):
                 planes = self.smooth(residual)
         allowed = self.allowed(None if mask is None else np.asarray(mask, dtype=bool))
-        sigma, used, how = scale_noise(planes, self.scales.support_radii, mask=mask,
-                                       region=noise_region, ratios=np.sqrt(self.beam_peaks),
-                                       cross=self.cross_peaks,
+        n = self.n_scales
+        pick = [0, n - 1] if smallest_only and n > 2 else list(range(n))
+        radii = np.asarray(self.scales.support_radii)[pick]
+        sigma, used, how = scale_noise(planes[pick], radii, mask=mask,
+                                       region=noise_region,
+                                       ratios=np.sqrt(self.beam_peaks)[pick],
+                                       cross=self.cross_peaks[pick],
                                        previous=None if previous is None
                                        else float(previous.noise[0]))
+        if len(pick) < n:
+            sigma = np.concatenate([sigma[:1], np.full(n - 1, np.nan)])
+            used = np.concatenate([used[:1], np.zeros(n - 1, used.dtype)])
+            how = how[:1] + ["not measured"] * (n - 1)
         return ScaleState(planes, self._peaks(planes, allowed), sigma, used, how)
 
     # --------------------------------------------------------------- the cycle
@@ -605,18 +618,22 @@ class _CycleWork:
         self.planes = planes[:, y0:y1, x0:x1].copy()      # FFT updates write here
         allowed = allowed[:, y0:y1, x0:x1]
         guard_px = in_mask[y0:y1, x0:x1]
+        self.guard_px = np.ascontiguousarray(guard_px)
         tracked = guard_px | allowed.any(axis=0)
         self.tys, self.txs = np.nonzero(tracked)
+        self.full = self.tys.size == tracked.size     # every pixel: views, no gathers
         self.runs = pixel_runs(self.tys, self.txs)
-        self.allowed_t = np.ascontiguousarray(allowed[:, self.tys, self.txs])
-        self.guard_t = guard_px[self.tys, self.txs]
+        if self.full:
+            self.allowed_t = allowed.reshape(allowed.shape[0], -1)
+            self.guard_t = guard_px.ravel()
+        else:
+            self.allowed_t = np.ascontiguousarray(allowed[:, self.tys, self.txs])
+            self.guard_t = guard_px[self.tys, self.txs]
         self.psf_convolver, self.smoother = engine._tools(self.shape)
-        with_pairs = engine._direct_ok(self.tys.size * (engine.n_scales + 1),
-                                       engine._fft_update_cost(self.shape))
-        engine.bank.make([(k, k) for k in range(engine.n_scales)]
-                         + (engine._pair_keys() if with_pairs else []), self.shape)
+        engine.bank.make([(k, k) for k in range(engine.n_scales)], self.shape)
         self._gather()
         self.pending = []                                 # (k, ys, xs, flux) since last FFT
+        self._scratch = None
         self.fft_updates = self.direct_updates = 0
         self.seconds = 0.0
         n_t = self.tys.size
@@ -624,14 +641,20 @@ class _CycleWork:
         self._direct_cost = n_t * (engine.n_scales + 1)
 
     def _gather(self):
-        self.resid_t = self.sub[self.tys, self.txs]
-        self.planes_t = np.ascontiguousarray(self.planes[:, self.tys, self.txs])
+        if self.full:
+            self.resid_t = self.sub.ravel()
+            self.planes_t = self.planes.reshape(self.planes.shape[0], -1)
+        else:
+            flat = self.tys * self.shape[1] + self.txs
+            self.resid_t = self.sub.ravel().take(flat)
+            self.planes_t = self.planes.reshape(self.planes.shape[0], -1).take(flat, axis=1)
 
     def peaks(self):
         return tracked_peaks(self.planes_t, self.allowed_t)
 
     def tracked_peak(self):
-        r = self.resid_t[self.guard_t]
+        d = self.e._unit_delta()
+        r = (self.resid_t if self.resid_t is not None else self.planes_t[d])[self.guard_t]
         return float(np.abs(r).max()) if r.size else 0.0
 
     def active(self, k, level, floors, blocked):
@@ -663,19 +686,26 @@ class _CycleWork:
 
     def _apply_direct(self, k, ys, xs, flux, guard):
         e = self.e
-        resid = self.resid_t.copy()
-        direct_subtract(resid, self.tys, self.txs, ys, xs, flux,
-                        e.pair_beam(None, k, self.shape),
-                        runs=self.runs)
-        peak = float(np.max(np.abs(resid), where=self.guard_t, initial=0.0))
+        d = e._unit_delta()          # a unit delta scale's plane is the residual itself
+        resid_index = e.n_scales if d is None else d
+        e.bank.make([(j, k) for j in range(e.n_scales)] + [(resid_index, k)], self.shape)
+        first = (self.resid_t if d is None else self.planes_t[d]).copy()
+        direct_subtract(first, self.tys, self.txs, ys, xs, flux,
+                        e.pair_beam(resid_index, k, self.shape), runs=self.runs)
+        peak = float(np.max(np.abs(first), where=self.guard_t, initial=0.0))
         if peak > guard:
             return None
         planes = self.planes_t
         for j in range(e.n_scales):
-            direct_subtract(planes[j], self.tys, self.txs, ys, xs, flux,
-                            e.pair_beam(j, k, self.shape),
-                            runs=self.runs)
-        self.resid_t = resid
+            if j == d:
+                planes[j][:] = first
+            else:
+                direct_subtract(planes[j], self.tys, self.txs, ys, xs, flux,
+                                e.pair_beam(j, k, self.shape), runs=self.runs)
+        if d is None:
+            self.resid_t = first
+        else:
+            self.resid_t = None       # the delta scale's plane holds it now
         self.pending.append((k, ys, xs, flux))
         self.direct_updates += 1
         return peak
@@ -689,13 +719,15 @@ class _CycleWork:
                          np.concatenate([np.full(len(p[3]), p[0], np.int64) for p in parts]),
                          np.concatenate([p[3] for p in parts]))
         full = self.psf_convolver.transform(step)
-        resid = self.sub[self.tys, self.txs] - full[self.tys, self.txs]
-        peak = float(np.max(np.abs(resid), where=self.guard_t, initial=0.0))
+        ny, nx = self.shape
+        if self._scratch is None:
+            self._scratch = np.empty_like(self.sub)
+        np.subtract(self.sub, full[:ny, :nx], out=self._scratch)
+        del full
+        peak = masked_peak(self._scratch, self.guard_px)
         if peak > guard:
             return None
-        ny, nx = self.shape
-        np.subtract(self.sub, full[:ny, :nx], out=self.sub)
-        del full
+        self.sub, self._scratch = self._scratch, self.sub
         self.smoother(self.sub, out=self.planes)
         self._gather()
         self.pending = []

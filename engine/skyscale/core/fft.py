@@ -19,16 +19,12 @@ import numpy as np
 import scipy.fft as _sfft
 from scipy.fft import next_fast_len
 
-from skyscale.core.validate import check_choice
+from skyscale.core.validate import FFT_BACKENDS, check_choice
 
 __all__ = ["FFT_BACKENDS", "ScipyFFT", "NumpyFFT", "FFTWFFT", "get_backend", "fast_shape",
            "convolve_centred", "Convolver", "MultiConvolver"]
 
 logger = logging.getLogger(__name__)
-
-#: Backend names accepted by `get_backend`.
-FFT_BACKENDS = ("auto", "scipy", "numpy", "pyfftw")
-
 
 def _workers(threads):
     return max(int(threads or os.cpu_count() or 1), 1)

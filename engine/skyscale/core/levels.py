@@ -27,6 +27,12 @@ LEVEL_ALLOWANCE = 1.1
 #: them deeper would only model noise.
 
 
+#: A scale whose smoothing lowers the noise by half (``sigma_k = sigma_0 / 2``) or more
+#: spans enough beams to go the full `extended_depth` deeper inside a mask; one that
+#: lowers it less goes deeper in proportion (``BREADTH_GAIN * (1 - sigma_k / sigma_0)``).
+BREADTH_GAIN = 2.0
+
+
 def scale_levels(noise, *, threshold=0.0, noise_threshold=None,
                  extended_depth=DEFAULTS.extended_depth, masked=False, scales=None):
     """Stop level of each scale's smoothed residual, Jy/beam.
@@ -68,6 +74,12 @@ def scale_levels(noise, *, threshold=0.0, noise_threshold=None,
     nu = np.full(sigma.shape, float(noise_threshold))
     if masked and scales is not None and np.max(scales) > 0:
         size = np.asarray(scales, dtype=np.float64) / float(np.max(scales))
+        if sigma.size > 1 and sigma[0] > 0:
+            # how far smoothing lowers a scale's noise says how many beams it spans: a
+            # scale about the beam's size has as many noise peaks as the delta scale and
+            # keeps its level (cleaning it deeper would only model noise)
+            span = np.clip(BREADTH_GAIN * (1.0 - sigma / sigma[0]), 0.0, 1.0)
+            size = np.minimum(size, span)
         nu *= 1.0 - (1.0 - extended_depth) * size
     return np.maximum(levels, nu * sigma)
 

@@ -25,7 +25,9 @@ import numpy as np
 from scipy import ndimage
 
 __all__ = ["MAD_TO_SIGMA", "CLIP_SIGMA", "DETECTION_SAMPLES", "DETECTION_ROUNDS",
-           "robust_noise", "emission_free_noise", "detection_noise", "scale_noise"]
+           "MIN_OUTSIDE_PIXELS",
+           "robust_noise", "emission_free_noise", "detection_noise", "scale_noise",
+           "keep_outside_noise"]
 
 #: Factor turning the median absolute deviation into a Gaussian sigma [1]_.
 MAD_TO_SIGMA = 1.4826
@@ -76,7 +78,8 @@ def robust_noise(image, mask=None):
 
 
 def _mad_sigma(data):
-    """``(1.4826 MAD, median)`` of a non-empty 1-D float64 array."""
+    """``(1.4826 MAD, median)`` of a non-empty 1-D float array (medians select values,
+    so float32 data need no widening)."""
     med = np.median(data)
     return float(MAD_TO_SIGMA * np.median(np.abs(data - med))), med
 
@@ -86,7 +89,10 @@ def _mad_sigma(data):
 CLIP_SIGMA = 4.0
 
 #: `emission_free_noise` reads at most about this many pixels (a regular subsample).
-MAX_SAMPLES = 1 << 19
+#: Neighbouring pixels of a residual are correlated over the beam, so a 1024 x 1024
+#: image holds some 10^4 to 10^5 independent samples: a subsample of this size loses
+#: next to nothing of the estimate's precision and costs a quarter of 2^19.
+MAX_SAMPLES = 1 << 17
 
 #: Fewest pixels a noise estimate may rest on before `scale_noise` excludes less.
 MIN_NOISE_PIXELS = 400
@@ -140,7 +146,8 @@ def emission_free_noise(image, *, exclude=None, region=None, border=0, passes=3)
         keep[:b] = keep[ny - b:] = False
         keep[:, :b] = keep[:, nx - b:] = False
     step = max(int(np.ceil(np.sqrt(ny * nx / MAX_SAMPLES))), 1)
-    data = img[::step, ::step][keep[::step, ::step]].astype(np.float64)
+    data = img[::step, ::step][keep[::step, ::step]]
+    data = data.astype(np.float32 if data.dtype == np.float32 else np.float64, copy=False)
     data = data[np.isfinite(data)]
     sigma = 0.0
     for _ in range(max(int(passes), 1)):
@@ -167,6 +174,45 @@ CONTAMINATED = 2.0
 MIN_INDEPENDENT = 50
 
 
+#: Fewest pixels (at full resolution) outside the grown mask for the smallest scale's
+#: noise to be measured there; with fewer, it is measured over the whole trustworthy
+#: image with clipping and high-passing instead (`scale_noise`).  About 80 beams of
+#: 25 pixels: the estimate's own scatter is then near 10 % (1.4826 MAD of N independent
+#: Gaussian samples scatters by about 1.17 / sqrt(N), Rousseeuw & Croux 1993).
+MIN_OUTSIDE_PIXELS = 2000
+
+
+def _trusted(region, shape, radius):
+    """``region`` (default everywhere) less every pixel within ``radius`` of a pixel
+    outside it: a smoothing of that width mixes untrusted (blank, inexact) pixels in."""
+    if region is None:
+        return None
+    region = np.asarray(region, dtype=bool)
+    if radius <= 0 or region.all():
+        return region
+    return region & ~_grow(~region, radius)
+
+
+def _high_passed(planes, ratios, cross, radii, exclude, region):
+    """The smallest scale's noise from the residual minus its largest-scale smoothing.
+
+    For noise correlated like the PSF its deviation is
+    ``sigma sqrt(1 - 2 B_0K(0) + B_KK(0))``; broad emission (and broad cleaning) hardly
+    reaches it.  Returns ``(sigma, used)``, ``(0, 0)`` when it cannot be made.
+    """
+    n = planes.shape[0]
+    if cross is None or ratios is None or n < 2 or radii[-1] <= 0:
+        return 0.0, 0
+    big = n - 1
+    factor = 1.0 - 2.0 * float(cross[big]) + float(ratios[big]) ** 2
+    if factor <= 0.05:
+        return 0.0, 0
+    r = int(radii[big])
+    hp, used = emission_free_noise(planes[0] - planes[big], exclude=exclude,
+                                   region=_trusted(region, planes.shape[1:], r), border=r)
+    return hp / np.sqrt(factor), used
+
+
 def scale_noise(planes, radii, *, mask=None, region=None, ratios=None, previous=None,
                 cross=None):
     """Noise of each scale's smoothed residual, measured where there is no emission.
@@ -181,21 +227,23 @@ def scale_noise(planes, radii, *, mask=None, region=None, ratios=None, previous=
     mask : (ny, nx) bool ndarray, optional
         Where the emission is (the clean mask); left out.
     region : (ny, nx) bool ndarray, optional
-        Where the residual is exact; default everywhere.
+        Where the residual can be trusted (exact, and not blank); default everywhere.
+        Each scale also leaves out the pixels within its radius of the region's edge.
     ratios : (n_scales,) array_like, optional
         Expected noise of each scale relative to the others, ``sqrt(B_kk(0))`` (see
         Notes).  Used for a scale whose emission-free area is too small to measure it.
     previous : float, optional
-        The smallest scale's noise from the previous cycle, kept when fewer than
-        ``5 * MIN_NOISE_PIXELS`` pixels lie outside the grown mask now (measuring inside
-        emission that cleaning has flattened would underestimate it).
+        Not used: every cycle measures its own noise (an estimate carried from an
+        earlier cycle, made while the emission's sidelobes were still in the residual,
+        could be many times too high).
     cross : (n_scales,) array_like, optional
         ``B_0k(0)``, the PSF smoothed once by each scale at its centre.  With ``ratios``
         it gives a second estimate of the smallest scale's noise from the residual
         minus its smoothing by the largest scale, which broad emission cannot inflate:
         for noise correlated like the PSF its deviation is
         ``sigma sqrt(1 - 2 B_0K(0) + B_KK(0))``.  It replaces the first when that is
-        more than `CONTAMINATED` times higher (emission the mask missed).
+        more than `CONTAMINATED` times higher (emission the mask missed), and is the
+        estimate used when the mask leaves too little outside it.
 
     Returns
     -------
@@ -203,8 +251,9 @@ def scale_noise(planes, radii, *, mask=None, region=None, ratios=None, previous=
     used : (n_scales,) int64 ndarray
         Pixels (subsampled) each measurement used; 0 where the noise was scaled.
     how : list of str
-        ``'measured'`` (or with the mask not grown, or by clipping only) or ``'scaled'``
-        per scale.
+        How each scale's noise was found, in words: measured outside the mask, measured
+        over the whole image (clipped, or high-passed), or scaled from the smallest
+        scale.
 
     Notes
     -----
@@ -215,56 +264,70 @@ def scale_noise(planes, radii, *, mask=None, region=None, ratios=None, previous=
     Each scale's noise is measured where it can be (other weightings change the
     ratio); where the image holds too few independent samples of a broad scale's noise
     outside the emission, the smallest scale's measured noise is scaled by
-    ``sqrt(B_kk(0) / B_00(0))``.  When fewer than `MIN_NOISE_PIXELS` pixels are left
-    outside the grown mask the mask is left ungrown, and then out, the clipping alone
-    keeping emission out.
+    ``sqrt(B_kk(0) / B_00(0))``.
+
+    The smallest scale's noise is measured outside the mask when at least
+    `MIN_OUTSIDE_PIXELS` trustworthy pixels lie there.  Otherwise (a mask over most of
+    the image, or one that only leaves out blank pixels) it is measured over the whole
+    trustworthy image, with emission clipped at `CLIP_SIGMA` and, when the scales allow
+    it, high-passed (residual minus its largest-scale smoothing) so that broad emission
+    inside the mask cannot raise it.
+
+    References
+    ----------
+    .. [1] Rousseeuw & Croux 1993, JASA 88, 1273.
     """
     n = planes.shape[0]
     ny, nx = planes.shape[1:]
     sigma = np.zeros(n)
     used = np.zeros(n, dtype=np.int64)
-    how = ["measured"] * n
+    how = ["measured outside the mask"] * n
+    region = None if region is None else np.asarray(region, dtype=bool)
     mask = None if mask is None else np.asarray(mask, dtype=bool)
+    if mask is not None:
+        free = ~mask if region is None else (region & ~mask)
+        if not free.any():
+            mask = None           # the mask leaves nothing trustworthy out: no emission known
     step = max(int(np.ceil(np.sqrt(ny * nx / MAX_SAMPLES))), 1)
     for k in range(n):
         r = int(radii[k])
-        if mask is None or mask.all():
-            tries = [None]
-        elif (k == 0 and previous is None) or ratios is None:
-            tries = [_grow(mask, r), mask, None]
-        else:
-            tries = [_grow(mask, r)]
-        for exclude in tries:
-            sigma[k], used[k] = emission_free_noise(planes[k], exclude=exclude,
-                                                    region=region, border=r)
-            if used[k] >= MIN_NOISE_PIXELS and sigma[k] > 0:
-                break
-        if k == 0 and previous is not None and (used[k] * step * step < 5 * MIN_NOISE_PIXELS
-                                                or sigma[k] <= 0):
-            sigma[k], used[k], how[k] = float(previous), 0, "kept from the previous cycle"
-        elif k == 0 and exclude is not tries[0]:
-            how[k] = "measured (mask not grown)" if exclude is not None else \
-                "measured (clipping only)"
-        if k == 0 and cross is not None and ratios is not None and n > 1 and radii[-1] > 0:
-            big = n - 1
-            factor = 1.0 - 2.0 * float(cross[big]) + float(ratios[big]) ** 2
-            if factor > 0.05:
-                grown = None if mask is None or mask.all() else _grow(mask, int(radii[big]))
-                hp, hp_used = emission_free_noise(planes[0] - planes[big], exclude=grown,
-                                                  region=region, border=int(radii[big]))
-                hp /= np.sqrt(factor)
-                if hp_used >= MIN_NOISE_PIXELS and 0 < hp and hp * CONTAMINATED < sigma[k]:
-                    sigma[k], used[k] = hp, hp_used
-                    how[k] = "high-passed (residual minus its largest-scale smoothing)"
-        independent = used[k] * step * step / max(np.pi * r * r, 1.0)
-        expected = 0.0 if ratios is None else sigma[0] * float(ratios[k]) / float(ratios[0])
-        if k > 0 and ratios is not None and sigma[0] > 0 and (
-                independent < MIN_INDEPENDENT or sigma[k] <= 0 or
-                sigma[k] > CONTAMINATED * expected):
-            sigma[k] = sigma[0] * float(ratios[k]) / float(ratios[0])
-            used[k] = 0
-            how[k] = "scaled"
+        trusted = _trusted(region, (ny, nx), r)
+        grown = None if mask is None else _grow(mask, r)
+        sigma[k], used[k] = emission_free_noise(planes[k], exclude=grown, region=trusted,
+                                                border=r)
+        if k > 0:
+            independent = used[k] * step * step / max(np.pi * r * r, 1.0)
+            expected = 0.0 if ratios is None else sigma[0] * float(ratios[k]) / float(ratios[0])
+            if ratios is not None and sigma[0] > 0 and (
+                    independent < MIN_INDEPENDENT or sigma[k] <= 0 or
+                    sigma[k] > CONTAMINATED * expected):
+                sigma[k], used[k], how[k] = expected, 0, "scaled from the smallest scale"
+            elif mask is None:
+                how[k] = "measured over the whole image, emission clipped"
+            continue
+        whole = mask is None or used[0] * step * step < MIN_OUTSIDE_PIXELS or sigma[0] <= 0
+        if whole:
+            if mask is not None:
+                left = _outside(mask, trusted)
+            sigma[0], used[0] = emission_free_noise(planes[0], region=trusted)
+            how[0] = "measured over the whole image, emission clipped"
+            if mask is not None:
+                how[0] += f" (the mask leaves only {left} pixels outside it)"
+        hp, hp_used = _high_passed(planes, ratios, cross, radii,
+                                   None if whole else _grow(mask, int(radii[-1])), region)
+        if hp_used >= MIN_NOISE_PIXELS and 0 < hp and hp * CONTAMINATED < sigma[0]:
+            sigma[0], used[0] = hp, hp_used
+            how[0] = ("high-passed (residual minus its largest-scale smoothing) over the "
+                      "whole image" if whole else
+                      "high-passed (residual minus its largest-scale smoothing) outside "
+                      "the mask")
     return sigma, used, how
+
+
+def _outside(mask, region):
+    """Trustworthy pixels outside ``mask``."""
+    free = ~mask if region is None else (region & ~mask)
+    return int(free.sum())
 
 
 def detection_noise(smoothed, sigma, *, exclude=None, margin_px=0.0):
@@ -318,3 +381,41 @@ def detection_noise(smoothed, sigma, *, exclude=None, margin_px=0.0):
             break
         noise = new
     return float(noise)
+def keep_outside_noise(sigma, how, kept, ratios):
+    """Hold on to the last noise measured outside the mask when it can no longer be.
+
+    When the mask leaves too few trustworthy pixels outside it (`scale_noise` then
+    measures over the whole image, inside the mask, where cleaning may lower the
+    residual), the lowest of the smallest scale's noises measured outside the mask in
+    earlier cycles is used instead (cleaning removes sidelobes there but never cleans
+    there, so the lowest is the least contaminated), and the scales scaled from it
+    follow.  An estimate made over the whole image is never carried: on a dirty image
+    it holds the emission's sidelobes.
+
+    Parameters
+    ----------
+    sigma : (n_scales,) ndarray
+        This cycle's noise per scale (`scale_noise`); changed in place.
+    how : list of str
+        How each was found (`scale_noise`); changed in place.
+    kept : float or None
+        The lowest smallest-scale noise measured outside the mask so far, or None.
+    ratios : (n_scales,) array_like
+        ``sqrt(B_kk(0))`` per scale.
+
+    Returns
+    -------
+    kept : float or None
+        What to pass as ``kept`` next time.
+    """
+    if how[0].startswith("measured outside") or how[0].endswith("outside the mask"):
+        return float(sigma[0]) if kept is None or not 0 < kept < sigma[0] else kept
+    if kept is None or "mask leaves only" not in how[0] or not kept > 0:
+        return kept
+    sigma[0] = float(kept)
+    how[0] = ("kept: the lowest measured outside the mask in an earlier cycle (the mask "
+              "now leaves too few pixels outside it)")
+    for k in range(1, len(sigma)):
+        if how[k].startswith("scaled"):
+            sigma[k] = sigma[0] * float(ratios[k]) / float(ratios[0])
+    return kept

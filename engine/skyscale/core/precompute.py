@@ -84,7 +84,7 @@ def scale_beams(psf, kernels, image_shape, backend, dtype=np.float32):
     return beams, peaks
 
 
-def pair_beams(psf, kernels, image_shape, backend, pairs, *, dtype=np.float32):
+def pair_beams(psf, kernels, image_shape, backend, pairs, *, dtype=np.float32, cache=None):
     """Beams ``PSF (*) s_j (*) s_k`` for pairs of kernels, at every offset within the image.
 
     The minor cycle's direct updates use them: ``(j, k)`` takes a component of scale
@@ -102,6 +102,9 @@ def pair_beams(psf, kernels, image_shape, backend, pairs, *, dtype=np.float32):
         Indices into ``kernels``.
     dtype : numpy dtype
         Precision of the transforms and of the beams; default float32.
+    cache : dict, optional
+        Keeps the PSF's and kernels' transforms between calls for the same
+        ``image_shape`` (a `BeamBank` passes its own).
 
     Returns
     -------
@@ -118,11 +121,14 @@ def pair_beams(psf, kernels, image_shape, backend, pairs, *, dtype=np.float32):
     radii = [np.shape(k)[0] // 2 for k in kernels]
     rmax = max(radii)
     hy, hx = ny - 1 + 2 * rmax, nx - 1 + 2 * rmax
-    region = _psf_offsets(np.asarray(psf, dtype=np.float64), hy, hx).astype(dtype)
-    fshape = fast_shape(region.shape, (4 * rmax + 1, 4 * rmax + 1))
-    psf_f = backend.rfft2(region, fshape)
-    del region
-    kern_f = {}
+    cache = {} if cache is None else cache
+    fshape = fast_shape((2 * hy + 1, 2 * hx + 1), (4 * rmax + 1, 4 * rmax + 1))
+    if "psf" not in cache:
+        region = _psf_offsets(np.asarray(psf, dtype=np.float64), hy, hx).astype(dtype)
+        cache["psf"] = backend.rfft2(region, fshape)
+        del region
+    psf_f = cache["psf"]
+    kern_f = cache.setdefault("kernels", {})
 
     def factor(i):
         kern = np.asarray(kernels[i], dtype=dtype)
@@ -209,10 +215,20 @@ class BeamBank:
         self.dtype = np.dtype(dtype)
         self.extent = (0, 0)          # image shape the beams cover (offsets < extent)
         self._beams = {}
+        self._spectra = {}            # transforms of the PSF and kernels at this extent
 
     def _extent_for(self, shape):
-        return tuple(min(n, -(-int(b) // EXTENT_STEP) * EXTENT_STEP)
-                     for b, n in zip(shape, self.image_shape))
+        """The extent to make for a box of ``shape``: the current one when it covers
+        the box, else at least twice the current (a box that grows over the major
+        cycles remakes the beams a few times at most), rounded up to `EXTENT_STEP` and
+        at most the image."""
+        out = []
+        for b, n, e in zip(shape, self.image_shape, self.extent):
+            if b <= e:
+                out.append(e)
+            else:
+                out.append(min(n, -(-max(int(b), 2 * e) // EXTENT_STEP) * EXTENT_STEP))
+        return tuple(out)
 
     def get(self, j, k, shape):
         """``PSF (*) s_j (*) s_k`` covering every offset within a box of ``shape``
@@ -220,25 +236,21 @@ class BeamBank:
         together; ``(j, k)`` and ``(k, j)`` are the same beam."""
         key = (min(j, k), max(j, k))
         need = self._extent_for(shape)
-        if any(n > e for n, e in zip(need, self.extent)):
-            self._beams = {}
-            self.extent = need
-        if key not in self._beams:
-            self._beams.update(pair_beams(self.psf, self.kernels, self.extent, self.backend,
-                                          [key], dtype=self.dtype))
+        if key not in self._beams or any(n > e for n, e in zip(need, self.extent)):
+            self.make([key], shape)
         return self._beams[key]
 
     def make(self, keys, shape):
         """Make the beams ``keys`` for a box of ``shape`` at once (one PSF transform)."""
         need = self._extent_for(shape)
         if any(n > e for n, e in zip(need, self.extent)):
-            self._beams = {}
+            self._beams, self._spectra = {}, {}
             self.extent = need
         keys = [(min(j, k), max(j, k)) for j, k in keys]
         todo = [key for key in dict.fromkeys(keys) if key not in self._beams]
         if todo:
             self._beams.update(pair_beams(self.psf, self.kernels, self.extent, self.backend,
-                                          todo, dtype=self.dtype))
+                                          todo, dtype=self.dtype, cache=self._spectra))
 
     @property
     def nbytes(self):

@@ -82,8 +82,9 @@ def check_psf(psf, image_shape, *, dtype=np.float32, name="psf"):
                          "its centre")
     if psf.shape[0] < ny or psf.shape[1] < nx:
         raise InputError(f"{name} has shape {psf.shape}, smaller than the image "
-                         f"{tuple(image_shape)}; make the PSF at least the image's size "
-                         "(twice the size is exact)")
+                         f"{tuple(image_shape)}; were the dirty image and the PSF given the "
+                         "other way round (the dirty image comes first)? Otherwise make "
+                         "the PSF at least the image's size (twice the size is exact)")
     centre = (psf.shape[0] // 2, psf.shape[1] // 2)
     absolute = np.abs(psf)
     peak = tuple(int(p) for p in np.unravel_index(int(np.argmax(absolute)), psf.shape))
@@ -93,12 +94,12 @@ def check_psf(psf, image_shape, *, dtype=np.float32, name="psf"):
                          "the PSF's peak must be positive (was the image negated?)")
     if value <= 0 or float(absolute[peak]) > value * (1 + 1e-4):
         raise InputError(f"{name} peak is at [y, x] {peak} (value {float(psf[peak]):.4g}), "
-                         f"expected the centre {centre}; re-centre the PSF so its maximum "
-                         "is at (ny // 2, nx // 2)")
+                         f"expected the centre {centre}; " + _likely_cause(psf, peak))
     if abs(value - 1.0) > PSF_PEAK_TOLERANCE:
         raise InputError(f"{name} peak is {value:.4g}, not 1 (more than "
                          f"{PSF_PEAK_TOLERANCE:g} off); check that this is the PSF and not "
-                         "another image, and divide it by its peak if it is")
+                         "another image (the dirty image comes first, the PSF second), and "
+                         "divide it by its peak if it is")
     if abs(value - 1.0) > 1e-3:
         warnings.warn(f"{name} peak is {value:.4g}, not 1; it has been normalised to 1",
                       stacklevel=3)
@@ -106,6 +107,17 @@ def check_psf(psf, image_shape, *, dtype=np.float32, name="psf"):
     checked.flags.writeable = False    # shared by the engine and the operator, never changed
     _CHECKED[id(checked)] = checked
     return checked
+
+
+def _likely_cause(psf, peak):
+    """The likely cause of a PSF whose peak is off centre, and its fix, in words."""
+    py, px = psf.shape
+    near = lambda v, n: min(v, n - 1 - v) <= 1          # noqa: E731
+    if near(peak[0], py) and near(peak[1], px):
+        return ("its peak sits in a corner, as an FFT leaves it: centre it with "
+                "numpy.fft.fftshift(psf) so the peak is at (ny // 2, nx // 2)")
+    return ("is this the dirty image? Check that the dirty image comes first and the PSF "
+            "second; if it is the PSF, re-centre it so its maximum is at (ny // 2, nx // 2)")
 
 
 def outside_level_profile(psf):

@@ -88,6 +88,9 @@ class DeconvolutionResult:
     threads : dict or None
         Threads in effect during the run: ``numba`` (the kernels' count),
         ``fft_backend`` and ``fft_threads``; None when nothing was cleaned.
+    stop_detail : str or None
+        What happened at an early stop, in a sentence (for 'no_progress' and
+        'diverging'); None when `stop_description` says it all.
     """
 
     model: np.ndarray
@@ -113,11 +116,15 @@ class DeconvolutionResult:
     fft_updates: int = 0
     emission_mask: object = None
     threads: dict = None
+    stop_detail: str = None
 
     @property
     def stop_description(self):
-        """One sentence saying why the run stopped."""
-        return STOP_REASONS.get(self.stop_reason, self.stop_reason)
+        """One sentence saying why the run stopped (with what happened, when known)."""
+        text = STOP_REASONS.get(self.stop_reason, self.stop_reason)
+        if self.mask is None:           # no mask: the residual is measured everywhere
+            text = text.replace(" in the mask", "")
+        return text if not self.stop_detail else f"{text}: {self.stop_detail}"
 
     def per_scale(self):
         """Component count and total flux per scale, as a list of dicts."""

@@ -20,7 +20,8 @@ STOP_REASONS = {
     "noise": "every scale's residual in the mask reached its multiple of that scale's noise",
     "max_components": "the component budget was spent",
     "max_major_cycles": "the major-cycle budget was spent",
-    "no_progress": "major cycles stopped lowering the peak residual",
+    "no_progress": "cleaning stalled: the residual stopped falling toward the stop levels, "
+                   "or every sub-loop left would have raised the peak residual",
     "diverging": "major cycles kept raising the peak residual (or gave non-finite values); "
                  "the last good model is kept",
     "empty_mask": "the mask allows no pixel to be cleaned",

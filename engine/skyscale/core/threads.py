@@ -101,8 +101,8 @@ def threads_in_effect(threads, fft):
     -------
     dict
         ``numba`` (the count `thread_limit` sets for the kernels), ``fft_backend``
-        (``'pyfftw'``, ``'numpy'`` or the injected backend's name) and ``fft_threads``
-        (numpy.fft runs on one thread; None when a backend does not say).
+        (``'scipy'``, ``'pyfftw'``, ``'numpy'`` or the injected backend's name) and
+        ``fft_threads`` (numpy.fft runs on one thread; None when a backend does not say).
     """
     name = str(getattr(fft, "name", type(fft).__name__))
     n = 1 if name == "numpy" else getattr(fft, "threads", None)

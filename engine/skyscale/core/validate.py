@@ -39,7 +39,7 @@ NUMBER_RULES = {
 }
 
 #: FFT back ends `deconvolve` accepts.
-FFT_BACKENDS = ("auto", "numpy", "pyfftw")
+FFT_BACKENDS = ("auto", "scipy", "numpy", "pyfftw")
 #: A pixel holds emission when ``|dirty|`` exceeds this many robust noise sigmas
 #: (used only to tell a user that a mask leaves all emission out).
 EMISSION_SIGMA = 5.0

@@ -177,7 +177,9 @@ def cube_client(client=None, scheduler=None, *, threads=None, workers=None, time
     ValueError
         If the scheduler at ``scheduler`` does not answer within ``timeout``.
     """
+    from skyscale.core.warmup import warm_up
     if client is not None:
+        client.run(warm_up)          # each worker loads the kernels once, not per plane
         yield client, _info(client, "client", threads)
         return
     _require_distributed()
@@ -193,6 +195,7 @@ def cube_client(client=None, scheduler=None, *, threads=None, workers=None, time
                              "'dask worker ADDRESS', or leave the scheduler out to use a "
                              "local cluster") from None
         try:
+            own.run(warm_up)
             yield own, _info(own, "address", threads)
         finally:
             own.close(timeout=timeout)
@@ -212,6 +215,7 @@ def cube_client(client=None, scheduler=None, *, threads=None, workers=None, time
         try:
             own.wait_for_workers(n, timeout=timeout)
             own.run(_ignore_interrupt)
+            own.run(warm_up)
             yield own, _info(own, "local", t)
         finally:
             own.close(timeout=timeout)

@@ -73,8 +73,8 @@ class RunRecord:
             diff = _differences(head.get("identity") or {}, self.identity)
             raise ValueError(f"{os.path.dirname(self.path)} holds an unfinished run of other "
                              f"inputs or options ({'; '.join(diff[:3]) or 'unreadable record'}); "
-                             "rerun with the same ones to resume, or pass overwrite=True "
-                             "(--overwrite) to start again")
+                             "rerun with the same ones to resume, or rerun with "
+                             "--overwrite to start again")
         planes = {}
         for n, line in enumerate(lines[1:], start=2):
             try:

@@ -232,9 +232,14 @@ def deconvolve_cube(cube, psf, out_dir, params=None, *, client=None, scheduler=N
     overwrite = bool(merged["overwrite"])
     if not overwrite:
         clash = [p for p in paths.values() if os.path.exists(p)]
+        if clash and os.path.exists(paths["report"]):
+            raise FileExistsError(f"{out_dir} already holds a complete run "
+                                  f"({os.path.basename(paths['report'])} is written): "
+                                  "nothing to resume; choose another output folder, or "
+                                  "rerun with --overwrite to compute it again")
         if clash:
-            raise FileExistsError(f"{clash[0]} exists; choose another output folder or pass "
-                                  "--overwrite (overwrite=True)")
+            raise FileExistsError(f"{clash[0]} exists; choose another output folder or "
+                                  "rerun with --overwrite")
     beams, beam_reasons = _fit_beams(psff)
     common, beam_source, beam_plane = _common_beam(beams, restoring_beam(merged, cell, wcs=cubef.wcs))
     scales_px, scale_reasons, reference = _choose_scales(merged, cubef, psff, cell)

@@ -174,7 +174,7 @@ def _check_cell(cell_arcsec):
     if not (math.isfinite(cell) and cell > 0):
         raise ValueError(f"cell_arcsec is {cell_arcsec!r}; pass the pixel size in "
                          "arcseconds as a positive finite number (or None)")
-    return cell
+    return float(f"{cell:.12g}")   # 2.0, not the degrees' rounding 1.999999999999989
 
 
 def _check_threads(threads):

@@ -27,7 +27,8 @@ from numba import prange
 
 from skyscale.core.kernels.config import JIT_OPTIONS, PARALLEL_JIT_OPTIONS
 
-__all__ = ["CHUNK", "PARALLEL_MIN_WORK", "direct_subtract", "pixel_runs", "tracked_peaks"]
+__all__ = ["CHUNK", "PARALLEL_MIN_WORK", "direct_subtract", "masked_peak", "pixel_runs",
+           "tracked_peaks"]
 
 #: Tracked pixels per chunk of the peak scan, and runs of pixels per chunk of the
 #: direct update (each pixel's sum runs over the components in order, whatever the
@@ -213,3 +214,42 @@ def tracked_peaks(planes, allowed, *, parallel=None):
         parallel = planes.size >= PARALLEL_MIN_WORK
     (_peaks_parallel if parallel else _peaks_serial)(planes, allowed, out)
     return out
+
+
+def _masked_peak_py(image, mask):
+    ny = image.shape[0]
+    part = np.zeros(ny, dtype=np.float64)
+    for y in prange(ny):
+        best = 0.0
+        for x in range(image.shape[1]):
+            if mask[y, x]:
+                a = abs(float(image[y, x]))
+                if a > best:
+                    best = a
+        part[y] = best
+    return part.max() if ny else 0.0
+
+
+_masked_peak_serial = numba.njit(**JIT_OPTIONS)(_masked_peak_py)
+_masked_peak_parallel = numba.njit(**PARALLEL_JIT_OPTIONS)(_masked_peak_py)
+
+
+def masked_peak(image, mask, *, parallel=None):
+    """Largest ``|image|`` where ``mask`` is True (0 where it is nowhere).
+
+    Parameters
+    ----------
+    image : (ny, nx) float32 or float64 ndarray
+    mask : (ny, nx) bool ndarray
+    parallel : bool, optional
+        Default: parallel from `PARALLEL_MIN_WORK` pixels on; the maximum is the same
+        either way.
+    """
+    image = np.asarray(image)
+    mask = np.asarray(mask, dtype=np.bool_)
+    if image.ndim != 2 or mask.shape != image.shape:
+        raise ValueError(f"image {image.shape} and mask {mask.shape} must be the same 2-D "
+                         "shape")
+    if parallel is None:
+        parallel = image.size >= PARALLEL_MIN_WORK
+    return float((_masked_peak_parallel if parallel else _masked_peak_serial)(image, mask))

@@ -222,6 +222,11 @@ def _stretched_ticks(norm):
     return ticks
 
 
+#: Above this many distinct component positions the model panel marks them as small
+#: see-through dots, so the markers do not hide the model they sit on.
+FULL_MARKERS = 300
+
+
 def _mark_components(ax, components, scales, cell):
     """Component positions, one colour per scale (largest drawn first); legend handles."""
     handles = []
@@ -229,14 +234,19 @@ def _mark_components(ax, components, scales, cell):
         return handles
     scales = [float(s) for s in scales] or sorted({float(s) for s in components["scale"]})
     colours = scale_colours(len(scales))
+    places = [np.unique(np.stack([components["y"][components["scale"] == np.float32(s)],
+                                  components["x"][components["scale"] == np.float32(s)]],
+                                 axis=1), axis=0) for s in scales]
+    few = sum(len(p) for p in places) <= FULL_MARKERS
+    style = dict(s=9, edgecolors="black", linewidths=0.3) if few else \
+        dict(s=1.5, linewidths=0, alpha=0.45)
     for k in range(len(scales) - 1, -1, -1):
-        sel = components[components["scale"] == np.float32(scales[k])]
-        if sel.size == 0:
+        yx = places[k]
+        if len(yx) == 0:
             continue
-        yx = np.unique(np.stack([sel["y"], sel["x"]], axis=1), axis=0)
-        handles.append(ax.scatter(yx[:, 1], yx[:, 0], s=9, marker="o", color=colours[k],
-                                  edgecolors="black", linewidths=0.3, zorder=4,
-                                  label=f"components at {scale_label(scales[k], cell)}"))
+        handles.append(ax.scatter(yx[:, 1], yx[:, 0], marker="o", color=colours[k], zorder=4,
+                                  label=f"components at {scale_label(scales[k], cell)}",
+                                  **style))
     return handles[::-1]
 
 
