@@ -109,9 +109,9 @@ def predict_memory(geom, calibration=None):
         "beam_work": max(8 * region + b * region, b * region + _forward(p, b),
                          (2 + nf) * 2 * b * _cells(p) + _inverse(p, b)),
         # an FFT update: the step and the PSF convolution (its spectrum, then its
-        # output) with the tracked residual's new values and their index temporaries;
-        # then the smoothing, with the tracked values gathered again
-        "update_work": max(b * npx + 2 * b * _cells(m) + _inverse(m, b) + 24 * npx,
+        # output) with the box's new residual (a scratch box the cycle keeps); then the
+        # smoothing, with the tracked values gathered again
+        "update_work": max(b * npx + 2 * b * _cells(m) + _inverse(m, b) + 8 * npx,
                            smoothing + (8 + n * b) * npx),
     }
     common = sum(t[k] for k in ("beams", "planes", "tracked", "images", "psf_copies",

@@ -14,12 +14,12 @@ twice-size PSF) and ``S`` (the smoothing, about ``N + r_max``).
 
     t_\mathrm{pre} = a_0 + a_1 n_\mathrm{psf} + a_2 N_f f(S)
 
-    t_\mathrm{beams} = c_0 + c_1 (1 + N_f + N_b) f(P) + c_2 N_b (2N)^2
+    t_\mathrm{beams} = (1 + N_s) [c_0 + c_1 (1 + N_f) f(P)] + c_1 N_b f(P) + c_2 N_b (2N)^2
 
     t_\mathrm{setup} = e_0 + a_1 n_\mathrm{psf} + e_1 [2 f(M) + N_f f(S)]
 
     t_\mathrm{fft} = b_0 + b_1 [2 f(M) + (1 + N_f) f(S)] + b_2 N_s N^2, \qquad
-    t_\mathrm{direct} = d_0 + d_1 W + d_2 (N_s + 1) N_t (N_t / 2^{20})^\delta
+    t_\mathrm{direct} = d_0 + d_1 W + d_2 P N_t (N_t / 2^{20})^\delta
 
     t_\mathrm{sub} = \ell_1 m A + \ell_2 A + \ell_0 + g_1 N_s N_t, \qquad
     t_\mathrm{cycle} = h_0 + h_1 N_s N^2
@@ -36,8 +36,10 @@ of its ``R`` sub-loops either by an FFT update of its box (``U`` of them) or dir
 the tracked pixels, whose multiply-adds ``W = m N_t (N_s + 1)`` the engine allows up to
 ``DIRECT_COST_RATIO`` of an FFT update's work units (`skyscale.core.engine`); a direct
 update uses ``kappa`` of that allowance on average (calibrated); each also passes over
-every tracked pixel of every plane, at a cost per pixel that grows (``delta``) once the
-tracked set outgrows the caches.  ``A`` is the sub-loop's
+every tracked pixel of its ``P`` planes (every scale's, and the residual's unless a
+delta scale stands for it; ``W`` counts the multiply-adds on them), at a cost per pixel
+that grows (``delta``) once the tracked set outgrows the caches.  Pair beams are made
+by a scale's first direct update; the beams are counted as if every scale had one.  ``A`` is the sub-loop's
 active set (pixels of the chosen scale above the sub-loop's level, in the mask), ``m``
 its components, ``C`` the major cycles; ``t_sub`` holds the sub-loop's Hogbom iterations
 and its scans of the tracked pixels (peaks, the active set), ``t_cycle`` a minor cycle's
@@ -69,7 +71,7 @@ __all__ = ["DEFAULT_CALIBRATION", "CALIBRATION_ENV", "DEFAULT_DYNAMIC_RANGE",
            "estimate_counts", "predict_memory", "engine_memory", "fits_memory",
            "available_memory", "load_calibration", "save_calibration",
            "default_calibration_path", "fit_power_law", "fit_nonnegative",
-           "direct_cost_ratio", "direct_pixel_planes", "beam_extent"]
+           "direct_cost_ratio", "direct_pixel_planes", "direct_passes", "beam_extent"]
 
 #: Peak over stop level assumed when neither the dirty image nor a dynamic range is given.
 DEFAULT_DYNAMIC_RANGE = 1000.0
@@ -143,13 +145,15 @@ class Geometry:
 
     def transforms(self):
         """FFTs per step, as ``{step: [(grid, count), ...]}``: ``precompute`` (the
-        engine's smoothing kernels), ``beams`` (the PSF, each finite kernel, one inverse
-        per beam and pair beam), ``setup`` (the residual operator's PSF and the cycle's
+        engine's smoothing kernels), ``beams`` (each making of beams transforms the PSF
+        and each finite kernel: once for the scales' beams, once per scale for its pair
+        beams at its first direct update; then one inverse per beam), ``setup`` (the residual operator's PSF and the cycle's
         convolvers), ``round`` (one FFT update), ``major`` and ``stats``."""
         nf = self.n_finite
         smooth = [(self.smooth_grid, nf)] if nf else []
         step_s = [(self.smooth_grid, 1 + nf)] if nf else []
-        beams = [(self.precompute_grid, 1 + nf + self.n_scales + self.n_pairs)]
+        beams = [(self.precompute_grid, (1 + self.n_scales) * (1 + nf) + self.n_scales
+                  + self.n_pairs)]
         return {"precompute": smooth, "beams": beams,
                 "setup": [(self.major_grid, 2)] + smooth,
                 "round": [(self.major_grid, 2)] + step_s, "major": [(self.major_grid, 2)],
@@ -220,11 +224,14 @@ def predict_times(geom, calibration=None, *, threads=1, tracked_pixels=None, box
                                                "stats"))
     d, sc = cal["direct"], cal["scan"]
     loop = _amdahl(cal["threads"]["loop_parallel"], threads)
-    madds = d["allowance_used"] * direct_cost_ratio() * box.fft_update_work()
+    # the engine allows m N_t (N_s + 1) <= ratio x the update's work; kappa of it is used
+    passes = direct_passes(geom.n_scales, 0 in geom.radii)
+    madds = (d["allowance_used"] * direct_cost_ratio() * box.fft_update_work()
+             * passes / (geom.n_scales + 1))
     return {
         "precompute": pre["fixed"] + pre["per_psf_pixel"] * n_psf
         + pre["per_fft_second"] * ffts["precompute"],
-        "beams": bm["fixed"] + bm["per_fft_second"] * fft_seconds(
+        "beams": bm["fixed"] * (1 + ext.n_scales) + bm["per_fft_second"] * fft_seconds(
             ext.transforms()["beams"], cal, threads)
         + bm["per_beam_pixel"] * (ext.n_scales + ext.n_pairs) * ext.beam_pixels,
         "setup": cal["setup"]["fixed"] + pre["per_psf_pixel"] * n_psf
@@ -232,7 +239,7 @@ def predict_times(geom, calibration=None, *, threads=1, tracked_pixels=None, box
         "round": rnd["fixed"] + rnd["per_fft_second"] * bffts["round"]
         + rnd["per_plane_pixel"] * box.n_scales * box.pixels,
         "direct": d["fixed"] + (d["per_madd"] * madds + d["per_pixel_plane"]
-                                * direct_pixel_planes(geom.n_scales, n_t, d["pixel_exponent"]))
+                                * direct_pixel_planes(passes, n_t, d["pixel_exponent"]))
         * loop,
         "per_direct_madd": d["per_madd"] * loop,
         "per_sub_loop_scan": sc["per_tracked_pixel"] * geom.n_scales * n_t * loop,
@@ -247,11 +254,18 @@ def predict_times(geom, calibration=None, *, threads=1, tracked_pixels=None, box
     }
 
 
-def direct_pixel_planes(n_scales, tracked, exponent):
+def direct_passes(n_scales, has_delta):
+    """Planes a direct update passes over: every scale's, and the residual's unless a
+    delta scale's plane is the residual itself (`skyscale.core.engine`)."""
+    return int(n_scales) + (0 if has_delta else 1)
+
+
+def direct_pixel_planes(passes, tracked, exponent):
     """The direct update's pass over the tracked pixels, in units of the calibration's
-    ``direct.per_pixel_plane``: ``(N_s + 1) N_t (N_t / 2^20)^delta``."""
+    ``direct.per_pixel_plane``: ``P N_t (N_t / 2^20)^delta`` for ``P`` planes
+    (`direct_passes`)."""
     t = float(tracked)
-    return (n_scales + 1) * t * (max(t, 1.0) / 2.0 ** 20) ** float(exponent)
+    return passes * t * (max(t, 1.0) / 2.0 ** 20) ** float(exponent)
 
 
 #: The sub-loop's cost terms, in the order of `loop_features` (seconds per component

@@ -146,7 +146,7 @@ def measure_point(dirty, psf, scales, *, components=POINT_COMPONENTS, dtype=None
                 "setup_s": setup + sum(first_loops.tools) + sum(loops.tools),
                 "beams_s": sum(b[2] for b in first_loops.beams + loops.beams),
                 "beams_made": sum(b[0] for b in first_loops.beams + loops.beams),
-                "beam_pixels": max((b[1] for b in first_loops.beams), default=0),
+                "beam_rows": [list(b) for b in first_loops.beams + loops.beams],
                 "rounds": int(mc.rounds), "updates": len(fft),
                 "round_s": float(np.mean(fft)) if fft else 0.0,
                 "update_rows": updates,
@@ -278,7 +278,8 @@ def direct_probe(sizes, scales=(0, 4, 8, 16), components=(1, 8), repeats=3):
                     t0 = time.process_time()
                     work._apply_direct(0, ys, xs, np.full(m, 1e-6), np.inf)
                     best = min(best, time.process_time() - t0)
-                out.append({"size": n, "n_scales": len(sc), "tracked": int(work.tys.size),
+                out.append({"size": n, "n_scales": len(sc), "scales": list(sc),
+                            "tracked": int(work.tys.size),
                             "components": int(m), "seconds": float(best)})
         del e, work, state
     return out

@@ -79,15 +79,11 @@ def calibrate(sweep):
     fit("precompute", ("fixed", "per_psf_pixel", "per_fft_second"),
         [[1.0, r["psf_shape"][0] * r["psf_shape"][1], t["precompute"]]
          for r, t in zip(pts, ffts)], [r["precompute_s"] for r in pts])
-    # the beams: each point's (its first minor cycle), and each making of beams in the
-    # calibration runs; the FFTs of the beams made (all pairs, or the scales' only)
+    # the beams: each making of beams in the points and the calibration runs (the
+    # scales' beams by a cycle, a scale's pair beams by its first direct update)
     runs_all = sweep.get("runs", [])
     rows, ys = [], []
-    for r, g in zip(pts, geo):
-        if r.get("beams_made"):
-            rows.append(_beam_features(g, r["beams_made"], r["beam_pixels"], cal))
-            ys.append(r["beams_s"])
-    for r in runs_all:
+    for r in pts + runs_all:
         g = _geometry(dict(r, radii=_run_radii(r)))
         for made, pixels, secs in r.get("beam_rows", []):
             rows.append(_beam_features(g, made, pixels, cal))
@@ -101,20 +97,22 @@ def calibrate(sweep):
     # direct updates: the points', the calibration runs' and the probe's of the whole
     # image; the exponent of the pass over the tracked pixels from the probe's
     # one-component updates (their cost per pixel and plane against the tracked set)
-    direct = [(len(r["scales"]), u[1], u[2], u[3]) for r in pts + runs_all
+    def passes(r):
+        return cost.direct_passes(len(r["scales"]), 0 in r["scales"])
+    direct = [(passes(r), u[1], u[2], u[3]) for r in pts + runs_all
               for u in r.get("update_rows", []) if u[0] == "direct"]
     probe = sweep.get("direct_probe", [])
-    direct += [(p["n_scales"], p["components"], p["tracked"], p["seconds"]) for p in probe]
+    direct += [(passes(p), p["components"], p["tracked"], p["seconds"]) for p in probe]
     ones = [p for p in probe if p["components"] == 1]
     if len({p["tracked"] for p in ones}) >= 2:
         law = fit_power_law([p["tracked"] for p in ones],
-                            [p["seconds"] / ((p["n_scales"] + 1) * p["tracked"]) for p in ones])
+                            [p["seconds"] / (passes(p) * p["tracked"]) for p in ones])
         cal["direct"]["pixel_exponent"] = float(np.clip(law["exponents"][0], 0.0, 1.0))
     delta = cal["direct"]["pixel_exponent"]
     if len(direct) >= 4:
         fit("direct", ("fixed", "per_madd", "per_pixel_plane"),
-            [[1.0, m * nt * (ns + 1), cost.direct_pixel_planes(ns, nt, delta)]
-             for ns, m, nt, _ in direct], [t for *_, t in direct])
+            [[1.0, m * nt * ps, cost.direct_pixel_planes(ps, nt, delta)]
+             for ps, m, nt, _ in direct], [t for *_, t in direct])
         cal["direct"]["pixel_exponent"] = delta
         cal["direct"]["allowance_used"] = DEFAULT_CALIBRATION["direct"]["allowance_used"]
     cyc = [(r, c) for r in pts for c in r.get("cycle_rows", [])]
