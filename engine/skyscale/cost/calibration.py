@@ -26,36 +26,35 @@ CALIBRATION_ENV = "SKYSCALE_COST_CALIBRATION"
 #: another version is not used.
 MODEL_VERSION = 2
 
-#: Coefficients measured on this machine (2 cores, shared, load average 5 to 5.5; 1 thread,
-#: float32, scipy.fft, CPU seconds) on 2026-12-04 by ``nice -n 10 python -m skyscale.cli
-#: bench --sizes 512,1024,2048 --out bench-out`` (the calibration it wrote, rounded to three
-#: figures; the exponents to four decimals, since U ** 0.004 is 7 % at U = 1e8).
-#: Seconds; an FFT of S points has work U = S log2 S and takes
+#: Coefficients measured on this machine (2 cores, shared, load average 1.9 to 2.2; 1
+#: thread, float32, scipy.fft, CPU seconds) on 2026-12-04 by ``nice -n 10 python -m
+#: skyscale.cli bench --sizes 512,1024,2048 --out bench-out`` (the calibration it wrote,
+#: rounded to three figures; the exponents to four decimals, since U ** 0.004 is 7 % at
+#: U = 1e8).  Seconds; an FFT of S points has work U = S log2 S and takes
 #: ``fft.coefficient * U ** fft.exponent``; the other families are linear in the
-#: predicted FFT seconds and in pixels (see `skyscale.cost`).  Two threads were slower
-#: than one on the loaded machine, so the parallel fractions came out 0.  On the runs
-#: the fit did not see (768 px, scales 0-16; 1536 px and 640 px, scales 0-32) the
-#: planner's total was 1.07, 0.86 and 0.93 x the measured with the runs' own counts.
+#: predicted FFT seconds and in pixels (see `skyscale.cost`).  On the runs the fit did
+#: not see (768 px, scales 0-16; 1536 px and 640 px, scales 0-32) the planner's total
+#: was 1.03, 0.89 and 1.07 x the measured with the runs' own counts.
 DEFAULT_CALIBRATION = {
     "model": MODEL_VERSION,
-    "source": "built-in: skyscale bench --sizes 512,1024,2048, 2026-12-04 (CPU seconds, load 5-5.5)",
-    "fft": {"coefficient": 2.979e-11, "exponent": 1.1338},
-    "precompute": {"fixed": 0.00488, "per_psf_pixel": 1.95e-09, "per_fft_second": 1.35},
-    "beams": {"fixed": 0.000588, "per_fft_second": 0.378, "per_beam_pixel": 6.11e-09},
-    "setup": {"fixed": 0.0123, "per_fft_second": 0.901},
-    "round": {"fixed": 0.00474, "per_fft_second": 0.72, "per_plane_pixel": 2.47e-09},
-    "direct": {"fixed": 0.00176, "per_madd": 3e-10, "per_pixel_plane": 3.91e-09,
-               "pixel_exponent": 0.5490, "allowance_used": 0.356},
-    "scan": {"cycle_fixed": 0.00802, "per_plane_pixel": 1.71e-08, "per_tracked_pixel": 2.18e-10},
-    "loop": {"per_component_pixel": 2.29e-09, "per_active_pixel": 1.04e-07, "per_sub_loop": 0.00019},
-    "major": {"fixed": 0.00176, "per_fft_second": 0.468, "per_plane_pixel": 0.0},
-    "stats": {"fixed": 0.0225, "per_fft_second": 2.06, "per_plane_pixel": 3.22e-09},
-    "counts": {"rounds_per_scale_cycle": 7.6, "active_fraction": 0.0189, "cycles_offset": 1.73,
-               "fft_update_fraction": 0.376},
-    "threads": {"fft_parallel": 0.0, "loop_parallel": 0.0, "measured_with": 2.0},
-    "memory": {"scale": 0.92},
+    "source": "built-in: skyscale bench --sizes 512,1024,2048, 2026-12-04 (CPU seconds, load 2)",
+    "fft": {"coefficient": 4.92e-11, "exponent": 1.0997},
+    "precompute": {"fixed": 0.00439, "per_psf_pixel": 2.14e-09, "per_fft_second": 1.53},
+    "beams": {"fixed": 0.0, "per_fft_second": 0.0, "per_beam_pixel": 9.32e-09},
+    "setup": {"fixed": 0.00298, "per_fft_second": 1.33},
+    "round": {"fixed": 0.00302, "per_fft_second": 0.696, "per_plane_pixel": 2.82e-10},
+    "direct": {"fixed": 0.000958, "per_madd": 3.46e-10, "per_pixel_plane": 4.56e-09,
+               "pixel_exponent": 0.5035, "allowance_used": 0.347},
+    "scan": {"cycle_fixed": 0.00713, "per_plane_pixel": 6.44e-09, "per_tracked_pixel": 1.07e-09},
+    "loop": {"per_component_pixel": 1.3e-09, "per_active_pixel": 5.34e-07, "per_sub_loop": 0.000321},
+    "major": {"fixed": 0.0, "per_fft_second": 0.376, "per_plane_pixel": 1.38e-08},
+    "stats": {"fixed": 0.0166, "per_fft_second": 1.44, "per_plane_pixel": 1.77e-09},
+    "counts": {"rounds_per_scale_cycle": 7.87, "active_fraction": 0.0185, "cycles_offset": 1.73,
+               "fft_update_fraction": 0.392},
+    "threads": {"fft_parallel": 0.642, "loop_parallel": 0.908, "measured_with": 2.0},
+    "memory": {"scale": 0.94},
     "range": {"max_image_pixels": 2048 * 2048},
-    "startup": {"fixed": 1.46},
+    "startup": {"fixed": 1.49},
 }
 
 

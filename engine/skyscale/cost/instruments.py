@@ -8,17 +8,19 @@ changes a result.  `skyscale.cost.sweep` uses them; nothing here prints.
 """
 
 import contextlib
+import logging
 import os
 import threading
 import time
 import tracemalloc
+import warnings
 
 import numpy as np
 
 from skyscale.core.fft import get_backend
 
 __all__ = ["PeakMemory", "RSS_INTERVAL", "cpu_clock", "SubLoopRecord", "record_sub_loops",
-           "fft_probe"]
+           "fft_probe", "kept_warnings"]
 
 
 # --------------------------------------------------------------------------- memory
@@ -188,3 +190,29 @@ def fft_probe(grids, *, threads=1, repeats=3, backend="auto"):
         out.append({"grid": list(grid), "seconds": best, "threads": int(threads)})
         del a, spec
     return out
+
+
+@contextlib.contextmanager
+def kept_warnings():
+    """Within the block the engine's warnings (logged by ``skyscale.core`` and raised
+    with `warnings.warn`) are kept in the list it yields instead of reaching the user:
+    the sweep's own runs are measurements, and what they warn about belongs in the
+    record, not on the terminal of whoever runs ``skyscale bench``."""
+    kept = []
+
+    class _Keep(logging.Handler):
+        def emit(self, record):
+            kept.append(record.getMessage())
+
+    log = logging.getLogger("skyscale.core")
+    handler, saved = _Keep(level=logging.WARNING), log.propagate
+    log.addHandler(handler)
+    log.propagate = False
+    try:
+        with warnings.catch_warnings(record=True) as said:
+            warnings.simplefilter("always")
+            yield kept
+        kept.extend(str(w.message) for w in said if str(w.message) not in kept)
+    finally:
+        log.removeHandler(handler)
+        log.propagate = saved

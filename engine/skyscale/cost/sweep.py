@@ -28,7 +28,8 @@ import numpy as np
 
 from skyscale.cost import model as cost
 from skyscale.cost.instruments import (RSS_INTERVAL, PeakMemory, SubLoopRecord,  # noqa: F401
-                                       cpu_clock, fft_probe, record_sub_loops)
+                                       cpu_clock, fft_probe, kept_warnings,
+                                       record_sub_loops)
 from skyscale.core.threads import resolve_threads, thread_limit
 from skyscale.core.driver import masked_stats
 from skyscale.core.engine import Engine
@@ -168,7 +169,8 @@ def measure_run(dirty, psf, scales, *, max_components, noise_threshold=3.0, thre
     if resolve_threads(threads) != 1:
         raise ValueError(f"threads is {threads}: measure_run times CPU seconds and needs 1")
     from skyscale.core.driver import deconvolve
-    with record_sub_loops() as loops, PeakMemory(RSS_INTERVAL) as mem, cpu_clock():
+    with record_sub_loops() as loops, PeakMemory(RSS_INTERVAL) as mem, cpu_clock(), \
+            kept_warnings() as said:
         t0, c0 = time.perf_counter(), time.process_time()
         res = deconvolve(dirty, psf, scales=scales, max_components=max_components,
                          noise_threshold=noise_threshold, threads=threads, restore=False)
@@ -188,6 +190,7 @@ def measure_run(dirty, psf, scales, *, max_components, noise_threshold=3.0, thre
     return {"image_shape": list(dirty.shape), "psf_shape": list(psf.shape),
             "scales": list(scales), "field": seed_note, "threads": resolve_threads(threads),
             "max_components": int(max_components), "stop_reason": res.stop_reason,
+            "warnings": list(said),
             "components": int(res.components.size), "rounds": int(res.sub_loops),
             "fft_updates": int(res.fft_updates),
             "direct_updates": sum(1 for u in loops.updates if u[0] == "direct" and u[4]),
