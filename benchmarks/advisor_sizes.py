@@ -11,6 +11,15 @@ Run from the repository root::
 
     PYTHONPATH=engine python benchmarks/advisor_sizes.py            # the full table
     PYTHONPATH=engine python benchmarks/advisor_sizes.py --quick    # a few rows
+    PYTHONPATH=engine python benchmarks/advisor_sizes.py --groups 512 1024 2048 4096
+
+``--groups`` measures issue 20's field (tests/advisor_fields.group_field: an ellipse of
+smaller extent 72 k px, a Gaussian of FWHM 46 k, an arc 12 k wide and eight points to
+1e4 times the noise, through the invented array's PSF), the same sky (k = 1) embedded in
+every image size and the sky scaled up with the image (k = n / 512): the scales
+suggested with the image as given (``clean_first=False``, the old reading) and with
+the bright emission cleaned out first, the largest over the largest true single
+structure (ok within 0.3 to 1.0), the noise read, and the seconds taken.
 
 Verdicts: ``ok`` when the largest suggested scale is between 0.3 and 0.8 of the true
 size; ``capped (image)`` when a quarter of the image sets it (the reasons say so);
@@ -76,10 +85,38 @@ def issue_field(n, seed=0):
     return disk + blob - noise_field(n, seed=seed + 1), 290 * k, per_pixel
 
 
+def groups(sizes):
+    """Issue 20's separate-object field at each size: before and after, with times."""
+    from tests.advisor_fields import group_field
+    print("| image | k | largest true px | as given: scales | noise read | s | "
+          "cleaned first: scales | noise read | s | largest / true | verdict |")
+    print("|---|---|---|---|---|---|---|---|---|---|---|")
+    for n in sizes:
+        for k in sorted({1.0, n / 512.0}):
+            dirty, psf, _, truth = group_field(n, k)
+            true = max(w for _, w, *_ in truth)
+            t0 = time.perf_counter()
+            old = suggest_scales(dirty, psf, clean_first=False)
+            t1 = time.perf_counter()
+            new = suggest_scales(dirty, psf)
+            t2 = time.perf_counter()
+            ratio = max(new.pixels) / true
+            print(f"| {n} | {k:g} | {true:.0f} | {', '.join(map(str, old.pixels))} | "
+                  f"{old.extent.noise_by_smoothing[0][1]:.3g} | {t1 - t0:.1f} | "
+                  f"{', '.join(map(str, new.pixels))} | {new.view['noise_after']:.3g} | "
+                  f"{t2 - t1:.1f} | {ratio:.2f} | "
+                  f"{'ok' if 0.3 <= ratio <= 1.0 else 'MISS'} |", flush=True)
+
+
 def main(argv=None):
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="a few rows only")
+    parser.add_argument("--groups", type=int, nargs="+", metavar="N",
+                        help="issue 20's separate-object field at these image sizes")
     args = parser.parse_args(argv)
+    if args.groups:
+        groups(args.groups)
+        return
     sizes = (2, 4, 8, 16, 32, 64, 128, 256, 400)
     snrs = (1, 3, 10, 30, 100)
     if args.quick:

@@ -14,7 +14,8 @@ import numpy as np
 from scipy import ndimage
 
 __all__ = ["FWHM_PER_SIGMA", "BEAM", "gaussian_psf", "bowl_psf", "make_field",
-           "point_field", "noise_field", "smoothed_snr", "source_with_compact"]
+           "point_field", "noise_field", "smoothed_snr", "source_with_compact",
+           "group_sky", "group_field"]
 
 #: Gaussian FWHM = 2 sqrt(2 ln 2) sigma (analytic).
 FWHM_PER_SIGMA = 2.0 * math.sqrt(2.0 * math.log(2.0))
@@ -171,3 +172,63 @@ def smoothed_snr(seen, fwhm, correlated=False, beam=BEAM):
     else:
         rms = 1.0 if s == 0 else 1.0 / (2.0 * math.sqrt(math.pi) * s)
     return float(peak / rms)
+
+
+def group_sky(n, k=1.0, *, sigma=1e-4, dynamic_range=1e4, seed=3):
+    """Separate objects of known extent at the centre of an ``n x n`` sky (Jy/pixel).
+
+    An ellipse 72 k x 102 k px (a uniform disk squashed; smaller extent 72 k), a
+    Gaussian of FWHM 46 k px, an arc 12 k px wide (a ring of radius 60 k cut to 137
+    degrees) and eight points, the brightest ``dynamic_range * sigma`` Jy, all within
+    the central ``512 k`` px: the same sky at every ``n >= 512 k``.
+
+    Returns
+    -------
+    sky : (n, n) ndarray
+    truth : list of (kind, smaller extent px, y, x)
+    """
+    sky = np.zeros((n, n))
+    yy, xx = np.mgrid[:n, :n].astype(np.float64)
+    c = n / 2.0
+
+    def at(dy, dx):
+        return c + dy * k, c + dx * k
+
+    truth = []
+    cy, cx = at(-90, -100)
+    a, b = 51 * k, 36 * k
+    sky += 0.6 * sigma * (((yy - cy) / a) ** 2 + ((xx - cx) / b) ** 2 <= 1)
+    truth.append(("ellipse", 2 * b, cy, cx))
+    cy, cx = at(100, -80)
+    s = 46 * k / FWHM_PER_SIGMA
+    sky += sigma * np.exp(-((yy - cy) ** 2 + (xx - cx) ** 2) / (2 * s * s))
+    truth.append(("gaussian", 46 * k, cy, cx))
+    cy, cx = at(0, 110)
+    r, th = np.hypot(yy - cy, xx - cx), np.arctan2(yy - cy, xx - cx)
+    sky += 0.8 * sigma * ((np.abs(r - 60 * k) <= 6 * k) & (np.abs(th) < 1.2))
+    truth.append(("arc", 12 * k, cy, cx))
+    rng = np.random.default_rng(seed)
+    for i in range(8):
+        dy, dx = rng.uniform(-220, 220, 2)
+        y, x = int(c + dy * k), int(c + dx * k)
+        flux = dynamic_range if i == 0 else math.exp(rng.uniform(math.log(30),
+                                                                 math.log(dynamic_range / 3)))
+        sky[y, x] += sigma * flux
+        truth.append(("point", 0.0, y, x))
+    return sky, truth
+
+
+def group_field(n, k=1.0, *, sigma=1e-4, dynamic_range=1e4, seed=0):
+    """`group_sky` observed by the invented array of ``benchmarks/fields.py`` (natural
+    weighting, beam about 5.6 x 3.5 px at every ``n``): ``(dirty, psf, sky, truth)``,
+    the PSF ``(2n, 2n)``, the noise of deviation ``sigma`` with the PSF as covariance."""
+    from scipy.signal import fftconvolve
+
+    from benchmarks.fields import correlated_noise, invented_array, natural_psf, uv_tracks
+
+    sky, truth = group_sky(n, k, sigma=sigma, dynamic_range=dynamic_range)
+    u, v = uv_tracks(invented_array(27, seed=seed))
+    psf, weights = natural_psf(u, v, n, fill=0.6)
+    dirty = fftconvolve(sky, psf, mode="full")[n:2 * n, n:2 * n]
+    dirty += correlated_noise(weights, n, sigma, np.random.default_rng(seed + 1000))
+    return dirty.astype(np.float32), psf.astype(np.float32), sky, truth

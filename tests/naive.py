@@ -7,7 +7,8 @@ The compiled kernels must give the same components and the same values.
 
 import numpy as np
 
-__all__ = ["scale_loop", "smooth_all", "stamp_components", "convolve_centred"]
+__all__ = ["scale_loop", "smooth_all", "stamp_components", "convolve_centred", "view_loop",
+           "direct_subtract", "tracked_peaks", "masked_peak"]
 
 
 def scale_loop(values, ys, xs, beam, *, beam_peak, gain, level, max_iter):
@@ -94,3 +95,34 @@ def tracked_peaks(planes, allowed):
 def masked_peak(image, mask):
     """Twin of `skyscale.core.kernels.tracked.masked_peak`."""
     return float(np.abs(image[mask]).max()) if mask.any() else 0.0
+
+
+def view_loop(values, ys, xs, scale, levels, patches, pair, *, gain, budget, weights=None):
+    """Multi-scale Hogbom steps over candidates, whole-array numpy (twin of
+    masks.view_loop.view_loop).
+
+    At each step: of the candidates whose value over its scale's level is above 1,
+    the one with the largest such ratio times its scale's weight (first index on
+    ties, as ``np.argmax``); stop when none is above 1; take ``gain`` times
+    its value over its own scale's patch peak; subtract that times the patch of the
+    pair (its scale, each candidate's scale) at every candidate within the patch.
+    ``values`` is updated in place.  Returns ``(index, flux)``.
+    """
+    half = (patches.shape[1] - 1) // 2
+    index, flux = [], []
+    weights = np.ones(len(levels)) if weights is None else np.asarray(weights, float)
+    while len(index) < budget and values.size:
+        ratio = values / levels[scale]
+        score = np.where(ratio > 1.0, ratio * weights[scale], 0.0)
+        k = int(np.argmax(score))
+        if not score[k] > 0.0:
+            break
+        j = scale[k]
+        f = gain * float(values[k]) / float(patches[pair[j, j], half, half])
+        dy, dx = ys - ys[k], xs - xs[k]
+        near = (np.abs(dy) <= half) & (np.abs(dx) <= half)
+        values[near] -= f * patches[pair[j, scale[near]], dy[near] + half,
+                                    dx[near] + half].astype(np.float64)
+        index.append(k)
+        flux.append(f)
+    return np.array(index, dtype=np.int64), np.array(flux)

@@ -91,8 +91,10 @@ def test_emission_mask_calls_the_one_detection_routine():
     dirty, _ = make_field("disk", 60, 2.0, 256, seed=3)
     am = EmissionMask([0, 8, 16, 32], BEAM)
     mask = am.update(dirty)
-    found = detect_emission(dirty.astype(np.float32), BEAM, [0, 4, 8, 16])
+    found = detect_emission(dirty.astype(np.float32), BEAM, [0, 4, 8, 16],
+                            guard_negative=True)        # the mask's guard (default on)
     assert list(am.noise.values()) == pytest.approx(list(found.noise))
+    assert list(am.levels.values()) == pytest.approx(list(found.levels))
     assert (mask | ~found.mask).all()            # grown from the same detections
 
 
@@ -148,3 +150,15 @@ def test_compact_source_on_a_disk_is_set_apart():
     assert disk.shape == "disk" and disk.measured
     assert disk.intrinsic_px == pytest.approx(50.0, rel=0.05)
     assert disk.compact / disk.peak == pytest.approx(40.0, rel=0.1)
+
+
+def test_label_max_matches_scipy_ndimage_maximum():
+    # Reference library: scipy.ndimage.maximum over labels 1..n.
+    from scipy import ndimage
+
+    from skyscale.masks.detect import _label_max
+    rng = np.random.default_rng(11)
+    image = rng.normal(size=(60, 70)).astype(np.float32)
+    labels, n = ndimage.label(rng.random((60, 70)) < 0.3)
+    np.testing.assert_array_equal(_label_max(image, labels, n),
+                                  ndimage.maximum(image, labels, np.arange(1, n + 1)))

@@ -28,6 +28,7 @@ import numpy as np
 from skyscale.core.validate import InputError, as_image
 from skyscale.core.beam import Beam, fit_beam
 from skyscale.masks.detect import DIAMETER_MEASURES
+from skyscale.masks.sky_view import sky_view
 from skyscale.advisor.extent import EmissionExtent, measure_emission_extent
 from skyscale.advisor.rules import (DEFAULT_MAX_COUNT, DELTA_FRACTION, IMAGE_FRACTION,
                                     MIN_SCALE_RATIO, RECOVERABLE_FACTOR, RECOVERABLE_FRACTION,
@@ -78,6 +79,10 @@ class ScaleSuggestion:
     costs : dict
         Predicted seconds and bytes of a run with ``pixels`` and with ``fuller``
         (from `skyscale.plan_run`), when ``fuller`` is given.
+    view : dict or None
+        How the measured image was made (`skyscale.masks.sky_view.SkyView.as_dict`):
+        the bright emission cleaned out and restored; None when the image was measured
+        as given.
     """
 
     pixels: tuple
@@ -92,6 +97,7 @@ class ScaleSuggestion:
     limits: ScaleLimits = None
     fuller: tuple = None
     costs: dict = field(default_factory=dict)
+    view: dict = None
 
     def as_dict(self):
         """Plain Python values, ready for a JSON report."""
@@ -105,7 +111,8 @@ class ScaleSuggestion:
                 "image_limit_px": self.image_limit_px,
                 "extent": None if self.extent is None else self.extent.as_dict(),
                 "fuller": None if self.fuller is None else list(self.fuller),
-                "costs": dict(self.costs)}
+                "costs": dict(self.costs),
+                "view": None if self.view is None else dict(self.view)}
 
 
 def _resolve_beam(psf, beam):
@@ -155,7 +162,7 @@ def _costs(dirty, psf, chosen, fuller):
 
 def suggest_scales(dirty, psf=None, *, cell_arcsec=None, largest_size=None,
                    shortest_baseline=None, max_count=DEFAULT_MAX_COUNT, min_count=None,
-                   beam=None, sigma=5.0):
+                   beam=None, sigma=5.0, clean_first=True):
     """Suggest scale diameters for a field, with a reason for each decision.
 
     Parameters
@@ -164,8 +171,10 @@ def suggest_scales(dirty, psf=None, *, cell_arcsec=None, largest_size=None,
         Dirty image, Jy/beam.
     psf : (py, px) ndarray, optional
         The PSF, peak at ``(py // 2, px // 2)``; the beam is fitted to it, and the
-        emission's profiles are fitted through it, sidelobes and all.  Not needed
-        when ``beam`` is given (the profiles are then fitted through that beam).
+        bright emission is cleaned out with it before measuring (``clean_first``; the
+        profiles are then fitted through the beam), or, without that, the emission's
+        profiles are fitted through it, sidelobes and all.  Not needed when ``beam``
+        is given (the image is then measured as given, through that beam).
     cell_arcsec : Quantity ['angle'] or float, optional
         Pixel size (float: arcsec).  Needed by ``largest_size`` and
         ``shortest_baseline``, and for ``arcsec`` in the result.
@@ -187,6 +196,12 @@ def suggest_scales(dirty, psf=None, *, cell_arcsec=None, largest_size=None,
     sigma : float
         Detection level for the measured extent, in units of each smoothed image's
         noise.  Default 5.
+    clean_first : bool
+        With a ``psf``, measure the emission on the image with its bright emission
+        taken out by a short clean and restored through the beam
+        (`skyscale.masks.sky_view.sky_view`): the PSF's sidelobes of bright compact
+        sources otherwise dominate the noise and hide the structures.  Default True;
+        without a ``psf`` the image is measured as given.
 
     Returns
     -------
@@ -287,7 +302,7 @@ def suggest_scales(dirty, psf=None, *, cell_arcsec=None, largest_size=None,
     reasons.append(f"beam FWHM {beam_px:.1f} px{angle(beam_px)}, geometric mean of "
                    f"{used.major:.1f} x {used.minor:.1f} px: first finite scale {first} px")
 
-    extent = structure = None
+    extent = structure = view = None
     note = ""
     if size_arcsec is not None:
         structure = size_arcsec / cell
@@ -296,7 +311,15 @@ def suggest_scales(dirty, psf=None, *, cell_arcsec=None, largest_size=None,
                        "px: largest scale at most 2/3 of it, "
                        f"{STRUCTURE_FRACTION * structure:.1f} px")
     else:
-        extent = measure_emission_extent(image, used, sigma=sigma, psf=psf)
+        if clean_first and psf is not None:
+            seen = sky_view(image, psf, beam=used)
+            view, measured, through = seen.as_dict(), seen.image, None
+            reasons.append(f"the emission is {seen.describe()}")
+        else:
+            view, measured, through = None, image, psf
+            reasons.append("the emission is measured on the image as given"
+                           + ("" if psf is not None else " (no PSF to clean it with)"))
+        extent = measure_emission_extent(measured, used, sigma=sigma, psf=through)
         ladder = extent.noise_by_smoothing
         if extent.n_islands == 0:
             noise = (f"(measured off the emission) at smoothings from 0 to "
@@ -321,7 +344,7 @@ def suggest_scales(dirty, psf=None, *, cell_arcsec=None, largest_size=None,
                 f"{note} (the image's noise measured off the emission at each smoothing, "
                 f"{sigma:g} sigma islands; {extent.largest_px:.1f} px as seen at half its "
                 f"peak, its profile fitted by a {extent.shape} seen through the "
-                f"{'PSF' if psf is not None else 'beam'} and the smoothing"
+                f"{'PSF' if through is not None else 'beam'} and the smoothing"
                 f"{compact}): largest scale at most 2/3 of it, "
                 f"{STRUCTURE_FRACTION * structure:.1f} px")
     limits = scale_limits(image.shape, beam_px, structure_px=structure, structure_note=note,
@@ -384,7 +407,7 @@ def suggest_scales(dirty, psf=None, *, cell_arcsec=None, largest_size=None,
         logger.debug("scale advice: %s", line)
     return ScaleSuggestion(pixels, arcsec, reasons, beam_px, structure,
                            limits.recoverable_px, limits.image_limit_px, used, extent,
-                           limits, fuller, costs)
+                           limits, fuller, costs, view)
 
 
 def resolve_scales(scales, dirty, psf, cell_arcsec=None, **options):

@@ -117,6 +117,15 @@ def run_cycles(engine, operator, *, dirty=None, model=None, mask=None, threshold
     'diverging' otherwise.  Rollbacks are counted in ``result.rollbacks``.  A residual
     with non-finite values stops the run as 'diverging' with the last good model.
     """
+    with thread_limit(engine.threads):      # the noise and the mask's FFTs too
+        return _run_cycles(engine, operator, dirty, model, mask, threshold, noise_threshold,
+                           extended_depth, max_components, max_major_cycles, cycle_depth,
+                           mask_updater, callback, blank)
+
+
+def _run_cycles(engine, operator, dirty, model, mask, threshold, noise_threshold,
+                extended_depth, max_components, max_major_cycles, cycle_depth, mask_updater,
+                callback, blank):
     t_major = 0.0
     t_minor = 0.0
     t0 = time.perf_counter()

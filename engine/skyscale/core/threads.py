@@ -77,12 +77,15 @@ def resolve_threads(threads):
 
 @contextlib.contextmanager
 def thread_limit(threads):
-    """Context manager: Numba kernels inside use ``threads`` threads."""
+    """Context manager: Numba kernels and ``scipy.fft`` calls inside use ``threads``
+    threads (scipy.fft's default workers; its results do not depend on them)."""
+    import scipy.fft
     n = resolve_threads(threads)
     previous = numba.get_num_threads()
     numba.set_num_threads(n)
     try:
-        yield n
+        with scipy.fft.set_workers(n):
+            yield n
     finally:
         numba.set_num_threads(previous)
 

@@ -18,8 +18,9 @@ from scipy import fft as sfft
 from scipy import ndimage
 
 from skyscale.core.validate import as_image
-from skyscale.core.beam import gaussian_area
+from skyscale.core.beam import Beam, gaussian_area
 from skyscale.masks.detect import detect_emission
+from skyscale.masks.sky_view import sky_view
 
 __all__ = ["EmissionMask", "emission_mask"]
 
@@ -68,6 +69,15 @@ class EmissionMask:
         Also follow significant negative residuals.
     cell_arcsec : float, optional
         Cell size, to accept angles for ``scales`` and ``beam_fwhm_px``.
+    guard_negative : bool
+        Raise each scale's level to the deepest negative value off the emission where
+        that is deeper (see Notes).  Default True.
+    psf : (py, px) ndarray, optional
+        The PSF (peak 1 at ``(py // 2, px // 2)``).  Given, the bright emission left
+        in the residual is cleaned out and restored before detection
+        (`skyscale.masks.sky_view.sky_view`), so that its sidelobes, positive shelves
+        near the main lobe included, are not taken for emission.  Default None: the
+        residual is looked at as given.
 
     Raises
     ------
@@ -80,7 +90,17 @@ class EmissionMask:
     each smoothed image is thresholded at ``sigma`` times its own noise, measured
     where it holds no emission (`skyscale.masks.detect.detect_emission`: robust noise,
     1.4826 * MAD [1]_, with the emission and the protected pixels left out); smoothing
-    lowers the noise, so broad faint emission stands out at large scales.  The
+    lowers the noise, so broad faint emission stands out at large scales.  Noise and
+    sidelobes have both signs and emission one, so (``guard_negative``) each
+    scale's level is raised to
+    the deepest negative value off the emission where that is deeper, and the
+    negative islands below ``-sigma`` times the noise are counted (``spurious``: as
+    many positive islands at that plain level would be false), and what a wider
+    scale adds is kept only for islands the smoothing made more significant (an
+    unresolved source seen blurred adds nothing); see
+    `skyscale.masks.detect.detect_emission`'s ``guard_negative``.  With ``psf``, the
+    residual's bright emission is first cleaned out and restored
+    (`skyscale.masks.sky_view.sky_view`), so its sidelobes do not make islands.  The
     detections are united, small islands dropped (``scipy.ndimage.label``,
     8-connected) and the rest grown.  Pixels holding model flux and pixels of the
     previous mask are always kept, so the mask only grows over major cycles.
@@ -108,7 +128,7 @@ class EmissionMask:
 
     def __init__(self, scales, beam_fwhm_px, *, sigma=5.0, grow_beams=1.0,
                  min_island_beams=1.0, smooth_fraction=0.5, include_negative=False,
-                 cell_arcsec=None):
+                 cell_arcsec=None, guard_negative=True, psf=None):
         if isinstance(scales, u.Quantity):
             scales = [_positive(s, "scales", allow_zero=True, cell_arcsec=cell_arcsec)
                       for s in np.atleast_1d(scales)]
@@ -133,6 +153,18 @@ class EmissionMask:
                                           allow_zero=True)
         self.smooth_fraction = _positive(smooth_fraction, "smooth_fraction")
         self.include_negative = bool(include_negative)
+        self.guard_negative = bool(guard_negative)
+        self.psf = None if psf is None else as_image(psf, "psf")
+        #: How the image detected at the last update was made, when ``psf`` is given
+        #: (`skyscale.masks.sky_view.SkyView.as_dict`).
+        self.view = None
+        #: The level each scale was cut at, at the last update (``sigma`` times its
+        #: noise, or the deepest negative off the emission when deeper).
+        self.levels = {}
+        #: Negative islands below ``-sigma`` times the noise, by scale, at the last
+        #: update: about as many positive islands at that level are expected to be
+        #: false (noise and sidelobes have both signs, emission one).
+        self.spurious = {}
         #: Beam area in pixels, pi FWHM^2 / (4 ln 2) (`skyscale.core.beam.gaussian_area`).
         self.beam_area_px = gaussian_area(self.beam_fwhm_px, self.beam_fwhm_px)
         #: The mask of the last `update`, or None.
@@ -144,6 +176,9 @@ class EmissionMask:
         """Forget the previous mask (start over on a new image)."""
         self.mask = None
         self.noise = {}
+        self.levels = {}
+        self.spurious = {}
+        self.view = None
 
     def smoothing_px(self):
         """Smoothing FWHM in pixels for each scale (``smooth_fraction`` of it)."""
@@ -210,11 +245,18 @@ class EmissionMask:
                                  f"pass a {name} on the residual's grid")
             protected |= np.nan_to_num(extra) != 0
         widths = self.smoothing_px()
-        found = detect_emission(res, self.beam_fwhm_px, [widths[s] for s in self.scales],
+        sky = res
+        if self.psf is not None:
+            seen = sky_view(res, self.psf, beam=Beam(self.beam_fwhm_px, self.beam_fwhm_px))
+            sky, self.view = seen.image, seen.as_dict()
+        found = detect_emission(sky, self.beam_fwhm_px, [widths[s] for s in self.scales],
                                 sigma=self.sigma, exclude=protected,
                                 include_negative=self.include_negative,
-                                reference_noise=noise)
+                                reference_noise=noise,
+                                guard_negative=self.guard_negative)
         self.noise = dict(zip(self.scales, found.noise))
+        self.levels = dict(zip(self.scales, found.levels))
+        self.spurious = dict(zip(self.scales, found.spurious))
         detected = found.mask
         labels, n = ndimage.label(detected, structure=np.ones((3, 3), dtype=bool))
         if n:
@@ -225,9 +267,10 @@ class EmissionMask:
             detected = keep[labels]
         mask = self._grow(detected) | protected
         self.mask = mask
-        logger.debug("auto mask: %d islands found, %d pixels (%.2f%%); noise by scale %s",
+        logger.debug("auto mask: %d islands found, %d pixels (%.2f%%); noise by scale %s; "
+                     "negative islands (false ones expected) by scale %s",
                      n, int(mask.sum()), 100.0 * mask.mean(),
-                     {k: f"{v:.3g}" for k, v in self.noise.items()})
+                     {k: f"{v:.3g}" for k, v in self.noise.items()}, self.spurious)
         return mask
 
 
