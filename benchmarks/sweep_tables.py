@@ -28,14 +28,17 @@ def show_tables(sweep, out=None):
     out.print(f"load average at the start {m['load'][0]:.1f}, at the end "
               f"{m.get('load_after', [float('nan')])[0]:.1f} ({m['cores']} cores)")
     t = Table(title="what scales cost: measured (model), 1 thread, float32")
-    for c in ("size", "scales (px)", "precompute s", "sub-loop update ms", "sub-loops s",
-              "major ms", "statistics ms", "peak MiB", "engine's own MiB", "RSS+ MiB"):
+    for c in ("size", "scales (px)", "precompute s", "beams s", "FFT update ms",
+              "direct updates", "sub-loops s", "major ms", "statistics ms", "peak MiB",
+              "engine's own MiB", "RSS+ MiB"):
         t.add_column(c, justify="right")
     for r in sweep["points"]:
         md = r["model"]
         t.add_row(str(r["size"]), _scales(r["scales"]),
                   f"{r['precompute_s']:.3f} ({md['precompute_s']:.3f})",
+                  "-" if "beams_s" not in r else f"{r['beams_s']:.3f} ({md['beams_s']:.3f})",
                   f"{r['round_s'] * 1e3:.1f} ({md['round_s'] * 1e3:.1f})",
+                  str(sum(1 for u in r.get("update_rows", []) if u[0] == "direct")),
                   f"{md['loops_measured_s']:.3f} ({md['loops_s']:.3f})",
                   f"{r['major_s'] * 1e3:.1f} ({md['major_s'] * 1e3:.1f})",
                   f"{r['stats_s'] * 1e3:.1f} ({md['stats_s'] * 1e3:.1f})",
@@ -52,14 +55,15 @@ def show_tables(sweep, out=None):
     cal = sweep["calibration"]
     out.print("cost model coefficients: " + "; ".join(
         f"{sec} " + ", ".join(f"{k} {v:.3g}" for k, v in cal[sec].items())
-        for sec in ("fft", "precompute", "round", "loop", "major", "stats", "counts",
-                    "threads", "memory", "startup")))
+        for sec in ("fft", "precompute", "beams", "setup", "round", "direct", "scan", "loop",
+                    "major", "stats", "counts", "threads", "memory", "startup") if sec in cal))
     out.print("relative misfit per family, rms (largest): " + ", ".join(
         f"{k} {v['rms']:.0%} ({v['max']:.0%})" for k, v in cal["fit"].items()))
     for v in sweep["validation"]:
         t = Table(title=f"planner against a run it did not see: {v['field']}, scales "
                   f"{_scales(v['scales'])}, {v['threads']} thread(s): {v['components']} "
-                  f"components, {v['rounds']} sub-loops, {v['major_cycles']} major cycles, "
+                  f"components, {v['rounds']} sub-loops ({v.get('fft_updates', '?')} by FFT "
+                  f"update), {v['major_cycles']} major cycles, "
                   f"stop {v['stop_reason']} (predicted / measured)")
         t.add_column("counts")
         for k in v["measured"]:

@@ -19,6 +19,7 @@ import pytest
 from astropy import units as u
 
 from skyscale import deconvolve, plan_run
+from skyscale.cost.planner import bytes_text, seconds_text
 from skyscale.advisor.suggest import (DEFAULT_MAX_COUNT, ScaleChoiceWarning, ScaleSuggestion,
                                       check_scales, measure_emission_extent, resolve_scales,
                                       suggest_scales)
@@ -187,12 +188,15 @@ def test_count_is_four_by_default_and_more_are_costed(disk40):
     s = suggest_scales(disk40, gaussian_psf(160), cell_arcsec=CELL)
     assert len(s.pixels) == 4 and s.pixels[-1] == 26           # 2/3 of 40 px
     assert s.fuller == (0, 4, 7, 14, 26)
-    # The costs are the planner's (skyscale.plan_run) for the two sets.
-    small = plan_run(disk40.shape, gaussian_psf(160), s.pixels)
-    big = plan_run(disk40.shape, small.psf_shape, s.fuller)
+    # The costs are the planner's (skyscale.plan_run) for the two sets, with the dynamic
+    # range of this dirty image, as skyscale plan quotes them for the same files.
+    small = plan_run(disk40.shape, gaussian_psf(160), s.pixels, dirty=disk40)
+    big = plan_run(disk40.shape, small.psf_shape, s.fuller, dirty=disk40)
     assert s.costs["seconds"] == pytest.approx(small.total_seconds)
     assert s.costs["fuller_seconds"] == pytest.approx(big.total_seconds)
-    assert any(r.startswith("more scales would help") and f"{big.total_seconds:.3g} s" in r
+    assert s.costs["bytes"] == small.memory_bytes
+    assert any(r.startswith("more scales would help") and
+               f"{seconds_text(big.total_seconds)} and {bytes_text(big.memory_bytes)}" in r
                and "max_count = 5" in r for r in s.reasons)
     five = suggest_scales(disk40, gaussian_psf(160), max_count=5)
     assert five.pixels == s.fuller and five.fuller is None

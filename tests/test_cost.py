@@ -60,31 +60,70 @@ def test_fit_nonnegative_recovers_coefficients_and_clips():
 
 
 # ------------------------------------------------------------------------- geometry
+class _GridsSeen(NumpyFFT):
+    """numpy's FFTs, recording the grid of every transform."""
+
+    def __init__(self):
+        super().__init__()
+        self.grids = set()
+
+    def rfft2(self, a, s):
+        self.grids.add(tuple(s))
+        return super().rfft2(a, s)
+
+    def irfft2(self, a, s):
+        self.grids.add(tuple(s))
+        return super().irfft2(a, s)
+
+
 @pytest.mark.parametrize("n,psf_n,scales", [(128, 256, [0, 4, 8]), (100, 100, [0, 6]),
                                              (96, 192, [0])])
 def test_grids_are_the_ones_the_convolvers_choose(n, psf_n, scales):
-    # Reference: the FFT shapes skyscale.core.fft's convolvers pick for the same kernels.
+    # Reference: the FFT shapes skyscale.core.fft's convolvers and the beams' maker
+    # (skyscale.core.precompute.pair_beams, as the engine's BeamBank calls it for a box
+    # of the image's extent) really transform on.
+    from skyscale.core.precompute import pair_beams
     sset = ScaleSet(scales)
     g = cost.run_geometry((n, n), (psf_n, psf_n), sset.support_radii)
     assert g.major_grid == Convolver(np.ones((psf_n, psf_n)), (n, n), backend=NumpyFFT()).fshape
+    seen = _GridsSeen()
+    kernels = [np.asarray(k, np.float64) for k in sset.kernels(np.float64)] + [np.ones((1, 1))]
+    pair_beams(np.ones((psf_n, psf_n)), kernels, (n, n), seen, [(0, 0)], dtype=np.float32)
+    assert seen.grids == {g.precompute_grid}
+    # no wrap-around: the grid holds every offset of the image, twice the widest reach
+    # (analytic)
+    assert g.precompute_grid[0] >= 2 * (n - 1 + 2 * max(sset.support_radii)) + 1
     if g.n_finite:
         smooth = MultiConvolver(sset.kernels(np.float64), (n, n), backend=NumpyFFT())
         assert g.smooth_grid == smooth.fshape
         # no wrap-around: the grid holds the image plus the widest kernel's reach (analytic)
         assert g.smooth_grid[0] >= n + max(sset.support_radii)
-        assert g.precompute_grid[0] >= 2 * (n - 1 + 2 * max(sset.support_radii)) + 1
     else:
-        assert g.smooth_grid is None and g.precompute_grid is None
+        assert g.smooth_grid is None
 
 
 def test_fft_counts_follow_the_engine_steps():
-    # Counted from the code: a round is one PSF convolution (forward + inverse on the
-    # major grid) and one smoothing (one forward, one inverse per finite scale).
-    g = cost.run_geometry((128, 128), (256, 256), ScaleSet([0, 4, 8, 16]).support_radii)
+    # Counted from the code: an FFT update is one PSF convolution (forward + inverse on
+    # the major grid) and one smoothing (one forward, one inverse per finite scale); each
+    # making of beams is one forward of the PSF and of each finite kernel, and one
+    # inverse per beam (4 scales, 6 pairs; a delta scale stands for the residual); the
+    # engine's own set-up transforms the smoothing kernels; the work of an FFT update is
+    # the engine's own figure (Engine._fft_update_cost).
+    sset = ScaleSet([0, 4, 8, 16])
+    g = cost.run_geometry((128, 128), (256, 256), sset.support_radii)
     t = g.transforms()
     assert t["round"] == [(g.major_grid, 2), (g.smooth_grid, 4)]
-    assert t["precompute"] == [(g.major_grid, 1), (g.precompute_grid, 7), (g.smooth_grid, 3)]
+    # (one making of the 4 scales' beams and one of each scale's pairs: 5 x (1 + 3)
+    # forward transforms)
+    assert t["beams"] == [(g.precompute_grid, 5 * (1 + 3) + 4 + 6)]
+    assert t["precompute"] == [(g.smooth_grid, 3)]
     assert cost.run_geometry((128, 128), (256, 256), (0,)).transforms()["stats"] == []
+    dirty, psf = synthetic_field(128, seed=1)
+    e = Engine(psf, [0, 4, 8, 16], image_shape=(128, 128), threads=1)
+    assert g.fft_update_work() == e._fft_update_cost((128, 128))
+    assert g.n_pairs == len(e._pair_keys())
+    assert cost.run_geometry((128, 128), (256, 256), (2, 4)).n_pairs == \
+        len(Engine(psf, [4, 8], image_shape=(128, 128), threads=1)._pair_keys())
 
 
 # --------------------------------------------------------------------------- memory
@@ -94,23 +133,27 @@ def test_fft_counts_follow_the_engine_steps():
     (96, 2, np.float64, [0, 6]),
 ])
 def test_memory_model_within_20_percent_of_tracemalloc(n, psf_factor, dtype, scales):
-    # Reference tool: tracemalloc's peak over a whole run (common practice).
+    # Reference tool: tracemalloc's peak over a whole run (common practice).  The run is
+    # long enough (2000 components) for direct updates, which make the pair beams the
+    # account counts (the engine makes them on a scale's first direct update); the
+    # compiled kernels are loaded first (skyscale.core.warmup, every kernel path), since
+    # loading them allocates far more than the run.
+    from skyscale.core.warmup import warm_up
     dirty, psf = synthetic_field(n, seed=2)
     if psf_factor == 1:
         psf = psf[n // 2:n // 2 + n, n // 2:n // 2 + n].copy()
     dirty, psf = dirty.astype(dtype), psf.astype(dtype)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")       # the PSF the image's size is warned about
-        skyscale.deconvolve(*synthetic_field(32), scales=[0, 4], max_components=5,
-                            restore=False, dtype=dtype)  # imports, kernels compiled for dtype
+        warm_up(dtype)
         tracemalloc.start()
         try:
-            skyscale.deconvolve(dirty, psf, scales=scales, max_components=60,
+            skyscale.deconvolve(dirty, psf, scales=scales, max_components=2000,
                                 max_major_cycles=2, restore=False, dtype=dtype, threads=1)
             peak = tracemalloc.get_traced_memory()[1]
         finally:
             tracemalloc.stop()
-    plan = cost.plan_run(dirty.shape, psf, scales, max_components=60, threads=1,
+    plan = cost.plan_run(dirty.shape, psf, scales, max_components=2000, threads=1,
                          dtype=dtype, calibration=cost.DEFAULT_CALIBRATION)
     assert plan.memory_bytes == pytest.approx(peak, rel=0.20)
 
@@ -173,9 +216,18 @@ def test_recorded_sub_loops_add_up_to_the_component_table():
     assert len(rows) == res.sub_loops
     assert sum(m for _, m, _ in rows) == res.components.size
     assert all(a >= m for a, m, _ in rows if m)
+    # the components kept were applied by FFT updates (the run counts them) or directly,
+    # each once; the beams of every scale were made
+    kept = [u for u in rows.updates if u[4]]
+    assert sum(1 for u in kept if u[0] == "fft") == res.fft_updates
+    assert sum(u[1] for u in kept) == res.components.size
+    assert sum(b[0] for b in rows.beams) >= 3
     from skyscale.core import engine as minor
+    from skyscale.core import precompute
     from skyscale.core.kernels import scale_loop
     assert minor.scale_loop is scale_loop          # restored after the block
+    assert precompute.pair_beams.__module__ == "skyscale.core.precompute"
+    assert minor._CycleWork._apply_fft.__qualname__ == "_CycleWork._apply_fft"
 
 
 def test_fft_probe_times_each_grid_once():
@@ -202,42 +254,81 @@ def test_plan_flags_what_does_not_fit_and_check_refuses_it():
 def test_plan_totals_add_up():
     cal = cost.DEFAULT_CALIBRATION
     p = cost.plan_run((256, 256), (512, 512), [0, 4, 8], components=1000, rounds=30,
-                      major_cycles=4, active_pixels=500.0, threads=1, calibration=cal)
+                      major_cycles=4, active_pixels=500.0, fft_updates=12, threads=1,
+                      calibration=cal)
     t = cost.predict_times(cost.run_geometry((256, 256), (512, 512), (0, 2, 4)), cal)
     loop = (t["per_component_pixel"] * 1000 * 500
-            + 30 * (t["per_active_pixel"] * 500 + t["per_sub_loop"]))
+            + 30 * (t["per_active_pixel"] * 500 + t["per_sub_loop"] + t["per_sub_loop_scan"]))
     assert p.loop_seconds == pytest.approx(loop)
-    assert p.minor_seconds == pytest.approx(30 * t["round"] + loop)
+    # the beams once, 12 FFT updates, 18 direct ones, the sub-loops, 4 cycles' set-up
+    assert p.minor_seconds == pytest.approx(t["beams"] + 12 * t["round"] + 18 * t["direct"]
+                                            + loop + 4 * t["cycle"])
+    assert p.fft_update_seconds == pytest.approx(12 * t["round"])
+    assert p.direct_seconds == pytest.approx(18 * t["direct"])
     assert p.major_total_seconds == pytest.approx(4 * (t["major"] + t["stats"]) + t["stats"])
     assert p.total_seconds == pytest.approx(p.precompute_seconds + p.setup_seconds
                                             + p.minor_seconds + p.major_total_seconds
                                             + p.startup_seconds)
     warm = cost.plan_run((256, 256), (512, 512), [0, 4, 8], components=1000, rounds=30,
-                         major_cycles=4, active_pixels=500.0, threads=1, calibration=cal,
-                         fresh_process=False)
+                         major_cycles=4, active_pixels=500.0, fft_updates=12, threads=1,
+                         calibration=cal, fresh_process=False)
     assert warm.startup_seconds == 0.0
     assert warm.total_seconds == pytest.approx(p.total_seconds - p.startup_seconds)
     assert p["fits"] == p.fits
     assert json.loads(json.dumps(p.as_dict()))["scales"] == [0.0, 4.0, 8.0]
 
 
+def test_a_mask_box_makes_the_updates_and_beams_those_of_the_box():
+    # Reference: the engine's own work for an FFT update of a box (Engine._fft_update_cost,
+    # with the convolvers it builds for that box) and the extent it makes beams for
+    # (BeamBank._extent_for); without a box the plan is the whole image's.
+    dirty, psf = synthetic_field(256, seed=1)
+    scales = [0, 4, 8]
+    e = Engine(psf, scales, image_shape=dirty.shape, threads=1)
+    box = (100, 120)
+    radii = ScaleSet(scales).support_radii
+    g = cost.run_geometry(dirty.shape, psf.shape, radii)
+    gb = cost.run_geometry(box, psf.shape, radii)
+    assert gb.fft_update_work() == e._fft_update_cost(box)
+    assert cost.beam_extent(box, dirty.shape) == e.bank._extent_for(box) == (128, 128)
+    cal = cost.DEFAULT_CALIBRATION
+    whole = cost.predict_times(g, cal)
+    assert cost.predict_times(g, cal, box_shape=dirty.shape) == whole
+    t = cost.predict_times(g, cal, box_shape=box)
+    assert t["round"] == pytest.approx(cost.predict_times(gb, cal)["round"], rel=1e-12)
+    assert t["beams"] == pytest.approx(cost.predict_times(
+        cost.run_geometry((128, 128), psf.shape, radii), cal)["beams"], rel=1e-12)
+    assert t["round"] < whole["round"] and t["beams"] < whole["beams"]
+    assert t["major"] == whole["major"] and t["stats"] == whole["stats"]
+    kw = dict(components=500, rounds=20, major_cycles=3, active_pixels=300.0,
+              fft_updates=8, threads=1, calibration=cal, memory_available=1 << 40)
+    boxed = cost.plan_run(dirty.shape, psf, scales, box_shape=box, mask_fraction=0.1, **kw)
+    plain = cost.plan_run(dirty.shape, psf, scales, mask_fraction=0.1, **kw)
+    assert boxed.memory_bytes == plain.memory_bytes         # memory: the whole image
+    assert boxed.fft_update_seconds == pytest.approx(8 * t["round"], rel=1e-12)
+    assert boxed.total_seconds < plain.total_seconds
+    with pytest.raises(ValueError, match="box_shape"):
+        cost.plan_run(dirty.shape, psf, scales, box_shape=(300, 10))
+
+
 def test_counts_follow_the_dynamic_range():
     # Analytic: the peak falls 1 / cycle_depth per major cycle; rounds rho per scale and cycle.
     cal = json.loads(json.dumps(cost.DEFAULT_CALIBRATION))
     cal["counts"] = {"rounds_per_scale_cycle": 2.5, "active_fraction": 0.01,
-                     "cycles_offset": 1.0}
+                     "cycles_offset": 1.0, "fft_update_fraction": 0.25}
     g = cost.run_geometry((200, 200), (400, 400), (0, 2, 4))
     c = cost.estimate_counts(g, cal, dynamic_range=5.0 ** 3, max_components=777)
     assert c["major_cycles"] == math.ceil(3 + 1.0) == 4
     assert c["rounds"] == math.ceil(2.5 * 3 * 4)
+    assert c["fft_updates"] == math.ceil(0.25 * c["rounds"])
     assert c["components"] == 777 and "budget" in c["how"]["components"]
     assert c["active_pixels"] == pytest.approx(0.01 * 200 * 200)
     capped = cost.estimate_counts(g, cal, dynamic_range=1e12, max_major_cycles=5)
     assert capped["major_cycles"] == 5
     given = cost.estimate_counts(g, cal, components=5, rounds=6, major_cycles=7,
-                                 active_pixels=8.0)
-    assert [given[k] for k in ("components", "rounds", "major_cycles", "active_pixels")] == \
-        [5, 6, 7, 8.0]
+                                 active_pixels=8.0, fft_updates=4)
+    assert [given[k] for k in ("components", "rounds", "major_cycles", "active_pixels",
+                               "fft_updates")] == [5, 6, 7, 8.0, 4]
     assert set(given["how"].values()) == {"given"}
 
 
@@ -332,7 +423,7 @@ def test_a_run_no_single_change_saves_is_offered_the_changes_together():
         return cost.plan_run(shape, ps, sc, dtype=dtype, memory_available=1 << 40).memory_bytes
     both, alone = peak(shape, [0], "float32"), peak(psf, [0], "float64")
     assert both < alone
-    budget = int(0.5 * (both + alone) * cost.MEMORY_HEADROOM)
+    budget = int(both * cost.MEMORY_HEADROOM) + 1
     plan = cost.plan_run(shape, psf, scales, dtype="float64", memory_available=budget)
     got = {r["kind"]: r for r in plan.remedies}
     assert not any(got[k]["fits"] for k in ("scales", "dtype", "psf"))
@@ -352,7 +443,7 @@ def test_bench_advice_names_sizes_whose_sweep_fits(monkeypatch):
     assert sweep_memory(sizes)[0] * cost.MEMORY_HEADROOM <= avail
     bigger = BENCH_SIZE_LADDER[BENCH_SIZE_LADDER.index(sizes[-1]) + 1]
     assert sweep_memory([bigger // 4, bigger // 2, bigger])[0] * cost.MEMORY_HEADROOM > avail
-    for gib, words in ((6, "does not fit in the 6.0 GiB available (it reaches 2048 px)"),
+    for gib, words in ((3, "does not fit in the 3.0 GiB available (it reaches 2048 px)"),
                        (1, "does not fit in the 1.0 GiB available;")):
         small = cost.plan_run((8192, 8192), (16384, 16384), [0, 4],
                               memory_available=gib * 2**30)
@@ -447,6 +538,12 @@ def test_calibrate_inverts_the_model_on_noiseless_data():
     true["loop"] = {"per_component_pixel": 1.5e-9, "per_active_pixel": 3e-9,
                     "per_sub_loop": 2e-5}
     true["setup"] = {"fixed": 1e-2, "per_fft_second": 0.9}
+    true["beams"] = {"fixed": 3e-3, "per_fft_second": 1.3, "per_beam_pixel": 2e-9}
+    delta = cost.DEFAULT_CALIBRATION["direct"]["pixel_exponent"]   # kept without a probe
+    true["direct"] = {"fixed": 5e-5, "per_madd": 1.2e-9, "per_pixel_plane": 3e-9,
+                      "pixel_exponent": delta,
+                      "allowance_used": cost.DEFAULT_CALIBRATION["direct"]["allowance_used"]}
+    true["scan"] = {"cycle_fixed": 4e-3, "per_plane_pixel": 6e-9, "per_tracked_pixel": 2e-9}
     grids = set()
     points = []
     for n in (128, 256, 512):
@@ -457,15 +554,31 @@ def test_calibrate_inverts_the_model_on_noiseless_data():
             t = cost.predict_times(g, true)
             loops = [[a, m, 1.5e-9 * a * m + 3e-9 * a + 2e-5]
                      for a, m in ((5000, 40), (20000, 7), (900, 300), (100, 2))]
+            k = len(scales)
+            # the scales' beams, then each scale's pairs, as the engine makes them; the
+            # model's beams are all those makings
+            made = [k] + [g.n_pairs // k + (1 if i < g.n_pairs % k else 0) for i in range(k)]
+            beam_rows = [[b, g.beam_pixels, 3e-3 + 1.3 * cost.fft_seconds(
+                [(g.precompute_grid, 1 + g.n_finite + b)], true) + 2e-9 * b * g.beam_pixels]
+                for b in made]
+            assert t["beams"] == pytest.approx(sum(r[2] for r in beam_rows), rel=1e-9)
+            ps = cost.direct_passes(k, 0 in scales)
+            direct = [["direct", m, nt, 5e-5 + 1.2e-9 * m * nt * ps
+                       + 3e-9 * cost.direct_pixel_planes(ps, nt, delta)]
+                      for m, nt in ((1, n * n), (3, n * n // 2), (6, n * n // 5))]
+            cycles = [[4e-3 + 6e-9 * k * n * n + 2e-9 * r * k * nt, r, nt]
+                      for r, nt in ((3, n * n), (40, n * n // 3))]
             points.append({"size": n, "image_shape": [n, n], "psf_shape": [2 * n, 2 * n],
                            "radii": list(radii), "itemsize": 4, "n_scales": len(scales),
+                           "beam_rows": beam_rows, "update_rows": direct,
+                           "cycle_rows": cycles,
                            "scales": scales, "precompute_s": t["precompute"],
                            "round_s": t["round"], "updates": 3, "major_s": t["major"],
                            "stats_s": t["stats"], "loops": loops, "setup_s": t["setup"],
                            "traced_peak": cost.predict_memory(g, true)["peak"]})
     fft = [{"grid": list(g), "seconds": 3e-9 * cost.fft_work(g) ** 1.1} for g in grids]
     cal = calibrate({"settings": {"sizes": [128, 256, 512]}, "points": points, "fft": fft})
-    for sec in ("fft", "round", "major", "loop", "setup"):
+    for sec in ("fft", "round", "major", "loop", "setup", "beams", "direct", "scan"):
         for k, v in true[sec].items():
             assert cal[sec][k] == pytest.approx(v, rel=1e-5), (sec, k)
     assert cal["memory"]["scale"] == pytest.approx(true["memory"]["scale"])
@@ -478,7 +591,7 @@ def test_plan_command(capsys):
     assert "planned run" in capsys.readouterr().out
     assert main(["plan", "--size", "256", "--memory", "0.0001", "--require-fit"]) == 1
     assert "will not fit" in capsys.readouterr().out
-    assert main(["plan", "--size", "1024", "--scales", "0,4,8,16,32", "--memory", "0.8"]) == 0
+    assert main(["plan", "--size", "1024", "--scales", "0,4,8,16,32", "--memory", "0.45"]) == 0
     text = capsys.readouterr().out
     assert "what would fit" in text and "fits  fewer scales: the smallest" in text
     assert "[--scales 0," in text and "sub-region of at most" in text
@@ -488,6 +601,32 @@ def test_plan_command(capsys):
                  "--major-cycles", "3", "--json"]) == 0
     counts = json.loads(capsys.readouterr().out)["counts"]
     assert (counts["components"], counts["rounds"], counts["major_cycles"]) == (100, 9, 3)
+    assert main(["plan", "--size", "256", "--mask-box", "100x120", "--mask-fraction", "0.1",
+                 "--json"]) == 0
+    boxed = json.loads(capsys.readouterr().out)
+    assert any("box of 100 x 120 pixels" in m for m in boxed["messages"])
+
+
+def test_suggest_and_plan_quote_the_same_time_and_memory(tmp_path, capsys):
+    # The same files and scales give the same figures from skyscale suggest (its offer
+    # of more scales) and skyscale plan: one planner, one dynamic range, one format.
+    from astropy.io import fits
+    from skyscale.cost.planner import bytes_text, seconds_text
+    from tests.advisor_fields import gaussian_psf, make_field
+    dirty = make_field("disk", 40, 10, 160, seed=1)[0].astype(np.float32)
+    psf = gaussian_psf(160).astype(np.float32)
+    fits.writeto(tmp_path / "d.fits", dirty)
+    fits.writeto(tmp_path / "p.fits", psf)
+    s = skyscale.suggest_scales(dirty, psf)
+    assert s.fuller is not None
+    for key, scales in (("", s.pixels), ("fuller_", s.fuller)):
+        assert main(["plan", str(tmp_path / "d.fits"), str(tmp_path / "p.fits"), "--scales",
+                     ",".join(f"{v:g}" for v in scales), "--json"]) == 0
+        plan = json.loads(capsys.readouterr().out)
+        assert s.costs[key + "seconds"] == pytest.approx(plan["total_seconds"], rel=1e-12)
+        assert s.costs[key + "bytes"] == plan["memory_bytes"]
+        assert f"{seconds_text(plan['total_seconds'])} and {bytes_text(plan['memory_bytes'])}" \
+            in " ".join(s.reasons)
 
 
 def test_plan_command_bad_input(capsys):
@@ -535,17 +674,21 @@ def test_bench_quick_writes_table_json_figure_and_calibration(tmp_path, capsys):
     out = tmp_path / "bench"
     cal = tmp_path / "cal.json"
     assert main(["bench", "--quick", "--out", str(out), "--calibration", str(cal)]) == 0
-    text = " ".join(capsys.readouterr().out.split())
+    said = capsys.readouterr()
+    text = " ".join(said.out.split())
+    # the sweep's own runs warn into bench.json, not on the terminal
+    assert "warning" not in said.err
     # the command line speaks to users: what was measured, what it means, where the
     # calibration went; the developer's tables are in benchmarks/sweep_tables.py
     assert "skyscale bench measured this machine" in text and "--quick: tiny images" in text
-    assert "what it means for your runs" in text and "each sub-loop update" in text
+    assert "what it means for your runs" in text and "each FFT update" in text
     assert "run(s) the fit did not see" in text
     assert f"Calibration written to {cal}: give it to skyscale plan --calibration" in text
     for developer in ("fitted exponents", "cost model coefficients", "misfit", "MISSED"):
         assert developer not in text
     data = json.loads((out / "bench.json").read_text())
     assert {"points", "fft", "runs", "calibration", "summary", "validation"} <= set(data)
+    assert all(isinstance(r["warnings"], list) for r in data["runs"])
     assert len(data["points"]) >= 4
     assert (out / "bench.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
     assert cost.load_calibration(str(cal))["round"] == data["calibration"]["round"]

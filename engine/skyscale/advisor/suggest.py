@@ -138,21 +138,25 @@ def _spaced(first, largest, steps):
     return [first]
 
 
-def _costs(shape, psf, chosen, fuller):
-    """Predicted time and memory of the two sets, or the reason they are unknown."""
-    from skyscale.cost.planner import plan_run
+def _costs(dirty, psf, chosen, fuller):
+    """Predicted time and memory of the two sets, or the reason they are unknown: the
+    figures ``skyscale plan`` gives for the same image, PSF and scales (the dynamic
+    range measured on the dirty image, the run's default budgets)."""
+    from skyscale.cost.planner import bytes_text, plan_run, seconds_text
+    shape = dirty.shape
     try:
         small = plan_run(shape, psf if psf is not None else (2 * shape[0], 2 * shape[1]),
-                         chosen)
-        big = plan_run(shape, small.psf_shape, fuller)
+                         chosen, dirty=dirty)
+        big = plan_run(shape, small.psf_shape, fuller, dirty=dirty)
     except (ValueError, TypeError) as exc:
         return {}, f"their cost was not predicted ({exc})"
     costs = {"seconds": small.total_seconds, "bytes": small.memory_bytes,
              "fuller_seconds": big.total_seconds, "fuller_bytes": big.memory_bytes}
-    text = (f"the planner (skyscale.plan_run, {small.max_components} components) predicts "
-            f"{big.total_seconds:.3g} s and {big.memory_bytes / 1e9:.3g} GB for the "
-            f"{len(fuller)} scales against {small.total_seconds:.3g} s and "
-            f"{small.memory_bytes / 1e9:.3g} GB for these {len(chosen)}")
+    text = (f"the planner (skyscale.plan_run, as skyscale plan; {small.max_components} "
+            f"components at most) predicts {seconds_text(big.total_seconds)} and "
+            f"{bytes_text(big.memory_bytes)} for the {len(fuller)} scales against "
+            f"{seconds_text(small.total_seconds)} and {bytes_text(small.memory_bytes)} for "
+            f"these {len(chosen)}")
     return costs, text
 
 
@@ -389,7 +393,7 @@ def suggest_scales(dirty, psf=None, *, cell_arcsec=None, largest_size=None,
                        f"from {first} to {top} px the scales are spaced by a factor "
                        f"{ratio:.2f}")
         if fuller is not None:
-            costs, cost_text = _costs(image.shape, psf, scales, fuller)
+            costs, cost_text = _costs(image, psf, scales, fuller)
             reasons.append(
                 f"more scales would help: roughly doubling from {first} to {top} px takes "
                 f"{len(fuller)} scales ({', '.join(map(str, fuller))} px), which follow the "

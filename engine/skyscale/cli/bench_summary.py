@@ -49,7 +49,8 @@ def show_bench(sweep, out=None, *, calibration_path=None, files=()):
     out.print(f"skyscale bench measured this machine ({m['cores']} cores; load average "
               f"{m['load'][0]:.1f} at the start, {m.get('load_after', [float('nan')])[0]:.1f} "
               f"at the end) in {sweep['seconds']:.0f} s: each step of a run (precompute, "
-              "sub-loop update, major cycle, statistics, peak memory) on invented fields of "
+              "beams, FFT and direct updates, major cycle, statistics, peak memory) on "
+              "invented fields of "
               f"{_and(sizes)} pixels square with {len(st['scale_sets'])} scale sets, "
               f"FFTs on {len(sweep['fft'])} grid sizes, "
               + (f"{_and(threads)} threads, " if threads else "")
@@ -60,19 +61,21 @@ def show_bench(sweep, out=None, *, calibration_path=None, files=()):
     cal = sweep["calibration"]
     t = Table(title="what it means for your runs (the fitted model: 1 thread, float32, PSF "
               "twice the image)")
-    for c in ("image", "scales (px)", "precompute", "each sub-loop update",
-              "each major cycle", "peak memory"):
+    for c in ("image", "scales (px)", "precompute and beams", "each FFT update",
+              "a direct update", "each major cycle", "peak memory"):
         t.add_column(c, justify="right")
     for n in sizes:
         sc = _typical_scales(n, pts)
         g = cost.run_geometry((n, n), (2 * n, 2 * n), ScaleSet(sc).support_radii)
         tm = cost.predict_times(g, cal)
-        t.add_row(f"{n} x {n}", _scales(sc), _t(tm["precompute"]), _t(tm["round"]),
-                  _t(tm["major"] + tm["stats"]), _b(cost.predict_memory(g, cal)["peak"]))
+        t.add_row(f"{n} x {n}", _scales(sc), _t(tm["precompute"] + tm["beams"]),
+                  _t(tm["round"]), _t(tm["direct"]), _t(tm["major"] + tm["stats"]),
+                  _b(cost.predict_memory(g, cal)["peak"]))
     out.print(t)
-    out.print("A run takes about its precompute plus its number of sub-loops times one "
-              "update plus its major cycles; skyscale plan counts them for your image and "
-              "scales.")
+    out.print("A run takes about its precompute and beams, plus each sub-loop's update (an "
+              "FFT update of the cycle's box, or a direct update of the mask's pixels when it "
+              "takes few components), plus its major cycles; skyscale plan counts them for "
+              "your image, mask and scales.")
     ratios = sweep.get("summary", {}).get("validation_ratios", {})
     if ratios:
         def span(label, key):
@@ -102,7 +105,7 @@ def show_bench(sweep, out=None, *, calibration_path=None, files=()):
 
 
 def plot_bench(sweep):
-    """bench.png as PNG bytes: precompute, sub-loop update and peak memory against the
+    """bench.png as PNG bytes: the beams, an FFT update and peak memory against the
     number of scales, one line per image size, with the model; the FFT law."""
     try:
         from matplotlib.backends.backend_agg import FigureCanvasAgg
@@ -115,8 +118,8 @@ def plot_bench(sweep):
     axes = fig.subplots(2, 2)
     pts = sweep["points"]
     sizes = sorted({r["size"] for r in pts})
-    panels = [(axes[0, 0], "precompute_s", "precompute_s", 1.0, "precompute (s)"),
-              (axes[0, 1], "round_s", "round_s", 1e3, "sub-loop update (ms)"),
+    panels = [(axes[0, 0], "beams_s", "beams_s", 1.0, "beams (s)"),
+              (axes[0, 1], "round_s", "round_s", 1e3, "FFT update (ms)"),
               (axes[1, 0], "traced_peak", "memory", 2.0 ** -20, "peak memory (MiB)")]
     for ax, key, mkey, unit, label in panels:
         for i, n in enumerate(sizes):

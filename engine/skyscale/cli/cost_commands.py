@@ -78,8 +78,13 @@ def register(subparsers):
                    "dirty image, else 1000]")
     p.add_argument("--mask-fraction", type=float, default=1.0,
                    help="fraction of the image where components may go [1]")
+    p.add_argument("--mask-box", type=_shape, help="N or NYxNX: the mask's bounding box, "
+                   "grown by the largest scale's radius, where minor cycles work [the "
+                   "whole image]")
     for name, what in (("components", "components the run will take"),
                        ("sub-loops", "sub-loops (single-scale rounds) the run will run"),
+                       ("fft-updates", "sub-loops applied by an FFT update (the others "
+                        "directly)"),
                        ("major-cycles", "major cycles the run will need"),
                        ("active-pixels", "mean active pixels per sub-loop")):
         p.add_argument(f"--{name}", type=float, help=f"{what}, when known from an earlier "
@@ -147,7 +152,8 @@ def cmd_plan(args):
     known = {k: (None if getattr(args, a) is None else
                  (float if k == "active_pixels" else int)(getattr(args, a)))
              for k, a in (("components", "components"), ("rounds", "sub_loops"),
-                          ("major_cycles", "major_cycles"), ("active_pixels", "active_pixels"))}
+                          ("major_cycles", "major_cycles"), ("active_pixels", "active_pixels"),
+                          ("fft_updates", "fft_updates"))}
     threads = args.threads if planes == 1 else (args.threads or 1)   # cube: 1 a plane
     plan = plan_run(shape, psf, scales, max_components=args.max_components,
                     max_major_cycles=args.max_major_cycles, threads=threads,
@@ -155,7 +161,7 @@ def cmd_plan(args):
                     fresh_process=not args.warm_process, dirty=dirty,
                     dynamic_range=args.dynamic_range, threshold=threshold,
                     noise_threshold=args.noise_threshold, mask_fraction=args.mask_fraction,
-                    **known)
+                    box_shape=args.mask_box, **known)
     if planes > 1:
         plan.messages.append(_cube_words(plan, planes, threads))
     if args.json:
@@ -191,17 +197,18 @@ def _cube_words(plan, planes, threads):
 
 
 def _t(seconds):
-    if seconds < 1e-3:
-        return f"{seconds * 1e6:.3g} us"
-    if seconds < 1:
-        return f"{seconds * 1e3:.3g} ms"
-    if seconds < 600:
-        return f"{seconds:.3g} s"
-    return f"{seconds / 60:.3g} min"
+    from skyscale.cost.planner import seconds_text
+    return seconds_text(seconds)
 
 
 def _b(nbytes):
-    return "unknown" if nbytes is None else f"{nbytes / 2**20:,.0f} MiB"
+    from skyscale.cost.planner import bytes_text
+    return bytes_text(nbytes)
+
+
+#: Words for where a plan's memory peaks (`skyscale.cost.predict_memory`'s phases).
+_PHASES = {"beams": "while the first minor cycle makes the beams",
+           "cycles": "during the minor cycles' FFT updates"}
 
 
 def show_plan(plan):
@@ -216,19 +223,22 @@ def show_plan(plan):
     t.add_row("scales (px)", ", ".join(f"{s:g}" for s in plan.scales))
     t.add_row("threads, dtype", f"{plan.threads}, {plan.dtype}")
     c = plan.counts
-    t.add_row("counts", f"{c['major_cycles']} major cycles, {c['rounds']} sub-loops, "
+    t.add_row("counts", f"{c['major_cycles']} major cycles, {c['rounds']} sub-loops "
+              f"({c.get('fft_updates', c['rounds'])} by FFT update, the others direct), "
               f"{c['components']} components, {c['active_pixels']:.0f} active pixels per "
               "sub-loop")
     t.add_row("start-up", _t(plan.startup_seconds) + (" (first run of the process)"
                                                       if plan.startup_seconds else ""))
     t.add_row("precompute", _t(plan.precompute_seconds))
-    t.add_row("per sub-loop update", _t(plan.round_seconds))
-    t.add_row("minor cycles", f"{_t(plan.minor_seconds)} (sub-loop iterations "
-              f"{_t(plan.loop_seconds)})")
+    t.add_row("beams (first minor cycle)", _t(plan.beams_seconds))
+    t.add_row("each FFT update", _t(plan.round_seconds))
+    t.add_row("minor cycles", f"{_t(plan.minor_seconds)} (FFT updates "
+              f"{_t(plan.fft_update_seconds)}, direct updates {_t(plan.direct_seconds)}, "
+              f"sub-loop iterations {_t(plan.loop_seconds)})")
     t.add_row("major cycles", f"{_t(plan.major_total_seconds)} ({_t(plan.major_seconds)} each, "
               "with the statistics)")
     t.add_row("total", _t(plan.total_seconds))
-    t.add_row("peak memory", f"{_b(plan.memory_bytes)} (at {plan.memory_phase})")
+    t.add_row("peak memory", f"{_b(plan.memory_bytes)} ({_PHASES.get(plan.memory_phase, plan.memory_phase)})")
     t.add_row("memory available", _b(plan.memory_available))
     t.add_row("fits", "yes" if plan.fits else "[bold red]NO: will not fit[/] (what would: "
               "below)")

@@ -4,38 +4,53 @@ The model follows what the engine does (`skyscale.core.engine`, `skyscale.core.d
 term, with coefficients measured on this machine by ``skyscale bench``
 (`skyscale.cost.calibration`).  One real FFT (forward or inverse) of ``S`` points costs
 ``f(S) = c (S \log_2 S)^\gamma`` (the exponent above 1 as buffers outgrow the caches).
-With ``N_s`` scales of which ``N_f`` are finite, the three FFT grids of the engine are:
-``P`` (precompute, about ``2N + 8 r_max`` per side), ``M`` (the PSF convolution, about
-``2N`` with a twice-size PSF) and ``S`` (the smoothing, about ``N + r_max``).
+With ``N_s`` scales of which ``N_f`` are finite, ``N_b`` beams (one per scale, and one
+per pair of scales that direct updates use) and ``N_t`` tracked pixels (the mask in the
+cycle's box; the whole image at most), the FFT grids of the engine are ``P`` (the beams,
+about ``2N + 8 r_max`` per side), ``M`` (the PSF convolution, about ``2N`` with a
+twice-size PSF) and ``S`` (the smoothing, about ``N + r_max``).
 
 .. math::
 
-    t_\mathrm{pre} = a_0 + a_1 n_\mathrm{psf} + a_2 [(2 N_f + 1) f(P) + N_f f(S) + f(M)]
-                     + a_3 N_s (2N)^2
+    t_\mathrm{pre} = a_0 + a_1 n_\mathrm{psf} + a_2 N_f f(S)
 
-    t_\mathrm{round} = b_0 + b_1 [2 f(M) + (1 + N_f) f(S)] + b_2 N_s N^2
+    t_\mathrm{beams} = (1 + N_s) [c_0 + c_1 (1 + N_f) f(P)] + c_1 N_b f(P) + c_2 N_b (2N)^2
 
-    t_\mathrm{loop} = \ell_1 \sum_\mathrm{components} A + \sum_\mathrm{rounds} (\ell_2 A + \ell_0)
+    t_\mathrm{setup} = e_0 + a_1 n_\mathrm{psf} + e_1 [2 f(M) + N_f f(S)]
+
+    t_\mathrm{fft} = b_0 + b_1 [2 f(M) + (1 + N_f) f(S)] + b_2 N_s N^2, \qquad
+    t_\mathrm{direct} = d_0 + d_1 W + d_2 P N_t (N_t / 2^{20})^\delta
+
+    t_\mathrm{sub} = \ell_1 m A + \ell_2 A + \ell_0 + g_1 N_s N_t, \qquad
+    t_\mathrm{cycle} = h_0 + h_1 N_s N^2
 
     t_\mathrm{major} = m_0 + m_1\, 2 f(M) + m_2 N^2, \qquad
     t_\mathrm{stats} = s_0 + s_1 (1 + N_f) f(S) + s_2 N_s N^2
 
-    t_\mathrm{setup} = e_0 + a_1 n_\mathrm{psf} + e_1 [3 f(M) + 2 f(S)]
+    t = t_\mathrm{pre} + t_\mathrm{setup} + t_\mathrm{beams} + U t_\mathrm{fft}
+        + (R - U) t_\mathrm{direct} + \sum_\mathrm{sub-loops} t_\mathrm{sub}
+        + C (t_\mathrm{cycle} + t_\mathrm{major} + t_\mathrm{stats}) + t_\mathrm{stats}
 
-    t = t_\mathrm{pre} + t_\mathrm{setup} + R\, t_\mathrm{round} + t_\mathrm{loop}
-        + C (t_\mathrm{major} + t_\mathrm{stats}) + t_\mathrm{stats}
-
-``A`` is the sub-loop's active set (pixels of the chosen scale above the sub-loop's
-level, in the mask), ``R`` the rounds (sub-loops, each ending with the exact update)
-and ``C`` the major cycles; ``t_stats`` is the smoothing, noise and peaks after a major
-cycle (and of the dirty image) with the next minor cycle's own set-up; ``t_setup`` the
-residual operator and the first use of the cycle's FFT plans.  How the counts are
-estimated is in `estimate_counts`: they depend on the field, and the planner says
-which it assumed.  Times are those of one unshared core (the sweep measures CPU
-seconds).  Threads divide the
-parallel part (Amdahl's law, fractions measured with 1 and 2 threads).  Memory has
-one account, `predict_memory`: the planner's figure and `skyscale.Engine`'s
-``memory`` (and its ``max_memory`` check, `fits_memory`) are the same number.
+A minor cycle makes the beams once (the first one; the beams are kept), and applies each
+of its ``R`` sub-loops either by an FFT update of its box (``U`` of them) or directly to
+the tracked pixels, whose multiply-adds ``W = m N_t (N_s + 1)`` the engine allows up to
+``DIRECT_COST_RATIO`` of an FFT update's work units (`skyscale.core.engine`); a direct
+update uses ``kappa`` of that allowance on average (calibrated); each also passes over
+every tracked pixel of its ``P`` planes (every scale's, and the residual's unless a
+delta scale stands for it; ``W`` counts the multiply-adds on them), at a cost per pixel
+that grows (``delta``) once the tracked set outgrows the caches.  Pair beams are made
+by a scale's first direct update; the beams are counted as if every scale had one.  ``A`` is the sub-loop's
+active set (pixels of the chosen scale above the sub-loop's level, in the mask), ``m``
+its components, ``C`` the major cycles; ``t_sub`` holds the sub-loop's Hogbom iterations
+and its scans of the tracked pixels (peaks, the active set), ``t_cycle`` a minor cycle's
+own set-up (the box's copies of the residual and planes), ``t_stats`` the smoothing,
+noise and peaks after a major cycle (and of the dirty image), ``t_setup`` the residual
+operator and the cycle's convolvers.  How the counts are estimated is in
+`estimate_counts`: they depend on the field, and the planner says which it assumed.
+Times are those of one unshared core (the sweep measures CPU seconds).  Threads divide
+the parallel part (Amdahl's law, fractions measured with 1 and 2 threads).  Memory has
+one account, `predict_memory`: the planner's figure and `skyscale.Engine`'s ``memory``
+(and its ``max_memory`` check, `fits_memory`) are the same number.
 """
 
 import math
@@ -47,18 +62,19 @@ from skyscale.cost.calibration import (CALIBRATION_ENV, DEFAULT_CALIBRATION,
                                        default_calibration_path, fit_nonnegative,
                                        fit_power_law, load_calibration, save_calibration)
 from skyscale.core.defaults import DEFAULTS
+from skyscale.cost.memory import (MEMORY_HEADROOM, engine_memory, fits_memory,
+                                  predict_memory)
 
 __all__ = ["DEFAULT_CALIBRATION", "CALIBRATION_ENV", "DEFAULT_DYNAMIC_RANGE",
            "MEMORY_HEADROOM", "LOOP_TERMS", "Geometry", "run_geometry", "fft_work",
            "fft_seconds", "predict_times", "loop_features", "loop_seconds",
            "estimate_counts", "predict_memory", "engine_memory", "fits_memory",
            "available_memory", "load_calibration", "save_calibration",
-           "default_calibration_path", "fit_power_law", "fit_nonnegative"]
+           "default_calibration_path", "fit_power_law", "fit_nonnegative",
+           "direct_cost_ratio", "direct_pixel_planes", "direct_passes", "beam_extent"]
 
 #: Peak over stop level assumed when neither the dirty image nor a dynamic range is given.
 DEFAULT_DYNAMIC_RANGE = 1000.0
-#: A run fits when its predicted peak times this is at most the memory available.
-MEMORY_HEADROOM = 1.10
 
 
 def fft_work(shape):
@@ -79,15 +95,26 @@ def _grid(n, below, above):
     return next_fast_len(int(n + max(min(below, n - 1), min(above, n - 1))), real=True)
 
 
+def direct_cost_ratio():
+    """The engine's rule for direct updates (`skyscale.core.engine.DIRECT_COST_RATIO`)."""
+    from skyscale.core.engine import DIRECT_COST_RATIO
+    return float(DIRECT_COST_RATIO)
+
+
 @dataclass(frozen=True)
 class Geometry:
-    """Sizes a run's cost depends on, from shapes alone."""
+    """Sizes a run's cost depends on, from shapes alone.
+
+    The cycle's box is taken as the whole image (its largest: a run without a mask, or
+    with one that spans the image), so the grids, the beams' extent and the tracked
+    pixels are upper bounds for a compact mask.
+    """
 
     image_shape: tuple
     psf_shape: tuple
     radii: tuple                 #: support half-width of each scale kernel
     itemsize: int
-    precompute_grid: tuple       #: FFT grid of the scale beams (None: delta scales only)
+    precompute_grid: tuple       #: FFT grid of the beams (`skyscale.core.precompute.pair_beams`)
     smooth_grid: tuple           #: FFT grid of the smoothing (None: delta scales only)
     major_grid: tuple            #: FFT grid of the PSF convolution
 
@@ -103,18 +130,39 @@ class Geometry:
     def pixels(self):
         return self.image_shape[0] * self.image_shape[1]
 
+    @property
+    def n_pairs(self):
+        """Pair beams direct updates use (`skyscale.Engine._pair_keys`): every pair of
+        scales, and each scale's response in the unsmoothed residual unless a delta
+        scale (radius 0, the kernel ``[[1]]``) stands for it."""
+        n = self.n_scales
+        return n * (n - 1) // 2 + (0 if 0 in self.radii else n)
+
+    @property
+    def beam_pixels(self):
+        """Pixels of one beam at the image's extent: ``(2 ny - 1) (2 nx - 1)``."""
+        return (2 * self.image_shape[0] - 1) * (2 * self.image_shape[1] - 1)
+
     def transforms(self):
-        """FFTs per step, as ``{step: [(grid, count), ...]}``."""
+        """FFTs per step, as ``{step: [(grid, count), ...]}``: ``precompute`` (the
+        engine's smoothing kernels), ``beams`` (each making of beams transforms the PSF
+        and each finite kernel: once for the scales' beams, once per scale for its pair
+        beams at its first direct update; then one inverse per beam), ``setup`` (the residual operator's PSF and the cycle's
+        convolvers), ``round`` (one FFT update), ``major`` and ``stats``."""
         nf = self.n_finite
-        pre = [(self.major_grid, 1)]
-        step_s = []
-        if nf:
-            pre += [(self.precompute_grid, 2 * nf + 1), (self.smooth_grid, nf)]
-            step_s = [(self.smooth_grid, 1 + nf)]
-        setup = [(self.major_grid, 3)] + ([(self.smooth_grid, 2)] if nf else [])
-        return {"precompute": pre, "setup": setup,
+        smooth = [(self.smooth_grid, nf)] if nf else []
+        step_s = [(self.smooth_grid, 1 + nf)] if nf else []
+        beams = [(self.precompute_grid, (1 + self.n_scales) * (1 + nf) + self.n_scales
+                  + self.n_pairs)]
+        return {"precompute": smooth, "beams": beams,
+                "setup": [(self.major_grid, 2)] + smooth,
                 "round": [(self.major_grid, 2)] + step_s, "major": [(self.major_grid, 2)],
                 "stats": step_s}
+
+    def fft_update_work(self):
+        """Work units (``S log2 S``) of one FFT update: the engine's
+        ``Engine._fft_update_cost`` for a box of the image's shape."""
+        return sum(n * fft_work(g) for g, n in self.transforms()["round"])
 
 
 def run_geometry(image_shape, psf_shape, radii, *, itemsize=4):
@@ -124,10 +172,10 @@ def run_geometry(image_shape, psf_shape, radii, *, itemsize=4):
     r = tuple(int(v) for v in radii)
     rmax = max(r) if r else 0
     major = (_grid(ny, py // 2, py - 1 - py // 2), _grid(nx, px // 2, px - 1 - px // 2))
-    pre = smooth = None
+    region = (2 * (ny - 1 + 2 * rmax) + 1, 2 * (nx - 1 + 2 * rmax) + 1)
+    pre = tuple(next_fast_len(int(v + 4 * rmax), real=True) for v in region)
+    smooth = None
     if rmax > 0:
-        region = (2 * (ny - 1 + 2 * rmax) + 1, 2 * (nx - 1 + 2 * rmax) + 1)
-        pre = tuple(next_fast_len(int(v + 4 * rmax), real=True) for v in region)
         smooth = (_grid(ny, rmax, rmax), _grid(nx, rmax, rmax))
     return Geometry((ny, nx), (py, px), r, int(itemsize), pre, smooth, major)
 
@@ -139,27 +187,63 @@ def fft_seconds(pieces, calibration, threads=1):
     return t * _amdahl(calibration["threads"]["fft_parallel"], threads)
 
 
-def predict_times(geom, calibration=None, *, threads=1):
-    """Seconds of each step: ``precompute``, ``setup`` (the residual operator), ``round``
-    (one sub-loop's exact update, without the loop), ``major`` (one residual),
-    ``stats`` (smoothing and noise after a major cycle), and the loop's
-    ``per_component_pixel``, ``per_active_pixel`` and ``per_sub_loop``.  The set-up
-    also counts the first use of the cycle's FFT plans (their buffers made: about the
-    work of three transforms on the PSF convolution's grid and two on the smoothing's)."""
+def beam_extent(box_shape, image_shape):
+    """The extent the engine makes beams for, for a cycle's box: each side rounded up to
+    `skyscale.core.precompute.EXTENT_STEP`, at most the image's."""
+    from skyscale.core.precompute import EXTENT_STEP
+    return tuple(min(int(n), -(-int(b) // EXTENT_STEP) * EXTENT_STEP)
+                 for b, n in zip(box_shape, image_shape))
+
+
+def predict_times(geom, calibration=None, *, threads=1, tracked_pixels=None, box_shape=None):
+    """Seconds of each step: ``precompute`` (the engine), ``beams`` (made by the first
+    minor cycle), ``setup`` (the residual operator and the cycle's convolvers),
+    ``round`` (one FFT update), ``direct`` (one direct update of a typical size:
+    ``kappa`` of the engine's allowance), ``per_direct_madd``, ``per_sub_loop_scan``
+    (a sub-loop's scans of the tracked pixels), ``cycle`` (a minor cycle's own set-up),
+    ``major`` (one residual), ``stats`` (smoothing and noise after a major cycle), and
+    the loop's ``per_component_pixel``, ``per_active_pixel`` and ``per_sub_loop``.
+
+    ``box_shape`` is the box the minor cycles work in (the mask's bounding box grown by
+    the largest scale's radius; default the whole image): the beams, the FFT updates
+    and the direct updates follow it.  ``tracked_pixels`` defaults to the box's."""
     cal = calibration or load_calibration()
+    box = geom if box_shape is None else run_geometry(
+        [min(int(b), n) for b, n in zip(box_shape, geom.image_shape)], geom.psf_shape,
+        geom.radii, itemsize=geom.itemsize)
+    ext = box if box_shape is None else run_geometry(
+        beam_extent(box.image_shape, geom.image_shape), geom.psf_shape, geom.radii,
+        itemsize=geom.itemsize)
     ffts = {k: fft_seconds(v, cal, threads) for k, v in geom.transforms().items()}
+    bffts = {k: fft_seconds(v, cal, threads) for k, v in box.transforms().items()}
+    setup = fft_seconds([(geom.major_grid, 1)] + box.transforms()["setup"][1:]
+                        + [(box.major_grid, 1)], cal, threads)
     n_psf = geom.psf_shape[0] * geom.psf_shape[1]
-    ny, nx = geom.image_shape
-    pre, rnd, maj, sts = (cal[k] for k in ("precompute", "round", "major", "stats"))
+    n_t = float(box.pixels if tracked_pixels is None else min(tracked_pixels, box.pixels))
+    pre, bm, rnd, maj, sts = (cal[k] for k in ("precompute", "beams", "round", "major",
+                                               "stats"))
+    d, sc = cal["direct"], cal["scan"]
     loop = _amdahl(cal["threads"]["loop_parallel"], threads)
+    # the engine allows m N_t (N_s + 1) <= ratio x the update's work; kappa of it is used
+    passes = direct_passes(geom.n_scales, 0 in geom.radii)
+    madds = (d["allowance_used"] * direct_cost_ratio() * box.fft_update_work()
+             * passes / (geom.n_scales + 1))
     return {
         "precompute": pre["fixed"] + pre["per_psf_pixel"] * n_psf
-        + pre["per_fft_second"] * ffts["precompute"]
-        + pre["per_beam_pixel"] * geom.n_scales * (2 * ny - 1) * (2 * nx - 1),
+        + pre["per_fft_second"] * ffts["precompute"],
+        "beams": bm["fixed"] * (1 + ext.n_scales) + bm["per_fft_second"] * fft_seconds(
+            ext.transforms()["beams"], cal, threads)
+        + bm["per_beam_pixel"] * (ext.n_scales + ext.n_pairs) * ext.beam_pixels,
         "setup": cal["setup"]["fixed"] + pre["per_psf_pixel"] * n_psf
-        + cal["setup"]["per_fft_second"] * ffts["setup"],
-        "round": rnd["fixed"] + rnd["per_fft_second"] * ffts["round"]
-        + rnd["per_plane_pixel"] * geom.n_scales * geom.pixels,
+        + cal["setup"]["per_fft_second"] * setup,
+        "round": rnd["fixed"] + rnd["per_fft_second"] * bffts["round"]
+        + rnd["per_plane_pixel"] * box.n_scales * box.pixels,
+        "direct": d["fixed"] + (d["per_madd"] * madds + d["per_pixel_plane"]
+                                * direct_pixel_planes(passes, n_t, d["pixel_exponent"]))
+        * loop,
+        "per_direct_madd": d["per_madd"] * loop,
+        "per_sub_loop_scan": sc["per_tracked_pixel"] * geom.n_scales * n_t * loop,
+        "cycle": sc["cycle_fixed"] + sc["per_plane_pixel"] * geom.n_scales * geom.pixels,
         "major": maj["fixed"] + maj["per_fft_second"] * ffts["major"]
         + maj["per_plane_pixel"] * geom.pixels,
         "stats": sts["fixed"] + sts["per_fft_second"] * ffts["stats"]
@@ -168,6 +252,20 @@ def predict_times(geom, calibration=None, *, threads=1):
         "per_active_pixel": cal["loop"]["per_active_pixel"] * loop,
         "per_sub_loop": cal["loop"]["per_sub_loop"],
     }
+
+
+def direct_passes(n_scales, has_delta):
+    """Planes a direct update passes over: every scale's, and the residual's unless a
+    delta scale's plane is the residual itself (`skyscale.core.engine`)."""
+    return int(n_scales) + (0 if has_delta else 1)
+
+
+def direct_pixel_planes(passes, tracked, exponent):
+    """The direct update's pass over the tracked pixels, in units of the calibration's
+    ``direct.per_pixel_plane``: ``P N_t (N_t / 2^20)^delta`` for ``P`` planes
+    (`direct_passes`)."""
+    t = float(tracked)
+    return passes * t * (max(t, 1.0) / 2.0 ** 20) ** float(exponent)
 
 
 #: The sub-loop's cost terms, in the order of `loop_features` (seconds per component
@@ -188,7 +286,10 @@ def loop_seconds(times, components, active_pixels, sub_loops=1):
     r"""Seconds of ``sub_loops`` sub-loops taking ``components`` in all over
     ``active_pixels`` (per sub-loop): the one home of the loop's cost formula.
 
-    .. math:: t_\mathrm{loop} = \ell_1 m A + R (\ell_2 A + \ell_0)
+    .. math:: t_\mathrm{loop} = \ell_1 m A + R (\ell_2 A + \ell_0 + g_1 N_s N_t)
+
+    The last term, each sub-loop's scans of the tracked pixels, is counted when
+    ``times`` has it (``per_sub_loop_scan``, as `predict_times` gives it).
 
     Parameters
     ----------
@@ -203,7 +304,8 @@ def loop_seconds(times, components, active_pixels, sub_loops=1):
     """
     a = float(active_pixels)
     return (times["per_component_pixel"] * components * a
-            + sub_loops * (times["per_active_pixel"] * a + times["per_sub_loop"]))
+            + sub_loops * (times["per_active_pixel"] * a + times["per_sub_loop"]
+                           + times.get("per_sub_loop_scan", 0.0)))
 
 
 def estimate_counts(geom, calibration=None, *, dynamic_range=None,
@@ -212,8 +314,9 @@ def estimate_counts(geom, calibration=None, *, dynamic_range=None,
                     cycle_depth=DEFAULTS.cycle_depth,
                     scale_loop_depth=DEFAULTS.scale_loop_depth,
                     mask_fraction=1.0, components=None, rounds=None, major_cycles=None,
-                    active_pixels=None):
-    """Major cycles, rounds, components and active pixels a run is expected to need.
+                    active_pixels=None, fft_updates=None):
+    """Major cycles, rounds, FFT updates, components and active pixels a run is expected
+    to need.
 
     Parameters
     ----------
@@ -225,14 +328,16 @@ def estimate_counts(geom, calibration=None, *, dynamic_range=None,
         As given to `skyscale.deconvolve`.
     mask_fraction : float
         Fraction of the image where components may go; default 1.
-    components, rounds, major_cycles, active_pixels : optional
+    components, rounds, major_cycles, active_pixels, fft_updates : optional
         Known counts (from an earlier run of the same field) replace the estimates.
 
     Returns
     -------
     dict
-        ``major_cycles``, ``rounds``, ``components``, ``active_pixels`` (mean per
-        sub-loop) and ``how`` (words per count: 'given' or how it was estimated).
+        ``major_cycles``, ``rounds``, ``fft_updates`` (the rounds applied by an FFT
+        update; the others are direct), ``components``, ``active_pixels`` (mean per
+        sub-loop), ``tracked_pixels`` and ``how`` (words per count: 'given' or how it
+        was estimated).
 
     Notes
     -----
@@ -249,6 +354,9 @@ def estimate_counts(geom, calibration=None, *, dynamic_range=None,
     planner counts the most the run may take and its time is an upper bound in that
     term.  The active set is ``alpha`` of the pixels where components may go
     (``alpha`` measured on the sweep's fields: emission above half of a scale's peak).
+    A fraction ``phi`` of the rounds (calibrated) take too many components for a direct
+    update and are FFT updates: ``U = ceil(phi R)``, at least one per major cycle.  The
+    tracked pixels are the pixels components may use.
     """
     cal = calibration or load_calibration()
     cnt = cal["counts"]
@@ -280,110 +388,18 @@ def estimate_counts(geom, calibration=None, *, dynamic_range=None,
                                 "use (calibrated; extended emission has more)")
     else:
         how["active_pixels"] = "given"
+    if fft_updates is None:
+        phi = cnt["fft_update_fraction"]
+        fft_updates = min(int(rounds), max(int(math.ceil(phi * rounds)),
+                                           min(int(major_cycles), int(rounds))))
+        how["fft_updates"] = f"{phi:.2g} of the sub-loops (calibrated), the others direct"
+    else:
+        fft_updates = min(int(fft_updates), int(rounds))
+        how["fft_updates"] = "given"
     return {"major_cycles": int(major_cycles), "rounds": int(rounds),
-            "components": int(components), "active_pixels": float(active_pixels),
-            "how": how}
-
-
-def _complex(grid):
-    return 16 * int(grid[0]) * (int(grid[1]) // 2 + 1)
-
-
-def _real(grid):
-    return 8 * int(grid[0]) * int(grid[1])
-
-
-def predict_memory(geom, calibration=None):
-    """Peak bytes a run adds to the process, and where it happens: the one memory account.
-
-    Counted from the code with the pyfftw backend: the engine's arrays (one scale beam
-    per scale, the smoothed residuals twice: the working set and the copy a rejected
-    sub-loop returns to, and the cycle's images: residual in float64, model, its
-    increment, mask), the FFT plans the backend keeps for the engine's lifetime (each
-    an input and an output buffer: the precompute's per kernel shape, the smoothing's
-    and the PSF convolution's, three each), the transforms kept by the convolvers and
-    the residual operator, the PSF copies, and the largest transient (the beams'
-    transforms while they are made, or a round's update).
-
-    Returns
-    -------
-    dict
-        ``peak`` (bytes, times the calibrated ``memory.scale``), ``peak_phase``
-        ('precompute' or 'cycles'), ``phases``, ``terms`` and ``engine`` (what
-        `skyscale.Engine` keeps as ``memory``: the terms with ``total`` = ``peak`` and
-        ``peak_phase``).
-    """
-    cal = calibration or load_calibration()
-    b = geom.itemsize
-    ny, nx = geom.image_shape
-    n = geom.n_scales
-    n_psf = geom.psf_shape[0] * geom.psf_shape[1]
-    nf = geom.n_finite
-    plan_p = plan_s = 0
-    work_p = work_s = 0
-    if nf:
-        p, s = geom.precompute_grid, geom.smooth_grid
-        plan_p = (len({r for r in geom.radii if r > 0}) + 2) * (_real(p) + _complex(p))
-        ry, rx = (2 * (v - 1 + 2 * max(geom.radii)) + 1 for v in geom.image_shape)
-        work_p = 8 * ry * rx + 4 * _complex(p) + _real(p)
-        plan_s = 3 * (_real(s) + _complex(s))
-        work_s = 2 * _complex(s) + _real(s)
-    m = geom.major_grid
-    t = {
-        "beams": n * (2 * ny - 1) * (2 * nx - 1) * b,
-        "planes": 2 * n * ny * nx * b,
-        "images": 2 * ny * nx * 8 + 2 * ny * nx * b + ny * nx,
-        "psf_copies": 2 * b * n_psf,
-        "precompute_plans": plan_p,
-        "cycle_plans": plan_s + 3 * (_real(m) + _complex(m)),
-        "kept_transforms": 2 * _complex(m) + nf * (_complex(geom.smooth_grid) if nf else 0),
-        "precompute_work": work_p,
-        "cycle_work": max(2 * _complex(m) + _real(m), work_s) + 2 * 8 * geom.pixels
-        + geom.n_scales * geom.pixels * (1 + b),
-    }
-    phases = {
-        "precompute": t["beams"] + t["psf_copies"] // 2 + t["precompute_plans"]
-        + t["precompute_work"],
-        "cycles": sum(v for k, v in t.items() if k != "precompute_work"),
-    }
-    scale = float(cal["memory"]["scale"])
-    peak_phase = max(phases, key=phases.get)
-    peak = int(scale * phases[peak_phase])
-    return {"peak": peak, "peak_phase": peak_phase,
-            "phases": {k: int(scale * v) for k, v in phases.items()},
-            "engine": dict(t, total=peak, peak_phase=peak_phase), "terms": t}
-
-
-def engine_memory(image_shape, psf_shape, radii, itemsize=4, calibration=None):
-    """`predict_memory` of an engine's shapes: what `skyscale.Engine` keeps as ``memory``.
-
-    Parameters
-    ----------
-    image_shape, psf_shape : (int, int)
-    radii : sequence of int
-        Support half-width of each scale kernel.
-    itemsize : int
-        4 for float32, 8 for float64.
-    calibration : dict, optional
-        Default `load_calibration` (its ``memory.scale``), as the planner reads it.
-
-    Returns
-    -------
-    dict
-        The terms of `predict_memory` (bytes), ``total`` (its ``peak``) and ``peak_phase``.
-    """
-    geom = run_geometry(image_shape, psf_shape, radii, itemsize=itemsize)
-    return predict_memory(geom, calibration)["engine"]
-
-
-def fits_memory(peak, available):
-    """True when a predicted ``peak`` (bytes) fits in ``available`` bytes.
-
-    The rule of the planner and of ``Engine(max_memory=)``: the peak times
-    `MEMORY_HEADROOM` (the model's margin) must be at most what is available; an
-    unknown ``available`` (None) fits.
-    """
-    return available is None or peak * MEMORY_HEADROOM <= available
+            "fft_updates": int(fft_updates), "components": int(components),
+            "active_pixels": float(active_pixels),
+            "tracked_pixels": float(mask_fraction) * geom.pixels, "how": how}
 
 
 def available_memory():

@@ -16,7 +16,7 @@ from skyscale.core.validate import resolve_dtype
 from skyscale.core.defaults import DEFAULTS
 
 __all__ = ["Plan", "plan_run", "check_fits_memory", "max_affordable_scales",
-           "AffordableScales", "InsufficientMemoryError"]
+           "AffordableScales", "InsufficientMemoryError", "seconds_text", "bytes_text"]
 
 
 class InsufficientMemoryError(ValueError, MemoryError):
@@ -25,6 +25,22 @@ class InsufficientMemoryError(ValueError, MemoryError):
 
 def _gib(nbytes):
     return f"{nbytes / 2**30:.2f} GiB"
+
+
+def seconds_text(seconds):
+    """A planned time in words as ``skyscale plan`` and ``skyscale suggest`` quote it."""
+    if seconds < 1e-3:
+        return f"{seconds * 1e6:.3g} us"
+    if seconds < 1:
+        return f"{seconds * 1e3:.3g} ms"
+    if seconds < 600:
+        return f"{seconds:.3g} s"
+    return f"{seconds / 60:.3g} min"
+
+
+def bytes_text(nbytes):
+    """A planned memory figure as ``skyscale plan`` and ``skyscale suggest`` quote it."""
+    return "unknown" if nbytes is None else f"{nbytes / 2**20:,.0f} MiB"
 
 
 @dataclass
@@ -37,13 +53,13 @@ class Plan:
     threads: int
     dtype: str
     max_components: int
-    counts: dict                   #: major_cycles, rounds, components, active_pixels, how
-    precompute_seconds: float      #: the scale beams and the engine's transforms
-    setup_seconds: float           #: the residual operator (the PSF's transform)
+    counts: dict                   #: major_cycles, rounds, fft_updates, components, ...
+    precompute_seconds: float      #: the engine: its smoothing kernels' transforms
+    setup_seconds: float           #: the residual operator and the cycle's convolvers
     startup_seconds: float         #: imports and compiled-code loading of a fresh process
-    round_seconds: float           #: one sub-loop's exact update (FFTs, peaks)
-    loop_seconds: float            #: all sub-loops' Hogbom iterations
-    minor_seconds: float           #: all minor cycles: rounds and loops
+    round_seconds: float           #: one FFT update of the cycle's box (FFTs, gathers)
+    loop_seconds: float            #: all sub-loops' Hogbom iterations and scans
+    minor_seconds: float           #: all minor cycles: beams, updates, loops
     major_seconds: float           #: one major cycle: the residual and its statistics
     major_total_seconds: float
     total_seconds: float
@@ -56,6 +72,9 @@ class Plan:
     memory_terms: dict = field(default_factory=dict)
     #: when it will not fit: what would, each with its peak (`skyscale.cost.remedies`)
     remedies: list = field(default_factory=list)
+    beams_seconds: float = 0.0     #: the beams, made by the first minor cycle
+    fft_update_seconds: float = 0.0    #: all FFT updates
+    direct_seconds: float = 0.0    #: all direct updates of the tracked pixels
 
     def __getitem__(self, key):
         return getattr(self, key)
@@ -120,7 +139,8 @@ def plan_run(image_shape, psf, scales, *, max_components=DEFAULTS.max_components
              calibration=None, fresh_process=True, dirty=None, dynamic_range=None,
              threshold=DEFAULTS.threshold, noise_threshold=None,
              cycle_depth=DEFAULTS.cycle_depth, mask_fraction=1.0,
-             components=None, rounds=None, major_cycles=None, active_pixels=None):
+             components=None, rounds=None, major_cycles=None, active_pixels=None,
+             fft_updates=None, box_shape=None):
     """Predict the time and memory of a run before anything large is allocated.
 
     Parameters
@@ -154,9 +174,15 @@ def plan_run(image_shape, psf, scales, *, max_components=DEFAULTS.max_components
     cycle_depth : float
         As `skyscale.deconvolve`; default 0.2.
     mask_fraction : float
-        Fraction of the image where components may go; default 1.
-    components, rounds, major_cycles, active_pixels : optional
-        Known counts (an earlier run of the field) instead of the estimates
+        Fraction of the image where components may go (the tracked pixels); default 1.
+    box_shape : (int, int), optional
+        The box the minor cycles work in: the mask's bounding box grown by the largest
+        scale's radius; default the whole image.  The beams, the FFT updates and the
+        direct updates follow it (the peak memory stays counted for the whole image,
+        the most a later cycle's mask may take).
+    components, rounds, major_cycles, active_pixels, fft_updates : optional
+        Known counts (an earlier run of the field: ``result.components``,
+        ``sub_loops``, major cycles, ``fft_updates``) instead of the estimates
         (`cost.estimate_counts`).
 
     Returns
@@ -203,14 +229,28 @@ def plan_run(image_shape, psf, scales, *, max_components=DEFAULTS.max_components
         max_major_cycles=max_major_cycles, cycle_depth=cycle_depth,
         scale_loop_depth=DEFAULTS.scale_loop_depth, mask_fraction=mask_fraction,
         components=components, rounds=rounds, major_cycles=major_cycles,
-        active_pixels=active_pixels)
+        active_pixels=active_pixels, fft_updates=fft_updates)
     for key, words in counts["how"].items():
         if words != "given":
             messages.append(f"{key.replace('_', ' ')}: {words}")
-    t = cost.predict_times(geom, cal, threads=threads)
-    loop = cost.loop_seconds(t, counts["components"], counts["active_pixels"],
-                             counts["rounds"])
-    minor = counts["rounds"] * t["round"] + loop
+    if box_shape is not None:
+        box_shape = _shape2(box_shape, "box_shape")
+        if box_shape[0] > image_shape[0] or box_shape[1] > image_shape[1]:
+            raise ValueError(f"box_shape is {box_shape}, larger than the image "
+                             f"{image_shape}; give the mask's bounding box (grown by the "
+                             "largest scale's radius), at most the image")
+        counts["tracked_pixels"] = min(counts["tracked_pixels"],
+                                       float(box_shape[0] * box_shape[1]))
+        messages.append(f"minor cycles in a box of {box_shape[0]} x {box_shape[1]} pixels "
+                        "(given); peak memory counted for the whole image")
+    t = cost.predict_times(geom, cal, threads=threads,
+                           tracked_pixels=counts["tracked_pixels"], box_shape=box_shape)
+    rounds, fft_updates = counts["rounds"], counts["fft_updates"]
+    loop = cost.loop_seconds(t, counts["components"], counts["active_pixels"], rounds)
+    updates = fft_updates * t["round"]
+    direct = (rounds - fft_updates) * t["direct"]
+    cycles = counts["major_cycles"] * t["cycle"]
+    minor = t["beams"] + updates + direct + loop + cycles
     major_each = t["major"] + t["stats"]
     major = counts["major_cycles"] * major_each + t["stats"]    # the dirty image's stats too
     big = cal.get("range", {}).get("max_image_pixels")
@@ -239,7 +279,7 @@ def plan_run(image_shape, psf, scales, *, max_components=DEFAULTS.max_components
                 int(max_components), counts, t["precompute"], t["setup"], startup,
                 t["round"], loop, minor, major_each, major, total, mem["peak"],
                 mem["peak_phase"], avail, bool(fits), messages,
-                cal.get("source", ""), mem["terms"], remedies)
+                cal.get("source", ""), mem["terms"], remedies, t["beams"], updates, direct)
 
 
 def check_fits_memory(plan):

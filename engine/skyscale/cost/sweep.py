@@ -1,14 +1,17 @@
 """Measuring what scales cost: the scaling sweep, its calibration runs and the check.
 
 `run_sweep` measures, on an invented field (`synthetic_field`), for each image size
-and scale set: the precompute, the residual operator's set-up, the rounds of a minor
-cycle (each sub-loop's exact update, and the sub-loop itself per component and per
-active pixel), one major cycle and its statistics, and the peak memory (tracemalloc
-and the resident set) against the planner's; it times single FFTs on every grid the
-points use, and the sub-loop and the FFTs at 1 and 2 threads.  Whole runs at the swept
-sizes calibrate the counts (rounds, active pixels, major cycles); runs at sizes and on
-fields it did not see check the planner.  `skyscale.cost.sweepfit` fits and summarises.
-Nothing here prints: progress goes to ``callback(dict)`` and the log.
+and scale set: the precompute, the residual operator's set-up, the beams the first
+minor cycle makes, the sub-loops of a minor cycle (each FFT or direct update, the
+sub-loop itself per component and per active pixel, the cycle's own scans), one major
+cycle and its statistics, and the peak memory (tracemalloc and the resident set)
+against the planner's; it times single FFTs on every grid the points use, direct
+updates of the whole image at each size, and the sub-loop and the FFTs at 1 and 2
+threads.  Whole runs at the swept sizes calibrate the counts (rounds, FFT updates,
+active pixels, major cycles); runs at sizes and on fields it did not see check the
+planner.  The measuring tools are in `skyscale.cost.instruments`;
+`skyscale.cost.sweepfit` fits and summarises.  Nothing here prints: progress goes to
+``callback(dict)`` and the log.
 
 Times at one thread are the process's CPU time (`cpu_clock`), not the wall clock: on a
 machine shared with other work the wall clock of a long step depends on the load far
@@ -16,26 +19,26 @@ more than on the step, and the planner predicts the time of an unshared core.  T
 thread probes, which must see threads run side by side, use the wall clock.
 """
 
-import contextlib
 import logging
 import os
 import platform
-import threading
 import time
-import tracemalloc
 
 import numpy as np
 
 from skyscale.cost import model as cost
+from skyscale.cost.instruments import (RSS_INTERVAL, PeakMemory, SubLoopRecord,  # noqa: F401
+                                       cpu_clock, fft_probe, kept_warnings,
+                                       record_sub_loops)
 from skyscale.core.threads import resolve_threads, thread_limit
 from skyscale.core.driver import masked_stats
-from skyscale.core.fft import get_backend
 from skyscale.core.engine import Engine
 from skyscale.core.operators import ImagePlaneOperator
 
 __all__ = ["SCALE_SETS", "DEFAULT_SIZES", "QUICK_SETTINGS", "synthetic_field", "PeakMemory",
-           "cpu_clock", "record_sub_loops", "fft_probe", "measure_point", "measure_run",
-           "run_sweep", "VALIDATION_RUNS", "sweep_shapes", "sweep_memory"]
+           "cpu_clock", "record_sub_loops", "SubLoopRecord", "direct_probe", "fft_probe",
+           "measure_point", "measure_run", "run_sweep", "VALIDATION_RUNS", "sweep_shapes",
+           "sweep_memory"]
 
 logger = logging.getLogger(__name__)
 
@@ -89,120 +92,6 @@ def synthetic_field(n, *, seed=0, noise=1e-3):
     return dirty.astype(np.float32), psf.astype(np.float32)
 
 
-# --------------------------------------------------------------------------- memory
-def _rss():
-    try:
-        import psutil
-        return psutil.Process().memory_info().rss
-    except ImportError:
-        with open("/proc/self/statm") as fh:
-            return int(fh.read().split()[1]) * os.sysconf("SC_PAGE_SIZE")
-
-
-class PeakMemory:
-    """Context manager: peak traced allocations (tracemalloc) and peak resident set.
-
-    Attributes after the block: ``traced_peak`` (bytes allocated above the start),
-    ``rss_start``, ``rss_peak`` (sampled every ``interval`` seconds) and
-    ``rss_increase``.
-    """
-
-    def __init__(self, interval=0.002):
-        self.interval = interval
-        self._stop = threading.Event()
-
-    def _sample(self):
-        while not self._stop.wait(self.interval):
-            self.rss_peak = max(self.rss_peak, _rss())
-
-    def __enter__(self):
-        self._owner = not tracemalloc.is_tracing()
-        if self._owner:
-            tracemalloc.start()
-        tracemalloc.reset_peak()
-        self._base = tracemalloc.get_traced_memory()[0]
-        self.rss_start = self.rss_peak = _rss()
-        self._thread = threading.Thread(target=self._sample, daemon=True)
-        self._thread.start()
-        return self
-
-    def __exit__(self, *exc):
-        self._stop.set()
-        self._thread.join()
-        self.rss_peak = max(self.rss_peak, _rss())
-        self.traced_peak = tracemalloc.get_traced_memory()[1] - self._base
-        if self._owner:
-            tracemalloc.stop()
-        self.rss_increase = self.rss_peak - self.rss_start
-        return False
-
-
-# ------------------------------------------------------------------ instrumentation
-#: Resident-set sampling interval of the sweep's memory measurements, seconds (the
-#: sampling thread's own CPU time is then negligible against the steps timed).
-RSS_INTERVAL = 0.05
-
-
-@contextlib.contextmanager
-def cpu_clock():
-    """Within the block the engine's and the driver's timings are CPU seconds of this
-    process (``time.process_time``) instead of wall seconds (measurement only)."""
-    import types
-    from skyscale.core import driver as cycles
-    from skyscale.core import engine as minor
-    shim = types.SimpleNamespace(perf_counter=time.process_time)
-    saved = minor.time, cycles.time
-    minor.time = cycles.time = shim
-    try:
-        yield
-    finally:
-        minor.time, cycles.time = saved
-
-
-@contextlib.contextmanager
-def record_sub_loops():
-    """Record every sub-loop the engine runs: ``(active pixels, components, seconds)``.
-
-    Wraps the engine's reference to the compiled sub-loop for the block (measurement
-    only: the arguments and results pass through unchanged).
-    """
-    from skyscale.core import engine as minor
-    inner = minor.scale_loop
-    rows = []
-
-    def timed(values, ys, xs, beam, **kw):
-        t0 = time.process_time()
-        out = inner(values, ys, xs, beam, **kw)
-        rows.append((int(np.size(values)), int(out[0].size), time.process_time() - t0))
-        return out
-    minor.scale_loop = timed
-    try:
-        yield rows
-    finally:
-        minor.scale_loop = inner
-
-
-def fft_probe(grids, *, threads=1, repeats=3, backend="auto"):
-    """Seconds of one real FFT (mean of a forward and an inverse, best of ``repeats``)
-    on each grid, with the engine's backend: ``[{'grid', 'seconds', 'threads'}]``.
-    CPU seconds at one thread, wall seconds at more."""
-    clock = time.process_time if threads == 1 else time.perf_counter
-    out = []
-    fft = get_backend(backend, threads=threads)
-    for grid in sorted({tuple(int(v) for v in g) for g in grids}):
-        a = np.random.default_rng(0).standard_normal(grid)
-        spec = fft.rfft2(a, grid)
-        fft.irfft2(spec, grid)                          # plan once
-        best = np.inf
-        for _ in range(repeats):
-            t0 = clock()
-            fft.irfft2(fft.rfft2(a, grid), grid)
-            best = min(best, (clock() - t0) / 2)
-        out.append({"grid": list(grid), "seconds": best, "threads": int(threads)})
-        del a, spec
-    return out
-
-
 # --------------------------------------------------------------------------- points
 def _record(engine, dirty, psf):
     return {"size": int(dirty.shape[0]), "image_shape": list(dirty.shape),
@@ -217,36 +106,56 @@ def _timed(fn, *args, **kw):
     return out, time.process_time() - t0
 
 
+def _cycle_rows(mc, rec, n_scales, pixels):
+    """One minor cycle's own overhead (CPU seconds outside its sub-loops, updates, beams
+    and convolvers) with its features: ``[seconds, sub-loops, tracked pixels]``."""
+    inside = (sum(t for _, _, t in rec) + sum(u[3] for u in rec.updates)
+              + sum(b[2] for b in rec.beams) + sum(rec.tools))
+    tracked = max((u[2] for u in rec.updates), default=pixels)
+    return [max(mc.seconds - mc.timings.get("smooth", 0.0) - inside, 0.0), int(mc.rounds),
+            int(tracked)]
+
+
+def _update_rows(rec):
+    return [[kind, m, n_t, t] for kind, m, n_t, t, ok in rec.updates if ok]
+
+
 def measure_point(dirty, psf, scales, *, components=POINT_COMPONENTS, dtype=None):
-    """One sweep point at one thread: precompute, set-up, the rounds and sub-loops of
-    one minor cycle, one major cycle and its statistics, and the peak memory (CPU
-    seconds)."""
+    """One sweep point at one thread: precompute, set-up, the beams, the sub-loops and
+    updates of one minor cycle (FFT and direct), one major cycle and its statistics,
+    and the peak memory (CPU seconds)."""
     with PeakMemory(RSS_INTERVAL) as mem, cpu_clock():
         engine = Engine(psf, scales, image_shape=dirty.shape, threads=1, dtype=dtype)
         op, setup = _timed(ImagePlaneOperator, dirty, engine.psf, fft=engine.fft,
                            dtype=engine.dtype)
         state, stats_first = _timed(engine.measure, dirty)
-        with record_sub_loops() as first_loops:     # the cycle's FFT plans made
+        with record_sub_loops() as first_loops:     # the beams and convolvers made
             first = engine.minor_cycle(dirty, max_components=max(components // 20, 1),
-                                       state=state)
+                                       state=state, exact_residual=False)
         with record_sub_loops() as loops:
-            mc = engine.minor_cycle(dirty, max_components=components, state=state)
+            mc = engine.minor_cycle(dirty, max_components=components, state=state,
+                                    exact_residual=False)
         residual, major = _timed(op, mc.model)
         masked_stats(residual, None)
         _, stats = _timed(engine.measure, residual)
         residual, major2 = _timed(op, mc.model)
-    updated = sum(1 for _, m, _ in loops if m > 0)
-    round_s = mc.timings["update"] / max(updated, 1)
-    first_updates = sum(1 for _, m, _ in first_loops if m > 0)
-    first_use = max(first.timings["update"] - first_updates * round_s, 0.0)
+    npx = dirty.size
+    updates = _update_rows(first_loops) + _update_rows(loops)
+    fft = [u[3] for u in updates if u[0] == "fft"]
     rec = _record(engine, dirty, psf)
-    rec.update({"precompute_s": engine.precompute_seconds, "setup_s": setup + first_use,
-                "rounds": int(mc.rounds), "updates": updated,
-                "round_s": round_s,
+    rec.update({"precompute_s": engine.precompute_seconds,
+                "setup_s": setup + sum(first_loops.tools) + sum(loops.tools),
+                "beams_s": sum(b[2] for b in first_loops.beams + loops.beams),
+                "beams_made": sum(b[0] for b in first_loops.beams + loops.beams),
+                "beam_rows": [list(b) for b in first_loops.beams + loops.beams],
+                "rounds": int(mc.rounds), "updates": len(fft),
+                "round_s": float(np.mean(fft)) if fft else 0.0,
+                "update_rows": updates,
+                "cycle_rows": [_cycle_rows(first, first_loops, engine.n_scales, npx),
+                               _cycle_rows(mc, loops, engine.n_scales, npx)],
                 "loops": [list(r) for r in loops], "components": int(mc.components.size),
                 "major_s": min(major, major2), "stats_first_s": stats_first,
-                # a major cycle's statistics and the next minor cycle's own set-up
-                "stats_s": stats + mc.seconds - mc.timings["update"] - mc.timings["loop"],
+                "stats_s": stats,
                 "traced_peak": int(mem.traced_peak), "rss_increase": int(mem.rss_increase),
                 "engine_memory": int(engine.memory["total"])})
     return rec
@@ -255,36 +164,54 @@ def measure_point(dirty, psf, scales, *, components=POINT_COMPONENTS, dtype=None
 def measure_run(dirty, psf, scales, *, max_components, noise_threshold=3.0, threads=1,
                 seed_note=""):
     """A whole `skyscale.deconvolve` run at one thread: its time by step (CPU seconds;
-    ``wall`` beside), its counts and peak memory."""
+    ``wall`` beside), its counts (sub-loops, FFT updates, direct updates and the share of
+    their allowance the direct ones used) and peak memory."""
     if resolve_threads(threads) != 1:
         raise ValueError(f"threads is {threads}: measure_run times CPU seconds and needs 1")
     from skyscale.core.driver import deconvolve
-    with record_sub_loops() as loops, PeakMemory(RSS_INTERVAL) as mem, cpu_clock():
+    with record_sub_loops() as loops, PeakMemory(RSS_INTERVAL) as mem, cpu_clock(), \
+            kept_warnings() as said:
         t0, c0 = time.perf_counter(), time.process_time()
         res = deconvolve(dirty, psf, scales=scales, max_components=max_components,
                          noise_threshold=noise_threshold, threads=threads, restore=False)
         wall, cpu = time.perf_counter() - t0, time.process_time() - c0
     act = [a for a, _, _ in loops]
+    took = sum(m for _, m, _ in loops)
+    # the active set a component's sub-loop scans, on average (each sub-loop weighted by
+    # its components: the loop's cost m A sums over them)
+    weighted = sum(a * m for a, m, _ in loops) / took if took else 0.0
     sigma = res.scale_noise[0] if res.scale_noise else 0.0
     level = noise_threshold * sigma
+    g = cost.run_geometry(dirty.shape, psf.shape, _radii(scales))
+    n1 = len(scales) + 1
+    allowance = cost.direct_cost_ratio() * g.fft_update_work()
+    used = [m * n_t * n1 / allowance for kind, m, n_t, _, ok in loops.updates
+            if kind == "direct" and ok]
     return {"image_shape": list(dirty.shape), "psf_shape": list(psf.shape),
             "scales": list(scales), "field": seed_note, "threads": resolve_threads(threads),
             "max_components": int(max_components), "stop_reason": res.stop_reason,
+            "warnings": list(said),
             "components": int(res.components.size), "rounds": int(res.sub_loops),
+            "fft_updates": int(res.fft_updates),
+            "direct_updates": sum(1 for u in loops.updates if u[0] == "direct" and u[4]),
+            "allowance_used": float(np.mean(used)) if used else 0.0,
             "major_cycles": len(res.history) - 1,
-            "active_pixels": float(np.mean(act)) if act else 0.0,
+            "active_pixels": float(weighted),
+            "active_pixels_per_sub_loop": float(np.mean(act)) if act else 0.0,
             "dynamic_range": float(np.abs(dirty).max() / level) if level > 0 else None,
             "measured": {"precompute": res.timings["precompute"], "minor": res.timings["minor"],
                          "major": res.timings["major"], "total": cpu,
                          "memory": int(mem.traced_peak)},
-            "wall": wall, "load": list(os.getloadavg()), "rss_increase": int(mem.rss_increase)}
+            "wall": wall, "load": list(os.getloadavg()), "rss_increase": int(mem.rss_increase),
+            "loops": [list(r) for r in loops], "update_rows": _update_rows(loops),
+            "beam_rows": [list(b) for b in loops.beams]}
 
 
 def predicted_for(run, calibration, *, a_priori):
     """The planner's figures for a measured run: with its own counts (``a_priori``
     False: the model per step) or from its dynamic range and budget alone."""
     kw = {} if a_priori else {k: run[k] for k in ("components", "rounds", "major_cycles",
-                                                  "active_pixels")}
+                                                  "active_pixels", "fft_updates")}
     p = cost.plan_run(run["image_shape"], run["psf_shape"], run["scales"],
                       max_components=run["max_components"], threads=run["threads"],
                       calibration=calibration, memory_available=1 << 62, fresh_process=False,
@@ -328,6 +255,37 @@ def loop_threads_probe(n=512, iterations=40, thread_counts=(1, 2), repeats=3):
                 best[t] = min(best[t], time.perf_counter() - t0)
     return [{"threads": int(resolve_threads(t)), "seconds": best[t], "active": int(plane.size),
              "iterations": iterations} for t in thread_counts]
+
+
+def direct_probe(sizes, scales=(0, 4, 8, 16), components=(1, 8), repeats=3):
+    """Direct updates of the whole image's pixels (the largest tracked set) at each size:
+    ``[{'size', 'n_scales', 'tracked', 'components', 'seconds'}]`` (CPU seconds, best of
+    ``repeats``).  Their cost per pixel and plane grows with the tracked set once it
+    outgrows the caches, which the calibration runs at small sizes do not see."""
+    from skyscale.core import engine as minor
+    out = []
+    for n in sorted({int(v) for v in sizes}):
+        sc = [s for s in scales if s <= n // 4]
+        dirty, psf = synthetic_field(n, seed=0)
+        e = Engine(psf, sc, image_shape=dirty.shape, threads=1)
+        with thread_limit(1):
+            state = e.measure(dirty)
+            allowed = e.allowed(None)
+            work = minor._CycleWork(e, dirty.astype(np.float64), state.planes, allowed,
+                                    np.ones(dirty.shape, bool), e._box(allowed))
+            for m in components:
+                ys = n // 2 + np.arange(m) % 7
+                xs = n // 2 + np.arange(m) // 7
+                best = np.inf
+                for _ in range(repeats):
+                    t0 = time.process_time()
+                    work._apply_direct(0, ys, xs, np.full(m, 1e-6), np.inf)
+                    best = min(best, time.process_time() - t0)
+                out.append({"size": n, "n_scales": len(sc), "scales": list(sc),
+                            "tracked": int(work.tys.size),
+                            "components": int(m), "seconds": float(best)})
+        del e, work, state
+    return out
 
 
 _COLD_RUN = """
@@ -469,6 +427,8 @@ def run_sweep(sizes=DEFAULT_SIZES, *, scale_sets=SCALE_SETS, components=POINT_CO
     _notify(callback, what="loop threads")
     out["loop_threads"] = loop_threads_probe(n=q.get("sizes", (512,))[0] if quick else 512,
                                              thread_counts=thread_counts)
+    _notify(callback, what="direct updates")
+    out["direct_probe"] = direct_probe(sizes)
     out["runs"] = []
     budget = q.get("run_components", 20000)
     cal_runs = _calibration_runs(sizes)

@@ -13,7 +13,7 @@ import numpy as np
 from skyscale.cost import model as cost
 from skyscale.cost.calibration import DEFAULT_CALIBRATION, fit_nonnegative, fit_power_law
 
-__all__ = ["calibrate", "summarize", "step_ffts"]
+__all__ = ["calibrate", "summarize", "step_ffts", "one_thread"]
 
 
 def _geometry(rec):
@@ -21,10 +21,26 @@ def _geometry(rec):
                              itemsize=rec.get("itemsize", 4))
 
 
+def one_thread(cal):
+    """``cal`` with no parallel fractions: the sweep's points run on one thread."""
+    return dict(cal, threads={"fft_parallel": 0.0, "loop_parallel": 0.0})
+
+
+def _run_radii(run):
+    from skyscale.core.scales import ScaleSet
+    return list(ScaleSet(run["scales"]).support_radii)
+
+
+def _beam_features(geom, made, pixels, cal):
+    """Features of making ``made`` beams of ``pixels`` each on the beams' grid (one
+    forward FFT of the PSF and of each finite kernel, one inverse per beam)."""
+    return [1.0, cost.fft_seconds([(geom.precompute_grid, 1 + geom.n_finite + made)],
+                                  one_thread(cal)), made * pixels]
+
+
 def step_ffts(geom, cal):
     """Predicted FFT seconds of each step at one thread under ``cal``'s FFT law."""
-    one = dict(cal, threads={"fft_parallel": 0.0, "loop_parallel": 0.0})
-    return {k: cost.fft_seconds(v, one) for k, v in geom.transforms().items()}
+    return {k: cost.fft_seconds(v, one_thread(cal)) for k, v in geom.transforms().items()}
 
 
 def _misfit(model, y):
@@ -60,14 +76,50 @@ def calibrate(sweep):
         coef, _ = fit_nonnegative(rows, y)
         cal[name] = {k: float(c) for k, c in zip(keys, coef)}
         cal["fit"][name] = _misfit(np.asarray(rows) @ coef, y)
-    fit("precompute", ("fixed", "per_psf_pixel", "per_fft_second", "per_beam_pixel"),
-        [[1.0, r["psf_shape"][0] * r["psf_shape"][1], t["precompute"],
-          r["n_scales"] * (2 * r["size"] - 1) ** 2] for r, t in zip(pts, ffts)],
-        [r["precompute_s"] for r in pts])
+    fit("precompute", ("fixed", "per_psf_pixel", "per_fft_second"),
+        [[1.0, r["psf_shape"][0] * r["psf_shape"][1], t["precompute"]]
+         for r, t in zip(pts, ffts)], [r["precompute_s"] for r in pts])
+    # the beams: each making of beams in the points and the calibration runs (the
+    # scales' beams by a cycle, a scale's pair beams by its first direct update)
+    runs_all = sweep.get("runs", [])
+    rows, ys = [], []
+    for r in pts + runs_all:
+        g = _geometry(dict(r, radii=_run_radii(r)))
+        for made, pixels, secs in r.get("beam_rows", []):
+            rows.append(_beam_features(g, made, pixels, cal))
+            ys.append(secs)
+    if rows:
+        fit("beams", ("fixed", "per_fft_second", "per_beam_pixel"), rows, ys)
     upd = [(r, t) for r, t in zip(pts, ffts) if r["updates"] > 0]
     fit("round", ("fixed", "per_fft_second", "per_plane_pixel"),
         [[1.0, t["round"], r["n_scales"] * r["size"] ** 2] for r, t in upd],
         [r["round_s"] for r, _ in upd])
+    # direct updates: the points', the calibration runs' and the probe's of the whole
+    # image; the exponent of the pass over the tracked pixels from the probe's
+    # one-component updates (their cost per pixel and plane against the tracked set)
+    def passes(r):
+        return cost.direct_passes(len(r["scales"]), 0 in r["scales"])
+    direct = [(passes(r), u[1], u[2], u[3]) for r in pts + runs_all
+              for u in r.get("update_rows", []) if u[0] == "direct"]
+    probe = sweep.get("direct_probe", [])
+    direct += [(passes(p), p["components"], p["tracked"], p["seconds"]) for p in probe]
+    ones = [p for p in probe if p["components"] == 1]
+    if len({p["tracked"] for p in ones}) >= 2:
+        law = fit_power_law([p["tracked"] for p in ones],
+                            [p["seconds"] / (passes(p) * p["tracked"]) for p in ones])
+        cal["direct"]["pixel_exponent"] = float(np.clip(law["exponents"][0], 0.0, 1.0))
+    delta = cal["direct"]["pixel_exponent"]
+    if len(direct) >= 4:
+        fit("direct", ("fixed", "per_madd", "per_pixel_plane"),
+            [[1.0, m * nt * ps, cost.direct_pixel_planes(ps, nt, delta)]
+             for ps, m, nt, _ in direct], [t for *_, t in direct])
+        cal["direct"]["pixel_exponent"] = delta
+        cal["direct"]["allowance_used"] = DEFAULT_CALIBRATION["direct"]["allowance_used"]
+    cyc = [(r, c) for r in pts for c in r.get("cycle_rows", [])]
+    if len(cyc) >= 3:
+        fit("scan", ("cycle_fixed", "per_plane_pixel", "per_tracked_pixel"),
+            [[1.0, r["n_scales"] * r["size"] ** 2, c[1] * r["n_scales"] * c[2]]
+             for r, c in cyc], [c[0] for _, c in cyc])
     fit("major", ("fixed", "per_fft_second", "per_plane_pixel"),
         [[1.0, t["major"], r["size"] ** 2] for r, t in zip(pts, ffts)],
         [r["major_s"] for r in pts])
@@ -77,7 +129,7 @@ def calibrate(sweep):
     psf_s = cal["precompute"]["per_psf_pixel"]      # the operator checks the PSF too
     fit("setup", ("fixed", "per_fft_second"), [[1.0, t["setup"]] for t in ffts],
         [r["setup_s"] - psf_s * r["psf_shape"][0] * r["psf_shape"][1] for r in pts])
-    loops = [row for r in pts for row in r["loops"] if row[1] > 0 and row[2] > 0]
+    loops = [row for r in pts + runs_all for row in r.get("loops", []) if row[1] > 0 and row[2] > 0]
     if len(loops) >= 4:
         fit("loop", cost.LOOP_TERMS, [cost.loop_features(a, m) for a, m, _ in loops],
             [t for _, _, t in loops])
@@ -87,9 +139,15 @@ def calibrate(sweep):
         alpha = [r["active_pixels"] / (r["image_shape"][0] * r["image_shape"][1]) for r in runs]
         off = [r["major_cycles"] - math.log(max(r["dynamic_range"] or 1.0, 1.0)) / math.log(5.0)
                for r in runs]
+        phi = [r["fft_updates"] / r["rounds"] for r in runs if r.get("rounds")]
+        used = [r["allowance_used"] for r in runs if r.get("allowance_used")]
         cal["counts"] = {"rounds_per_scale_cycle": float(np.median(rho)),
                          "active_fraction": float(np.median(alpha)),
-                         "cycles_offset": float(np.clip(np.median(off), 0.0, 5.0))}
+                         "cycles_offset": float(np.clip(np.median(off), 0.0, 5.0)),
+                         "fft_update_fraction": float(np.median(phi)) if phi else
+                         DEFAULT_CALIBRATION["counts"]["fft_update_fraction"]}
+        if used:
+            cal["direct"]["allowance_used"] = float(np.median(used))
     ft = sorted(sweep.get("fft_threads", []), key=lambda r: r["threads"])
     lt = sorted(sweep.get("loop_threads", []), key=lambda r: r["threads"])
     cal["threads"] = {
@@ -142,6 +200,7 @@ def summarize(sweep, calibration=None):
         t = cost.predict_times(g, cal)
         lp = sum(cost.loop_seconds(t, m, a) for a, m, _ in r["loops"])
         r["model"] = {"precompute_s": t["precompute"], "round_s": t["round"],
+                      "beams_s": t["beams"],
                       "major_s": t["major"], "stats_s": t["stats"],
                       "loops_s": lp, "loops_measured_s": sum(x[2] for x in r["loops"]),
                       "memory": cost.predict_memory(g, cal)["peak"]}
