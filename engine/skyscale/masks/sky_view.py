@@ -35,7 +35,7 @@ from skyscale.core.beam import FWHM_PER_SIGMA, Beam, fit_beam, restore
 from skyscale.core.noise import detection_noise, robust_noise
 from skyscale.masks.view_loop import view_loop
 
-__all__ = ["VIEW_GAIN", "VIEW_DEPTH", "VIEW_SCALE_BEAMS", "SCALE_BIAS", "VIEW_COMPONENTS",
+__all__ = ["VIEW_GAIN", "VIEW_DEPTH", "VIEW_SCALE_BEAMS", "VIEW_SIZE_PENALTY", "VIEW_COMPONENTS",
            "VIEW_CYCLES", "CYCLE_FRACTION", "PIXELS_PER_COMPONENT", "PATCH_PX",
            "MAX_CANDIDATES", "TILE_PX", "TILE_QUANTILE", "SkyView", "quiet_noise", "sky_view"]
 
@@ -81,11 +81,11 @@ CYCLE_FRACTION = 0.05
 #: where deltas alone spend the whole budget on it.
 VIEW_SCALE_BEAMS = 4.0
 
-#: Bias toward small scales, weight ``1 - SCALE_BIAS * s / s_max`` (Cornwell 2008,
+#: Bias toward small scales, weight ``1 - VIEW_SIZE_PENALTY * s / s_max`` (Cornwell 2008,
 #: b about 0.6, from memory): without it a broad component is taken on a bright
 #: point, whose smoothed peak stands as high over the smoothed noise as the point's
 #: own over the noise, and the view's model of a point is wrong by its sidelobes.
-SCALE_BIAS = 0.6
+VIEW_SIZE_PENALTY = 0.6
 
 #: The minor cycle updates the pixels within this many pixels of each component; the
 #: major cycle sets the rest right (Clark 1980).
@@ -377,7 +377,7 @@ def sky_view(image, psf, *, beam=None, scales=None, gain=VIEW_GAIN, depth=VIEW_D
         else tuple(sorted({0.0} | {float(w) for w in scales}))
     variances = [(w / FWHM_PER_SIGMA) ** 2 for w in widths]
     # Cornwell 2008's bias toward small scales: weight 1 - b * s / s_max
-    weights = np.array([1.0 - SCALE_BIAS * w / max(widths) if max(widths) > 0 else 1.0
+    weights = np.array([1.0 - VIEW_SIZE_PENALTY * w / max(widths) if max(widths) > 0 else 1.0
                         for w in widths])
     margin = 0.5 * beam_px
     before = detection_noise(img, 5.0, margin_px=margin)
