@@ -201,7 +201,7 @@ def _run_cycles(engine, operator, dirty, model, mask, threshold, noise_threshold
     stagnant = 0
     detail = None          # the stop in a sentence, from what happened (result.stop_detail)
     depth = cycle_depth
-    retries = rollbacks = rounds = rejected = fft_updates = 0
+    retries = rollbacks = rounds = rejected = fft_updates = direct_updates = 0
     progress = _progress(state.peaks, levels)
     try:
         for cycle in range(1, max_major_cycles + 1):
@@ -224,6 +224,7 @@ def _run_cycles(engine, operator, dirty, model, mask, threshold, noise_threshold
             t_minor += t2 - t1
             rounds += mc.rounds
             fft_updates += mc.fft_updates
+            direct_updates += mc.direct_updates
             rejected += mc.rejected
             if mc.components.size == 0:
                 stop = run_stop_after_empty_cycle(
@@ -316,6 +317,7 @@ def _run_cycles(engine, operator, dirty, model, mask, threshold, noise_threshold
         scale_levels=levels.tolist(), scale_peaks=state.peaks.tolist(), active_scales=active,
         noise_region=_describe_region(region, state, mask, blank),
         sub_loops=rounds, rejected_sub_loops=rejected, fft_updates=fft_updates,
+        direct_updates=direct_updates,
         stop_detail=detail)
 
 

@@ -320,13 +320,9 @@ class Engine:
         return self.bank.get(j, k, shape)
 
     def _direct_ok(self, direct_work, fft_work_units):
-        """Whether a sub-loop of ``direct_work`` multiply-adds is applied directly."""
-        if direct_work > DIRECT_COST_RATIO * fft_work_units:
-            return False
-        if self.max_memory is not None and not fits_memory(
-                self.memory["total"] + self.pair_memory(), self.max_memory):
-            return False
-        return True
+        """Whether a sub-loop of ``direct_work`` multiply-adds is applied directly (the
+        pair beams it needs are in ``memory``, which ``max_memory`` was checked against)."""
+        return direct_work <= DIRECT_COST_RATIO * fft_work_units
 
     def _fft_update_cost(self, shape):
         """FFT work units (``S log2 S``) of one update of a box of ``shape``."""

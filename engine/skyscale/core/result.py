@@ -79,9 +79,9 @@ class DeconvolutionResult:
         Where the noise was measured (``where``, ``pixels_used`` per scale).
     sub_loops, rejected_sub_loops : int
         Single-scale sub-loops run, and those undone because they raised the peak.
-    fft_updates : int
-        Sub-loops applied by an FFT update of the whole box; the others were applied
-        exactly to the mask's pixels alone (see `skyscale.Engine.minor_cycle`).
+    fft_updates, direct_updates : int
+        Sub-loops applied by an FFT update of the whole box, and those applied exactly
+        to the mask's pixels alone (see `skyscale.Engine.minor_cycle`).
     emission_mask : EmissionMask or None
         The emission mask that followed the residual (its ``sigma`` and its last
         per-scale ``noise``), or None when there was none.
@@ -114,6 +114,7 @@ class DeconvolutionResult:
     sub_loops: int = 0
     rejected_sub_loops: int = 0
     fft_updates: int = 0
+    direct_updates: int = 0
     emission_mask: object = None
     threads: dict = None
     stop_detail: str = None

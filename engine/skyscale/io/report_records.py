@@ -30,6 +30,7 @@ REPORT_UNITS = {
     "per_scale.flux_fraction": "fraction of the total model flux",
     "stop.sub_loops": "count",
     "stop.fft_updates": "count",
+    "stop.direct_updates": "count",
     "machine.threads": "threads (the Numba kernels' count in effect)",
 }
 
