@@ -20,8 +20,10 @@ References
 """
 
 import math
+from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
+import scipy.fft as sfft
 from scipy import ndimage
 
 __all__ = ["MAD_TO_SIGMA", "CLIP_SIGMA", "DETECTION_SAMPLES", "DETECTION_ROUNDS",
@@ -308,12 +310,23 @@ def scale_noise(planes, radii, *, mask=None, region=None, ratios=None, previous=
         if not free.any():
             mask = None           # the mask leaves nothing trustworthy out: no emission known
     step = max(int(np.ceil(np.sqrt(ny * nx / MAX_SAMPLES))), 1)
-    for k in range(n):
+
+    def measure(k):               # each scale on its own: the scales share out the threads
         r = int(radii[k])
         trusted = _trusted(region, (ny, nx), r)
         grown = None if mask is None else grow_mask(mask, r)
-        sigma[k], used[k] = emission_free_noise(planes[k], exclude=grown, region=trusted,
-                                                border=r)
+        return emission_free_noise(planes[k], exclude=grown, region=trusted, border=r), \
+            trusted
+
+    workers = min(int(sfft.get_workers()), n)    # the run's threads (`thread_limit`)
+    if workers > 1:
+        with ThreadPoolExecutor(workers) as pool:
+            measured = list(pool.map(measure, range(n)))
+    else:
+        measured = [measure(k) for k in range(n)]
+    for k in range(n):
+        r = int(radii[k])
+        (sigma[k], used[k]), trusted = measured[k]
         if k > 0:
             independent = used[k] * step * step / max(np.pi * r * r, 1.0)
             expected = 0.0 if ratios is None else sigma[0] * float(ratios[k]) / float(ratios[0])
