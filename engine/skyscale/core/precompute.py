@@ -2,8 +2,10 @@
 
 For each scale ``k`` the minor cycle needs the scale beam
 ``B_kk = PSF (*) scale_k (*) scale_k``: the response of scale ``k``'s smoothed residual
-to a component of scale ``k``.  It is kept at every offset between two pixels of the
-image, so that a sub-loop subtracts it exactly however far apart its components are.
+to a component of scale ``k``; its direct updates also need the pair beams
+``B_jk = PSF (*) scale_j (*) scale_k`` (and ``PSF (*) scale_k`` without a delta scale).
+Each is kept at every offset within the box a minor cycle works in (`BeamBank`), so
+that a sub-loop subtracts it exactly however far apart its components are.
 
 References
 ----------
@@ -16,7 +18,7 @@ import numpy as np
 
 from skyscale.core.fft import fast_shape
 
-__all__ = ["BeamBank", "beam_peaks", "scale_beams", "pair_beams", "plan_memory"]
+__all__ = ["BeamBank", "beam_peaks", "pair_beams", "plan_memory"]
 
 
 def _psf_offsets(psf, half_y, half_x):
@@ -28,60 +30,6 @@ def _psf_offsets(psf, half_y, half_x):
     xa, xb = max(cx - half_x, 0), min(cx + half_x + 1, px)
     out[ya - cy + half_y:yb - cy + half_y, xa - cx + half_x:xb - cx + half_x] = psf[ya:yb, xa:xb]
     return out
-
-
-def scale_beams(psf, kernels, image_shape, backend, dtype=np.float32):
-    """Scale beams ``PSF (*) scale_k (*) scale_k`` at every offset within the image.
-
-    Parameters
-    ----------
-    psf : (py, px) ndarray
-        Normalised PSF, peak 1 at ``(py // 2, px // 2)``.
-    kernels : list of (2r+1, 2r+1) ndarray
-        Unit-sum scale kernels.
-    image_shape : (int, int)
-        ``(ny, nx)``: beams cover offsets ``|dy| <= ny - 1``, ``|dx| <= nx - 1``.
-    backend : FFT backend
-    dtype : numpy dtype
-        Dtype of the returned beams.
-
-    Returns
-    -------
-    beams : list of (2 ny - 1, 2 nx - 1) ndarray
-        Zero offset at ``(ny - 1, nx - 1)``.  The delta scale's beam is the PSF itself.
-    peaks : (n_scales,) float64 ndarray
-        ``B_kk(0)``.
-
-    Notes
-    -----
-    Beyond the PSF's own edge it is taken as zero, as the image-plane residual does.
-    The PSF's transform is taken once; each finite scale costs one forward transform of
-    its kernel and one inverse ([1]_).
-    """
-    ny, nx = image_shape
-    radii = [k.shape[0] // 2 for k in kernels]
-    rmax = max(radii)
-    hy, hx = ny - 1 + 2 * rmax, nx - 1 + 2 * rmax
-    region = _psf_offsets(np.asarray(psf, dtype=np.float64), hy, hx)
-    beams, peaks = [], np.zeros(len(kernels))
-    psf_f = None
-    fshape = fast_shape(region.shape, (4 * rmax + 1, 4 * rmax + 1))
-    for k, (kern, r) in enumerate(zip(kernels, radii)):
-        if r == 0:
-            beam = region[2 * rmax:2 * rmax + 2 * ny - 1, 2 * rmax:2 * rmax + 2 * nx - 1]
-            beam = beam * float(np.asarray(kern, dtype=np.float64).ravel()[0]) ** 2
-        else:
-            if psf_f is None:
-                psf_f = backend.rfft2(region, fshape)
-            kern_f = backend.rfft2(np.asarray(kern, dtype=np.float64), fshape)
-            full = backend.irfft2(psf_f * kern_f * kern_f, fshape)
-            # full[i] holds offset i - hy - 2 r (linear convolution of region and kernel^2).
-            s = 2 * rmax + 2 * r
-            beam = full[s:s + 2 * ny - 1, s:s + 2 * nx - 1]
-        beam = np.ascontiguousarray(beam, dtype=dtype)
-        peaks[k] = float(beam[ny - 1, nx - 1])
-        beams.append(beam)
-    return beams, peaks
 
 
 def pair_beams(psf, kernels, image_shape, backend, pairs, *, dtype=np.float32, cache=None):
@@ -114,7 +62,8 @@ def pair_beams(psf, kernels, image_shape, backend, pairs, *, dtype=np.float32, c
     Notes
     -----
     One forward transform of the PSF and one per finite kernel used, one inverse per
-    pair; the PSF beyond its own edge is zero, as for `scale_beams` ([1]_).
+    pair; the PSF beyond its own edge is taken as zero, as the image-plane residual does
+    ([1]_).
     """
     ny, nx = image_shape
     dtype = np.dtype(dtype)
