@@ -32,11 +32,11 @@ from skyscale.core.stops import SCALE_LOOP_STOP_CODES
 __all__ = ["PARALLEL_MIN_ACTIVE", "scale_loop"]
 
 
-#: Active sets smaller than this run serially: a parallel region costs more than the
-#: work.  On the 2-core development machine the parallel pass was slower at every size
-#: measured (serial / parallel 0.46 at 400,000 pixels, benchmarks/targets.py), so only
-#: very large sets, where many cores can share the pass, take it.
-PARALLEL_MIN_ACTIVE = 1_000_000
+#: Active sets smaller than this run serially: a parallel region per component costs
+#: more than the work.  Measured on the 2-core development machine at 2 threads (load
+#: below 1, 300 components): parallel / serial time 1.6 at 8,000 pixels, 0.8 to 0.9 at
+#: 20,000, 0.7 at 50,000, 0.5 to 0.6 at 150,000.  With one thread the serial loop runs.
+PARALLEL_MIN_ACTIVE = 32_768
 
 #: Pixels per chunk of the parallel pass (fixed, so chunking never depends on threads).
 CHUNK = 8192
@@ -46,23 +46,6 @@ CHUNK = 8192
 #: of 10-60 px, where runs are long; slower on scattered pixels).  Both ways give the
 #: same bits.
 MIN_RUN_LENGTH = 8
-
-
-@numba.njit(**JIT_OPTIONS)
-def _subtract_and_scan(values, ys, xs, beam, cy, cx, f, y0, x0, lo, hi):
-    """Subtract ``f * beam`` centred at (y0, x0) from values[lo:hi]; return its peak."""
-    best = -1.0
-    arg = -1
-    for j in range(lo, hi):
-        v = values[j]
-        if f != 0.0:
-            v = values.dtype.type(float(v) - f * float(beam[cy + ys[j] - y0, cx + xs[j] - x0]))
-            values[j] = v
-        a = abs(v)
-        if a > best:
-            best = a
-            arg = j
-    return best, arg
 
 
 @numba.njit(**JIT_OPTIONS)
@@ -87,12 +70,13 @@ def _record(values, arg, gain, inv_peak, out_idx, out_flux, it):
 
 
 @numba.njit(**JIT_OPTIONS)
-def _linear_subtract_and_scan(values, lin, flat, f, origin):
-    """`_subtract_and_scan` with each pixel's beam offset as one linear index: the beam
-    value of pixel ``j`` is ``flat[origin + lin[j]]``."""
+def _linear_subtract_and_scan(values, lin, flat, f, origin, lo, hi):
+    """Subtract ``f`` times the beam centred on the last component from values[lo:hi]
+    and return their peak: the beam value of pixel ``j`` is ``flat[origin + lin[j]]``
+    (one linear offset per pixel, `_linear_offsets`)."""
     best = -1.0
     arg = -1
-    for j in range(values.shape[0]):
+    for j in range(lo, hi):
         v = values[j]
         if f != 0.0:
             v = values.dtype.type(float(v) - f * float(flat[origin + lin[j]]))
@@ -105,16 +89,22 @@ def _linear_subtract_and_scan(values, lin, flat, f, origin):
 
 
 @numba.njit(**JIT_OPTIONS)
+def _linear_offsets(ys, xs, width):
+    lin = np.empty(ys.shape[0], dtype=np.int64)
+    for j in range(ys.shape[0]):
+        lin[j] = ys[j] * width + xs[j]
+    return lin
+
+
+@numba.njit(**JIT_OPTIONS)
 def _scale_loop_serial(values, ys, xs, beam, cy, cx, inv_peak, gain, level, max_iter,
                        out_idx, out_flux, stats):
     n = values.shape[0]
     width = beam.shape[1]
     flat = beam.ravel()
-    lin = np.empty(n, dtype=np.int64)
-    for j in range(n):
-        lin[j] = ys[j] * width + xs[j]
+    lin = _linear_offsets(ys, xs, width)
     centre = cy * width + cx
-    best, arg = _linear_subtract_and_scan(values, lin, flat, 0.0, 0)
+    best, arg = _linear_subtract_and_scan(values, lin, flat, 0.0, 0, 0, n)
     it = 0
     while True:
         reason = _stop_code(arg, best, level, it, max_iter)
@@ -122,7 +112,7 @@ def _scale_loop_serial(values, ys, xs, beam, cy, cx, inv_peak, gain, level, max_
             break
         f = _record(values, arg, gain, inv_peak, out_idx, out_flux, it)
         it += 1
-        best, arg = _linear_subtract_and_scan(values, lin, flat, f, centre - lin[arg])
+        best, arg = _linear_subtract_and_scan(values, lin, flat, f, centre - lin[arg], 0, n)
     stats[0] = best
     return it, reason
 
@@ -182,12 +172,15 @@ def _scale_loop_runs(values, bits, sign_off, ys, xs, run_y, run_x, run_start, ru
 def _scale_loop_parallel(values, ys, xs, beam, cy, cx, inv_peak, gain, level, max_iter,
                          out_idx, out_flux, stats):
     n = values.shape[0]
+    width = beam.shape[1]
+    flat = beam.ravel()
+    lin = _linear_offsets(ys, xs, width)
+    centre = cy * width + cx
     n_chunks = (n + CHUNK - 1) // CHUNK
     cbest = np.empty(n_chunks, dtype=np.float64)
     carg = np.empty(n_chunks, dtype=np.int64)
     f = 0.0
-    y0 = 0
-    x0 = 0
+    origin = 0
     it = 0
     reason = 1
     best = -1.0
@@ -195,7 +188,7 @@ def _scale_loop_parallel(values, ys, xs, beam, cy, cx, inv_peak, gain, level, ma
         for c in prange(n_chunks):
             lo = c * CHUNK
             hi = min(lo + CHUNK, n)
-            b, a = _subtract_and_scan(values, ys, xs, beam, cy, cx, f, y0, x0, lo, hi)
+            b, a = _linear_subtract_and_scan(values, lin, flat, f, origin, lo, hi)
             cbest[c] = b
             carg[c] = a
         best = -1.0
@@ -209,8 +202,7 @@ def _scale_loop_parallel(values, ys, xs, beam, cy, cx, inv_peak, gain, level, ma
             break
         f = _record(values, arg, gain, inv_peak, out_idx, out_flux, it)
         it += 1
-        y0 = ys[arg]
-        x0 = xs[arg]
+        origin = centre - lin[arg]
     stats[0] = best
     return it, reason
 
@@ -241,8 +233,8 @@ def scale_loop(values, ys, xs, beam, *, beam_peak, gain, level, max_iter, parall
     max_iter : int
         Most components this call may take.
     parallel : bool, optional
-        Default: parallel when the active set has at least `PARALLEL_MIN_ACTIVE` pixels.
-        Both paths give the same result.
+        Default: parallel when the active set has at least `PARALLEL_MIN_ACTIVE` pixels
+        and more than one thread is in use.  Every path gives the same result.
 
     Returns
     -------
@@ -300,7 +292,7 @@ def scale_loop(values, ys, xs, beam, *, beam_peak, gain, level, max_iter, parall
     out_flux = np.empty(max_iter, dtype=np.float64)
     stats = np.zeros(1, dtype=np.float64)
     if parallel is None:
-        parallel = values.size >= PARALLEL_MIN_ACTIVE
+        parallel = values.size >= PARALLEL_MIN_ACTIVE and numba.get_num_threads() > 1
     cy, cx = (beam.shape[0] - 1) // 2, (beam.shape[1] - 1) // 2
     args = (1.0 / float(beam_peak), float(gain), float(level), max_iter, out_idx, out_flux,
             stats)
