@@ -116,11 +116,12 @@ def row_plane(threads, log):
 
 
 def row_update(threads, log, n=1024, repeats=5):
-    from skyscale.core import engine as engine_module
     f = invented_field(n, largest_scale=10)
     e = skyscale.Engine(f["psf"], [0, 5, 10, 20, 40], image_shape=f["dirty"].shape,
                         threads=threads)
-    if not hasattr(engine_module, "_CycleWork"):
+    try:
+        from skyscale.core.cycle_work import CycleWork
+    except ImportError:
         log("update: this engine has no separate FFT update; row skipped")
         return {}
     from skyscale.core.threads import thread_limit
@@ -128,14 +129,14 @@ def row_update(threads, log, n=1024, repeats=5):
         residual = f["dirty"].astype(np.float64)
         state = e.measure(residual)
         allowed = e.allowed(None)
-        work = engine_module._CycleWork(e, residual, state.planes, allowed,
-                                        np.ones(residual.shape, bool), e._box(allowed))
+        work = CycleWork(e, residual, state.planes, allowed, np.ones(residual.shape, bool),
+                         e._box(allowed))
         ys = np.array([n // 2, n // 3]); xs = np.array([n // 2, n // 4])
         flux = np.array([1e-3, 2e-3])
         times = []
         for _ in range(repeats):
             t0 = time.perf_counter()
-            work._apply_fft(3, ys, xs, flux, np.inf)
+            work.apply_fft(3, ys, xs, flux, np.inf)
             times.append(time.perf_counter() - t0)
         conv, smooth = work.psf_convolver, work.smoother
         a = np.zeros(conv.fshape, np.float32)

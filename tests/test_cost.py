@@ -227,7 +227,8 @@ def test_recorded_sub_loops_add_up_to_the_component_table():
     from skyscale.core.kernels import scale_loop
     assert minor.scale_loop is scale_loop          # restored after the block
     assert precompute.pair_beams.__module__ == "skyscale.core.precompute"
-    assert minor._CycleWork._apply_fft.__qualname__ == "_CycleWork._apply_fft"
+    from skyscale.core.cycle_work import CycleWork
+    assert CycleWork.apply_fft.__qualname__ == "CycleWork.apply_fft"
 
 
 def test_fft_probe_times_each_grid_once():

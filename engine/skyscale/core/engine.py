@@ -31,8 +31,7 @@ from skyscale.core.validate import (NUMBER_RULES, InputError, as_image, check_nu
                                     resolve_dtype)
 from skyscale.core.fft import Convolver, MultiConvolver, get_backend
 from skyscale.core.kernels import scale_loop, stamp_components
-from skyscale.core.kernels.tracked import (direct_subtract, masked_peak, pixel_runs,
-                                          tracked_peaks)
+from skyscale.core.cycle_work import CycleWork
 from skyscale.core.levels import allowed_peak, scale_levels
 from skyscale.core.noise import scale_noise
 from skyscale.cost.model import MEMORY_HEADROOM, engine_memory, fits_memory
@@ -508,7 +507,7 @@ class Engine:
         # Work on the box that holds every allowed centre, grown by the largest kernel
         # radius: there the smoothed residuals are exact, and the FFTs are that size.
         box = self._box(allowed)
-        work = _CycleWork(self, residual, planes, allowed, in_mask, box)
+        work = CycleWork(self, residual, planes, allowed, in_mask, box)
         del planes, allowed
         total = np.zeros(work.shape, dtype=np.float64)
         peaks = work.peaks()
@@ -593,139 +592,3 @@ class Engine:
             rejected=rejected, seconds=t1 - t0, fft_updates=work.fft_updates,
             direct_updates=work.direct_updates,
             timings={"smooth": t_smooth - t0, "loop": t_loop, "update": work.seconds}, **out)
-
-
-class _CycleWork:
-    """One minor cycle's residual and smoothed residuals in its box, kept exact.
-
-    The box's residual and planes are exact as of the last FFT update; the tracked
-    pixels (the mask in the box, or the whole box without one) are exact now.  A
-    sub-loop is applied to the tracked pixels directly (`direct_subtract` with the
-    scale's pair beams) when that costs less than an FFT update, which otherwise
-    applies every component since the last one to the whole box.
-    """
-
-    def __init__(self, engine, residual, planes, allowed, in_mask, box):
-        self.e = engine
-        y0, y1, x0, x1 = box
-        self.box = box
-        self.shape = (y1 - y0, x1 - x0)
-        self.sub = residual[y0:y1, x0:x1].copy()          # float64, exact at last FFT
-        self.planes = planes[:, y0:y1, x0:x1].copy()      # FFT updates write here
-        allowed = allowed[:, y0:y1, x0:x1]
-        guard_px = in_mask[y0:y1, x0:x1]
-        self.guard_px = np.ascontiguousarray(guard_px)
-        tracked = guard_px | allowed.any(axis=0)
-        self.tys, self.txs = np.nonzero(tracked)
-        self.full = self.tys.size == tracked.size     # every pixel: views, no gathers
-        self.runs = pixel_runs(self.tys, self.txs)
-        if self.full:
-            self.allowed_t = allowed.reshape(allowed.shape[0], -1)
-            self.guard_t = guard_px.ravel()
-        else:
-            self.allowed_t = np.ascontiguousarray(allowed[:, self.tys, self.txs])
-            self.guard_t = guard_px[self.tys, self.txs]
-        self.psf_convolver, self.smoother = engine._tools(self.shape)
-        engine.bank.make([(k, k) for k in range(engine.n_scales)], self.shape)
-        self._gather()
-        self.pending = []                                 # (k, ys, xs, flux) since last FFT
-        self._scratch = None
-        self.fft_updates = self.direct_updates = 0
-        self.seconds = 0.0
-        n_t = self.tys.size
-        self._fft_cost = engine._fft_update_cost(self.shape)
-        self._direct_cost = n_t * (engine.n_scales + 1)
-
-    def _gather(self):
-        if self.full:
-            self.resid_t = self.sub.ravel()
-            self.planes_t = self.planes.reshape(self.planes.shape[0], -1)
-        else:
-            flat = self.tys * self.shape[1] + self.txs
-            self.resid_t = self.sub.ravel().take(flat)
-            self.planes_t = self.planes.reshape(self.planes.shape[0], -1).take(flat, axis=1)
-
-    def peaks(self):
-        return tracked_peaks(self.planes_t, self.allowed_t)
-
-    def tracked_peak(self):
-        d = self.e._unit_delta()
-        r = (self.resid_t if self.resid_t is not None else self.planes_t[d])[self.guard_t]
-        return float(np.abs(r).max()) if r.size else 0.0
-
-    def active(self, k, level, floors, blocked):
-        """Indices (into the tracked pixels) of scale ``k``'s sub-loop: allowed, above
-        ``level``, and not claimed by another live scale with a larger penalised
-        response (a bright compact source seen through a broad scale's smoothing stays
-        the delta scale's, as with a per-component choice of scale)."""
-        e = self.e
-        mag = np.abs(self.planes_t[k])
-        idx = np.flatnonzero(self.allowed_t[k] & (mag > level))
-        resp = e.response_scale[k] * mag[idx]
-        for j in range(e.n_scales):
-            if j != k and not blocked[j]:
-                pj = np.abs(self.planes_t[j][idx])
-                claims = self.allowed_t[j][idx] & (pj > floors[j])
-                resp = np.where(claims & (e.response_scale[j] * pj > resp), -1.0, resp)
-        return idx[resp >= 0]
-
-    def apply(self, k, ys, xs, flux, guard):
-        """Subtract scale ``k``'s components; return the new peak in the mask, or None
-        (nothing changed) when it would exceed ``guard``."""
-        t0 = time.perf_counter()
-        try:
-            if self.e._direct_ok(len(flux) * self._direct_cost, self._fft_cost):
-                return self._apply_direct(k, ys, xs, flux, guard)
-            return self._apply_fft(k, ys, xs, flux, guard)
-        finally:
-            self.seconds += time.perf_counter() - t0
-
-    def _apply_direct(self, k, ys, xs, flux, guard):
-        e = self.e
-        d = e._unit_delta()          # a unit delta scale's plane is the residual itself
-        resid_index = e.n_scales if d is None else d
-        e.bank.make([(j, k) for j in range(e.n_scales)] + [(resid_index, k)], self.shape)
-        first = (self.resid_t if d is None else self.planes_t[d]).copy()
-        direct_subtract(first, self.tys, self.txs, ys, xs, flux,
-                        e.pair_beam(resid_index, k, self.shape), runs=self.runs)
-        peak = float(np.max(np.abs(first), where=self.guard_t, initial=0.0))
-        if peak > guard:
-            return None
-        planes = self.planes_t
-        for j in range(e.n_scales):
-            if j == d:
-                planes[j][:] = first
-            else:
-                direct_subtract(planes[j], self.tys, self.txs, ys, xs, flux,
-                                e.pair_beam(j, k, self.shape), runs=self.runs)
-        if d is None:
-            self.resid_t = first
-        else:
-            self.resid_t = None       # the delta scale's plane holds it now
-        self.pending.append((k, ys, xs, flux))
-        self.direct_updates += 1
-        return peak
-
-    def _apply_fft(self, k, ys, xs, flux, guard):
-        e = self.e
-        parts = self.pending + [(k, ys, xs, flux)]
-        step = np.zeros(self.shape, dtype=e.dtype)
-        stamp_components(step, e._kernels64, np.concatenate([p[1] for p in parts]),
-                         np.concatenate([p[2] for p in parts]),
-                         np.concatenate([np.full(len(p[3]), p[0], np.int64) for p in parts]),
-                         np.concatenate([p[3] for p in parts]))
-        full = self.psf_convolver.transform(step)
-        ny, nx = self.shape
-        if self._scratch is None:
-            self._scratch = np.empty_like(self.sub)
-        np.subtract(self.sub, full[:ny, :nx], out=self._scratch)
-        del full
-        peak = masked_peak(self._scratch, self.guard_px)
-        if peak > guard:
-            return None
-        self.sub, self._scratch = self._scratch, self.sub
-        self.smoother(self.sub, out=self.planes)
-        self._gather()
-        self.pending = []
-        self.fft_updates += 1
-        return peak

@@ -119,9 +119,9 @@ def record_sub_loops():
     """
     from skyscale.core import engine as minor
     from skyscale.core import precompute
+    from skyscale.core.cycle_work import CycleWork as work
     inner = minor.scale_loop
-    work = minor._CycleWork
-    apply_fft, apply_direct = work._apply_fft, work._apply_direct
+    apply_fft, apply_direct = work.apply_fft, work.apply_direct
     make_pairs, tools = precompute.pair_beams, minor.Engine._tools
     rows = SubLoopRecord()
 
@@ -160,14 +160,14 @@ def record_sub_loops():
         return out
 
     minor.scale_loop = timed
-    work._apply_fft, work._apply_direct = applied("fft", apply_fft), applied(
+    work.apply_fft, work.apply_direct = applied("fft", apply_fft), applied(
         "direct", apply_direct)
     precompute.pair_beams, minor.Engine._tools = beams, box_tools
     try:
         yield rows
     finally:
         minor.scale_loop = inner
-        work._apply_fft, work._apply_direct = apply_fft, apply_direct
+        work.apply_fft, work.apply_direct = apply_fft, apply_direct
         precompute.pair_beams, minor.Engine._tools = make_pairs, tools
 
 

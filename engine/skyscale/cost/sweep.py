@@ -262,7 +262,7 @@ def direct_probe(sizes, scales=(0, 4, 8, 16), components=(1, 8), repeats=3):
     ``[{'size', 'n_scales', 'tracked', 'components', 'seconds'}]`` (CPU seconds, best of
     ``repeats``).  Their cost per pixel and plane grows with the tracked set once it
     outgrows the caches, which the calibration runs at small sizes do not see."""
-    from skyscale.core import engine as minor
+    from skyscale.core.cycle_work import CycleWork
     out = []
     for n in sorted({int(v) for v in sizes}):
         sc = [s for s in scales if s <= n // 4]
@@ -271,15 +271,15 @@ def direct_probe(sizes, scales=(0, 4, 8, 16), components=(1, 8), repeats=3):
         with thread_limit(1):
             state = e.measure(dirty)
             allowed = e.allowed(None)
-            work = minor._CycleWork(e, dirty.astype(np.float64), state.planes, allowed,
-                                    np.ones(dirty.shape, bool), e._box(allowed))
+            work = CycleWork(e, dirty.astype(np.float64), state.planes, allowed,
+                             np.ones(dirty.shape, bool), e._box(allowed))
             for m in components:
                 ys = n // 2 + np.arange(m) % 7
                 xs = n // 2 + np.arange(m) // 7
                 best = np.inf
                 for _ in range(repeats):
                     t0 = time.process_time()
-                    work._apply_direct(0, ys, xs, np.full(m, 1e-6), np.inf)
+                    work.apply_direct(0, ys, xs, np.full(m, 1e-6), np.inf)
                     best = min(best, time.process_time() - t0)
                 out.append({"size": n, "n_scales": len(sc), "scales": list(sc),
                             "tracked": int(work.tys.size),
