@@ -349,3 +349,17 @@ def test_a_noise_kept_from_an_earlier_cycle_is_said():
                                                   "mask in an earlier cycle"]})
     (text,) = outcome_warnings(r, threshold=0.0, noise_threshold=3.0)
     assert "the mask covers 95 % of the image" in text and "kept: the lowest" in text
+
+
+def test_the_api_recipe_with_a_big_user_mask_does_not_clean_noise(field):
+    # The documented recipe for a user's mask from Python is the command line's
+    # default: the automatic mask inside it (emission_mask='auto').  With a mask over
+    # nine tenths of the image the off-source rms stays at the noise (0.9-1.1 sigma)
+    # and no plateau is left in the emission (within +-0.3 sigma).
+    mask = _big_mask(field, 0.9)
+    r = deconvolve(field["dirty"], field["psf"], scales=SCALES, noise_threshold=3,
+                   mask=mask, emission_mask="auto", restore=False)
+    assert r.stop_reason == "noise"
+    assert not (r.mask & ~mask).any()
+    assert 0.9 <= _off_rms(r.residual, field) <= 1.1
+    assert abs(_mean_in(r.residual, field)) <= 0.3
