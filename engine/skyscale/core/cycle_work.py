@@ -90,9 +90,11 @@ class CycleWork:
             self.planes_t = self.planes.reshape(self.planes.shape[0], -1).take(flat, axis=1)
 
     def peaks(self):
+        """Each scale's peak over its allowed tracked pixels."""
         return tracked_peaks(self.planes_t, self.allowed_t)
 
     def tracked_peak(self):
+        """The residual's peak over the mask's pixels in the box."""
         d = self.e._unit_delta()
         r = (self.resid_t if self.resid_t is not None else self.planes_t[d])[self.guard_t]
         return float(np.abs(r).max()) if r.size else 0.0
@@ -125,6 +127,9 @@ class CycleWork:
             self.seconds += time.perf_counter() - t0
 
     def apply_direct(self, k, ys, xs, flux, guard):
+        """Subtract the components from the tracked pixels of the residual and of every
+        scale's smoothed residual (exact there); the rest of the box waits for the next
+        FFT update.  Returns the new peak in the mask, or None when it passes ``guard``."""
         e = self.e
         d = e._unit_delta()          # a unit delta scale's plane is the residual itself
         resid_index = e.n_scales if d is None else d
@@ -151,6 +156,9 @@ class CycleWork:
         return peak
 
     def apply_fft(self, k, ys, xs, flux, guard):
+        """Bring the whole box up to date by FFT with these components and every one
+        applied directly since the last update.  Returns the new peak in the mask, or
+        None (nothing changed) when it passes ``guard``."""
         e = self.e
         parts = self.pending + [(k, ys, xs, flux)]
         step = np.zeros(self.shape, dtype=e.dtype)
