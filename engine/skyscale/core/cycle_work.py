@@ -95,8 +95,8 @@ class CycleWork:
 
     def tracked_peak(self):
         """The residual's peak over the mask's pixels in the box."""
-        d = self.e._unit_delta()
-        r = (self.resid_t if self.resid_t is not None else self.planes_t[d])[self.guard_t]
+        r = self.resid_t if self.resid_t is not None else self.planes_t[self.e.residual_index]
+        r = r[self.guard_t]
         return float(np.abs(r).max()) if r.size else 0.0
 
     def active(self, k, level, floors, blocked):
@@ -131,12 +131,12 @@ class CycleWork:
         scale's smoothed residual (exact there); the rest of the box waits for the next
         FFT update.  Returns the new peak in the mask, or None when it passes ``guard``."""
         e = self.e
-        d = e._unit_delta()          # a unit delta scale's plane is the residual itself
-        resid_index = e.n_scales if d is None else d
-        e.bank.make([(j, k) for j in range(e.n_scales)] + [(resid_index, k)], self.shape)
+        r = e.residual_index         # a unit delta scale's plane is the residual itself
+        d = r if r < e.n_scales else None
+        e.bank.make([(j, k) for j in range(e.n_scales)] + [(r, k)], self.shape)
         first = (self.resid_t if d is None else self.planes_t[d]).copy()
         direct_subtract(first, self.tys, self.txs, ys, xs, flux,
-                        e.pair_beam(resid_index, k, self.shape), runs=self.runs)
+                        e.pair_beam(r, k, self.shape), runs=self.runs)
         peak = float(np.max(np.abs(first), where=self.guard_t, initial=0.0))
         if peak > guard:
             return None

@@ -34,9 +34,8 @@ from skyscale.core.kernels import scale_loop, stamp_components
 from skyscale.core.cycle_work import CycleWork
 from skyscale.core.levels import allowed_peak, scale_levels
 from skyscale.core.noise import scale_noise
-from skyscale.cost.model import MEMORY_HEADROOM, engine_memory, fits_memory
+from skyscale.cost.model import MEMORY_HEADROOM, engine_memory, fft_work, fits_memory
 from skyscale.core.precompute import BeamBank, beam_peaks
-from skyscale.cost.model import fft_work
 from skyscale.core.psf import check_psf, describe_psf
 from skyscale.core.result import COMPONENT_DTYPE
 from skyscale.core.scales import ScaleSet
@@ -232,6 +231,12 @@ class Engine:
             raise InputError(f"scales {bad} px see a PSF whose doubly smoothed peak is "
                              "<= 0 (the array does not recover structure that large); "
                              "drop them or use smaller scales")
+        #: The index of the residual's own response in the pair beams: a delta scale of
+        #: unit weight (its smoothed residual is the residual), else ``n_scales`` (the
+        #: unsmoothed kernel the bank appends).
+        self.residual_index = next(
+            (i for i, k in enumerate(self.kernels) if k.size == 1 and float(k.ravel()[0]) == 1.0),
+            len(self.kernels))
         #: Scale and pair beams, made for the extent each minor cycle's box needs.
         self.bank = BeamBank(self.psf, self._kernels64, self.image_shape, self.fft,
                              dtype=self.dtype)
@@ -281,21 +286,9 @@ class Engine:
         delta scale of unit weight stands for it."""
         n = self.n_scales
         keys = [(j, k) for j in range(n) for k in range(j + 1, n)]
-        if self._unit_delta() is None:
+        if self.residual_index == n:
             keys += [(n, k) for k in range(n)]
         return keys
-
-    def _unit_delta(self):
-        for i, kern in enumerate(self.kernels):
-            if kern.size == 1 and float(kern.ravel()[0]) == 1.0:
-                return i
-        return None
-
-    def pair_memory(self, shape=None):
-        """Bytes of the pair beams direct updates use for a box of ``shape`` (default
-        the image: the most they can take)."""
-        ey, ex = shape or self.image_shape
-        return len(self._pair_keys()) * (2 * ey - 1) * (2 * ex - 1) * self.dtype.itemsize
 
     @property
     def beams(self):
@@ -311,11 +304,8 @@ class Engine:
         return out
 
     def pair_beam(self, j, k, shape):
-        """``PSF (*) s_j (*) s_k`` covering the offsets of a box of ``shape`` (``j`` None:
-        the unsmoothed residual's response to scale ``k``)."""
-        if j is None:
-            d = self._unit_delta()
-            j = self.n_scales if d is None else d
+        """``PSF (*) s_j (*) s_k`` covering the offsets of a box of ``shape``
+        (``j = residual_index``: the residual's own response to scale ``k``)."""
         return self.bank.get(j, k, shape)
 
     def _direct_ok(self, direct_work, fft_work_units):
@@ -327,8 +317,8 @@ class Engine:
         """FFT work units (``S log2 S``) of one update of a box of ``shape``."""
         conv, smooth = self._tools(shape)
         n_fin = sum(1 for k in self.kernels if k.size > 1)
-        return 2 * fft_work(conv.fshape) + (1 + n_fin) * fft_work(smooth.fshape) * (
-            1 if n_fin else 0)
+        smoothing = (1 + n_fin) * fft_work(smooth.fshape) if n_fin else 0.0
+        return 2 * fft_work(conv.fshape) + smoothing
 
     def smooth(self, residual):
         """Residual smoothed by every scale kernel: ``(n_scales, ny, nx)``."""

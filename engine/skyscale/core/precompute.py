@@ -181,16 +181,14 @@ class BeamBank:
 
     def get(self, j, k, shape):
         """``PSF (*) s_j (*) s_k`` covering every offset within a box of ``shape``
-        (index ``len(kernels)``: no smoothing).  Pairs asked for together are made
-        together; ``(j, k)`` and ``(k, j)`` are the same beam."""
-        key = (min(j, k), max(j, k))
-        need = self._extent_for(shape)
-        if key not in self._beams or any(n > e for n, e in zip(need, self.extent)):
-            self.make([key], shape)
-        return self._beams[key]
+        (index ``len(kernels)``: no smoothing); ``(j, k)`` and ``(k, j)`` are the same
+        beam.  Made on first use (`make`)."""
+        self.make([(j, k)], shape)
+        return self._beams[(min(j, k), max(j, k))]
 
     def make(self, keys, shape):
-        """Make the beams ``keys`` for a box of ``shape`` at once (one PSF transform)."""
+        """Make the beams ``keys`` for a box of ``shape`` that are not made yet, together
+        (one PSF transform); a box beyond the current extent remakes them all larger."""
         need = self._extent_for(shape)
         if any(n > e for n, e in zip(need, self.extent)):
             self._beams, self._spectra = {}, {}

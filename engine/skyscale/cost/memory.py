@@ -46,7 +46,7 @@ def predict_memory(geom, calibration=None):
 
     - ``beams``: one beam per scale at the image's extent, ``(2 ny - 1) (2 nx - 1)``
       (`skyscale.Engine.beams`); ``pair_beams``: the pair beams direct updates use
-      (`skyscale.Engine.pair_memory`);
+      (`skyscale.Engine._pair_keys`);
     - ``planes``: the smoothed residuals twice (the run's and the cycle's copy of them);
     - ``tracked``: the cycle's tracked pixels (all of the box at most): their
       coordinates and per-scale masks; ``tracked_values``: their residual in float64
