@@ -14,9 +14,7 @@ flow:
   cycles against the visibilities;
 - `skyscale.cli`: the command line and the file-level job runner.
 
-Names and module paths of release 0.1 that moved still work for one release, with a
-`DeprecationWarning` naming the new place (`skyscale._moved`).  See the README for
-worked examples.
+See the README for worked examples.
 """
 
 import logging as _logging
@@ -27,7 +25,6 @@ from skyscale.core.threads import set_openmp_spin_default as _set_openmp_spin_de
 
 _set_openmp_spin_default()
 
-from skyscale import _moved  # noqa: E402
 from skyscale.advisor.suggest import check_scales, suggest_scales  # noqa: E402
 from skyscale.cli.job import run_files  # noqa: E402
 from skyscale.core.beam import Beam  # noqa: E402
@@ -47,7 +44,6 @@ from skyscale.masks.emission import EmissionMask  # noqa: E402
 from skyscale.visibility.file import read_visibilities, write_visibilities  # noqa: E402
 from skyscale.visibility.operator import VisibilityOperator  # noqa: E402
 
-_moved.install()
 _logging.getLogger(__name__).addHandler(_logging.NullHandler())
 
 try:
@@ -67,7 +63,3 @@ __all__ = [
     "read_image", "write_image", "plan_run", "suggest_scales", "check_scales", "run_files",
     "deconvolve_cube", "read_visibilities", "write_visibilities",
 ]
-
-
-def __getattr__(name):          # names of 0.1 that moved to a subpackage
-    return _moved.old_name(name)

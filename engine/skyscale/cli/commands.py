@@ -127,8 +127,6 @@ def _add_run_options(p, defaults=None, threads_help=None):
                    f"p in [0, 1) [{d['size_penalty']}]")
     g.add_argument("--extended-depth", help="inside a mask, finite scales stop at this "
                    f"fraction of the noise multiple, in (0, 1] [{d['extended_depth']}]")
-    g.add_argument("--psf-patch", help="no longer used (minor cycles subtract whole scale "
-                   "beams); accepted with a warning")
     g.add_argument("--beam", help="restoring beam MAJOR,MINOR,PA: FWHMs in arcsec (or with "
                    "a unit: 0.0012deg) and degrees east of north [fitted to the PSF]")
     g.add_argument("--nonfinite", help="NaN/inf pixels in the dirty image: refuse, or mask "

@@ -52,7 +52,6 @@ RUN_DEFAULTS = {
     "cycle_depth": DEFAULTS.cycle_depth,
     "size_penalty": DEFAULTS.size_penalty,
     "extended_depth": DEFAULTS.extended_depth,
-    "psf_patch": None,
     "mask": None,
     "mask_regions": None,
     "emission_mask": True,
@@ -166,7 +165,7 @@ def deconvolve_options(params, psf, cell, scales_px, mask=None, beam=None):
                 max_major_cycles=params["max_major_cycles"], cycle_depth=params["cycle_depth"],
                 mask=mask, size_penalty=params["size_penalty"],
                 extended_depth=params["extended_depth"], scale_shape=params["scale_shape"],
-                psf_patch=params["psf_patch"], threads=params["threads"], cell_arcsec=cell,
+                threads=params["threads"], cell_arcsec=cell,
                 beam=beam, emission_mask=auto)
 
 
@@ -349,8 +348,7 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
             if img is not None:
                 img[blank] = np.nan
     end = _dt.datetime.now(_dt.timezone.utc)
-    record = dict(merged, scales=scales_px, psf_patch=result.parameters.get("psf_patch"),
-                  stop_rule=stop_rule(merged))
+    record = dict(merged, scales=scales_px, stop_rule=stop_rule(merged))
     inputs = dict(inputs or {})
     if resume_from:
         inputs["resumed_from"] = {"path": os.path.abspath(

@@ -20,7 +20,7 @@ RUN_OPTION_KINDS = {
     "scales": "scales", "scale_unit": ("pixel", "arcsec"),
     "scale_shape": ("paraboloid", "gaussian"), "loop_gain": "number", "threshold": "flux",
     "noise_threshold": "sigma", "max_components": "integer", "max_major_cycles": "integer",
-    "cycle_depth": "number", "size_penalty": "number", "extended_depth": "number", "psf_patch": "integer",
+    "cycle_depth": "number", "size_penalty": "number", "extended_depth": "number",
     "mask": "text", "mask_regions": "text", "emission_mask": "bool", "emission_mask_sigma": "sigma",
     "threads": "integer", "beam": "beam", "plots": "bool", "overwrite": "bool",
     "nonfinite": ("refuse", "mask"),
