@@ -20,7 +20,7 @@ import skyscale
 from skyscale import InputError, deconvolve
 from skyscale.cli.commands import main
 from skyscale.io.fits import read_image
-from skyscale.cli.options import coerce_params, load_config
+from skyscale.job.options import coerce_params, load_config
 from smallfits import CELL, N, sky_header, small_field, write_fits, write_small_pair
 import skyscale.core.validate  # noqa: E402
 
@@ -379,14 +379,14 @@ def test_existing_outputs_are_refused_before_reading_inputs(files, tmp_path, cap
 def test_run_that_cannot_fit_is_refused_from_the_headers_before_reading(files, tmp_path,
                                                                       monkeypatch, capsys):
     import skyscale.cost.model
-    import skyscale.cli.job
+    import skyscale.job.files
     # enough memory to read the 64 x 64 image, far too little for the run's precompute
     monkeypatch.setattr(skyscale.cost.model, "available_memory", lambda: 200_000)
 
     def no_read(*args, **kwargs):
         raise AssertionError("the data were read before the memory check")
 
-    monkeypatch.setattr(skyscale.cli.job, "read_image", no_read)
+    monkeypatch.setattr(skyscale.job.files, "read_image", no_read)
     code = main(["--quiet", "run", files["dirty"], files["psf"], "--out", str(tmp_path / "o"),
                  "--scales", "0,4,8"])
     err = capsys.readouterr().err

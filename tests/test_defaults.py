@@ -11,7 +11,7 @@ import pytest
 from skyscale import Engine, deconvolve, plan_run
 from skyscale.cost.model import estimate_counts
 from skyscale.core.defaults import DEFAULTS, RUN_NOISE_THRESHOLD, CleanOptions
-from skyscale.cli.job import RUN_DEFAULTS
+from skyscale.job.files import RUN_DEFAULTS
 from skyscale.core.scales import ScaleSet, size_penalty_weights
 
 

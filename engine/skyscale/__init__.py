@@ -10,56 +10,48 @@ flow:
 - `skyscale.masks` and `skyscale.advisor`: masks (regions, FITS, the emission mask)
   and suggesting and checking scale sets;
 - `skyscale.cost`: the cost model, the planner, the sweep and its calibration;
+- `skyscale.job`: the file-level job (FITS in, outputs out), `run_files`;
 - `skyscale.cube` and `skyscale.visibility`: cubes on Dask distributed, and major
   cycles against the visibilities;
-- `skyscale.cli`: the command line and the file-level job runner.
+- `skyscale.cli`: the command line.
 
-See the README for worked examples.
+Importing skyscale loads nothing of it and changes nothing in the environment: each
+name is imported from its module when first used.  See the README for worked examples.
 """
 
 import logging as _logging
-from importlib.metadata import PackageNotFoundError, version as _version
+from importlib.metadata import PackageNotFoundError as _PackageNotFoundError
+from importlib.metadata import version as _version
 
-# OpenMP's idle spin is set before any kernel runs (see skyscale.core.threads).
-from skyscale.core.threads import set_openmp_spin_default as _set_openmp_spin_default
-
-_set_openmp_spin_default()
-
-from skyscale.advisor.suggest import check_scales, suggest_scales  # noqa: E402
-from skyscale.cli.job import run_files  # noqa: E402
-from skyscale.core.beam import Beam  # noqa: E402
-from skyscale.core.defaults import DEFAULTS, CleanOptions  # noqa: E402
-from skyscale.core.driver import deconvolve  # noqa: E402
-from skyscale.core.engine import Engine, MinorCycleResult  # noqa: E402
-from skyscale.core.operators import (FunctionOperator, ImagePlaneOperator,  # noqa: E402
-                                     ResidualOperator)
-from skyscale.core.result import (COMPONENT_DTYPE, CycleRecord, DeconvolutionResult)  #noqa: E402
-from skyscale.core.scales import SCALE_SHAPES, ScaleSet  # noqa: E402
-from skyscale.core.stops import STOP_REASONS  # noqa: E402
-from skyscale.core.validate import InputError  # noqa: E402
-from skyscale.cost.planner import plan_run  # noqa: E402
-from skyscale.cube.run import deconvolve_cube  # noqa: E402
-from skyscale.io.fits import read_image, write_image  # noqa: E402
-from skyscale.masks.emission import EmissionMask  # noqa: E402
-from skyscale.visibility.file import read_visibilities, write_visibilities  # noqa: E402
-from skyscale.visibility.operator import VisibilityOperator  # noqa: E402
+from skyscale._exports import lazy_exports as _lazy_exports
 
 _logging.getLogger(__name__).addHandler(_logging.NullHandler())
 
 try:
     __version__ = _version("skyscale")
-except PackageNotFoundError:  # running from a source tree
+except _PackageNotFoundError:  # running from a source tree
     __version__ = "unknown"
 
-__all__ = [
-    "__version__",
+_names, __getattr__, __dir__ = _lazy_exports(__name__, {
     # the algorithm, its options and results
-    "deconvolve", "Engine", "MinorCycleResult", "CleanOptions", "DEFAULTS", "ScaleSet",
-    "SCALE_SHAPES", "EmissionMask", "Beam", "InputError",
-    "DeconvolutionResult", "CycleRecord", "COMPONENT_DTYPE", "STOP_REASONS",
+    "core.driver": ["deconvolve"],
+    "core.engine": ["Engine", "MinorCycleResult"],
+    "core.defaults": ["CleanOptions", "DEFAULTS"],
+    "core.scales": ["ScaleSet", "SCALE_SHAPES"],
+    "masks.emission": ["EmissionMask"],
+    "core.beam": ["Beam"],
+    "core.validate": ["InputError"],
+    "core.result": ["DeconvolutionResult", "CycleRecord", "COMPONENT_DTYPE"],
+    "core.stops": ["STOP_REASONS"],
     # residual operators (a pipeline's own major cycles)
-    "ResidualOperator", "ImagePlaneOperator", "FunctionOperator", "VisibilityOperator",
+    "core.operators": ["ResidualOperator", "ImagePlaneOperator", "FunctionOperator"],
+    "visibility.operator": ["VisibilityOperator"],
     # entry points
-    "read_image", "write_image", "plan_run", "suggest_scales", "check_scales", "run_files",
-    "deconvolve_cube", "read_visibilities", "write_visibilities",
-]
+    "io.fits": ["read_image", "write_image"],
+    "cost.planner": ["plan_run"],
+    "advisor.suggest": ["suggest_scales", "check_scales"],
+    "job.files": ["run_files"],
+    "cube.run": ["deconvolve_cube"],
+    "visibility.file": ["read_visibilities", "write_visibilities"],
+})
+__all__ = ["__version__", *_names]

@@ -57,7 +57,7 @@ def demo_data_dir():
 
 
 def _scales(text):
-    from skyscale.cli.options import parse_scales
+    from skyscale.job.options import parse_scales
     try:
         scales, unit = parse_scales(text, "--check")
         if unit == "arcsec":
@@ -67,7 +67,7 @@ def _scales(text):
         raise argparse.ArgumentTypeError(str(exc)) from None
 
 
-#: The demo's own settings, on top of `skyscale.cli.job.RUN_DEFAULTS` (its --help shows them;
+#: The demo's own settings, on top of `skyscale.job.files.RUN_DEFAULTS` (its --help shows them;
 #: a --config file and the command line override them).
 DEMO_SETTINGS = {"scales": [0, 4, 8, 16, 32], "emission_mask": True}
 
@@ -97,10 +97,10 @@ CUBE_THREADS_HELP = ("threads per plane [1 on the local cluster, which then runs
 
 
 def _add_run_options(p, defaults=None, threads_help=None):
-    # Values are read by skyscale.cli.options (the same reader as the TOML file), so every
+    # Values are read by skyscale.job.options (the same reader as the TOML file), so every
     # option takes text here and a bad value gets one line naming it.  The bracketed
     # defaults come from the values the command uses (RUN_DEFAULTS, or the demo's).
-    from skyscale.cli.job import RUN_DEFAULTS
+    from skyscale.job.files import RUN_DEFAULTS
     d = _shown(defaults or RUN_DEFAULTS)
     g = p.add_argument_group("deconvolution")
     g.add_argument("--scales", help="scale diameters, 0 = delta, separated by commas or "
@@ -216,7 +216,7 @@ def build_parser():
     _add_visibility_options(run)
     run.set_defaults(func=cmd_run)
 
-    from skyscale.cli.job import RUN_DEFAULTS
+    from skyscale.job.files import RUN_DEFAULTS
     demo = sub.add_parser("demo", help="run the whole job on the bundled demo observation",
                           description="Run the whole job on the bundled demo observation, "
                           "with the demo's own settings (shown in brackets); a --config "
@@ -269,9 +269,9 @@ def build_parser():
 def _params(args, base=None, base_source="the resumed run's report"):
     """Run options from ``base``, then --config, then the command line; and where each
     came from.  A threshold given (in the file or here) without a noise threshold drops
-    the base's noise threshold: it is a fixed level (`skyscale.cli.job.merge_params`)."""
-    from skyscale.cli.job import RUN_DEFAULTS
-    from skyscale.cli.options import load_config
+    the base's noise threshold: it is a fixed level (`skyscale.job.files.merge_params`)."""
+    from skyscale.job.files import RUN_DEFAULTS
+    from skyscale.job.options import load_config
     params, sources = dict(base or {}), {k: base_source for k in base or {}}
     later = {}
     if getattr(args, "config", None):
@@ -301,12 +301,12 @@ def _execute(args, dirty, psf, out, base=None, resume=None, visibilities=None,
     with console.RunProgress(enabled=not args.quiet) as progress:
         t0 = time.perf_counter()
         if visibilities is None:
-            from skyscale.cli.job import run_files
+            from skyscale.job.files import run_files
             result, written, report = run_files(dirty, psf, out, params,
                                                 callback=progress.update, sources=sources,
                                                 resume_from=resume)
         else:
-            from skyscale.cli.job_visibilities import run_visibilities
+            from skyscale.visibility.run import run_visibilities
             result, written, report = run_visibilities(
                 visibilities["path"], out, params, size=visibilities["size"],
                 cell_arcsec=visibilities["cell"], weighting=args.weighting or "natural",
@@ -355,7 +355,7 @@ def cmd_run(args):
         if args.visibilities is not None:
             raise InputError("--resume continues a run made from FITS images; it cannot be "
                              "combined with --visibilities")
-        from skyscale.cli.job import resume_inputs
+        from skyscale.job.files import resume_inputs
         rd, rp, base = resume_inputs(args.resume)
         dirty, psf = args.dirty or rd, args.psf or rp
         out = args.out or args.resume

@@ -146,7 +146,7 @@ def cmd_plan(args):
                 from skyscale.io.grid import cell_size_arcsec
                 cell = cell_size_arcsec(dirty_img.wcs)
     scales = _plan_scales(args.scales, dirty, psf_data, cell)
-    from skyscale.cli.options import parse_flux
+    from skyscale.job.options import parse_flux
     threshold = parse_flux(args.threshold, "--threshold")
     memory = None if args.memory is None else int(args.memory * 2**30)
     known = {k: (None if getattr(args, a) is None else
@@ -308,7 +308,7 @@ def cmd_bench(args):
 
 def _plan_scales(text, dirty, psf, cell):
     """Scale diameters in pixels from ``--scales`` read as ``run`` reads them."""
-    from skyscale.cli.options import parse_scales
+    from skyscale.job.options import parse_scales
     from skyscale.core.validate import InputError
     scales, unit = parse_scales(text, "--scales")
     if scales == "auto":

@@ -2,7 +2,7 @@
 
 `CleanOptions` names every option of a deconvolution with its default; `DEFAULTS` is
 the instance the Python API (`skyscale.deconvolve`, `skyscale.Engine`, the planner),
-the command line and its TOML files (`skyscale.cli.job.RUN_DEFAULTS` is built from it) and
+the command line and its TOML files (`skyscale.job.files.RUN_DEFAULTS` is built from it) and
 the report all take their defaults from, so they cannot drift apart.  The command line
 differs in two stated places: it stops at `RUN_NOISE_THRESHOLD` times the noise unless
 told otherwise, where the API's default is no noise stop, and it asks the scale advisor

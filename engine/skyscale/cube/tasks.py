@@ -35,7 +35,7 @@ def plane_task(index, dirty, psf, params, cell, scales_px, mask, beam):
         The plane (for the summary).
     dirty, psf : (ny, nx), (py, px) float32 ndarray
     params : dict
-        Merged run parameters (`skyscale.cli.job.merge_params`).
+        Merged run parameters (`skyscale.job.files.merge_params`).
     cell : float or None
     scales_px : list of float
     mask : (ny, nx) bool ndarray or None
@@ -49,7 +49,7 @@ def plane_task(index, dirty, psf, params, cell, scales_px, mask, beam):
         plane's stop reason, residual statistics, per-scale flux, timings, warnings).
     """
     from skyscale.core.driver import deconvolve
-    from skyscale.cli.job import deconvolve_options
+    from skyscale.job.files import deconvolve_options
     from skyscale.io.report import build_report
     t0 = time.perf_counter()
     threads = plane_threads(params["threads"])

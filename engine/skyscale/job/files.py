@@ -20,12 +20,12 @@ from skyscale.core.driver import deconvolve
 from skyscale.io.fits import (check_same_grid, provenance_history, read_image, write_image,
                               write_table_csv)
 from skyscale.io.grid import cell_size_arcsec
-from skyscale.cli.options import coerce_params, option_label
-from skyscale.cli.preflight import (OUTPUT_NAMES, check_units, initial_model,
+from skyscale.job.options import coerce_params, option_label
+from skyscale.job.preflight import (OUTPUT_NAMES, check_units, initial_model,
                                     plan_from_headers, prepare_out, previous_outputs)
-from skyscale.cli.preflight import build_mask as _build_mask
-from skyscale.cli.preflight import restoring_beam as _restoring_beam
-from skyscale.cli.preflight import resume_inputs
+from skyscale.job.preflight import build_mask as _build_mask
+from skyscale.job.preflight import restoring_beam as _restoring_beam
+from skyscale.job.preflight import resume_inputs
 from skyscale.io.report import file_sha256
 
 __all__ = ["RUN_DEFAULTS", "OUTPUT_NAMES", "run_files", "run_images", "merge_params",
@@ -66,7 +66,7 @@ RUN_DEFAULTS = {
 
 def merge_params(params, sources=None):
     """`RUN_DEFAULTS` updated with ``params``, read as a user would write them
-    (`skyscale.cli.options.coerce_params`); unknown keys are refused.
+    (`skyscale.job.options.coerce_params`); unknown keys are refused.
 
     A ``threshold`` given without ``noise_threshold`` (None counts as not given) is a
     fixed level: the default noise stop is then off.  ``noise_threshold`` ``"off"``
@@ -185,7 +185,7 @@ def run_files(dirty_path, psf_path, out_dir, params=None, *, callback=None, inpu
     params : dict, optional
         Any of `RUN_DEFAULTS`; missing keys take the defaults.  Values may be given as
         text as a user would write them (``"0.1"``, ``"false"``, ``"0 4 8"``,
-        ``"0.1mJy"``); see `skyscale.cli.options`.
+        ``"0.1mJy"``); see `skyscale.job.options`.
     callback : callable, optional
         Progress callback passed to `deconvolve`.
     sources : dict, optional

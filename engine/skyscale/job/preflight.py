@@ -2,7 +2,7 @@
 restoring beam and the run to resume.
 
 Each refuses bad input with one `InputError` naming the option as the user wrote it
-(``labels`` maps a run parameter to that name), so `skyscale.cli.job.run_files` and the
+(``labels`` maps a run parameter to that name), so `skyscale.job.files.run_files` and the
 command line fail before anything is computed or written.
 """
 
@@ -16,7 +16,7 @@ from skyscale.core.validate import InputError
 from skyscale.core.beam import Beam
 from skyscale.io.fits import check_same_grid, read_image, read_shape
 from skyscale.io.grid import pixel_position_angle
-from skyscale.cli.options import RUN_OPTION_KINDS
+from skyscale.job.options import RUN_OPTION_KINDS
 
 __all__ = ["BEAM_MIN_PIXELS", "OUTPUT_NAMES", "prepare_out", "previous_outputs",
            "plan_from_headers",
