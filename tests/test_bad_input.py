@@ -171,9 +171,9 @@ def test_missing_file_is_both_input_error_and_file_not_found(tmp_path):
 
 
 def test_file_too_large_for_memory_is_refused_before_reading(tmp_path, monkeypatch):
-    import skyscale.cost.model
+    import skyscale.io.fits
     path = write_fits(tmp_path / "big.fits", np.ones((64, 64)))
-    monkeypatch.setattr(skyscale.cost.model, "available_memory", lambda: 1000)
+    monkeypatch.setattr(skyscale.io.fits, "available_memory", lambda: 1000)
     with pytest.raises(InputError, match=r"needs about .* GiB but .* is available"):
         read_image(path)
 

@@ -12,6 +12,8 @@ import sys
 
 import numpy as np
 
+from skyscale.cli.formats import memory_text, plain_console, scales_text, time_text
+
 __all__ = ["register", "cmd_bench", "cmd_plan", "show_plan", "BENCH_FILES"]
 
 #: Files ``skyscale bench`` writes into ``--out``.
@@ -103,11 +105,6 @@ def register(subparsers):
     return subparsers
 
 
-def _console():
-    from rich.console import Console
-    return Console(highlight=False, width=None if sys.stdout.isatty() else 150)
-
-
 # ---------------------------------------------------------------------------- plan
 def cmd_plan(args):
     """``skyscale plan``: print the predicted cost of a run."""
@@ -191,19 +188,9 @@ def _cube_words(plan, planes, threads):
     each = plan.total_seconds - plan.startup_seconds
     return (f"a cube of {planes} planes: this plan is one plane (its dynamic range from the "
             f"first); skyscale cube deconvolves the planes one per worker, and with "
-            f"{_b(plan.memory_bytes)} per plane the local cluster here runs {workers} "
-            f"worker(s) x {per} thread(s): about {_t(plan.startup_seconds + rounds * each)} for "
+            f"{memory_text(plan.memory_bytes)} per plane the local cluster here runs {workers} "
+            f"worker(s) x {per} thread(s): about {time_text(plan.startup_seconds + rounds * each)} for "
             f"the cube ({rounds} plane(s) per worker); --threads is per plane [1]")
-
-
-def _t(seconds):
-    from skyscale.cost.planner import seconds_text
-    return seconds_text(seconds)
-
-
-def _b(nbytes):
-    from skyscale.cost.planner import bytes_text
-    return bytes_text(nbytes)
 
 
 #: Words for where a plan's memory peaks (`skyscale.cost.predict_memory`'s phases).
@@ -214,7 +201,7 @@ _PHASES = {"beams": "while the first minor cycle makes the beams",
 def show_plan(plan):
     """Print a plan as a table."""
     from rich.table import Table
-    out = _console()
+    out = plain_console()
     t = Table(title="planned run", show_header=False)
     t.add_column("what")
     t.add_column("predicted")
@@ -227,19 +214,19 @@ def show_plan(plan):
               f"({c.get('fft_updates', c['rounds'])} by FFT update, the others direct), "
               f"{c['components']} components, {c['active_pixels']:.0f} active pixels per "
               "sub-loop")
-    t.add_row("start-up", _t(plan.startup_seconds) + (" (first run of the process)"
+    t.add_row("start-up", time_text(plan.startup_seconds) + (" (first run of the process)"
                                                       if plan.startup_seconds else ""))
-    t.add_row("precompute", _t(plan.precompute_seconds))
-    t.add_row("beams (first minor cycle)", _t(plan.beams_seconds))
-    t.add_row("each FFT update", _t(plan.round_seconds))
-    t.add_row("minor cycles", f"{_t(plan.minor_seconds)} (FFT updates "
-              f"{_t(plan.fft_update_seconds)}, direct updates {_t(plan.direct_seconds)}, "
-              f"sub-loop iterations {_t(plan.loop_seconds)})")
-    t.add_row("major cycles", f"{_t(plan.major_total_seconds)} ({_t(plan.major_seconds)} each, "
+    t.add_row("precompute", time_text(plan.precompute_seconds))
+    t.add_row("beams (first minor cycle)", time_text(plan.beams_seconds))
+    t.add_row("each FFT update", time_text(plan.round_seconds))
+    t.add_row("minor cycles", f"{time_text(plan.minor_seconds)} (FFT updates "
+              f"{time_text(plan.fft_update_seconds)}, direct updates {time_text(plan.direct_seconds)}, "
+              f"sub-loop iterations {time_text(plan.loop_seconds)})")
+    t.add_row("major cycles", f"{time_text(plan.major_total_seconds)} ({time_text(plan.major_seconds)} each, "
               "with the statistics)")
-    t.add_row("total", _t(plan.total_seconds))
-    t.add_row("peak memory", f"{_b(plan.memory_bytes)} ({_PHASES.get(plan.memory_phase, plan.memory_phase)})")
-    t.add_row("memory available", _b(plan.memory_available))
+    t.add_row("total", time_text(plan.total_seconds))
+    t.add_row("peak memory", f"{memory_text(plan.memory_bytes)} ({_PHASES.get(plan.memory_phase, plan.memory_phase)})")
+    t.add_row("memory available", memory_text(plan.memory_available))
     t.add_row("fits", "yes" if plan.fits else "[bold red]NO: will not fit[/] (what would: "
               "below)")
     out.print(t)
@@ -257,7 +244,8 @@ def show_plan(plan):
 def cmd_bench(args):
     """``skyscale bench``: run the sweep, print tables, write bench.json and bench.png."""
     from skyscale.io.atomic import atomic_write_bytes
-    from skyscale.cost.calibration import default_calibration_path, save_calibration
+    from skyscale.core.calibration import default_calibration_path
+    from skyscale.cost.calibration import save_calibration
     from skyscale.cli.bench_summary import plot_bench, show_bench
     from skyscale.cost.sweep import run_sweep
     if args.components < 1:
@@ -272,7 +260,7 @@ def cmd_bench(args):
         raise FileExistsError(f"{clash[0]} exists; choose another --out or pass --overwrite")
     os.makedirs(args.out, exist_ok=True)
     quiet = getattr(args, "quiet", False)
-    out = _console()
+    out = plain_console()
     status = out.status("measuring") if (not quiet and sys.stdout.isatty()) else None
 
     def progress(event):
@@ -331,7 +319,3 @@ def _jsonable(value):
     if hasattr(value, "tolist"):
         return value.tolist()
     return float(value)
-
-
-def _scales(values):
-    return ",".join(f"{s:g}" for s in values)

@@ -34,7 +34,8 @@ from skyscale.core.kernels import scale_loop, stamp_components
 from skyscale.core.cycle_work import CycleWork
 from skyscale.core.levels import allowed_peak, scale_levels
 from skyscale.core.noise import scale_noise
-from skyscale.cost.model import MEMORY_HEADROOM, engine_memory, fft_work, fits_memory
+from skyscale.core.grids import fft_work
+from skyscale.core.memory import MEMORY_HEADROOM, engine_memory, fits_memory
 from skyscale.core.precompute import BeamBank, beam_peaks
 from skyscale.core.psf import check_psf
 from skyscale.core.result import COMPONENT_DTYPE

@@ -10,10 +10,13 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
-from skyscale.cost import model as cost
-from skyscale.core.threads import openmp_wait
-from skyscale.core.validate import resolve_dtype
 from skyscale.core.defaults import DEFAULTS
+from skyscale.core.noise import robust_noise
+from skyscale.core.scales import ScaleSet
+from skyscale.core.threads import openmp_wait, resolve_threads
+from skyscale.core.validate import resolve_dtype
+from skyscale.cost import model as cost
+from skyscale.cost.remedies import bench_advice, memory_remedies
 
 __all__ = ["Plan", "plan_run", "check_fits_memory", "max_affordable_scales",
            "AffordableScales", "InsufficientMemoryError", "seconds_text", "bytes_text"]
@@ -119,7 +122,6 @@ def _dynamic_range(dirty, threshold, noise_threshold, messages):
     a field whose sidelobes stand above the noise this underestimates the dynamic range
     (and the major cycles); ``dynamic_range=`` gives it directly.
     """
-    from skyscale.core.noise import robust_noise
     data = np.asarray(dirty, dtype=np.float32)
     peak = float(np.nanmax(np.abs(data)))
     nu = 3.0 if noise_threshold is None and not threshold else (noise_threshold or 0.0)
@@ -189,8 +191,6 @@ def plan_run(image_shape, psf, scales, *, max_components=DEFAULTS.max_components
     -------
     Plan
     """
-    from skyscale.core.threads import resolve_threads
-    from skyscale.core.scales import ScaleSet
     messages = []
     image_shape = _shape2(image_shape, "image_shape")
     psf_shape = np.shape(psf)[-2:] if np.ndim(psf) >= 2 else _shape2(psf, "psf")
@@ -257,7 +257,6 @@ def plan_run(image_shape, psf, scales, *, max_components=DEFAULTS.max_components
     mem = cost.predict_memory(geom, cal)
     avail = memory_available if memory_available is not None else cost.available_memory()
     if big and image_shape[0] * image_shape[1] > 1.5 * big:
-        from skyscale.cost.remedies import bench_advice
         side = int(big ** 0.5)
         messages.append(f"the image is larger than the calibrated sizes (up to {side} x "
                         f"{side}); times are extrapolated: "
@@ -267,7 +266,6 @@ def plan_run(image_shape, psf, scales, *, max_components=DEFAULTS.max_components
     if avail is None:
         messages.append("the memory available is unknown; not checked")
     elif not fits:
-        from skyscale.cost.remedies import memory_remedies
         messages.append(f"will not fit: needs about {_gib(mem['peak'])} (peak at "
                         f"{mem['peak_phase']}), {_gib(avail)} available")
         remedies = memory_remedies(image_shape, psf_shape, sset.pixels,
