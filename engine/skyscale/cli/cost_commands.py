@@ -13,6 +13,7 @@ import sys
 import numpy as np
 
 from skyscale.cli.formats import memory_text, plain_console, scales_text, time_text
+from skyscale.core.defaults import DEFAULTS, RUN_NOISE_THRESHOLD
 
 __all__ = ["register", "cmd_bench", "cmd_plan", "show_plan", "BENCH_FILES"]
 
@@ -67,15 +68,18 @@ def register(subparsers):
     p.add_argument("psf", nargs="?", help="PSF, FITS (its shape is used)")
     p.add_argument("--size", type=_shape, help="image size N or NYxNX instead of FITS files")
     p.add_argument("--psf-size", type=_shape, help="PSF size with --size [twice the image]")
-    p.add_argument("--scales", default="0,4,8,16",
+    scales = scales_text(DEFAULTS.scales)          # the Python API's defaults
+    p.add_argument("--scales", default=scales,
                    help="scale diameters as for run: pixels, or with a unit (0,8arcsec,"
-                   "16arcsec) or 'auto' with FITS files [0,4,8,16]")
-    p.add_argument("--max-components", type=int, default=20000, help="component budget [20000]")
-    p.add_argument("--max-major-cycles", type=int, default=20, help="major-cycle budget [20]")
+                   f"16arcsec) or 'auto' with FITS files [{scales}]")
+    p.add_argument("--max-components", type=int, default=DEFAULTS.max_components,
+                   help=f"component budget [{DEFAULTS.max_components}]")
+    p.add_argument("--max-major-cycles", type=int, default=DEFAULTS.max_major_cycles,
+                   help=f"major-cycle budget [{DEFAULTS.max_major_cycles}]")
     p.add_argument("--noise-threshold", type=float, help="stop multiple of the noise, for the "
-                   "dynamic range of a FITS dirty image [3]")
-    p.add_argument("--threshold", default="0", help="stop level, Jy/beam; a unit may be "
-                   "written (0.1mJy) [0]")
+                   f"dynamic range of a FITS dirty image [{RUN_NOISE_THRESHOLD:g}]")
+    p.add_argument("--threshold", default=f"{DEFAULTS.threshold:g}", help="stop level, "
+                   f"Jy/beam; a unit may be written (0.1mJy) [{DEFAULTS.threshold:g}]")
     p.add_argument("--dynamic-range", type=float, help="peak over stop level [measured from the "
                    "dirty image, else 1000]")
     p.add_argument("--mask-fraction", type=float, default=1.0,

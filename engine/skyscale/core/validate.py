@@ -11,31 +11,14 @@ import numbers
 
 import numpy as np
 
+from skyscale.core.option_table import number_rules
+
 __all__ = ["InputError", "MissingFileError", "as_image", "resolve_dtype", "check_choice",
            "check_number", "mask_nonfinite", "FFT_BACKENDS", "NUMBER_RULES"]
 
-#: Bounds of every numeric run option, with the fix a message suggests.
-NUMBER_RULES = {
-    "loop_gain": dict(low=0.0, high=1.0, low_open=True, hint="0.1 is the usual choice"),
-    "threshold": dict(low=0.0, hint="a peak residual in Jy/beam (0 for none); for a "
-                      "multiple of the noise use the noise threshold"),
-    "noise_threshold": dict(low=0.0, low_open=True, allow_none=True,
-                            hint="a multiple of the robust noise such as 3, or off"),
-    "max_components": dict(low=1, integer=True, hint="the most components the run may "
-                           "find, e.g. 20000"),
-    "max_major_cycles": dict(low=1, integer=True, hint="the most major cycles, e.g. 20"),
-    "cycle_depth": dict(low=0.0, high=1.0, high_open=True, hint="0.2 is the usual choice"),
-    "size_penalty": dict(low=0.0, high=1.0, high_open=True, hint="0.3 is the default"),
-    "extended_depth": dict(low=0.0, high=1.0, low_open=True,
-                           hint="a fraction of the noise multiple, 0.25 is the default"),
-    "scale_loop_depth": dict(low=0.0, high=1.0, high_open=True, hint="0.5 is the default"),
-    "psf_patch": dict(low=0, integer=True, allow_none=True,
-                      hint="a half-width in pixels, or leave it out for automatic"),
-    "threads": dict(low=1, integer=True, allow_none=True, hint="or leave it out for all cores"),
-    "cell_arcsec": dict(low=0.0, low_open=True, allow_none=True, hint="the pixel size in arcsec"),
-    "emission_mask_sigma": dict(low=0.0, low_open=True, allow_none=True,
-                            hint="a multiple of the robust noise such as 5"),
-}
+#: Bounds of every numeric run option, with the fix a message suggests (from the option
+#: table, `skyscale.core.option_table`).
+NUMBER_RULES = number_rules()
 
 #: FFT back ends `deconvolve` accepts.
 FFT_BACKENDS = ("auto", "scipy", "numpy", "pyfftw")

@@ -10,11 +10,11 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
-from skyscale.core.defaults import DEFAULTS
+from skyscale.core.defaults import DEFAULTS, RUN_NOISE_THRESHOLD
 from skyscale.core.noise import robust_noise
 from skyscale.core.scales import ScaleSet
 from skyscale.core.threads import openmp_wait, resolve_threads
-from skyscale.core.validate import resolve_dtype
+from skyscale.core.validate import NUMBER_RULES, check_number, resolve_dtype
 from skyscale.cost import model as cost
 from skyscale.cost.remedies import bench_advice, memory_remedies
 
@@ -124,10 +124,11 @@ def _dynamic_range(dirty, threshold, noise_threshold, messages):
     """
     data = np.asarray(dirty, dtype=np.float32)
     peak = float(np.nanmax(np.abs(data)))
-    nu = 3.0 if noise_threshold is None and not threshold else (noise_threshold or 0.0)
+    nu = RUN_NOISE_THRESHOLD if noise_threshold is None and not threshold \
+        else (noise_threshold or 0.0)
     if noise_threshold is None and not threshold:
-        messages.append("no stop level given: the dynamic range is counted to 3 x the "
-                        "dirty image's robust noise")
+        messages.append(f"no stop level given: the dynamic range is counted to "
+                        f"{RUN_NOISE_THRESHOLD:g} x the dirty image's robust noise")
     level = max(float(threshold), nu * robust_noise(data))
     messages.append("dynamic range measured on the dirty image, whose robust noise includes "
                     "the sidelobes of bright sources (an underestimate where they stand "
@@ -200,9 +201,9 @@ def plan_run(image_shape, psf, scales, *, max_components=DEFAULTS.max_components
     dt = resolve_dtype(dtype)
     sset = ScaleSet(scales, shape=scale_shape, image_shape=image_shape)
     for name, value in (("max_components", max_components),
-                        ("max_major_cycles", max_major_cycles)):
-        if int(value) < 0:
-            raise ValueError(f"{name} is {value}, expected an integer >= 0")
+                        ("max_major_cycles", max_major_cycles), ("cycle_depth", cycle_depth),
+                        ("threshold", threshold), ("noise_threshold", noise_threshold)):
+        check_number(value, name, **NUMBER_RULES[name])      # as deconvolve checks them
     if not 0.0 < float(mask_fraction) <= 1.0:
         raise ValueError(f"mask_fraction is {mask_fraction}, expected a fraction in (0, 1]")
     cores = resolve_threads(None)

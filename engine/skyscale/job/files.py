@@ -11,22 +11,30 @@ import warnings
 
 import numpy as np
 
-from skyscale.io.atomic import incomplete_marker
-from skyscale.io.interrupts import finish_on_first_interrupt
-from skyscale.core.validate import InputError, mask_nonfinite
-from skyscale.io.components import component_fields, component_rows
-from skyscale.core.defaults import DEFAULTS, RUN_NOISE_THRESHOLD, RUN_SCALES
+from skyscale.advisor.suggest import check_scales, resolve_scales
+from skyscale.core.beam import fit_beam
 from skyscale.core.driver import deconvolve
+from skyscale.core.operators import exact_region
+from skyscale.core.option_table import algorithm_options, run_options
+from skyscale.core.psf import check_psf
+from skyscale.core.scales import ScaleSet
+from skyscale.core.validate import InputError, mask_nonfinite
+from skyscale.cost.planner import check_fits_memory, plan_run
+from skyscale.io.atomic import incomplete_marker
+from skyscale.io.components import component_fields, component_rows
 from skyscale.io.fits import (check_same_grid, provenance_history, read_image, write_image,
                               write_table_csv)
 from skyscale.io.grid import cell_size_arcsec
+from skyscale.io.interrupts import finish_on_first_interrupt
+from skyscale.io.report import build_report, write_report
+from skyscale.io.report import file_sha256
 from skyscale.job.options import coerce_params, option_label
 from skyscale.job.preflight import (OUTPUT_NAMES, check_units, initial_model,
                                     plan_from_headers, prepare_out, previous_outputs)
 from skyscale.job.preflight import build_mask as _build_mask
 from skyscale.job.preflight import restoring_beam as _restoring_beam
 from skyscale.job.preflight import resume_inputs
-from skyscale.io.report import file_sha256
+from skyscale.masks.emission import EmissionMask
 
 __all__ = ["RUN_DEFAULTS", "OUTPUT_NAMES", "run_files", "run_images", "merge_params",
            "stop_rule", "exact_residual_cards", "scales_in_pixels", "restoring_beam",
@@ -34,34 +42,14 @@ __all__ = ["RUN_DEFAULTS", "OUTPUT_NAMES", "run_files", "run_images", "merge_par
 
 logger = logging.getLogger(__name__)
 
-#: Every run parameter with its default (the keys a configuration file may hold).  A run
+#: Every run parameter with its default (the keys a configuration file may hold), from
+#: the option table (`skyscale.core.option_table`).  A run
 #: stops at `RUN_NOISE_THRESHOLD` times the noise unless told otherwise: a
 #: ``threshold`` given without ``noise_threshold`` is a fixed level with no noise stop
 #: (`merge_params`), and ``noise_threshold = "off"`` turns the noise stop off.  Scales
 #: are chosen for the image by the scale advisor (``"auto"``) and the automatic mask is
 #: on (kept inside a user's mask): what a careful user would choose (CHANGELOG, issue 19).
-RUN_DEFAULTS = {
-    "scales": RUN_SCALES,
-    "scale_unit": "pixel",
-    "scale_shape": DEFAULTS.scale_shape,
-    "loop_gain": DEFAULTS.loop_gain,
-    "threshold": DEFAULTS.threshold,
-    "noise_threshold": RUN_NOISE_THRESHOLD,
-    "max_components": DEFAULTS.max_components,
-    "max_major_cycles": DEFAULTS.max_major_cycles,
-    "cycle_depth": DEFAULTS.cycle_depth,
-    "size_penalty": DEFAULTS.size_penalty,
-    "extended_depth": DEFAULTS.extended_depth,
-    "mask": None,
-    "mask_regions": None,
-    "emission_mask": True,
-    "emission_mask_sigma": None,
-    "threads": None,
-    "beam": None,
-    "plots": True,
-    "overwrite": False,
-    "nonfinite": "refuse",
-}
+RUN_DEFAULTS = {o.name: o.default_in_run for o in run_options()}
 
 
 def merge_params(params, sources=None):
@@ -103,7 +91,6 @@ def scales_in_pixels(params, cell, dirty, psf, reasons, label="scales", beam=Non
     ``reasons``; arcsec scales are divided by ``cell``)."""
     scales = params["scales"]
     if isinstance(scales, str):     # 'auto': the same advisor call as deconvolve's
-        from skyscale.advisor.suggest import resolve_scales
         options = {} if beam is None else {"beam": beam}
         pixels, why = resolve_scales(scales, dirty, psf, cell_arcsec=cell, **options)
         reasons.extend(why)
@@ -154,19 +141,12 @@ def deconvolve_options(params, psf, cell, scales_px, mask=None, beam=None):
     """
     auto = None
     if params["emission_mask"]:
-        from skyscale.core.beam import fit_beam
-        from skyscale.masks import EmissionMask
         kw = {} if params["emission_mask_sigma"] is None else {"sigma": params["emission_mask_sigma"]}
         auto = EmissionMask.for_beam(scales_px, beam if beam is not None else fit_beam(psf),
                                      **kw)
-    return dict(scales=scales_px, loop_gain=params["loop_gain"], threshold=params["threshold"],
-                noise_threshold=params["noise_threshold"],
-                max_components=params["max_components"],
-                max_major_cycles=params["max_major_cycles"], cycle_depth=params["cycle_depth"],
-                mask=mask, size_penalty=params["size_penalty"],
-                extended_depth=params["extended_depth"], scale_shape=params["scale_shape"],
-                threads=params["threads"], cell_arcsec=cell,
-                beam=beam, emission_mask=auto)
+    algorithm = {o.name: params[o.name] for o in algorithm_options()}
+    return dict(algorithm, scales=scales_px, mask=mask, threads=params["threads"],
+                cell_arcsec=cell, beam=beam, emission_mask=auto)
 
 
 def run_files(dirty_path, psf_path, out_dir, params=None, *, callback=None, inputs_extra=None,
@@ -279,7 +259,6 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
     previous = previous_outputs(out_dir) if ow else []     # read before report.json is replaced
     notes = []
     check_units(dirty, notes)
-    from skyscale.core.psf import check_psf
     with warnings.catch_warnings():      # the one real error first, before any advice
         warnings.simplefilter("ignore")
         check_psf(np.nan_to_num(psf.data) if merged["nonfinite"] == "mask" else psf.data,
@@ -301,7 +280,6 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
             blank = None
     initial = initial_model(resume_from, dirty) if resume_from else None
     beam = restoring_beam(merged, cell, labels["beam"], dirty.wcs)
-    from skyscale.core.beam import fit_beam
     fitted = beam if beam is not None else fit_beam(psf.data)   # the run's one beam fit
     if beam is not None:
         notes.extend(beam_size_notes(beam, fit_beam(psf.data), cell, labels["beam"]))
@@ -310,8 +288,6 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
                                  beam=fitted)
     scale_warnings = []
     if not reasons:   # the user's own set: check it against the rules of thumb
-        from skyscale.advisor.suggest import check_scales
-        from skyscale.core.scales import ScaleSet
         try:                                            # refuse bad sets before the advice
             ScaleSet(scales_px, image_shape=data.shape)
         except InputError as exc:
@@ -326,7 +302,6 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
                                           beam=fitted,
                                           max_affordable_scales=len(afford.scales))
     mask = build_mask(merged, dirty, data.shape, labels)
-    from skyscale.cost.planner import check_fits_memory, plan_run
     plan = plan_run(data.shape, psf.data, scales_px,
                     max_components=merged["max_components"], threads=merged["threads"],
                     max_major_cycles=merged["max_major_cycles"], dirty=data,
@@ -403,7 +378,6 @@ def exact_residual_cards(result):
     history : list of str
     """
     import textwrap
-    from skyscale.core.operators import exact_region
     op = (getattr(result, "parameters", None) or {}).get("operator") or {}
     if "exact" not in op:
         return {}, []
@@ -496,7 +470,6 @@ def _write_outputs(result, dirty, psf, names, record, start, end, plan, reasons,
                                             mask=result.mask, overwrite=ow)
         except ImportError as exc:
             result.warnings.append(f"figures skipped: {exc}")
-    from skyscale.io.report import build_report, write_report
     out_dir = os.path.dirname(names["report"]) or "."
     removed = _remove_stale(stale[0], stale[1], dict(written, report=names["report"]), out_dir)
     extra = {"outputs": dict(written, report=names["report"]),

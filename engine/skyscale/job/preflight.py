@@ -11,6 +11,10 @@ import warnings
 
 import numpy as np
 
+from skyscale.core.scales import ScaleSet
+from skyscale.cost.planner import check_fits_memory, plan_run
+from skyscale.masks.loading import load_mask
+from skyscale.masks.regions import regions_to_mask
 from skyscale.io.atomic import INCOMPLETE_MARKER, check_output_dir, remove_stale_temps
 from skyscale.core.validate import InputError
 from skyscale.core.beam import Beam
@@ -45,14 +49,12 @@ def build_mask(params, image, shape, labels):
     """
     mask = None
     if params.get("mask"):
-        from skyscale.masks import load_mask
         check_mask_grid(image, params["mask"], labels["mask"])
         mask = load_mask(params["mask"], shape)
         if not mask.any():
             raise InputError(f"{labels['mask']} {params['mask']} allows no pixel (it is all "
                              "0); give a mask that covers the emission")
     if params.get("mask_regions"):
-        from skyscale.masks import regions_to_mask
         text = params["mask_regions"]
         if isinstance(text, str) and not text.split()[1:] and os.path.isfile(text):
             import pathlib
@@ -194,8 +196,6 @@ def plan_from_headers(dirty_path, psf_path, params):
     shapes = read_shape(dirty_path, name="dirty"), read_shape(psf_path, name="psf")
     if None in shapes:
         return
-    from skyscale.cost.planner import check_fits_memory, plan_run
-    from skyscale.core.scales import ScaleSet
     try:
         ScaleSet(scales)
     except InputError:
