@@ -67,7 +67,7 @@ def _scales(text):
         raise argparse.ArgumentTypeError(str(exc)) from None
 
 
-#: The demo's own settings, on top of `skyscale.job.files.RUN_DEFAULTS` (its --help shows them;
+#: The demo's own settings, on top of `skyscale.job.options.RUN_DEFAULTS` (its --help shows them;
 #: a --config file and the command line override them).
 DEMO_SETTINGS = {"scales": [0, 4, 8, 16, 32], "emission_mask": True}
 
@@ -104,7 +104,7 @@ def _add_run_options(p, defaults=None, threads_help=None):
     # option takes text here and a bad value gets one line naming it.  The bracketed
     # defaults come from the values the command uses (RUN_DEFAULTS, or the demo's).
     from skyscale.core.option_table import run_options
-    from skyscale.job.files import RUN_DEFAULTS
+    from skyscale.job.options import RUN_DEFAULTS
     d = _shown(defaults or RUN_DEFAULTS)
     g = p.add_argument_group("deconvolution")
     for o in run_options():      # the algorithm's options and the unit of the scales
@@ -199,7 +199,7 @@ def build_parser():
     _add_visibility_options(run)
     run.set_defaults(func=cmd_run)
 
-    from skyscale.job.files import RUN_DEFAULTS
+    from skyscale.job.options import RUN_DEFAULTS
     demo = sub.add_parser("demo", help="run the whole job on the bundled demo observation",
                           description="Run the whole job on the bundled demo observation, "
                           "with the demo's own settings (shown in brackets); a --config "
@@ -253,7 +253,7 @@ def _params(args, base=None, base_source="the resumed run's report"):
     """Run options from ``base``, then --config, then the command line; and where each
     came from.  A threshold given (in the file or here) without a noise threshold drops
     the base's noise threshold: it is a fixed level (`skyscale.job.files.merge_params`)."""
-    from skyscale.job.files import RUN_DEFAULTS
+    from skyscale.job.options import RUN_DEFAULTS
     from skyscale.job.options import load_config
     params, sources = dict(base or {}), {k: base_source for k in base or {}}
     later = {}

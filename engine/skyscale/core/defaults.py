@@ -4,7 +4,7 @@
 option table (`skyscale.core.option_table`); `DEFAULTS` is the instance the Python API
 (`skyscale.deconvolve`, `skyscale.Engine`, the planner) and the report take their
 defaults from, and the command line and its TOML files read the same table
-(`skyscale.job.files.RUN_DEFAULTS`), so they cannot drift apart.  The command line
+(`skyscale.job.options.RUN_DEFAULTS`), so they cannot drift apart.  The command line
 differs in two stated places: it stops at `RUN_NOISE_THRESHOLD` times the noise unless
 told otherwise, where the API's default is no noise stop, and it asks the scale advisor
 for the image's scales (`RUN_SCALES`) where the API's default is a fixed set.

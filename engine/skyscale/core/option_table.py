@@ -4,7 +4,7 @@
 (`skyscale.core.defaults.CleanOptions`), the bounds every check uses
 (`skyscale.core.validate.NUMBER_RULES`), how the command line and TOML files read each
 option (`skyscale.job.options.RUN_OPTION_KINDS`), the file-level job's defaults
-(`skyscale.job.files.RUN_DEFAULTS`), the command line's help and the planner's
+(`skyscale.job.options.RUN_DEFAULTS`), the command line's help and the planner's
 defaults.  It imports nothing of skyscale, so every layer may read it.
 
 Examples

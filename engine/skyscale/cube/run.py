@@ -1,7 +1,7 @@
 """Many-channel cubes, plane by plane, on Dask distributed: `deconvolve_cube`.
 
 Each plane is one task that deconvolves it with its own PSF plane exactly as
-``skyscale run`` deconvolves an image: the same options (`skyscale.job.files.RUN_DEFAULTS`),
+``skyscale run`` deconvolves an image: the same options (`skyscale.job.options.RUN_DEFAULTS`),
 turned into `deconvolve` keywords by the same function.  What is decided once for
 the whole cube:
 
@@ -180,7 +180,7 @@ def deconvolve_cube(cube, psf, out_dir, params=None, *, client=None, scheduler=N
         Output folder: ``model.fits``, ``residual.fits``, ``restored.fits`` (cubes on the
         input's grid) and ``report.json``.
     params : dict, optional
-        Any of `skyscale.job.files.RUN_DEFAULTS`, as for ``skyscale run``.  ``threads`` is
+        Any of `skyscale.job.options.RUN_DEFAULTS`, as for ``skyscale run``.  ``threads`` is
         the threads per plane.  ``scales='auto'`` asks the advisor once, on the
         brightest plane.  ``overwrite`` replaces earlier outputs (and an unfinished run).
     client : distributed.Client, optional

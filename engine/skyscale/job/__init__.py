@@ -11,6 +11,6 @@ figures.  It sits above `core`, `masks`, `advisor`, `cost` and `io` and below `c
 from skyscale._exports import lazy_exports
 
 __all__, __getattr__, __dir__ = lazy_exports(__name__, {
-    "files": ["RUN_DEFAULTS", "OUTPUT_NAMES", "run_files", "run_images", "merge_params"],
-    "options": ["RUN_OPTION_KINDS", "coerce_params", "load_config"],
+    "files": ["OUTPUT_NAMES", "run_files", "run_images", "merge_params"],
+    "options": ["RUN_DEFAULTS", "RUN_OPTION_KINDS", "coerce_params", "load_config"],
 })

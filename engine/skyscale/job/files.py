@@ -15,7 +15,7 @@ from skyscale.advisor.suggest import check_scales, resolve_scales
 from skyscale.core.beam import fit_beam
 from skyscale.core.driver import deconvolve
 from skyscale.core.operators import exact_region
-from skyscale.core.option_table import algorithm_options, run_options
+from skyscale.core.option_table import algorithm_options
 from skyscale.core.psf import check_psf
 from skyscale.core.scales import ScaleSet
 from skyscale.core.validate import InputError, mask_nonfinite
@@ -28,7 +28,7 @@ from skyscale.io.grid import cell_size_arcsec
 from skyscale.io.interrupts import finish_on_first_interrupt
 from skyscale.io.report import build_report, write_report
 from skyscale.io.report import file_sha256
-from skyscale.job.options import coerce_params, option_label
+from skyscale.job.options import RUN_DEFAULTS, coerce_params, option_label
 from skyscale.job.preflight import (OUTPUT_NAMES, check_units, initial_model,
                                     plan_from_headers, prepare_out, previous_outputs)
 from skyscale.job.preflight import build_mask as _build_mask
@@ -36,20 +36,12 @@ from skyscale.job.preflight import restoring_beam as _restoring_beam
 from skyscale.job.preflight import resume_inputs
 from skyscale.masks.emission import EmissionMask
 
-__all__ = ["RUN_DEFAULTS", "OUTPUT_NAMES", "run_files", "run_images", "merge_params",
+__all__ = ["OUTPUT_NAMES", "run_files", "run_images", "merge_params",
            "stop_rule", "exact_residual_cards", "scales_in_pixels", "restoring_beam",
            "build_mask", "deconvolve_options", "resume_inputs"]
 
 logger = logging.getLogger(__name__)
 
-#: Every run parameter with its default (the keys a configuration file may hold), from
-#: the option table (`skyscale.core.option_table`).  A run
-#: stops at `RUN_NOISE_THRESHOLD` times the noise unless told otherwise: a
-#: ``threshold`` given without ``noise_threshold`` is a fixed level with no noise stop
-#: (`merge_params`), and ``noise_threshold = "off"`` turns the noise stop off.  Scales
-#: are chosen for the image by the scale advisor (``"auto"``) and the automatic mask is
-#: on (kept inside a user's mask): what a careful user would choose (CHANGELOG, issue 19).
-RUN_DEFAULTS = {o.name: o.default_in_run for o in run_options()}
 
 
 def merge_params(params, sources=None):
