@@ -18,7 +18,7 @@ import os
 
 import numba
 
-__all__ = ["thread_limit", "resolve_threads", "DEFAULT_GOMP_SPINCOUNT", "SHORT_SPIN",
+__all__ = ["usable_cores", "thread_limit", "resolve_threads", "DEFAULT_GOMP_SPINCOUNT", "SHORT_SPIN",
            "set_openmp_spin_default", "openmp_wait", "threads_in_effect"]
 
 #: ``GOMP_SPINCOUNT`` skyscale sets when the user has not (spins before an idle OpenMP
@@ -64,6 +64,14 @@ def openmp_wait():
     by_us = bool(_SET_BY_SKYSCALE) and spin == str(DEFAULT_GOMP_SPINCOUNT)
     return {"wait_policy": policy, "spin_count": spin, "set_by_skyscale": by_us,
             "short": short}
+
+
+def usable_cores():
+    """Cores this process may run on (its CPU affinity where the system tells it, else
+    every core the machine has): the one count of cores the rest uses."""
+    if hasattr(os, "sched_getaffinity"):
+        return max(len(os.sched_getaffinity(0)), 1)
+    return max(os.cpu_count() or 1, 1)
 
 
 def resolve_threads(threads):

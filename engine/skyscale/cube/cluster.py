@@ -15,6 +15,8 @@ import os
 import warnings
 from dataclasses import dataclass
 
+from skyscale.core.threads import usable_cores
+
 __all__ = ["WORKER_MALLOC", "ClusterInfo", "size_local_cluster", "plane_threads",
            "cube_client"]
 
@@ -73,8 +75,7 @@ def size_local_cluster(threads=None, *, cores=None, plane_bytes=None, memory_byt
         ``workers * threads <= cores``, equal when memory allows.
     """
     if cores is None:
-        cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else None
-        cores = cores or os.cpu_count() or 1
+        cores = usable_cores()
     threads = 1 if threads is None else int(threads)
     if threads < 1:
         raise ValueError(f"threads is {threads}; pass a positive number of threads per plane")
