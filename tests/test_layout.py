@@ -4,6 +4,7 @@ names is left.  These guard the layout (common practice), not a published value.
 """
 
 import importlib
+import json
 import os
 import pkgutil
 import subprocess
@@ -76,3 +77,22 @@ def test_the_flat_layouts_module_paths_are_gone(old):
 def test_names_that_are_not_offered_are_attribute_errors(name):
     with pytest.raises(AttributeError, match=f"no attribute '{name}'"):
         getattr(skyscale, name)
+
+
+def test_import_skyscale_loads_nothing_yet_every_name_and_subpackage_resolves():
+    # in a fresh interpreter: what the import loads, and what a user reaches from it
+    code = ("import json, os, sys; import skyscale; "
+            "loaded = sorted(m for m in sys.modules if m.startswith('skyscale')); "
+            "spin = os.environ.get('GOMP_SPINCOUNT'); "
+            "heavy = [m for m in ('numba', 'rich', 'matplotlib', 'dask', 'astropy') "
+            "if m in sys.modules]; "
+            "skyscale.masks.regions_to_mask, skyscale.cost.plan_run, skyscale.Engine; "
+            "print(json.dumps([loaded, spin, heavy]))")
+    env = {k: v for k, v in os.environ.items() if k != "GOMP_SPINCOUNT"}
+    env["PYTHONPATH"] = os.pathsep.join(p for p in sys.path if p)
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          env=env)
+    assert done.returncode == 0, done.stderr
+    loaded, spin, heavy = json.loads(done.stdout.strip().splitlines()[-1])
+    assert loaded == ["skyscale", "skyscale._exports"]
+    assert spin is None and heavy == []

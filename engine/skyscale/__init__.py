@@ -19,6 +19,7 @@ Importing skyscale loads nothing of it and changes nothing in the environment: e
 name is imported from its module when first used.  See the README for worked examples.
 """
 
+import importlib as _importlib
 import logging as _logging
 from importlib.metadata import PackageNotFoundError as _PackageNotFoundError
 from importlib.metadata import version as _version
@@ -32,7 +33,7 @@ try:
 except _PackageNotFoundError:  # running from a source tree
     __version__ = "unknown"
 
-_names, __getattr__, __dir__ = _lazy_exports(__name__, {
+_names, _name_getattr, _name_dir = _lazy_exports(__name__, {
     # the algorithm, its options and results
     "core.driver": ["deconvolve"],
     "core.engine": ["Engine", "MinorCycleResult"],
@@ -55,3 +56,16 @@ _names, __getattr__, __dir__ = _lazy_exports(__name__, {
     "visibility.file": ["read_visibilities", "write_visibilities"],
 })
 __all__ = ["__version__", *_names]
+
+_SUBPACKAGES = ("core", "io", "masks", "advisor", "cost", "job", "cube", "visibility", "cli")
+
+
+def __getattr__(name):
+    """A name of `__all__` or a subpackage (``skyscale.masks``), imported on first use."""
+    if name in _SUBPACKAGES:
+        return _importlib.import_module(f"{__name__}.{name}")
+    return _name_getattr(name)
+
+
+def __dir__():
+    return sorted(set(_name_dir()) | set(_SUBPACKAGES) | {"__version__"})

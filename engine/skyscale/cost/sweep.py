@@ -32,9 +32,12 @@ from skyscale.cost.instruments import (RSS_INTERVAL, PeakMemory, SubLoopRecord, 
                                        cpu_clock, fft_probe, kept_warnings,
                                        record_sub_loops)
 from skyscale.core.threads import resolve_threads, thread_limit
-from skyscale.core.driver import masked_stats
+from skyscale.core.cycle_work import CycleWork
+from skyscale.core.driver import deconvolve, masked_stats
 from skyscale.core.engine import Engine
+from skyscale.core.kernels import scale_loop
 from skyscale.core.operators import ImagePlaneOperator
+from skyscale.cost.sweepfit import calibrate, summarize
 from skyscale.cost.sweep_plan import (DEFAULT_SIZES, SCALE_SETS, VALIDATION_RUNS,
                                       calibration_runs, scale_radii, sets_for)
 
@@ -159,7 +162,6 @@ def measure_run(dirty, psf, scales, *, max_components, noise_threshold=3.0, thre
     their allowance the direct ones used) and peak memory."""
     if resolve_threads(threads) != 1:
         raise ValueError(f"threads is {threads}: measure_run times CPU seconds and needs 1")
-    from skyscale.core.driver import deconvolve
     with record_sub_loops() as loops, PeakMemory(RSS_INTERVAL) as mem, cpu_clock(), \
             kept_warnings() as said:
         t0, c0 = time.perf_counter(), time.process_time()
@@ -225,7 +227,6 @@ def _notify(callback, **event):
 def loop_threads_probe(n=512, iterations=40, thread_counts=(1, 2), repeats=3):
     """The sub-loop on a whole plane (``n * n`` active pixels, the parallel path) at
     each thread count, interleaved run by run: ``[{'threads', 'seconds'}]``."""
-    from skyscale.core.kernels import scale_loop
     dirty, psf = synthetic_field(n, seed=3)
     e = Engine(psf, [0, 4], image_shape=dirty.shape, threads=1)
     plane = e.smooth(dirty)[1]
@@ -248,7 +249,6 @@ def direct_probe(sizes, scales=(0, 4, 8, 16), components=(1, 8), repeats=3):
     ``[{'size', 'n_scales', 'tracked', 'components', 'seconds'}]`` (CPU seconds, best of
     ``repeats``).  Their cost per pixel and plane grows with the tracked set once it
     outgrows the caches, which the calibration runs at small sizes do not see."""
-    from skyscale.core.cycle_work import CycleWork
     out = []
     for n in sorted({int(v) for v in sizes}):
         sc = [s for s in scales if s <= n // 4]
@@ -336,7 +336,6 @@ def run_sweep(sizes=DEFAULT_SIZES, *, scale_sets=SCALE_SETS, components=POINT_CO
         ``runs`` (calibration runs), ``cold_start``, ``calibration``, ``validation``,
         ``summary`` and ``seconds``.
     """
-    from skyscale.cost.sweepfit import calibrate, summarize
     t_start = time.perf_counter()
     q = QUICK_SETTINGS if quick else {}
     sizes = sorted({int(s) for s in (q.get("sizes") or sizes)})

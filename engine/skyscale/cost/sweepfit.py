@@ -13,6 +13,7 @@ import numpy as np
 from skyscale.cost import model as cost
 from skyscale.cost import planner
 from skyscale.core.calibration import DEFAULT_CALIBRATION
+from skyscale.core.scales import ScaleSet
 from skyscale.cost.calibration import fit_nonnegative, fit_power_law
 
 __all__ = ["calibrate", "summarize", "step_ffts", "one_thread"]
@@ -29,7 +30,6 @@ def one_thread(cal):
 
 
 def _run_radii(run):
-    from skyscale.core.scales import ScaleSet
     return list(ScaleSet(run["scales"]).support_radii)
 
 

@@ -16,6 +16,7 @@ import warnings
 from dataclasses import dataclass
 
 from skyscale.core.threads import usable_cores
+from skyscale.core.warmup import warm_up
 
 __all__ = ["WORKER_MALLOC", "ClusterInfo", "size_local_cluster", "plane_threads",
            "cube_client"]
@@ -178,7 +179,6 @@ def cube_client(client=None, scheduler=None, *, threads=None, workers=None, time
     ValueError
         If the scheduler at ``scheduler`` does not answer within ``timeout``.
     """
-    from skyscale.core.warmup import warm_up
     if client is not None:
         client.run(warm_up)          # each worker loads the kernels once, not per plane
         yield client, _info(client, "client", threads)

@@ -27,6 +27,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from skyscale.core.beam import fit_beam
+from skyscale.cost.planner import plan_run
 from skyscale.cube.cluster import cube_client
 from skyscale.cube.fits import CubeOutput, check_psf_cube, open_cube
 from skyscale.cube.record import RECORD_NAME, RunRecord
@@ -132,7 +133,6 @@ def _choose_scales(merged, cube, psf, cell):
 
 def _plane_memory(merged, cubef, psff, scales_px):
     """Predicted peak memory of one plane's run (the cost model) and the memory free."""
-    from skyscale.cost.planner import plan_run
     try:
         plan = plan_run(cubef.plane_shape, psff.plane_shape, scales_px,
                         max_components=merged["max_components"], threads=merged["threads"] or 1)

@@ -16,7 +16,10 @@ from collections import deque
 
 import numpy as np
 
+from skyscale.core.driver import deconvolve
 from skyscale.cube.cluster import plane_threads
+from skyscale.io.report import build_report
+from skyscale.job.files import deconvolve_options
 
 __all__ = ["plane_task", "stream_planes", "finite_reason"]
 
@@ -48,9 +51,6 @@ def plane_task(index, dirty, psf, params, cell, scales_px, mask, beam):
         ``model``, ``residual``, ``restored`` (float32 planes) and ``summary`` (the
         plane's stop reason, residual statistics, per-scale flux, timings, warnings).
     """
-    from skyscale.core.driver import deconvolve
-    from skyscale.job.files import deconvolve_options
-    from skyscale.io.report import build_report
     t0 = time.perf_counter()
     threads = plane_threads(params["threads"])
     opts = deconvolve_options(dict(params, threads=threads), psf, cell, scales_px, mask, beam)

@@ -19,7 +19,7 @@ from skyscale.core.option_table import algorithm_options
 from skyscale.core.psf import check_psf
 from skyscale.core.scales import ScaleSet
 from skyscale.core.validate import InputError, mask_nonfinite
-from skyscale.cost.planner import check_fits_memory, plan_run
+from skyscale.cost.planner import check_fits_memory, max_affordable_scales, plan_run
 from skyscale.io.atomic import incomplete_marker
 from skyscale.io.components import component_fields, component_rows
 from skyscale.io.fits import (check_same_grid, provenance_history, read_image, write_image,
@@ -286,7 +286,6 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
             raise InputError(f"{labels['scales']}: {exc}") from None
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            from skyscale.cost.planner import max_affordable_scales
             afford = max_affordable_scales(data.shape, psf.data, scales_px,
                                            max_components=merged["max_components"],
                                            threads=merged["threads"])
