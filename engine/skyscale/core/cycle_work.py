@@ -69,7 +69,6 @@ class CycleWork:
         else:
             self.allowed_t = np.ascontiguousarray(allowed[:, self.tys, self.txs])
             self.guard_t = guard_px[self.tys, self.txs]
-        self.psf_convolver, self.smoother = engine._tools(self.shape)
         engine.bank.make([(k, k) for k in range(engine.n_scales)], self.shape)
         self._gather()
         self.pending = []                                 # (k, ys, xs, flux) since last FFT
@@ -166,7 +165,8 @@ class CycleWork:
                          np.concatenate([p[2] for p in parts]),
                          np.concatenate([np.full(len(p[3]), p[0], np.int64) for p in parts]),
                          np.concatenate([p[3] for p in parts]))
-        full = self.psf_convolver.transform(step)
+        psf_convolver, smoother = e._tools(self.shape)    # made at the first FFT update
+        full = psf_convolver.transform(step)
         ny, nx = self.shape
         if self._scratch is None:
             self._scratch = np.empty_like(self.sub)
@@ -176,7 +176,7 @@ class CycleWork:
         if peak > guard:
             return None
         self.sub, self._scratch = self._scratch, self.sub
-        self.smoother(self.sub, out=self.planes)
+        smoother(self.sub, out=self.planes)
         self._gather()
         self.pending = []
         self.fft_updates += 1

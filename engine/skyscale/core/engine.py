@@ -29,7 +29,7 @@ import numpy as np
 from skyscale.core.threads import thread_limit
 from skyscale.core.validate import (NUMBER_RULES, InputError, as_image, check_number,
                                     resolve_dtype)
-from skyscale.core.fft import Convolver, MultiConvolver, get_backend
+from skyscale.core.fft import Convolver, MultiConvolver, convolution_grid, get_backend
 from skyscale.core.kernels import scale_loop, stamp_components
 from skyscale.core.cycle_work import CycleWork
 from skyscale.core.levels import allowed_peak, scale_levels
@@ -315,10 +315,12 @@ class Engine:
 
     def _fft_update_cost(self, shape):
         """FFT work units (``S log2 S``) of one update of a box of ``shape``."""
-        conv, smooth = self._tools(shape)
-        n_fin = sum(1 for k in self.kernels if k.size > 1)
-        smoothing = (1 + n_fin) * fft_work(smooth.fshape) if n_fin else 0.0
-        return 2 * fft_work(conv.fshape) + smoothing
+        finite = [k for k in self.kernels if k.size > 1]
+        smoothing = 0.0
+        if finite:
+            widest = max(k.shape for k in finite)
+            smoothing = (1 + len(finite)) * fft_work(convolution_grid(widest, shape))
+        return 2 * fft_work(convolution_grid(self.psf.shape, shape)) + smoothing
 
     def smooth(self, residual):
         """Residual smoothed by every scale kernel: ``(n_scales, ny, nx)``."""
