@@ -31,6 +31,7 @@ from skyscale.core.validate import (NUMBER_RULES, InputError, as_image, check_nu
                                     resolve_dtype)
 from skyscale.core.fft import Convolver, MultiConvolver, convolution_grid, get_backend
 from skyscale.core.kernels import scale_loop, stamp_components
+from skyscale.core.kernels.tracked import masked_peak
 from skyscale.core.cycle_work import CycleWork
 from skyscale.core.levels import allowed_peak, scale_levels
 from skyscale.core.noise import scale_noise
@@ -359,8 +360,7 @@ class Engine:
 
     @staticmethod
     def _peaks(planes, allowed):
-        return np.array([float(np.max(np.abs(p), where=a, initial=0.0))
-                         for p, a in zip(planes, allowed)])
+        return np.array([masked_peak(p, a) for p, a in zip(planes, allowed)])
 
     def measure(self, residual, mask=None, noise_region=None, previous=None, planes=None,
                 smallest_only=False):
