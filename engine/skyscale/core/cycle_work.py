@@ -18,8 +18,8 @@ import time
 import numpy as np
 
 from skyscale.core.kernels import stamp_components
-from skyscale.core.kernels.tracked import (direct_subtract, masked_peak, pixel_runs,
-                                          tracked_peaks)
+from skyscale.core.kernels.tracked import (direct_subtract, direct_subtract_rows,
+                                          masked_peak, pixel_runs, tracked_peaks)
 
 __all__ = ["CycleWork"]
 
@@ -140,12 +140,11 @@ class CycleWork:
         if peak > guard:
             return None
         planes = self.planes_t
-        for j in range(e.n_scales):
-            if j == d:
-                planes[j][:] = first
-            else:
-                direct_subtract(planes[j], self.tys, self.txs, ys, xs, flux,
-                                e.pair_beam(j, k, self.shape), runs=self.runs)
+        rows = [j for j in range(e.n_scales) if j != d]
+        direct_subtract_rows(planes, rows, self.tys, self.txs, ys, xs, flux,
+                             [e.pair_beam(j, k, self.shape) for j in rows], runs=self.runs)
+        if d is not None:
+            planes[d][:] = first
         if d is None:
             self.resid_t = first
         else:
