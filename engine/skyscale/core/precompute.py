@@ -88,8 +88,9 @@ def pair_beams(psf, kernels, image_shape, backend, pairs, *, dtype=np.float32, c
         return kern_f[i]
 
     out = {}
+    spec = np.empty_like(psf_f)           # one buffer for every pair's product
     for j, k in pairs:
-        spec = psf_f * factor(j)
+        np.multiply(psf_f, factor(j), out=spec)
         spec *= factor(k)
         full = backend.irfft2(spec, fshape)
         s = 2 * rmax + radii[j] + radii[k]
