@@ -20,7 +20,7 @@ def band(nchan=16, lo=1.0e9, hi=2.0e9):
     return np.linspace(lo, hi, nchan)
 
 
-def uv_cells(n_points=1500, r_min=2.0, r_max=28.0, seed=5):
+def uv_cells(n_points=2000, r_min=0.7, r_max=28.0, seed=5):
     """Random uv points (cells of the PSF grid at the reference frequency)."""
     rng = np.random.default_rng(seed)
     r = np.sqrt(rng.uniform(r_min ** 2, r_max ** 2, n_points))

@@ -33,9 +33,12 @@ from skyscale.wideband.spectral import (DEFAULT_INDEX_SNR, INDEX_METHODS, spectr
 from skyscale.wideband import taylor
 from skyscale.wideband.taylor import MAX_TERMS, channel_model, taylor_offsets, taylor_sums
 
-__all__ = ["deconvolve_wideband"]
+__all__ = ["deconvolve_wideband", "coefficient_residuals", "RESTORING_BEAMS"]
 
 logger = logging.getLogger(__name__)
+
+#: Restoring beams by name: fitted to the band-averaged PSF, or to the lowest frequency's.
+RESTORING_BEAMS = ("band", "lowest")
 
 #: A major cycle may raise the term-0 peak in the mask by this fraction (rounding).
 PEAK_TOLERANCE = 1e-4
@@ -117,8 +120,11 @@ def deconvolve_wideband(dirty, psf, freqs, *, terms=2, scales=DEFAULTS.scales,
         The spectral index as the power law fitted across the band to the Taylor
         polynomial (default), or as the ratio of the terms
         (`skyscale.wideband.spectral`).
-    beam : Beam, optional
-        Restoring beam; default fitted to the band-averaged PSF ``B_0``.
+    beam : Beam or {'band', 'lowest'}
+        Restoring beam: ``'band'`` (the default) fits the band-averaged PSF ``B_0``;
+        ``'lowest'`` fits the lowest frequency's PSF, the resolution at which every
+        channel constrains the spectrum (the spectral maps are then steadier where the
+        emission is extended); or a `Beam`.
     restore_images : bool
         Make the restored images and spectral maps; default True.
     threads : int, optional
@@ -173,6 +179,10 @@ def deconvolve_wideband(dirty, psf, freqs, *, terms=2, scales=DEFAULTS.scales,
         check_number(locals()[name], name, **NUMBER_RULES[name])
     index_snr = check_number(index_snr, "index_snr", low=0.0)
     check_choice(index_method, "index_method", INDEX_METHODS)
+    if isinstance(beam, str):
+        check_choice(beam, "beam", RESTORING_BEAMS)
+    elif beam is not None and not hasattr(beam, "major"):
+        raise InputError(f"beam is {beam!r}; give a skyscale.Beam, 'band' or 'lowest'")
     dt = resolve_dtype(dtype)
     weights = taylor.channel_weights(cube, channel_weights)
     nu0 = float(reference_frequency) if reference_frequency is not None else \
@@ -199,6 +209,8 @@ def deconvolve_wideband(dirty, psf, freqs, *, terms=2, scales=DEFAULTS.scales,
     moments = taylor_sums(beams, weights, offsets, 2 * terms - 1)
     dirty_terms = taylor_sums(cube, weights, offsets, terms)
     if terms == 1:
+        if isinstance(beam, str):
+            beam = fit_beam(moments[0] if beam == "band" else beams[int(np.argmin(freqs))])
         single = deconvolve(dirty_terms[0].astype(dt), moments[0].astype(dt), scales=scales,
                             mask=mask, threshold=threshold, noise_threshold=noise_threshold,
                             loop_gain=loop_gain, size_penalty=size_penalty,
@@ -227,7 +239,7 @@ def deconvolve_wideband(dirty, psf, freqs, *, terms=2, scales=DEFAULTS.scales,
     result.index_snr = float(index_snr)
     result.timings["precompute"] = engine.precompute_seconds
     if restore_images:
-        _restore(result, moments, beam, index_snr, index_method)
+        _restore(result, moments, beams, beam, index_snr, index_method)
     result.timings["total"] = time.perf_counter() - t_start
     return result
 
@@ -343,9 +355,14 @@ def coefficient_residuals(residuals, moments):
     return np.einsum("tq,qyx->tyx", hinv, residuals.astype(np.float64))
 
 
-def _restore(result, moments, beam, index_snr, index_method):
+def _restore(result, moments, channel_psfs, beam, index_snr, index_method):
     """Restored term images, the spectral maps and their blanking level."""
-    result.beam = beam if beam is not None else fit_beam(moments[0])
+    if beam is None or (isinstance(beam, str) and beam == "band"):
+        result.beam = fit_beam(moments[0])
+    elif isinstance(beam, str) and beam == "lowest":
+        result.beam = fit_beam(channel_psfs[int(np.argmin(result.frequencies))])
+    else:
+        result.beam = beam
     coeff = coefficient_residuals(result.residuals, moments)
     result.restored = np.stack([restore(result.terms[t], coeff[t].astype(np.float32),
                                         result.beam)
