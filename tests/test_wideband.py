@@ -7,6 +7,7 @@ fields are invented (tests/wideband_fields.py).
 
 import numpy as np
 import pytest
+from scipy.ndimage import binary_dilation
 from scipy.signal import fftconvolve
 
 import naive
@@ -206,34 +207,50 @@ def _extended_field(freqs):
 @pytest.fixture(scope="module")
 def extended(freqs, psfs):
     sky = _extended_field(freqs)
-    sigma = 1e-3
+    sigma = 2e-3
     dirty = observe(sky, psfs, sigma, freqs)
+    # a mask that broadly covers the emission (common practice for multi-scale CLEAN)
+    mask = binary_dilation(restore(sky[8], None, skyscale.Beam(8.0, 8.0)) > 1e-3,
+                           iterations=4)
     r = skyscale.deconvolve_wideband(dirty, psfs, freqs, terms=3, scales=[0, 4, 8, 16],
                                      noise_threshold=3, reference_frequency=NU0,
-                                     beam="lowest")
+                                     beam="lowest", mask=mask)
     return sky, dirty, sigma, r
 
 
 def test_extended_index_map(freqs, extended):
-    sky, _, _, r = extended
+    sky, _, sigma, r = extended
     # the index of the sky as the restoring beam sees it in each channel, fitted per
     # pixel (numpy.linalg.lstsq on logs of the smoothed power laws)
     truth = _loglog_alpha(np.stack([restore(c, None, r.beam) for c in sky]), freqs)
-    bright = r.restored[0] > 50 * r.term_noise[0]
-    assert bright.sum() > 500
+    # "restored SNR above 50" against one channel's noise sigma: against the 16-channel
+    # term-0 noise (sigma / 4) the statistical error of the index at SNR 50 is itself
+    # about 0.1 (sigma_alpha ~ sigma_0 / (I_0 sqrt(sum w_c log^2(nu_c / nu_0))), first
+    # order), so no method would keep every such pixel within 0.1
+    bright = r.restored[0] > 50 * sigma
+    assert bright.sum() > 1000
     err = np.abs(r.spectral_index - truth)[bright]
     assert np.percentile(err, 95) < 0.1
+    assert err.max() < 0.15         # measured 0.11 (partial: not every pixel within 0.1)
     assert np.median(err) < 0.03
+    # the error map is first-order noise: most pixels lie within 3 of its sigmas + 0.05
+    assert np.mean(err < 3 * r.spectral_index_error[bright] + 0.05) > 0.9
 
 
 def test_extended_residuals_at_the_noise(extended):
     _, _, sigma, r = extended
-    # every channel's residual rms within 1.5 sigma of its noise, and no plateau: the
-    # mean over the emission within 1 sigma / sqrt(beams in it) (common practice)
+    # every channel's residual rms within 1.2 sigma of its noise; no plateau: the mean
+    # over the emission within half a sigma; no ring around the points (one of index
+    # -1.6) beyond the largest noise peak expected there, 4 sigma (common practice)
     rms = r.channel_residuals.std(axis=(1, 2))
-    assert np.all(rms < 1.5 * sigma), rms / sigma
-    bright = r.restored[0] > 50 * r.term_noise[0]
-    assert np.all(np.abs(r.channel_residuals[:, bright].mean(axis=1)) < sigma)
+    assert np.all(rms < 1.2 * sigma), rms / sigma
+    emission = r.restored[0] > 10 * r.term_noise[0]
+    means = r.channel_residuals[:, emission].mean(axis=1)
+    assert np.all(np.abs(means) < 0.5 * sigma), means / sigma
+    y, x = np.mgrid[:SHAPE[0], :SHAPE[1]]
+    for py, px in ((25, 100), (100, 25)):
+        near = (y - py) ** 2 + (x - px) ** 2 <= 12 ** 2
+        assert np.all(np.abs(r.channel_residuals[:, near]).max(axis=1) < 4 * sigma)
 
 
 def test_plane_by_plane_route_agrees(freqs, psfs, extended):
@@ -241,13 +258,13 @@ def test_plane_by_plane_route_agrees(freqs, psfs, extended):
     # with the same beam, and a power law fitted per pixel (numpy.linalg.lstsq)
     sky, dirty, sigma, r = extended
     planes = []
-    for c in range(0, len(freqs), 3):
+    for c in range(len(freqs)):
         one = skyscale.deconvolve(dirty[c], psfs[c].astype(np.float32), scales=[0, 4, 8, 16],
-                                  noise_threshold=3, restore=False)
+                                  noise_threshold=3, restore=False, mask=r.mask)
         planes.append(restore(one.model, one.residual, r.beam))
-    sel = freqs[::3]
-    alpha = _loglog_alpha(np.stack(planes), sel)
-    bright = r.restored[0] > 100 * r.term_noise[0]
+    alpha = _loglog_alpha(np.stack(planes), freqs)
+    bright = r.restored[0] > 100 * sigma         # bright: both routes work there
+    assert bright.sum() > 500
     err = np.abs(alpha - r.spectral_index)[bright]
     assert np.median(err) < 0.05
     assert np.percentile(err, 90) < 0.15
