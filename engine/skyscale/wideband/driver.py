@@ -33,7 +33,8 @@ from skyscale.wideband.spectral import (DEFAULT_INDEX_SNR, INDEX_METHODS, spectr
 from skyscale.wideband import taylor
 from skyscale.wideband.taylor import MAX_TERMS, channel_model, taylor_offsets, taylor_sums
 
-__all__ = ["deconvolve_wideband", "coefficient_residuals", "RESTORING_BEAMS"]
+__all__ = ["deconvolve_wideband", "coefficient_residuals", "equivalent_multiple",
+           "RESTORING_BEAMS"]
 
 logger = logging.getLogger(__name__)
 
@@ -104,7 +105,9 @@ def deconvolve_wideband(dirty, psf, freqs, *, terms=2, scales=DEFAULTS.scales,
         Stop when every scale's equivalent term-0 peak in the mask is at or below this,
         Jy/beam; default 0.
     noise_threshold : float, optional
-        Stop each scale at this multiple of its own term-0 noise; default off.
+        Stop each scale where noise alone is as unlikely as at this multiple of its own
+        term-0 noise for one term (`equivalent_multiple`: 3 becomes 3.44 for two terms
+        and 3.76 for three); default off.
     channel_weights : (nchan,) array_like or {'noise', 'equal'}, optional
         Channel weights; default ``'equal'``; ``'noise'`` takes the inverse variance
         of each dirty image (`skyscale.wideband.taylor.channel_weights`).
@@ -154,8 +157,10 @@ def deconvolve_wideband(dirty, psf, freqs, *, terms=2, scales=DEFAULTS.scales,
     ``a = H_k^{-1} r``, which lowers the misfit by ``r^T H_k^{-1} r``.  Minor cycles
     (`skyscale.wideband.joint_cycle`) choose scale and pixel by that decrease, take every
     term's amplitude from the inverse Hessian and subtract every term's cross-term beams;
-    each major cycle recomputes every channel's residual ``dirty_c - PSF_c (*) model_c``
-    in the image plane and forms the Taylor residuals again ([1]_).
+    each major cycle recomputes every term's residual from scratch in the image plane,
+    ``I^D_t - sum_q B_{t+q} (*) I_q``, which equals the Taylor sums of the channels'
+    residuals ``dirty_c - PSF_c (*) model_c`` (linear sums, [1]_); those are computed
+    from each channel's PSF at the end (``result.channel_residuals``).
 
     The spectral index and curvature come from the restored term images
     (`skyscale.wideband.spectral`).  The Taylor terms are a least-squares polynomial
@@ -244,20 +249,43 @@ def deconvolve_wideband(dirty, psf, freqs, *, terms=2, scales=DEFAULTS.scales,
     return result
 
 
+def equivalent_multiple(noise_threshold, n):
+    """The multiple of the term-0 noise at which the equivalent peak of ``n`` terms is
+    as rarely reached by noise alone as ``|R_0|`` is at ``noise_threshold``.
+
+    With noise correlated like the PSF (natural weighting) the Taylor residuals of one
+    scale have the Hessian as their covariance, so ``e^2 / sigma_0^2 = H_00 r^T H^-1 r /
+    sigma_0^2`` is chi-square with ``n`` degrees of freedom where ``(R_0 / sigma_0)^2``
+    has one; the level keeps the false-alarm probability of each pixel
+    (`scipy.stats.chi2`).  None stays None.
+    """
+    if noise_threshold is None or n == 1:
+        return noise_threshold
+    from scipy.stats import chi2
+    p = chi2.sf(float(noise_threshold) ** 2, 1)
+    return float(np.sqrt(chi2.isf(p, n)))
+
+
 def _run(engine, cube, channel_psfs, weights, offsets, dirty_terms, mask, threshold,
          noise_threshold, extended_depth, cycle_depth, max_components, max_major_cycles,
          callback):
-    """Major cycles: joint minor cycles, then every channel's residual exactly."""
+    """Major cycles: joint minor cycles, then every term's residual from scratch.
+
+    Each major cycle recomputes ``R_t = I^D_t - sum_q B_{t+q} (*) I_q`` with the spectral
+    PSFs, which is ``sum_c w_c x_c^t (dirty_c - PSF_c (*) model_c)`` exactly (the sums
+    are linear) at ``2 n`` transforms instead of two per channel; every channel's own
+    residual is computed from its PSF at the end."""
     n = engine.n_terms
     terms = np.zeros((n,) + engine.image_shape)
     residuals = dirty_terms.copy()
-    channel_res = np.asarray(cube, dtype=np.float64)
     t_minor = t_major = 0.0
+
+    multiple = equivalent_multiple(noise_threshold, n)
 
     def measure(residuals):
         planes = engine.smooth(residuals)
         noise, _ = engine.noise(planes, mask)
-        levels = scale_levels(noise, threshold=threshold, noise_threshold=noise_threshold,
+        levels = scale_levels(noise, threshold=threshold, noise_threshold=multiple,
                               extended_depth=extended_depth, masked=mask is not None,
                               scales=engine.scales.pixels)
         peaks = engine.peaks(engine.responses(planes), engine.allowed(mask))
@@ -293,11 +321,7 @@ def _run(engine, cube, channel_psfs, weights, offsets, dirty_terms, mask, thresh
                 stop = {"empty": "empty_mask", "max_components": "max_components",
                         "threshold": level_stop}.get(mc.stop_reason, "no_progress")
                 break
-            new_channels = np.empty_like(channel_res)
-            for c, conv in enumerate(channel_psfs):
-                model_c = channel_model(mc.terms, offsets[c])
-                new_channels[c] = cube[c] - conv(model_c, out_dtype=np.float64)
-            new_residuals = taylor_sums(new_channels, weights, offsets, n)
+            new_residuals = engine.subtract(dirty_terms.copy(), mc.terms)
             t_major += time.perf_counter() - t2
             new = measure(new_residuals)
             highest = allowed_peak(peak, levels, engine.scales.has_delta)
@@ -308,7 +332,7 @@ def _run(engine, cube, channel_psfs, weights, offsets, dirty_terms, mask, thresh
                 notes.append(msg)
                 stop = "diverging"
                 break
-            terms, residuals, channel_res = mc.terms, new_residuals, new_channels
+            terms, residuals = mc.terms, new_residuals
             planes, noise, levels, peaks, new_peak, rms = new
             tables.append(mc.components)
             n_comp += mc.components.size
@@ -334,6 +358,11 @@ def _run(engine, cube, channel_psfs, weights, offsets, dirty_terms, mask, thresh
                 stop = level_stop
     except KeyboardInterrupt:
         stop = "interrupted"
+    t2 = time.perf_counter()
+    channel_res = np.empty(cube.shape, dtype=np.float64)
+    for c, conv in enumerate(channel_psfs):
+        channel_res[c] = cube[c] - conv(channel_model(terms, offsets[c]), out_dtype=np.float64)
+    t_major += time.perf_counter() - t2
     components = np.concatenate(tables) if tables else np.zeros(0, WIDEBAND_COMPONENT_DTYPE)
     return WidebandResult(
         terms=terms.astype(np.float32), residuals=residuals.astype(np.float32),

@@ -51,6 +51,9 @@ WIDEBAND_COMPONENT_DTYPE = np.dtype([("y", np.int32), ("x", np.int32),
 
 #: Rounding allowed on the term-0 peak before a sub-loop counts as raising it.
 PEAK_RISE_TOLERANCE = 1e-5
+#: A scale cleaned to a floor above its stop level is chosen again only when its peak
+#: is back above this multiple of the floor (as `skyscale.core.engine.REENTRY`).
+REENTRY = 1.05
 #: Halvings of a sub-loop that raised the peak before its scale is given up this cycle.
 MAX_HALVINGS = 3
 
@@ -242,10 +245,13 @@ class WidebandEngine:
         rows = np.nonzero(allowed.any(axis=(0, 2)))[0]
         cols = np.nonzero(allowed.any(axis=(0, 1)))[0]
         extent = (int(rows[-1] - rows[0] + 1), int(cols[-1] - cols[0] + 1))
+        entry = floors.copy()          # a scale cleaned to its floor re-enters above this
+        reentry = np.where(floors > levels, REENTRY * floors, floors)
         while True:
-            live = (peaks > floors) & ~blocked
+            entry = np.where(peaks <= floors, np.maximum(entry, reentry), entry)
+            live = (peaks > entry) & ~blocked
             if not live.any():
-                reason = ("peak_rose" if ((peaks > floors) & blocked).any() else
+                reason = ("peak_rose" if ((peaks > entry) & blocked).any() else
                           "threshold" if np.all(peaks <= levels) else "depth")
                 break
             if added >= budget:
