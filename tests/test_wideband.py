@@ -283,3 +283,14 @@ def test_bad_input_is_refused(freqs, psfs):
         skyscale.deconvolve_wideband(dirty, psfs, freqs, channel_weights=np.ones(3))
     with pytest.raises(InputError, match="distinct"):
         skyscale.deconvolve_wideband(dirty[:2], psfs[:2], [1e9, 1e9], terms=2)
+
+
+def test_same_result_at_any_thread_count(freqs, psfs):
+    sky = np.zeros((len(freqs),) + SHAPE)
+    sky[:, 64, 60] = power_law(freqs, 1.0, -0.7, NU0)
+    sky += 0.3 * disk(SHAPE, 40, 80, 8)[None]
+    dirty = observe(sky, psfs, 1e-3, freqs)
+    runs = [skyscale.deconvolve_wideband(dirty, psfs, freqs, terms=2, scales=[0, 4, 8],
+                                         noise_threshold=3, threads=t) for t in (1, 2)]
+    np.testing.assert_array_equal(runs[0].components, runs[1].components)
+    np.testing.assert_array_equal(runs[0].terms, runs[1].terms)
