@@ -36,11 +36,11 @@ def test_wideband_command_writes_every_output(tmp_path):
     code = main(["--quiet", "wideband", str(tmp_path / "cube.fits"), str(tmp_path / "psf.fits"),
                  "--out", str(out), "--terms", "2", "--scales", "0,4"])
     assert code == 0
-    for name in ("term0-model.fits", "term1-model.fits", "term0-restored.fits",
-                 "term1-residual.fits", "spectral-index.fits", "spectral-index-error.fits",
+    for name in ("model_t0.fits", "model_t1.fits", "restored_t0.fits",
+                 "residual_t1.fits", "spectral-index.fits", "spectral-index-error.fits",
                  "components.csv", "wideband-report.json", "spectral-index.png"):
         assert (out / name).is_file(), name
-    head = fits.getheader(out / "term1-restored.fits")
+    head = fits.getheader(out / "restored_t1.fits")
     assert head["TAYLTERM"] == 1
     assert head["TAYLNU0"] == pytest.approx(np.mean(freqs), rel=1e-12)   # equal weights
     assert "BMAJ" in head and head["BUNIT"] == "Jy/beam"

@@ -20,9 +20,9 @@ __all__ = ["OUTPUT_FILES", "write_wideband", "wideband_report", "plot_spectral_i
 
 #: What each output file holds (``{t}`` is the Taylor term's index).
 OUTPUT_FILES = {
-    "term{t}-model.fits": "Taylor term t of the model, Jy/pixel",
-    "term{t}-residual.fits": "Taylor-weighted residual image t, Jy/beam",
-    "term{t}-restored.fits": "restored Taylor coefficient t, Jy/beam",
+    "model_t{t}.fits": "Taylor term t of the model, Jy/pixel",
+    "residual_t{t}.fits": "Taylor-weighted residual image t, Jy/beam",
+    "restored_t{t}.fits": "restored Taylor coefficient t, Jy/beam",
     "spectral-index.fits": "spectral index, NaN where blanked (2 or more terms)",
     "spectral-index-error.fits": "its first-order error, NaN where blanked",
     "curvature.fits": "spectral curvature, NaN where blanked (3 terms)",
@@ -130,10 +130,10 @@ def write_wideband(result, out, *, like=None, overwrite=False, figure=True):
                                    extra=_extra(result, term), overwrite=overwrite))
 
     for t in range(result.n_terms):
-        image(f"term{t}-model.fits", result.terms[t], "Jy/pixel", t, with_beam=False)
-        image(f"term{t}-residual.fits", result.residuals[t], "Jy/beam", t)
+        image(f"model_t{t}.fits", result.terms[t], "Jy/pixel", t, with_beam=False)
+        image(f"residual_t{t}.fits", result.residuals[t], "Jy/beam", t)
         if result.restored is not None:
-            image(f"term{t}-restored.fits", result.restored[t], "Jy/beam", t)
+            image(f"restored_t{t}.fits", result.restored[t], "Jy/beam", t)
     if result.spectral_index is not None:
         image("spectral-index.fits", result.spectral_index.astype(np.float32), "")
         image("spectral-index-error.fits", result.spectral_index_error.astype(np.float32), "")
