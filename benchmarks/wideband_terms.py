@@ -8,8 +8,9 @@ an index gradient, a disk and two points of other indices, a broad mask) is clea
 3 sigma with `skyscale.deconvolve_wideband` at ``terms`` 1 (the single-term engine on
 the band-averaged images), 2 and 3.  Each is run once to compile, then ``--repeat``
 times; the best CPU and wall times are kept with the run's split (precompute, minor,
-major cycles), its components and sub-loops, and the peak memory (tracemalloc).  The
-target (issue 22): two terms within 2.5 x one term.
+major cycles), its components and sub-loops, and the peak memory (tracemalloc) beside
+`skyscale.wideband.memory.wideband_memory`'s prediction.  The target (issue 22): two
+terms within 2.5 x one term.
 """
 
 import argparse
@@ -27,6 +28,8 @@ from scipy.ndimage import binary_dilation  # noqa: E402
 
 import skyscale  # noqa: E402
 from skyscale.core.beam import restore  # noqa: E402
+from skyscale.core.scales import ScaleSet  # noqa: E402
+from skyscale.wideband.memory import wideband_memory  # noqa: E402
 from wideband_fields import band, disk, gaussian_blob, observe, psf_cube  # noqa: E402
 
 NU0 = 1.5e9
@@ -63,7 +66,17 @@ def one_run(dirty, psfs, freqs, mask, terms, scales, threads):
     cpu, wall = time.process_time() - c0, time.perf_counter() - w0
     peak = tracemalloc.get_traced_memory()[1]
     tracemalloc.stop()
+    predicted = None
+    if terms > 1:
+        radii = ScaleSet(scales, image_shape=dirty.shape[1:]).support_radii
+        rows, cols = np.nonzero(mask)
+        r = max(radii)
+        box = (min(rows.max() + r + 1, dirty.shape[1]) - max(rows.min() - r, 0),
+               min(cols.max() + r + 1, dirty.shape[2]) - max(cols.min() - r, 0))
+        predicted = wideband_memory(dirty.shape[1:], psfs.shape[1:], len(freqs), terms,
+                                    radii, box_shape=box)["total"] / 2 ** 20
     return {"terms": terms, "cpu_s": cpu, "wall_s": wall, "peak_mib": peak / 2 ** 20,
+            "predicted_mib": predicted,
             "components": int(r.components.size), "sub_loops": int(r.sub_loops),
             "major_cycles": len(r.history) - 1, "stop": r.stop_reason,
             "timings": {k: float(v) for k, v in r.timings.items()
@@ -88,8 +101,9 @@ def main(argv=None):
         rows.append(best)
         print(f"terms {terms}: {best['cpu_s']:.2f} s CPU, {best['wall_s']:.2f} s wall, "
               f"{best['components']} components, {best['sub_loops']} sub-loops, "
-              f"{best['major_cycles']} major cycles, peak {best['peak_mib']:.0f} MiB, "
-              f"stop {best['stop']}")
+              f"{best['major_cycles']} major cycles, peak {best['peak_mib']:.0f} MiB"
+              + (f" (predicted {best['predicted_mib']:.0f} MiB)" if best["predicted_mib"]
+                 else "") + f", stop {best['stop']}")
     base = rows[0]["cpu_s"]
     for row in rows[1:]:
         print(f"terms {row['terms']} / terms 1: {row['cpu_s'] / base:.2f} x CPU "

@@ -146,6 +146,7 @@ def joint_loop(values, ys, xs, beams, *, hinv, h00, gain, level, max_iter):
     updated in place.  Returns ``(idx, amps, peak)``.
     """
     n = values.shape[0]
+    beams = np.moveaxis(beams, -1, 0)          # (by, bx, 2n - 1) -> (2n - 1, by, bx)
     cy, cx = (beams.shape[1] - 1) // 2, (beams.shape[2] - 1) // 2
     idx, amps = [], []
     while True:

@@ -87,9 +87,9 @@ def test_joint_kernels_match_numpy_twins():
         np.testing.assert_allclose(joint_response(planes, hinv, h[0, 0]),
                                    naive.joint_response(planes, hinv, h[0, 0]), rtol=1e-12)
         ys, xs = np.nonzero(rng.random((20, 24)) > 0.5)
-        beams = rng.normal(scale=0.05, size=(2 * n - 1, 39, 47))
+        beams = rng.normal(scale=0.05, size=(39, 47, 2 * n - 1))
         for t in range(2 * n - 1):
-            beams[t, 19, 23] = h[min(t, n - 1), max(0, t - n + 1)]
+            beams[19, 23, t] = h[min(t, n - 1), max(0, t - n + 1)]
         v1 = np.ascontiguousarray(planes[:, ys, xs])
         v2 = v1.copy()
         got = joint_loop(v1, ys, xs, beams, hinv=hinv, h00=h[0, 0], gain=0.2, level=0.5,
@@ -104,8 +104,8 @@ def test_joint_kernels_match_numpy_twins():
 
 def test_joint_loop_edge_cases():
     # no pixels; a single pixel (one component of amplitude gain * H^-1 r there)
-    beams = np.zeros((3, 1, 1))
-    beams[:, 0, 0] = [1.0, 0.0, 0.1]
+    beams = np.zeros((1, 1, 3))
+    beams[0, 0, :] = [1.0, 0.0, 0.1]
     hinv = np.linalg.inv(np.array([[1.0, 0.0], [0.0, 0.1]]))
     idx, amps, _ = joint_loop(np.zeros((2, 0)), np.zeros(0, int), np.zeros(0, int), beams,
                               hinv=hinv, h00=1.0, gain=0.1, level=0.0, max_iter=5)

@@ -231,8 +231,7 @@ def deconvolve_wideband(dirty, psf, freqs, *, terms=2, scales=DEFAULTS.scales,
                             threads=threads, fft=fft)
     with thread_limit(threads):
         backend = get_backend(fft, threads=threads)
-        channel_psfs = [Convolver(b, shape, backend=backend) for b in beams]
-        result = _run(engine, cube, channel_psfs, weights, offsets, dirty_terms, mask,
+        result = _run(engine, cube, beams, backend, weights, offsets, dirty_terms, mask,
                       float(threshold), noise_threshold, float(extended_depth),
                       float(cycle_depth), int(max_components), int(max_major_cycles),
                       callback)
@@ -266,7 +265,7 @@ def equivalent_multiple(noise_threshold, n):
     return float(np.sqrt(chi2.isf(p, n)))
 
 
-def _run(engine, cube, channel_psfs, weights, offsets, dirty_terms, mask, threshold,
+def _run(engine, cube, beams, backend, weights, offsets, dirty_terms, mask, threshold,
          noise_threshold, extended_depth, cycle_depth, max_components, max_major_cycles,
          callback):
     """Major cycles: joint minor cycles, then every term's residual from scratch.
@@ -360,8 +359,10 @@ def _run(engine, cube, channel_psfs, weights, offsets, dirty_terms, mask, thresh
         stop = "interrupted"
     t2 = time.perf_counter()
     channel_res = np.empty(cube.shape, dtype=np.float64)
-    for c, conv in enumerate(channel_psfs):
+    for c, psf in enumerate(beams):       # one channel's convolver at a time
+        conv = Convolver(psf, engine.image_shape, backend=backend)
         channel_res[c] = cube[c] - conv(channel_model(terms, offsets[c]), out_dtype=np.float64)
+        del conv
     t_major += time.perf_counter() - t2
     components = np.concatenate(tables) if tables else np.zeros(0, WIDEBAND_COMPONENT_DTYPE)
     return WidebandResult(
@@ -384,12 +385,12 @@ def coefficient_residuals(residuals, moments):
     return np.einsum("tq,qyx->tyx", hinv, residuals.astype(np.float64))
 
 
-def _restore(result, moments, channel_psfs, beam, index_snr, index_method):
+def _restore(result, moments, beams, beam, index_snr, index_method):
     """Restored term images, the spectral maps and their blanking level."""
     if beam is None or (isinstance(beam, str) and beam == "band"):
         result.beam = fit_beam(moments[0])
     elif isinstance(beam, str) and beam == "lowest":
-        result.beam = fit_beam(channel_psfs[int(np.argmin(result.frequencies))])
+        result.beam = fit_beam(beams[int(np.argmin(result.frequencies))])
     else:
         result.beam = beam
     coeff = coefficient_residuals(result.residuals, moments)

@@ -122,6 +122,7 @@ class WidebandEngine:
                                            precision=np.float64)
             self.moment_convolvers = [Convolver(m, self.image_shape, backend=self.fft)
                                       for m in self.moments]
+        self._interleaved = {}
         py, px = self.moments.shape[1:]
         self.cross_peaks = np.array([
             float(np.sum(k * self.moments[0][py // 2 - k.shape[0] // 2:
@@ -169,6 +170,17 @@ class WidebandEngine:
     def peaks(responses, allowed):
         return np.array([float(np.max(r, where=a, initial=0.0))
                          for r, a in zip(responses, allowed)])
+
+    def cross_beams(self, k, extent):
+        """Scale ``k``'s cross-term beams for a box of ``extent``, interleaved
+        ``(by, bx, 2 n - 1)`` for `skyscale.wideband.kernels.joint_loop` (kept)."""
+        parts = [bank.get(k, k, extent) for bank in self.banks]
+        key = (k, parts[0].shape)
+        if key not in self._interleaved:
+            self._interleaved = {kk: v for kk, v in self._interleaved.items()
+                                 if kk[1] == parts[0].shape}    # a larger box remade them
+            self._interleaved[key] = np.ascontiguousarray(np.stack(parts, axis=-1))
+        return self._interleaved[key]
 
     def subtract(self, residuals, increments):
         """``R_t -= sum_q B_{t+q} (*) dI_q`` in place, exactly (image plane, by FFT)."""
@@ -262,7 +274,7 @@ class WidebandEngine:
             ta = time.perf_counter()
             ys, xs = np.nonzero(allowed[k] & (responses[k] > level))
             values = np.ascontiguousarray(planes[k][:, ys, xs])
-            beams = np.stack([bank.get(k, k, extent) for bank in self.banks])
+            beams = self.cross_beams(k, extent)
             idx, amps, _ = joint_loop(values, ys, xs, beams, hinv=self.inverses[k],
                                       h00=self.h00[k], gain=self.loop_gain, level=level,
                                       max_iter=budget - added)

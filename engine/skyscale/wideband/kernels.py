@@ -76,7 +76,7 @@ def _update_scan(values, ys, xs, beams, cy, cx, amps, yc, xc, hinv, h00, lo, hi)
             for t in range(n):
                 acc = 0.0
                 for q in range(n):
-                    acc += amps[q] * beams[t + q, by, bx]
+                    acc += amps[q] * beams[by, bx, t + q]
                 values[t, j] -= acc
         s = 0.0
         for t in range(n):
@@ -156,9 +156,11 @@ def joint_loop(values, ys, xs, beams, *, hinv, h00, gain, level, max_iter):
         Each term's smoothed residual at the pixels; updated in place.
     ys, xs : (m,) int ndarray
         The pixels' positions.
-    beams : (2 n - 1, by, bx) ndarray
-        The scale's cross-term beams, zero offset at ``((by - 1) // 2, (bx - 1) // 2)``,
-        covering every offset between two of the pixels.
+    beams : (by, bx, 2 n - 1) ndarray
+        The scale's cross-term beams ``B_m (*) s_k (*) s_k`` interleaved (the last axis
+        is ``m``, so one subtraction reads them from one cache line), zero offset at
+        ``((by - 1) // 2, (bx - 1) // 2)``, covering every offset between two of the
+        pixels.
     hinv : (n, n) ndarray
     h00 : float
     gain, level : float
@@ -177,11 +179,11 @@ def joint_loop(values, ys, xs, beams, *, hinv, h00, gain, level, max_iter):
         raise ValueError("values must be a C-contiguous float64 array (it is updated in place)")
     n, m = values.shape
     beams = np.ascontiguousarray(beams)
-    if beams.shape[0] != 2 * n - 1:
-        raise ValueError(f"beams has {beams.shape[0]} planes, expected {2 * n - 1}")
+    if beams.ndim != 3 or beams.shape[2] != 2 * n - 1:
+        raise ValueError(f"beams has shape {beams.shape}, expected (by, bx, {2 * n - 1})")
     ys = np.ascontiguousarray(ys, dtype=np.int64)
     xs = np.ascontiguousarray(xs, dtype=np.int64)
-    cy, cx = (beams.shape[1] - 1) // 2, (beams.shape[2] - 1) // 2
+    cy, cx = (beams.shape[0] - 1) // 2, (beams.shape[1] - 1) // 2
     if m and (np.ptp(ys) > cy or np.ptp(xs) > cx):
         raise ValueError("beams do not cover every offset between the pixels")
     max_iter = int(max(max_iter, 0))
