@@ -70,9 +70,9 @@ def one_run(dirty, psfs, freqs, mask, terms, scales, threads):
     if terms > 1:
         radii = ScaleSet(scales, image_shape=dirty.shape[1:]).support_radii
         rows, cols = np.nonzero(mask)
-        r = max(radii)
-        box = (min(rows.max() + r + 1, dirty.shape[1]) - max(rows.min() - r, 0),
-               min(cols.max() + r + 1, dirty.shape[2]) - max(cols.min() - r, 0))
+        grow = max(radii)
+        box = (min(rows.max() + grow + 1, dirty.shape[1]) - max(rows.min() - grow, 0),
+               min(cols.max() + grow + 1, dirty.shape[2]) - max(cols.min() - grow, 0))
         predicted = wideband_memory(dirty.shape[1:], psfs.shape[1:], len(freqs), terms,
                                     radii, box_shape=box)["total"] / 2 ** 20
     return {"terms": terms, "cpu_s": cpu, "wall_s": wall, "peak_mib": peak / 2 ** 20,

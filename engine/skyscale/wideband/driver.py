@@ -320,7 +320,7 @@ def _run(engine, cube, beams, backend, weights, offsets, dirty_terms, mask, thre
                 stop = {"empty": "empty_mask", "max_components": "max_components",
                         "threshold": level_stop}.get(mc.stop_reason, "no_progress")
                 break
-            new_residuals = engine.subtract(dirty_terms.copy(), mc.terms)
+            new_residuals = engine.subtract(dirty_terms.copy(), mc.terms, full_precision=True)
             t_major += time.perf_counter() - t2
             new = measure(new_residuals)
             highest = allowed_peak(peak, levels, engine.scales.has_delta)

@@ -118,10 +118,16 @@ class WidebandEngine:
             self.response_scale = self.weights / np.sqrt(self.h00)
             self.banks = [BeamBank(m, self.kernels, self.image_shape, self.fft, dtype=self.dtype)
                           for m in self.moments]
+            # the cycle's updates and smoothing in the working precision (their own size
+            # bounds the rounding, as in the single-term engine); the major cycle's
+            # residuals from scratch in float64
             self.smoother = MultiConvolver(self.kernels, self.image_shape, backend=self.fft,
-                                           precision=np.float64)
+                                           precision=self.dtype)
             self.moment_convolvers = [Convolver(m, self.image_shape, backend=self.fft)
                                       for m in self.moments]
+            self.update_convolvers = self.moment_convolvers if self.dtype == np.float64 else [
+                Convolver(m, self.image_shape, backend=self.fft, precision=self.dtype)
+                for m in self.moments]
         self._interleaved = {}
         py, px = self.moments.shape[1:]
         self.cross_peaks = np.array([
@@ -182,18 +188,22 @@ class WidebandEngine:
             self._interleaved[key] = np.ascontiguousarray(np.stack(parts, axis=-1))
         return self._interleaved[key]
 
-    def subtract(self, residuals, increments):
-        """``R_t -= sum_q B_{t+q} (*) dI_q`` in place, exactly (image plane, by FFT)."""
-        conv = self.moment_convolvers[0]
+    def subtract(self, residuals, increments, *, full_precision=False):
+        """``R_t -= sum_q B_{t+q} (*) dI_q`` in place, exactly (image plane, by FFT):
+        in the working precision (a minor cycle's update), or in float64 with
+        ``full_precision`` (a major cycle's residuals from scratch)."""
+        convs = self.moment_convolvers if full_precision else self.update_convolvers
+        conv = convs[0]
         ny, nx = self.image_shape
-        spectra = [None if not np.any(d) else self.fft.rfft2(d, conv.fshape)
+        spectra = [None if not np.any(d) else
+                   self.fft.rfft2(d.astype(conv.precision, copy=False), conv.fshape)
                    for d in increments]
         for t in range(self.n_terms):
             acc = None
             for q, s in enumerate(spectra):
                 if s is None:
                     continue
-                term = s * self.moment_convolvers[t + q].spectrum
+                term = s * convs[t + q].spectrum
                 acc = term if acc is None else acc + term
             if acc is not None:
                 residuals[t] -= self.fft.irfft2(acc, conv.fshape)[:ny, :nx]

@@ -74,9 +74,10 @@ def wideband_memory(image_shape, psf_shape, nchan, terms, radii, *, box_shape=No
         "psf_cube": nchan * psf_px * 8,
         "spectral_psfs": moments * psf_px * 8,
         "dirty_terms": terms * pix * 8,
-        # transforms of the spectral PSFs (complex128) and of the finite scale kernels
-        "psf_transforms": moments * conv * 16,
-        "kernel_transforms": n_finite * smooth * 16,
+        # transforms of the spectral PSFs (complex128 for the major cycles, and in the
+        # working precision for the updates) and of the finite scale kernels
+        "psf_transforms": moments * conv * (16 + 2 * itemsize),
+        "kernel_transforms": n_finite * smooth * 2 * itemsize,
         # per spectral PSF: its transform and the kernels' on the beam grid (complex64
         # for float32 beams), and one beam per scale at the box's offsets
         "beam_transforms": moments * (1 + n_finite) * bank_grid * 2 * itemsize,
