@@ -294,3 +294,23 @@ def test_same_result_at_any_thread_count(freqs, psfs):
                                          noise_threshold=3, threads=t) for t in (1, 2)]
     np.testing.assert_array_equal(runs[0].components, runs[1].components)
     np.testing.assert_array_equal(runs[0].terms, runs[1].terms)
+
+
+def test_memory_account_covers_the_measured_peak(freqs, psfs):
+    # tracemalloc (the standard library) against skyscale.wideband.memory's account
+    import tracemalloc
+    from skyscale.wideband.memory import wideband_memory
+    sky = np.zeros((len(freqs),) + SHAPE)
+    sky[:, 64, 60] = power_law(freqs, 1.0, -0.7, NU0)
+    dirty = observe(sky, psfs, 1e-3, freqs)
+    psf32 = psfs.astype(np.float32)
+    skyscale.deconvolve_wideband(dirty, psf32, freqs, terms=2, scales=[0, 4], max_components=5)
+    for terms in (2, 3):
+        tracemalloc.start()
+        skyscale.deconvolve_wideband(dirty, psf32, freqs, terms=terms, scales=[0, 4, 8],
+                                     noise_threshold=3)
+        peak = tracemalloc.get_traced_memory()[1]
+        tracemalloc.stop()
+        radii = ScaleSet([0, 4, 8], image_shape=SHAPE).support_radii
+        predicted = wideband_memory(SHAPE, psfs.shape[1:], len(freqs), terms, radii)["total"]
+        assert peak <= predicted <= 1.6 * peak, (peak / 2**20, predicted / 2**20)

@@ -4,7 +4,8 @@ Modules, one job each: `taylor` (channel weights, Taylor-weighted images and spe
 PSFs), `hessian` (each scale's Hessian and its inverse), `kernels` (the compiled joint
 sub-loop), `joint_cycle` (the `WidebandEngine` and its minor cycle), `driver`
 (`deconvolve_wideband`, major cycles from the channels), `spectral` (spectral index and
-curvature maps), `result`, `outputs` (files and the figure).
+curvature maps), `result`, `memory` (the run's memory, predicted), `outputs` (files and
+the figure).
 
 References
 ----------
@@ -18,4 +19,5 @@ __all__, __getattr__, __dir__ = lazy_exports(__name__, {
     "joint_cycle": ["WidebandEngine", "WIDEBAND_COMPONENT_DTYPE"],
     "result": ["WidebandResult"],
     "spectral": ["spectral_maps"],
+    "memory": ["wideband_memory"],
 })
