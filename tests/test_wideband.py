@@ -281,6 +281,8 @@ def test_bad_input_is_refused(freqs, psfs):
         skyscale.deconvolve_wideband(dirty, psfs[:3], freqs)
     with pytest.raises(InputError, match="channel_weights"):
         skyscale.deconvolve_wideband(dirty, psfs, freqs, channel_weights=np.ones(3))
+    with pytest.raises(InputError, match="mask"):
+        skyscale.deconvolve_wideband(dirty, psfs, freqs, mask="auto")
     with pytest.raises(InputError, match="distinct"):
         skyscale.deconvolve_wideband(dirty[:2], psfs[:2], [1e9, 1e9], terms=2)
 

@@ -196,6 +196,10 @@ def deconvolve_wideband(dirty, psf, freqs, *, terms=2, scales=DEFAULTS.scales,
         raise InputError(f"reference_frequency is {reference_frequency}; give a "
                          "positive frequency in Hz")
     offsets = taylor_offsets(freqs, nu0)
+    if isinstance(mask, str) or (mask is not None and not hasattr(mask, "shape")
+                                 and not isinstance(mask, (list, tuple))):
+        raise InputError(f"mask is {mask!r}; deconvolve_wideband takes a boolean array (the "
+                         "automatic mask is not available for wideband runs yet) or None")
     if mask is not None:
         mask = np.asarray(mask, dtype=bool)
         if mask.shape != shape:
