@@ -12,6 +12,8 @@ flow:
 - `skyscale.cost`: the cost model, the planner, the sweep and its calibration;
 - `skyscale.cube` and `skyscale.visibility`: cubes on Dask distributed, and major
   cycles against the visibilities;
+- `skyscale.wideband`: multi-term (Taylor) multi-scale deconvolution of many channels
+  and spectral-index maps;
 - `skyscale.cli`: the command line and the file-level job runner.
 
 Names and module paths of release 0.1 that moved still work for one release, with a
@@ -46,6 +48,8 @@ from skyscale.io.fits import read_image, write_image  # noqa: E402
 from skyscale.masks.emission import EmissionMask  # noqa: E402
 from skyscale.visibility.file import read_visibilities, write_visibilities  # noqa: E402
 from skyscale.visibility.operator import VisibilityOperator  # noqa: E402
+from skyscale.wideband.driver import deconvolve_wideband  # noqa: E402
+from skyscale.wideband.result import WidebandResult  # noqa: E402
 
 _moved.install()
 _logging.getLogger(__name__).addHandler(_logging.NullHandler())
@@ -66,6 +70,8 @@ __all__ = [
     # entry points
     "read_image", "write_image", "plan_run", "suggest_scales", "check_scales", "run_files",
     "deconvolve_cube", "read_visibilities", "write_visibilities",
+    # wideband continuum: multi-term (Taylor) deconvolution of many channels
+    "deconvolve_wideband", "WidebandResult",
 ]
 
 

@@ -241,6 +241,12 @@ class Convolver:
         wrapped, self.fshape = _wrapped_kernel(kernel, self.image_shape)
         self._kf = self.backend.rfft2(wrapped, self.fshape).astype(_complex(self.precision))
 
+    @property
+    def spectrum(self):
+        """The kernel's transform on the grid ``fshape`` (for callers that add several
+        convolutions in the transform domain; read it, do not change it)."""
+        return self._kf
+
     def transform(self, image):
         """The convolution on the whole grid (``image`` at its origin): the first
         ``image.shape`` of it is the result; nothing is copied."""
