@@ -220,3 +220,19 @@ def test_grow_mask_matches_scipy_binary_dilation(radius):
                                   border_value=0) if radius else mask
     np.testing.assert_array_equal(grow_mask(mask, radius), ref)
     assert not grow_mask(np.zeros((8, 9), bool), 3).any()
+
+
+@pytest.mark.parametrize("radius,step", [(0, 1), (1, 2), (4, 3), (15, 4)])
+def test_sampled_dilations_match_scipy_binary_dilation(radius, step):
+    # Reference library: scipy.ndimage.binary_dilation with a (2r + 1) square, read at
+    # the noise's subsample [::step, ::step].
+    from scipy import ndimage
+
+    from skyscale.core.noise import SampledDilations
+    rng = np.random.default_rng(10 + radius)
+    mask = rng.random((77, 101)) < 0.01
+    mask[0, 0] = mask[76, 100] = True
+    ref = ndimage.binary_dilation(mask, np.ones((2 * radius + 1, 2 * radius + 1)),
+                                  border_value=0) if radius else mask
+    np.testing.assert_array_equal(SampledDilations(mask, step).at(radius),
+                                  ref[::step, ::step])

@@ -29,6 +29,7 @@ from scipy import ndimage
 __all__ = ["MAD_TO_SIGMA", "CLIP_SIGMA", "DETECTION_SAMPLES", "DETECTION_ROUNDS",
            "MIN_OUTSIDE_PIXELS",
            "robust_noise", "emission_free_noise", "detection_noise", "scale_noise", "grow_mask",
+           "sample_step", "SampledDilations",
            "keep_outside_noise"]
 
 #: Factor turning the median absolute deviation into a Gaussian sigma [1]_.
@@ -131,7 +132,46 @@ def grow_mask(mask, radius):
 
 
 
-def emission_free_noise(image, *, exclude=None, region=None, border=0, passes=3):
+def sample_step(shape):
+    """The stride of the regular subsample the noise reads (at most `MAX_SAMPLES`)."""
+    return max(int(np.ceil(np.sqrt(shape[0] * shape[1] / MAX_SAMPLES))), 1)
+
+
+class SampledDilations:
+    """Square dilations of one mask by several radii, read at the noise's subsample.
+
+    ``at(r)`` equals ``grow_mask(mask, r)[::step, ::step]``, from one summed-area
+    table of the mask (Crow 1984) rather than a running maximum over the whole image
+    for every radius.
+
+    References
+    ----------
+    .. [1] Crow, F. C. 1984, Computer Graphics 18(3), 207 (summed-area tables).
+    """
+
+    def __init__(self, mask, step):
+        mask = np.asarray(mask, dtype=bool)
+        self.shape = mask.shape
+        self.step = int(step)
+        self.table = np.zeros((mask.shape[0] + 1, mask.shape[1] + 1), dtype=np.int32)
+        np.cumsum(mask, axis=0, dtype=np.int32, out=self.table[1:, 1:])
+        np.cumsum(self.table[1:, 1:], axis=1, out=self.table[1:, 1:])
+
+    def at(self, radius):
+        """Pixels of the subsample within ``radius`` (a square) of the mask."""
+        r = max(int(radius), 0)
+        (ny, nx), t = self.shape, self.table
+        ys = np.arange(0, ny, self.step)
+        xs = np.arange(0, nx, self.step)
+        y0, y1 = np.clip(ys - r, 0, ny), np.clip(ys + r + 1, 0, ny)
+        x0, x1 = np.clip(xs - r, 0, nx), np.clip(xs + r + 1, 0, nx)
+        count = (t[np.ix_(y1, x1)] - t[np.ix_(y0, x1)] - t[np.ix_(y1, x0)]
+                 + t[np.ix_(y0, x0)])
+        return count > 0
+
+
+def emission_free_noise(image, *, exclude=None, region=None, border=0, passes=3,
+                        exclude_sampled=None):
     """Noise of an image measured where it holds no emission, and where that was.
 
     Parameters
@@ -148,6 +188,9 @@ def emission_free_noise(image, *, exclude=None, region=None, border=0, passes=3)
     passes : int
         Passes of the clipping: after each, pixels beyond ``CLIP_SIGMA`` robust sigmas
         from the median are left out, so unmasked emission cannot inflate the estimate.
+    exclude_sampled : bool ndarray, optional
+        ``exclude`` already read at the subsample ``[::step, ::step]`` this function
+        takes (`sample_step`); given instead of ``exclude``.
 
     Returns
     -------
@@ -162,12 +205,14 @@ def emission_free_noise(image, *, exclude=None, region=None, border=0, passes=3)
     """
     img = np.asarray(image)
     ny, nx = img.shape
-    step = max(int(np.ceil(np.sqrt(ny * nx / MAX_SAMPLES))), 1)
+    step = sample_step((ny, nx))
     sub = img[::step, ::step]                # the subsample first: masks at its size
     keep = np.ones(sub.shape, dtype=bool) if region is None else \
         np.array(np.asarray(region, dtype=bool)[::step, ::step])
     if exclude is not None:
         keep &= ~np.asarray(exclude, dtype=bool)[::step, ::step]
+    if exclude_sampled is not None:
+        keep &= ~exclude_sampled
     if border > 0:
         b = min(int(border), (ny - 1) // 2, (nx - 1) // 2)
         lo = -(-b // step)                   # first kept row (column): index * step >= b
@@ -222,7 +267,7 @@ def _trusted(region, shape, radius):
     return region & ~grow_mask(~region, radius)
 
 
-def _high_passed(planes, ratios, cross, radii, exclude, region):
+def _high_passed(planes, ratios, cross, radii, exclude_sampled, region):
     """The smallest scale's noise from the residual minus its largest-scale smoothing.
 
     For noise correlated like the PSF its deviation is
@@ -237,7 +282,7 @@ def _high_passed(planes, ratios, cross, radii, exclude, region):
     if factor <= 0.05:
         return 0.0, 0
     r = int(radii[big])
-    hp, used = emission_free_noise(planes[0] - planes[big], exclude=exclude,
+    hp, used = emission_free_noise(planes[0] - planes[big], exclude_sampled=exclude_sampled,
                                    region=_trusted(region, planes.shape[1:], r), border=r)
     return hp / np.sqrt(factor), used
 
@@ -317,14 +362,15 @@ def scale_noise(planes, radii, *, mask=None, region=None, ratios=None, previous=
         free = ~mask if region is None else (region & ~mask)
         if not free.any():
             mask = None           # the mask leaves nothing trustworthy out: no emission known
-    step = max(int(np.ceil(np.sqrt(ny * nx / MAX_SAMPLES))), 1)
+    step = sample_step((ny, nx))
+    dilations = None if mask is None else SampledDilations(mask, step)
 
     def measure(k):               # each scale on its own: the scales share out the threads
         r = int(radii[k])
         trusted = _trusted(region, (ny, nx), r)
-        grown = None if mask is None else grow_mask(mask, r)
-        return emission_free_noise(planes[k], exclude=grown, region=trusted, border=r), \
-            trusted
+        grown = None if mask is None else dilations.at(r)
+        return emission_free_noise(planes[k], exclude_sampled=grown, region=trusted,
+                                   border=r), trusted
 
     workers = min(int(sfft.get_workers()), n)    # the run's threads (`thread_limit`)
     if workers > 1:
@@ -354,7 +400,7 @@ def scale_noise(planes, radii, *, mask=None, region=None, ratios=None, previous=
             if mask is not None:
                 how[0] += f" (the mask leaves only {left} pixels outside it)"
         hp, hp_used = _high_passed(planes, ratios, cross, radii,
-                                   None if whole else grow_mask(mask, int(radii[-1])), region)
+                                   None if whole else dilations.at(int(radii[-1])), region)
         if hp_used >= MIN_NOISE_PIXELS and 0 < hp and hp * CONTAMINATED < sigma[0]:
             sigma[0], used[0] = hp, hp_used
             how[0] = ("high-passed (residual minus its largest-scale smoothing) over the "
