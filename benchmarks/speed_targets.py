@@ -138,7 +138,7 @@ def row_update(threads, log, n=1024, repeats=5):
             t0 = time.perf_counter()
             work.apply_fft(3, ys, xs, flux, np.inf)
             times.append(time.perf_counter() - t0)
-        conv, smooth = work.psf_convolver, work.smoother
+        conv, smooth = e._tools(work.shape)
         a = np.zeros(conv.fshape, np.float32)
         b = np.zeros(smooth.fshape, np.float32)
         n_fin = sum(1 for k in e.kernels if k.size > 1)

@@ -8,6 +8,7 @@ The compiled kernels must give the same components and the same values.
 import numpy as np
 
 __all__ = ["scale_loop", "smooth_all", "stamp_components", "convolve_centred", "view_loop",
+           "joint_response", "joint_loop",
            "direct_subtract", "tracked_peaks", "masked_peak"]
 
 
@@ -126,3 +127,41 @@ def view_loop(values, ys, xs, scale, levels, patches, pair, *, gain, budget, wei
         index.append(k)
         flux.append(f)
     return np.array(index, dtype=np.int64), np.array(flux)
+
+
+def joint_response(planes, hinv, h00):
+    """Equivalent peak ``sqrt(H_00 r^T H^-1 r)`` at every pixel, whole-array numpy
+    (twin of skyscale.wideband.kernels.joint_response)."""
+    quad = np.einsum("tyx,tq,qyx->yx", planes, hinv, planes)
+    return np.sqrt(np.maximum(h00 * quad, 0.0))
+
+
+def joint_loop(values, ys, xs, beams, *, hinv, h00, gain, level, max_iter):
+    """Joint Hogbom iterations of all Taylor terms, whole-array numpy (twin of
+    skyscale.wideband.kernels.joint_loop).
+
+    At each step: the largest ``H_00 r^T H^-1 r`` (first index on ties), stop at or
+    below ``level**2`` or after ``max_iter``, amplitudes ``gain * H^-1 r``, subtract
+    ``sum_q a_q beams[t + q]`` at every pixel's offset from every term.  ``values`` is
+    updated in place.  Returns ``(idx, amps, peak)``.
+    """
+    n = values.shape[0]
+    beams = np.moveaxis(beams, -1, 0)          # (by, bx, 2n - 1) -> (2n - 1, by, bx)
+    cy, cx = (beams.shape[1] - 1) // 2, (beams.shape[2] - 1) // 2
+    idx, amps = [], []
+    while True:
+        quad = h00 * np.einsum("tj,tq,qj->j", values, hinv, values)
+        if quad.size == 0:
+            peak = 0.0
+            break
+        j = int(np.argmax(quad))
+        peak = float(np.sqrt(max(quad[j], 0.0)))
+        if quad[j] <= level * level or len(idx) >= max_iter:
+            break
+        a = gain * hinv @ values[:, j]
+        idx.append(j)
+        amps.append(a)
+        by, bx = cy + ys - ys[j], cx + xs - xs[j]
+        for t in range(n):
+            values[t] -= sum(a[q] * beams[t + q][by, bx] for q in range(n))
+    return (np.array(idx, dtype=np.int64), np.array(amps).reshape(-1, n), peak)

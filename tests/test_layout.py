@@ -15,7 +15,7 @@ import pytest
 import skyscale
 
 SUBPACKAGES = ["core", "core.kernels", "io", "io.figures", "masks", "advisor", "cost",
-               "job", "cube", "visibility", "cli"]
+               "job", "cube", "visibility", "wideband", "cli"]
 
 
 def _modules_of(package):

@@ -13,8 +13,8 @@ from scipy.signal import fftconvolve
 from skyscale import Engine, deconvolve
 from skyscale.core import engine as engine_module
 from skyscale.core.fft import convolve_centred
-from skyscale.core.kernels.tracked import (direct_subtract, masked_peak, pixel_runs,
-                                           tracked_peaks)
+from skyscale.core.kernels.tracked import (direct_subtract, direct_subtract_rows, masked_peak,
+                                           pixel_runs, tracked_peaks)
 from skyscale.core.precompute import beam_peaks, pair_beams
 from skyscale.core.fft import get_backend
 from tests import naive
@@ -43,6 +43,33 @@ def test_direct_subtract_matches_its_twin(dtype, parallel):
     direct_subtract(fast, tys, txs, tys[pick], txs[pick], flux, beam, parallel=parallel)
     naive.direct_subtract(slow, tys, txs, tys[pick], txs[pick], flux, beam)
     np.testing.assert_array_equal(fast, slow)
+
+
+@pytest.mark.parametrize("parallel", [False, True])
+def test_direct_subtract_rows_matches_its_twin_row_by_row(parallel):
+    # Reference: the numpy twin (tests/naive.py) applied to each row with its own beam;
+    # rows not named are left as they were.
+    rng = np.random.default_rng(7)
+    tys, txs = _tracked(rng)
+    beams = [rng.normal(size=(2 * N - 1, 2 * N - 1)).astype(np.float32) for _ in range(3)]
+    pick = rng.integers(0, tys.size, 5)
+    flux = rng.normal(size=5)
+    values = rng.normal(size=(4, tys.size)).astype(np.float32)
+    fast, slow = values.copy(), values.copy()
+    rows = [3, 0, 2]
+    direct_subtract_rows(fast, rows, tys, txs, tys[pick], txs[pick], flux, beams,
+                         parallel=parallel)
+    for row, beam in zip(rows, beams):
+        naive.direct_subtract(slow[row], tys, txs, tys[pick], txs[pick], flux, beam)
+    np.testing.assert_array_equal(fast, slow)
+
+
+def test_direct_subtract_rows_refuses_beams_of_two_shapes():
+    tys, txs = np.nonzero(np.ones((3, 3), bool))
+    values = np.zeros((2, 9), np.float32)
+    beams = [np.zeros((5, 5), np.float32), np.zeros((7, 7), np.float32)]
+    with pytest.raises(ValueError, match="one shape and dtype"):
+        direct_subtract_rows(values, [0, 1], tys, txs, [1], [1], [1.0], beams)
 
 
 def test_direct_subtract_is_the_same_at_any_thread_count():
@@ -193,3 +220,19 @@ def test_grow_mask_matches_scipy_binary_dilation(radius):
                                   border_value=0) if radius else mask
     np.testing.assert_array_equal(grow_mask(mask, radius), ref)
     assert not grow_mask(np.zeros((8, 9), bool), 3).any()
+
+
+@pytest.mark.parametrize("radius,step", [(0, 1), (1, 2), (4, 3), (15, 4)])
+def test_sampled_dilations_match_scipy_binary_dilation(radius, step):
+    # Reference library: scipy.ndimage.binary_dilation with a (2r + 1) square, read at
+    # the noise's subsample [::step, ::step].
+    from scipy import ndimage
+
+    from skyscale.core.noise import SampledDilations
+    rng = np.random.default_rng(10 + radius)
+    mask = rng.random((77, 101)) < 0.01
+    mask[0, 0] = mask[76, 100] = True
+    ref = ndimage.binary_dilation(mask, np.ones((2 * radius + 1, 2 * radius + 1)),
+                                  border_value=0) if radius else mask
+    np.testing.assert_array_equal(SampledDilations(mask, step).at(radius),
+                                  ref[::step, ::step])

@@ -13,6 +13,8 @@ flow:
 - `skyscale.job`: the file-level job (FITS in, outputs out), `run_files`;
 - `skyscale.cube` and `skyscale.visibility`: cubes on Dask distributed, and major
   cycles against the visibilities;
+- `skyscale.wideband`: multi-term (Taylor) multi-scale deconvolution of many channels
+  and spectral-index maps;
 - `skyscale.cli`: the command line.
 
 Importing skyscale loads nothing of it and changes nothing in the environment: each
@@ -54,10 +56,14 @@ _names, _name_getattr, _name_dir = _lazy_exports(__name__, {
     "job.files": ["run_files"],
     "cube.run": ["deconvolve_cube"],
     "visibility.file": ["read_visibilities", "write_visibilities"],
+    # wideband continuum: multi-term (Taylor) deconvolution of many channels
+    "wideband.driver": ["deconvolve_wideband"],
+    "wideband.result": ["WidebandResult"],
 })
 __all__ = ["__version__", *_names]
 
-_SUBPACKAGES = ("core", "io", "masks", "advisor", "cost", "job", "cube", "visibility", "cli")
+_SUBPACKAGES = ("core", "io", "masks", "advisor", "cost", "job", "cube", "visibility",
+                "wideband", "cli")
 
 
 def __getattr__(name):

@@ -209,6 +209,9 @@ def build_parser():
     _add_visibility_options(demo, demo=True)
     demo.set_defaults(func=cmd_demo)
 
+    from skyscale.cli.wideband_command import add_wideband_parser
+    add_wideband_parser(sub)
+
     suggest = sub.add_parser("suggest", help="propose a scale set and explain why")
     suggest.add_argument("dirty", help="dirty image, FITS")
     suggest.add_argument("psf", help="PSF, FITS")

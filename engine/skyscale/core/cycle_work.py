@@ -18,8 +18,8 @@ import time
 import numpy as np
 
 from skyscale.core.kernels import stamp_components
-from skyscale.core.kernels.tracked import (direct_subtract, masked_peak, pixel_runs,
-                                          tracked_peaks)
+from skyscale.core.kernels.tracked import (direct_subtract, direct_subtract_rows,
+                                          masked_peak, pixel_runs, tracked_peaks)
 
 __all__ = ["CycleWork"]
 
@@ -69,7 +69,6 @@ class CycleWork:
         else:
             self.allowed_t = np.ascontiguousarray(allowed[:, self.tys, self.txs])
             self.guard_t = guard_px[self.tys, self.txs]
-        self.psf_convolver, self.smoother = engine._tools(self.shape)
         engine.bank.make([(k, k) for k in range(engine.n_scales)], self.shape)
         self._gather()
         self.pending = []                                 # (k, ys, xs, flux) since last FFT
@@ -141,12 +140,11 @@ class CycleWork:
         if peak > guard:
             return None
         planes = self.planes_t
-        for j in range(e.n_scales):
-            if j == d:
-                planes[j][:] = first
-            else:
-                direct_subtract(planes[j], self.tys, self.txs, ys, xs, flux,
-                                e.pair_beam(j, k, self.shape), runs=self.runs)
+        rows = [j for j in range(e.n_scales) if j != d]
+        direct_subtract_rows(planes, rows, self.tys, self.txs, ys, xs, flux,
+                             [e.pair_beam(j, k, self.shape) for j in rows], runs=self.runs)
+        if d is not None:
+            planes[d][:] = first
         if d is None:
             self.resid_t = first
         else:
@@ -166,7 +164,8 @@ class CycleWork:
                          np.concatenate([p[2] for p in parts]),
                          np.concatenate([np.full(len(p[3]), p[0], np.int64) for p in parts]),
                          np.concatenate([p[3] for p in parts]))
-        full = self.psf_convolver.transform(step)
+        psf_convolver, smoother = e._tools(self.shape)    # made at the first FFT update
+        full = psf_convolver.transform(step)
         ny, nx = self.shape
         if self._scratch is None:
             self._scratch = np.empty_like(self.sub)
@@ -176,7 +175,7 @@ class CycleWork:
         if peak > guard:
             return None
         self.sub, self._scratch = self._scratch, self.sub
-        self.smoother(self.sub, out=self.planes)
+        smoother(self.sub, out=self.planes)
         self._gather()
         self.pending = []
         self.fft_updates += 1

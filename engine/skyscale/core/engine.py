@@ -22,15 +22,16 @@ References
 import logging
 import time
 import warnings
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
 from skyscale.core.threads import thread_limit
 from skyscale.core.validate import (NUMBER_RULES, InputError, as_image, check_number,
                                     resolve_dtype)
-from skyscale.core.fft import Convolver, MultiConvolver, get_backend
+from skyscale.core.fft import Convolver, MultiConvolver, convolution_grid, get_backend
 from skyscale.core.kernels import scale_loop, stamp_components
+from skyscale.core.kernels.tracked import masked_peak
 from skyscale.core.cycle_work import CycleWork
 from skyscale.core.levels import allowed_peak, scale_levels
 from skyscale.core.noise import scale_noise
@@ -40,6 +41,7 @@ from skyscale.core.precompute import BeamBank, beam_peaks
 from skyscale.core.psf import check_psf
 from skyscale.core.result import COMPONENT_DTYPE
 from skyscale.core.scales import ScaleSet
+from skyscale.core.windows import measurement_window
 from skyscale.core.defaults import DEFAULTS
 
 __all__ = ["Engine", "MinorCycleResult", "ScaleState"]
@@ -72,6 +74,16 @@ DIRECT_COST_RATIO = 0.1
 
 
 
+def _covers(outer, inner):
+    """Whether window ``outer`` holds window ``inner`` (None: the whole image)."""
+    if outer is None:
+        return True
+    if inner is None:
+        return False
+    return (outer[0] <= inner[0] and inner[1] <= outer[1] and outer[2] <= inner[2]
+            and inner[3] <= outer[3])
+
+
 @dataclass
 class ScaleState:
     """The residual seen by every scale: smoothed planes, their peaks and noise."""
@@ -81,6 +93,9 @@ class ScaleState:
     noise: np.ndarray          #: each scale's noise, measured where there is no emission
     noise_pixels: np.ndarray   #: (subsampled) pixels each noise estimate used
     noise_how: list = None     #: 'measured' or 'scaled' (from the smallest scale) per scale
+    #: (y0, y1, x0, x1) of the part of ``planes`` that was smoothed (zero outside it;
+    #: `skyscale.core.windows.measurement_window`), or None for the whole image
+    window: tuple = None
 
 
 @dataclass
@@ -247,6 +262,7 @@ class Engine:
         self._psf_convolver = None
         self.max_memory = max_memory
         self._box_tools = {}
+        self._window_smoothers = {}
         #: ``B_0k(0)``: the PSF smoothed once by scale k, at its centre.
         py, px = self.psf.shape
         self.cross_peaks = np.array([
@@ -308,10 +324,12 @@ class Engine:
 
     def _fft_update_cost(self, shape):
         """FFT work units (``S log2 S``) of one update of a box of ``shape``."""
-        conv, smooth = self._tools(shape)
-        n_fin = sum(1 for k in self.kernels if k.size > 1)
-        smoothing = (1 + n_fin) * fft_work(smooth.fshape) if n_fin else 0.0
-        return 2 * fft_work(conv.fshape) + smoothing
+        finite = [k for k in self.kernels if k.size > 1]
+        smoothing = 0.0
+        if finite:
+            widest = max(k.shape for k in finite)
+            smoothing = (1 + len(finite)) * fft_work(convolution_grid(widest, shape))
+        return 2 * fft_work(convolution_grid(self.psf.shape, shape)) + smoothing
 
     def smooth(self, residual):
         """Residual smoothed by every scale kernel: ``(n_scales, ny, nx)``."""
@@ -350,34 +368,44 @@ class Engine:
 
     @staticmethod
     def _peaks(planes, allowed):
-        return np.array([float(np.max(np.abs(p), where=a, initial=0.0))
-                         for p, a in zip(planes, allowed)])
+        return np.array([masked_peak(p, a) for p, a in zip(planes, allowed)])
 
     def measure(self, residual, mask=None, noise_region=None, previous=None, planes=None,
-                smallest_only=False):
+                smallest_only=False, planes_window=None):
         """Smooth ``residual`` by every scale; return peaks and noise as a `ScaleState`.
 
         Noise is measured outside ``mask`` (grown by each scale's radius), inside
         ``noise_region`` (where the residual is exact; default everywhere), with
         clipping of what emission is left (`skyscale.core.noise.scale_noise`, which also
         high-passes the residual so that broad emission the mask missed cannot inflate
-        the smallest scale's noise).  ``previous`` (a `ScaleState`) supplies the
-        smallest scale's noise when too little of the image is left to measure it;
-        ``planes``, this residual already smoothed (a new mask, the same residual), saves
-        the smoothing.  ``smallest_only`` measures the smallest scale's noise alone (the
-        same value; the others are NaN), for a caller that renews the mask from it and
-        then measures again.
+        the smallest scale's noise).  A compact mask in a large image is smoothed and
+        measured in a window around it (`skyscale.core.windows.measurement_window`).
+        ``previous`` (a `ScaleState`) supplies the smallest scale's noise when too
+        little of the image is left to measure it; ``planes``, this residual already
+        smoothed over ``planes_window`` (a new mask, the same residual), saves the
+        smoothing when that window covers this mask's.  ``smallest_only`` measures the
+        smallest scale's noise alone (the same value; the others are NaN), for a caller
+        that renews the mask from it and then measures again.
         """
         residual = np.asarray(residual)
+        mask = None if mask is None else np.asarray(mask, dtype=bool)
+        window = self._window(mask)
+        if planes is not None and not _covers(planes_window, window):
+            planes = None
         if planes is None:
+            planes_window = window
             with thread_limit(self.threads):
-                planes = self.smooth(residual)
-        allowed = self.allowed(None if mask is None else np.asarray(mask, dtype=bool))
+                planes = self._smooth_window(residual, window)
+        allowed = self.allowed(mask)
         n = self.n_scales
         pick = [0, n - 1] if smallest_only and n > 2 else list(range(n))
         radii = np.asarray(self.scales.support_radii)[pick]
-        sigma, used, how = scale_noise(planes[pick], radii, mask=mask,
-                                       region=noise_region,
+        cut = (slice(None), slice(None)) if window is None else \
+            (slice(window[0], window[1]), slice(window[2], window[3]))
+        sigma, used, how = scale_noise(planes[(pick,) + cut], radii,
+                                       mask=None if mask is None else mask[cut],
+                                       region=None if noise_region is None
+                                       else np.asarray(noise_region, dtype=bool)[cut],
                                        ratios=np.sqrt(self.beam_peaks)[pick],
                                        cross=self.cross_peaks[pick],
                                        previous=None if previous is None
@@ -386,7 +414,28 @@ class Engine:
             sigma = np.concatenate([sigma[:1], np.full(n - 1, np.nan)])
             used = np.concatenate([used[:1], np.zeros(n - 1, used.dtype)])
             how = how[:1] + ["not measured"] * (n - 1)
-        return ScaleState(planes, self._peaks(planes, allowed), sigma, used, how)
+        return ScaleState(planes, self._peaks(planes, allowed), sigma, used, how,
+                          planes_window)
+
+    def _window(self, mask):
+        """The part of the image a measurement for ``mask`` smooths (None: all)."""
+        return measurement_window(mask, self.image_shape, 2 * max(self.scales.support_radii))
+
+    def _smooth_window(self, residual, window):
+        """`smooth` over ``window`` only (zero elsewhere); the whole image for None."""
+        if window is None:
+            return self.smooth(residual)
+        y0, y1, x0, x1 = window
+        shape = (y1 - y0, x1 - x0)
+        if shape not in self._window_smoothers:
+            self._window_smoothers.clear()        # one window shape at a time
+            self._window_smoothers[shape] = MultiConvolver(
+                self.kernels, shape, backend=self.fft, precision=self.dtype)
+        planes = np.zeros((self.n_scales,) + tuple(self.image_shape), dtype=self.dtype)
+        smoothed = self._window_smoothers[shape](np.asarray(residual[y0:y1, x0:x1]),
+                                                 dtype=self.dtype)
+        planes[:, y0:y1, x0:x1] = smoothed
+        return planes
 
     # --------------------------------------------------------------- the cycle
     def minor_cycle(self, residual, model=None, *, mask=None, threshold=0.0,
@@ -469,6 +518,8 @@ class Engine:
                      cycle_depth, budget, callback, noise_region, state, t0, exact_residual):
         if state is None:
             state = self.measure(residual, mask, noise_region)
+        elif not _covers(state.window, self._window(mask)):    # measured for another mask
+            state = replace(state, planes=self._smooth_window(residual, None), window=None)
         planes = state.planes
         t_smooth = time.perf_counter()
         allowed = self.allowed(mask)

@@ -22,7 +22,7 @@ from skyscale.core.threads import usable_cores
 from skyscale.core.validate import FFT_BACKENDS, check_choice
 
 __all__ = ["FFT_BACKENDS", "ScipyFFT", "NumpyFFT", "FFTWFFT", "get_backend", "fast_shape",
-           "convolve_centred", "Convolver", "MultiConvolver"]
+           "convolution_grid", "convolve_centred", "Convolver", "MultiConvolver"]
 
 logger = logging.getLogger(__name__)
 
@@ -169,34 +169,46 @@ def _complex(precision):
     return np.complex64 if np.dtype(precision) == np.float32 else np.complex128
 
 
-def _wrapped_kernel(kernel, image_shape, fshape=None):
-    """The kernel's offsets that can matter for an image, and the FFT shape they need.
+def convolution_grid(kernel_shape, image_shape):
+    """The FFT grid on which a centred kernel convolves an image without wrap-around.
 
     ``out[q] = sum_p image[p] * kernel[q - p + c]`` only uses offsets ``|q - p| <= n - 1``
     per axis.  With the kernel reaching ``a`` pixels below and ``b`` above its centre
     (cut to ``n - 1``), a circular convolution of length ``L >= n + max(a, b)`` has no
     wrap-around on the image: ``L`` about ``2 n`` for a PSF twice the image's size,
     ``1.5 n`` for one of the image's size, ``n + r`` for a scale kernel of radius ``r``.
-    Returns the kernel wrapped onto that grid (offset 0 at index 0) and the grid's shape;
-    ``fshape`` gives a grid of its own (at least that large, as for several kernels).
+    Each length is rounded up to a fast one (`next_fast_len`).
+    """
+    shape = []
+    for n, k in zip(image_shape, kernel_shape):
+        c = k // 2
+        shape.append(next_fast_len(int(n + max(min(c, n - 1), min(k - 1 - c, n - 1))),
+                                   real=True))
+    return tuple(shape)
+
+
+def _wrapped_kernel(kernel, image_shape, fshape=None):
+    """The kernel's offsets that can matter for an image, wrapped onto its grid.
+
+    Returns the kernel on the grid of `convolution_grid` (or ``fshape``, at least that
+    large, as for several kernels) with offset 0 at index 0, and the grid's shape.
     """
     kernel = np.asarray(kernel, dtype=np.float64)
-    lo, hi, shape = [], [], []
-    for n, k in zip(image_shape, kernel.shape):
-        c = k // 2
-        a = min(c, n - 1)
-        b = min(k - 1 - c, n - 1)
-        lo.append(a)
-        hi.append(b)
-        shape.append(next_fast_len(int(n + max(a, b)), real=True))
-    if fshape is not None:
-        shape = list(fshape)
-    cy, cx = kernel.shape[0] // 2, kernel.shape[1] // 2
-    cut = kernel[cy - lo[0]:cy + hi[0] + 1, cx - lo[1]:cx + hi[1] + 1]
+    shape = convolution_grid(kernel.shape, image_shape) if fshape is None else tuple(fshape)
     wrapped = np.zeros(shape, dtype=np.float64)
-    wrapped[:cut.shape[0], :cut.shape[1]] = cut
-    wrapped = np.roll(wrapped, (-lo[0], -lo[1]), axis=(0, 1))
-    return wrapped, tuple(shape)
+    cy, cx = kernel.shape[0] // 2, kernel.shape[1] // 2
+    # offsets -a..b per axis (a, b cut to n - 1) go to indices -a..b modulo the grid:
+    # four quadrant copies instead of a roll of the whole grid
+    spans = []
+    for n, k, c in zip(image_shape, kernel.shape, (cy, cx)):
+        a, b = min(c, n - 1), min(k - 1 - c, n - 1)
+        spans.append(((c, c + b + 1, 0), (c - a, c, -a)))   # kernel rows -> grid start
+    for ky0, ky1, gy in spans[0]:
+        for kx0, kx1, gx in spans[1]:
+            if ky1 > ky0 and kx1 > kx0:
+                gy0, gx0 = gy % shape[0], gx % shape[1]
+                wrapped[gy0:gy0 + ky1 - ky0, gx0:gx0 + kx1 - kx0] = kernel[ky0:ky1, kx0:kx1]
+    return wrapped, shape
 
 
 class Convolver:
@@ -228,6 +240,12 @@ class Convolver:
         self.precision = np.dtype(precision)
         wrapped, self.fshape = _wrapped_kernel(kernel, self.image_shape)
         self._kf = self.backend.rfft2(wrapped, self.fshape).astype(_complex(self.precision))
+
+    @property
+    def spectrum(self):
+        """The kernel's transform on the grid ``fshape`` (for callers that add several
+        convolutions in the transform domain; read it, do not change it)."""
+        return self._kf
 
     def transform(self, image):
         """The convolution on the whole grid (``image`` at its origin): the first

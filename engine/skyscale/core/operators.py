@@ -18,6 +18,7 @@ from typing import Protocol, runtime_checkable
 import numpy as np
 
 from skyscale.core.validate import InputError, as_image, resolve_dtype
+from skyscale.core.box_convolve import BoxConvolver
 from skyscale.core.fft import Convolver, get_backend
 from skyscale.core.psf import check_psf
 
@@ -64,8 +65,11 @@ class ImagePlaneOperator:
         self.dtype = resolve_dtype(dtype)
         self.dirty = as_image(dirty, "dirty", dtype=self.dtype)
         self.psf = check_psf(psf, self.dirty.shape, dtype=self.dtype)
-        self._conv = Convolver(self.psf, self.dirty.shape, backend=get_backend(fft, threads),
+        backend = get_backend(fft, threads)
+        self._conv = Convolver(self.psf, self.dirty.shape, backend=backend,
                                precision=self.dtype)
+        self._box_conv = BoxConvolver(self.psf, self.dirty.shape, backend=backend,
+                                      precision=self.dtype)
         ny, nx = self.dirty.shape
         py, px = self.psf.shape
         cy, cx = py // 2, px // 2
@@ -102,6 +106,9 @@ class ImagePlaneOperator:
 
     def __call__(self, model):
         model = np.asarray(model, dtype=self.dtype)
+        box = self._box_conv.box_for(model)       # a compact model: a smaller grid
+        if box is not None:
+            return self.dirty - self._box_conv(model, box, out_dtype=self.dtype)
         return self.dirty - self._conv(model, out_dtype=self.dtype)
 
 

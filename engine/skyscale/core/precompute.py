@@ -88,8 +88,9 @@ def pair_beams(psf, kernels, image_shape, backend, pairs, *, dtype=np.float32, c
         return kern_f[i]
 
     out = {}
+    spec = np.empty_like(psf_f)           # one buffer for every pair's product
     for j, k in pairs:
-        spec = psf_f * factor(j)
+        np.multiply(psf_f, factor(j), out=spec)
         spec *= factor(k)
         full = backend.irfft2(spec, fshape)
         s = 2 * rmax + radii[j] + radii[k]
@@ -135,6 +136,12 @@ def beam_peaks(psf, kernels):
 #: grows a little between major cycles reuses the beams already made.
 EXTENT_STEP = 64
 
+#: A box at least this fraction of the image (per axis) gets beams for the whole image
+#: at once: making them for the box and again for the image when the mask grows (as it
+#: mostly does) cost more than the larger beams (their grids' area is at most 1.8 times
+#: the box's).
+WHOLE_FRACTION = 0.75
+
 
 class BeamBank:
     """The scale beams and pair beams, made for the extent the minor cycle needs.
@@ -169,12 +176,15 @@ class BeamBank:
     def _extent_for(self, shape):
         """The extent to make for a box of ``shape``: the current one when it covers
         the box, else at least twice the current (a box that grows over the major
-        cycles remakes the beams a few times at most), rounded up to `EXTENT_STEP` and
-        at most the image."""
+        cycles remakes the beams a few times at most), rounded up to `EXTENT_STEP`, and
+        the image's own from `WHOLE_FRACTION` of it on (such a box mostly grows to the
+        whole image as the mask takes in more emission)."""
         out = []
         for b, n, e in zip(shape, self.image_shape, self.extent):
             if b <= e:
                 out.append(e)
+            elif b >= WHOLE_FRACTION * n:
+                out.append(n)
             else:
                 out.append(min(n, -(-max(int(b), 2 * e) // EXTENT_STEP) * EXTENT_STEP))
         return tuple(out)

@@ -27,8 +27,8 @@ from numba import prange
 
 from skyscale.core.kernels.config import JIT_OPTIONS, PARALLEL_JIT_OPTIONS
 
-__all__ = ["CHUNK", "PARALLEL_MIN_WORK", "direct_subtract", "masked_peak", "pixel_runs",
-           "tracked_peaks"]
+__all__ = ["CHUNK", "PARALLEL_MIN_WORK", "direct_subtract", "direct_subtract_rows",
+           "masked_peak", "pixel_runs", "tracked_peaks"]
 
 #: Tracked pixels per chunk of the peak scan, and runs of pixels per chunk of the
 #: direct update (each pixel's sum runs over the components in order, whatever the
@@ -41,29 +41,35 @@ RUNS_PER_CHUNK = 64
 PARALLEL_MIN_WORK = 200_000
 
 
-def _direct_subtract_py(values, run_y, run_x, run_start, run_len, cys, cxs, cf, beam,
-                        cy, cx):
+def _direct_subtract_py(values, rows, run_y, run_x, run_start, run_len, cys, cxs, cf,
+                        beams, cy, cx):
+    # values (n_values, n); row rows[p] loses the components through beams[p].  The
+    # tasks are (row, chunk of runs) pairs; each pixel's sum runs over the components in
+    # order in float64, whatever the task or thread.
     n_runs = run_y.shape[0]
     m = cys.shape[0]
-    width = beam.shape[1]
-    flat = beam.ravel()
-    acc = np.zeros(values.shape[0], dtype=np.float64)
     n_chunks = (n_runs + RUNS_PER_CHUNK - 1) // RUNS_PER_CHUNK
-    for c in prange(n_chunks):
-        for r in range(c * RUNS_PER_CHUNK, min((c + 1) * RUNS_PER_CHUNK, n_runs)):
-            q0 = run_start[r]
+    for task in prange(rows.shape[0] * n_chunks):
+        p = task // n_chunks
+        c = task - p * n_chunks
+        beam = beams[p]
+        width = beam.shape[1]
+        flat = beam.ravel()
+        row = rows[p]
+        r0 = c * RUNS_PER_CHUNK
+        r1 = min(r0 + RUNS_PER_CHUNK, n_runs)
+        lo = run_start[r0]
+        acc = np.zeros(run_start[r1 - 1] + run_len[r1 - 1] - lo, dtype=np.float64)
+        for r in range(r0, r1):
+            q0 = run_start[r] - lo
             ln = run_len[r]
             for i in range(m):
                 f = cf[i]
                 base = (cy + run_y[r] - cys[i]) * width + cx + run_x[r] - cxs[i]
-                a = acc[q0:q0 + ln]
-                b = flat[base:base + ln]
                 for t in range(ln):
-                    a[t] += f * float(b[t])
-        for r in range(c * RUNS_PER_CHUNK, min((c + 1) * RUNS_PER_CHUNK, n_runs)):
-            q0 = run_start[r]
-            for t in range(run_len[r]):
-                values[q0 + t] = values.dtype.type(float(values[q0 + t]) - acc[q0 + t])
+                    acc[q0 + t] += f * float(flat[base + t])
+        for t in range(acc.shape[0]):
+            values[row, lo + t] = values.dtype.type(float(values[row, lo + t]) - acc[t])
 
 
 _direct_serial = numba.njit(**JIT_OPTIONS)(_direct_subtract_py)
@@ -153,25 +159,62 @@ def direct_subtract(values, tys, txs, cys, cxs, flux, beam, *, runs=None, parall
         For values that cannot be updated in place, coordinates of other lengths or
         not in row-major order, or offsets outside the beam.
     """
-    if not (isinstance(values, np.ndarray) and values.ndim == 1
-            and values.dtype in (np.float32, np.float64) and values.flags.c_contiguous
-            and values.flags.writeable):
+    if not (isinstance(values, np.ndarray) and values.ndim == 1):
         raise ValueError("values is updated in place: pass a writeable C-contiguous 1-D "
                          "float32 or float64 array")
-    n = values.shape[0]
+    direct_subtract_rows(values[None, :], [0], tys, txs, cys, cxs, flux, [beam], runs=runs,
+                         parallel=parallel)
+    return values
+
+
+def direct_subtract_rows(values, rows, tys, txs, cys, cxs, flux, beams, *, runs=None,
+                         parallel=None):
+    """`direct_subtract` for several rows of ``values`` at once, each with its own beam.
+
+    ``values[rows[p]]`` loses the components through ``beams[p]``: one call, one
+    parallel region, for a sub-loop's update of the residual and every smoothed
+    residual.  Each row's values are the same bits as `direct_subtract` gives.
+
+    Parameters
+    ----------
+    values : (n_values, n) float32 or float64 ndarray
+        Updated in place (writeable, C-contiguous).
+    rows : sequence of int
+        Rows of ``values`` to update, each once.
+    tys, txs, cys, cxs, flux, runs
+        As for `direct_subtract`.
+    beams : sequence of (2 ny - 1, 2 nx - 1) ndarray
+        One per row, all of one shape and dtype.
+    parallel : bool, optional
+        Default: parallel when ``n * m * len(rows)`` is at least `PARALLEL_MIN_WORK`.
+    """
+    if not (isinstance(values, np.ndarray) and values.ndim == 2
+            and values.dtype in (np.float32, np.float64) and values.flags.c_contiguous
+            and values.flags.writeable):
+        raise ValueError("values is updated in place: pass a writeable C-contiguous "
+                         "float32 or float64 array (1-D for direct_subtract, 2-D for "
+                         "direct_subtract_rows)")
+    n = values.shape[1]
+    rows = np.ascontiguousarray(rows, dtype=np.int64).ravel()
+    if rows.size != len(beams) or rows.size != np.unique(rows).size or (
+            rows.size and (rows.min() < 0 or rows.max() >= values.shape[0])):
+        raise ValueError(f"rows {rows.tolist()} must be distinct rows of values (0 to "
+                         f"{values.shape[0] - 1}), one per beam ({len(beams)} given)")
     tys, txs = _coords(tys, "tys", n), _coords(txs, "txs", n)
     flux = np.ascontiguousarray(flux, dtype=np.float64).ravel()
     m = flux.shape[0]
     cys, cxs = _coords(cys, "cys", m), _coords(cxs, "cxs", m)
-    beam = np.asarray(beam)
-    if beam.ndim != 2 or beam.shape[0] % 2 == 0 or beam.shape[1] % 2 == 0:
-        raise ValueError(f"beam has shape {beam.shape}; give a (2 ny - 1, 2 nx - 1) beam "
-                         "with its zero offset at the centre")
-    if not beam.flags.c_contiguous:
-        beam = np.ascontiguousarray(beam)
-    cy, cx = beam.shape[0] // 2, beam.shape[1] // 2
-    if not (n and m):
+    beams = tuple(np.ascontiguousarray(b) for b in beams)
+    if not beams or not (n and m):
         return values
+    shape, dtype = beams[0].shape, beams[0].dtype
+    if len(shape) != 2 or shape[0] % 2 == 0 or shape[1] % 2 == 0:
+        raise ValueError(f"beam has shape {shape}; give a (2 ny - 1, 2 nx - 1) beam "
+                         "with its zero offset at the centre")
+    if any(b.shape != shape or b.dtype != dtype for b in beams):
+        raise ValueError("beams must all have one shape and dtype; give the pair beams of "
+                         "one extent")
+    cy, cx = shape[0] // 2, shape[1] // 2
     dy = (int(tys.min()) - int(cys.max()), int(tys.max()) - int(cys.min()))
     dx = (int(txs.min()) - int(cxs.max()), int(txs.max()) - int(cxs.min()))
     if min(dy) < -cy or max(dy) > cy or min(dx) < -cx or max(dx) > cx:
@@ -184,9 +227,9 @@ def direct_subtract(values, tys, txs, cys, cxs, flux, beam, *, runs=None, parall
                              "numpy.nonzero gives them")
         runs = pixel_runs(tys, txs)
     if parallel is None:
-        parallel = n * m >= PARALLEL_MIN_WORK
+        parallel = n * m * rows.size >= PARALLEL_MIN_WORK
     run = _direct_parallel if parallel else _direct_serial
-    run(values, *runs, cys, cxs, flux, beam, cy, cx)
+    run(values, rows, *runs, cys, cxs, flux, beams, cy, cx)
     return values
 
 
