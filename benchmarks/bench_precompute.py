@@ -13,6 +13,7 @@ import pytest
 from conftest import DTYPES, SCALE_SETS, SIZES
 from numpy_baseline import cross_terms
 from skyscale.cost import model as cost
+from skyscale.cost import planner
 from skyscale.core.engine import Engine
 from skyscale.cost.sweep import PeakMemory
 
@@ -31,7 +32,7 @@ def test_precompute_engine(benchmark, field, size, n_scales, dtype):
     Engine(field(32)[1], [0, 4])                            # imports and FFT library warm
     with PeakMemory() as mem:
         e = engine_and_beams()
-    plan = cost.plan_run(dirty.shape, psf.shape, scales, threads=1, dtype=dtype)
+    plan = planner.plan_run(dirty.shape, psf.shape, scales, threads=1, dtype=dtype)
     benchmark.pedantic(engine_and_beams, rounds=3)
     benchmark.extra_info.update({
         "traced_peak_mib": mem.traced_peak / 2**20, "rss_increase_mib": mem.rss_increase / 2**20,

@@ -369,7 +369,7 @@ def test_deconvolve_with_auto_scales():
 
 
 def test_command_line_auto_uses_the_same_function(tmp_path):
-    from skyscale.cli.job import scales_in_pixels, RUN_DEFAULTS
+    from skyscale.job.files import scales_in_pixels, RUN_DEFAULTS
     dirty, _ = make_field("disk", 24, 30, 96, seed=11)
     psf = gaussian_psf(192)[:192, :192]
     reasons = []

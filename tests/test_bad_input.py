@@ -20,7 +20,7 @@ import skyscale
 from skyscale import InputError, deconvolve
 from skyscale.cli.commands import main
 from skyscale.io.fits import read_image
-from skyscale.cli.options import coerce_params, load_config
+from skyscale.job.options import coerce_params, load_config
 from smallfits import CELL, N, sky_header, small_field, write_fits, write_small_pair
 import skyscale.core.validate  # noqa: E402
 
@@ -171,9 +171,9 @@ def test_missing_file_is_both_input_error_and_file_not_found(tmp_path):
 
 
 def test_file_too_large_for_memory_is_refused_before_reading(tmp_path, monkeypatch):
-    import skyscale.cost.model
+    import skyscale.io.fits
     path = write_fits(tmp_path / "big.fits", np.ones((64, 64)))
-    monkeypatch.setattr(skyscale.cost.model, "available_memory", lambda: 1000)
+    monkeypatch.setattr(skyscale.io.fits, "available_memory", lambda: 1000)
     with pytest.raises(InputError, match=r"needs about .* GiB but .* is available"):
         read_image(path)
 
@@ -379,14 +379,14 @@ def test_existing_outputs_are_refused_before_reading_inputs(files, tmp_path, cap
 def test_run_that_cannot_fit_is_refused_from_the_headers_before_reading(files, tmp_path,
                                                                       monkeypatch, capsys):
     import skyscale.cost.model
-    import skyscale.cli.job
+    import skyscale.job.files
     # enough memory to read the 64 x 64 image, far too little for the run's precompute
     monkeypatch.setattr(skyscale.cost.model, "available_memory", lambda: 200_000)
 
     def no_read(*args, **kwargs):
         raise AssertionError("the data were read before the memory check")
 
-    monkeypatch.setattr(skyscale.cli.job, "read_image", no_read)
+    monkeypatch.setattr(skyscale.job.files, "read_image", no_read)
     code = main(["--quiet", "run", files["dirty"], files["psf"], "--out", str(tmp_path / "o"),
                  "--scales", "0,4,8"])
     err = capsys.readouterr().err

@@ -14,7 +14,7 @@ from astropy.io import fits
 from astropy.wcs import WCS
 
 from skyscale.io.fits import pixel_position_angle, read_image, sky_position_angle
-from skyscale.cli.preflight import restoring_beam
+from skyscale.job.preflight import restoring_beam
 
 CELL = 2.0        # arcsec
 N = 64

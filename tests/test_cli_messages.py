@@ -125,7 +125,7 @@ def test_same_size_psf_said_once_in_words_with_the_region(same_size, tmp_path, c
 
 def test_same_size_psf_warning_comes_before_the_run(same_size, tmp_path):
     import logging
-    from skyscale.cli.job import run_files
+    from skyscale.job.files import run_files
     d, p, _, _ = same_size
     events = []
 

@@ -17,7 +17,7 @@ from astropy.table import Table
 from astropy.wcs import WCS
 
 from skyscale.io.components import MERGED_COMPONENT_DTYPE, merge_components
-from skyscale.cli.job import run_files
+from skyscale.job.files import run_files
 from skyscale.io.components import component_fields, component_rows
 from skyscale.core.result import empty_components
 

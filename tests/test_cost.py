@@ -17,6 +17,7 @@ import pytest
 
 import skyscale
 from skyscale.cost import model as cost
+from skyscale.cost import planner
 from skyscale.cli.commands import main
 from skyscale.core.fft import Convolver, MultiConvolver, NumpyFFT
 from skyscale.core.engine import Engine
@@ -153,7 +154,7 @@ def test_memory_model_within_20_percent_of_tracemalloc(n, psf_factor, dtype, sca
             peak = tracemalloc.get_traced_memory()[1]
         finally:
             tracemalloc.stop()
-    plan = cost.plan_run(dirty.shape, psf, scales, max_components=2000, threads=1,
+    plan = planner.plan_run(dirty.shape, psf, scales, max_components=2000, threads=1,
                          dtype=dtype, calibration=cost.DEFAULT_CALIBRATION)
     assert plan.memory_bytes == pytest.approx(peak, rel=0.20)
 
@@ -163,7 +164,7 @@ def test_plan_and_engine_share_one_memory_account():
     # Engine's, term by term, and its beams are the bytes the Engine really holds.
     dirty, psf = synthetic_field(96, seed=1)
     e = Engine(psf, [0, 4, 8], image_shape=dirty.shape, threads=1)
-    plan = cost.plan_run(dirty.shape, psf, [0, 4, 8], calibration=cost.DEFAULT_CALIBRATION)
+    plan = planner.plan_run(dirty.shape, psf, [0, 4, 8], calibration=cost.DEFAULT_CALIBRATION)
     assert e.memory["total"] == plan.memory_bytes
     assert plan.memory_phase == e.memory["peak_phase"]
     assert plan.memory_terms["beams"] == e.memory["beams"] == sum(b.nbytes for b in e.beams)
@@ -174,16 +175,16 @@ def test_engine_max_memory_refuses_what_the_plan_says_will_not_fit():
     # The Engine's max_memory check applies the planner's own rule to the same account:
     # for a budget just under the plan's need both refuse, just over both accept.
     dirty, psf = synthetic_field(96, seed=1)
-    plan = cost.plan_run(dirty.shape, psf, [0, 4, 8], calibration=cost.DEFAULT_CALIBRATION,
+    plan = planner.plan_run(dirty.shape, psf, [0, 4, 8], calibration=cost.DEFAULT_CALIBRATION,
                          memory_available=10 ** 12)
     need = plan.memory_bytes * cost.MEMORY_HEADROOM
-    tight = cost.plan_run(dirty.shape, psf, [0, 4, 8], calibration=cost.DEFAULT_CALIBRATION,
+    tight = planner.plan_run(dirty.shape, psf, [0, 4, 8], calibration=cost.DEFAULT_CALIBRATION,
                           memory_available=int(need) - 1)
     assert not tight.fits
     with pytest.raises(ValueError, match="max_memory"):
         Engine(psf, [0, 4, 8], image_shape=dirty.shape, threads=1,
                max_memory=int(need) - 1)
-    roomy = cost.plan_run(dirty.shape, psf, [0, 4, 8], calibration=cost.DEFAULT_CALIBRATION,
+    roomy = planner.plan_run(dirty.shape, psf, [0, 4, 8], calibration=cost.DEFAULT_CALIBRATION,
                           memory_available=int(need) + 1)
     assert roomy.fits
     Engine(psf, [0, 4, 8], image_shape=dirty.shape, threads=1, max_memory=int(need) + 1)
@@ -239,22 +240,22 @@ def test_fft_probe_times_each_grid_once():
 
 # -------------------------------------------------------------------------- planner
 def test_plan_flags_what_does_not_fit_and_check_refuses_it():
-    base = cost.plan_run((512, 512), (1024, 1024), [0, 4, 8, 16], memory_available=1 << 40)
+    base = planner.plan_run((512, 512), (1024, 1024), [0, 4, 8, 16], memory_available=1 << 40)
     assert base.fits
-    assert cost.check_fits_memory(base) is base
-    small = cost.plan_run((512, 512), (1024, 1024), [0, 4, 8, 16],
+    assert planner.check_fits_memory(base) is base
+    small = planner.plan_run((512, 512), (1024, 1024), [0, 4, 8, 16],
                           memory_available=base.memory_bytes // 2)
     assert not small.fits
     assert any("will not fit" in m for m in small.messages)
-    with pytest.raises(cost.InsufficientMemoryError, match="GiB.*available"):
-        cost.check_fits_memory(small)
-    assert issubclass(cost.InsufficientMemoryError, ValueError)
-    assert issubclass(cost.InsufficientMemoryError, MemoryError)
+    with pytest.raises(planner.InsufficientMemoryError, match="GiB.*available"):
+        planner.check_fits_memory(small)
+    assert issubclass(planner.InsufficientMemoryError, ValueError)
+    assert issubclass(planner.InsufficientMemoryError, MemoryError)
 
 
 def test_plan_totals_add_up():
     cal = cost.DEFAULT_CALIBRATION
-    p = cost.plan_run((256, 256), (512, 512), [0, 4, 8], components=1000, rounds=30,
+    p = planner.plan_run((256, 256), (512, 512), [0, 4, 8], components=1000, rounds=30,
                       major_cycles=4, active_pixels=500.0, fft_updates=12, threads=1,
                       calibration=cal)
     t = cost.predict_times(cost.run_geometry((256, 256), (512, 512), (0, 2, 4)), cal)
@@ -270,12 +271,14 @@ def test_plan_totals_add_up():
     assert p.total_seconds == pytest.approx(p.precompute_seconds + p.setup_seconds
                                             + p.minor_seconds + p.major_total_seconds
                                             + p.startup_seconds)
-    warm = cost.plan_run((256, 256), (512, 512), [0, 4, 8], components=1000, rounds=30,
+    warm = planner.plan_run((256, 256), (512, 512), [0, 4, 8], components=1000, rounds=30,
                          major_cycles=4, active_pixels=500.0, fft_updates=12, threads=1,
                          calibration=cal, fresh_process=False)
     assert warm.startup_seconds == 0.0
     assert warm.total_seconds == pytest.approx(p.total_seconds - p.startup_seconds)
-    assert p["fits"] == p.fits
+    # the plan's verdict is the headroom rule applied to its own figures (cost.fits_memory)
+    assert p.fits is (p.memory_available is None
+                      or p.memory_bytes * cost.MEMORY_HEADROOM <= p.memory_available)
     assert json.loads(json.dumps(p.as_dict()))["scales"] == [0.0, 4.0, 8.0]
 
 
@@ -303,13 +306,13 @@ def test_a_mask_box_makes_the_updates_and_beams_those_of_the_box():
     assert t["major"] == whole["major"] and t["stats"] == whole["stats"]
     kw = dict(components=500, rounds=20, major_cycles=3, active_pixels=300.0,
               fft_updates=8, threads=1, calibration=cal, memory_available=1 << 40)
-    boxed = cost.plan_run(dirty.shape, psf, scales, box_shape=box, mask_fraction=0.1, **kw)
-    plain = cost.plan_run(dirty.shape, psf, scales, mask_fraction=0.1, **kw)
+    boxed = planner.plan_run(dirty.shape, psf, scales, box_shape=box, mask_fraction=0.1, **kw)
+    plain = planner.plan_run(dirty.shape, psf, scales, mask_fraction=0.1, **kw)
     assert boxed.memory_bytes == plain.memory_bytes         # memory: the whole image
     assert boxed.fft_update_seconds == pytest.approx(8 * t["round"], rel=1e-12)
     assert boxed.total_seconds < plain.total_seconds
     with pytest.raises(ValueError, match="box_shape"):
-        cost.plan_run(dirty.shape, psf, scales, box_shape=(300, 10))
+        planner.plan_run(dirty.shape, psf, scales, box_shape=(300, 10))
 
 
 def test_counts_follow_the_dynamic_range():
@@ -338,7 +341,7 @@ def test_dynamic_range_is_measured_from_the_dirty_image():
     rng = np.random.default_rng(0)
     dirty = rng.normal(0, 1.0, (256, 256)).astype(np.float32)
     dirty[100, 100] = 3.0 * 5.0 ** 4
-    p = cost.plan_run(dirty.shape, (512, 512), [0, 4], dirty=dirty, noise_threshold=3.0,
+    p = planner.plan_run(dirty.shape, (512, 512), [0, 4], dirty=dirty, noise_threshold=3.0,
                       calibration=cost.DEFAULT_CALIBRATION)
     d = float(np.abs(dirty).max() / (3 * 1.4826 * np.median(np.abs(dirty - np.median(dirty)))))
     expect = cost.estimate_counts(cost.run_geometry((256, 256), (512, 512), (0, 2)),
@@ -356,24 +359,24 @@ def test_threads_follow_amdahls_law():
     many = cost.fft_seconds(g.transforms()["round"], cal, threads=n)
     f = cal["threads"]["fft_parallel"]
     assert many == pytest.approx(one * ((1 - f) + f / n))
-    p = cost.plan_run((256, 256), (512, 512), [0, 4], threads=10 ** 4, calibration=cal)
+    p = planner.plan_run((256, 256), (512, 512), [0, 4], threads=10 ** 4, calibration=cal)
     assert p.threads == n
     assert (n == 1) or any("more than" in m for m in p.messages)
 
 
 def test_max_affordable_scales_stops_at_the_budget():
     shape, psf = (256, 256), (512, 512)
-    peaks = [cost.plan_run(shape, psf, [0, 4, 8, 16][:k]).memory_bytes for k in (1, 2, 3, 4)]
+    peaks = [planner.plan_run(shape, psf, [0, 4, 8, 16][:k]).memory_bytes for k in (1, 2, 3, 4)]
     assert peaks == sorted(peaks)
     budget = int(0.5 * (peaks[1] + peaks[2]) * cost.MEMORY_HEADROOM)
-    got = cost.max_affordable_scales(shape, psf, [16, 0, 8, 4], memory_budget=budget)
+    got = planner.max_affordable_scales(shape, psf, [16, 0, 8, 4], memory_budget=budget)
     assert got.scales == (0.0, 4.0) and got.limited_by == "memory"
-    times = [cost.plan_run(shape, psf, [0, 4, 8, 16][:k]).total_seconds for k in (1, 2, 3, 4)]
+    times = [planner.plan_run(shape, psf, [0, 4, 8, 16][:k]).total_seconds for k in (1, 2, 3, 4)]
     assert times == sorted(times)
-    got = cost.max_affordable_scales(shape, psf, [0, 4, 8, 16], memory_budget=1 << 40,
+    got = planner.max_affordable_scales(shape, psf, [0, 4, 8, 16], memory_budget=1 << 40,
                                      seconds_budget=0.5 * (times[2] + times[3]))
     assert got.scales == (0.0, 4.0, 8.0) and got.limited_by == "time"
-    none = cost.max_affordable_scales(shape, psf, [0, 4], memory_budget=1)
+    none = planner.max_affordable_scales(shape, psf, [0, 4], memory_budget=1)
     assert none.scales == () and none.plan is None
 
 
@@ -381,16 +384,16 @@ def test_a_run_that_does_not_fit_says_what_would_with_figures():
     # Each remedy, applied, is a run the planner (which `run` obeys) says fits, with the
     # peak the remedy quotes; the fewest changes: one more scale or 16 more pixels do not.
     shape, psf, scales = (1024, 1024), (2048, 2048), [0, 4, 8, 16, 32]
-    p2 = cost.plan_run(shape, psf, scales[:2], dtype="float64", memory_available=1 << 40)
-    p3 = cost.plan_run(shape, psf, scales[:3], dtype="float64", memory_available=1 << 40)
+    p2 = planner.plan_run(shape, psf, scales[:2], dtype="float64", memory_available=1 << 40)
+    p3 = planner.plan_run(shape, psf, scales[:3], dtype="float64", memory_available=1 << 40)
     budget = int(0.5 * (p2.memory_bytes + p3.memory_bytes) * cost.MEMORY_HEADROOM)
-    plan = cost.plan_run(shape, psf, scales, dtype="float64", memory_available=budget)
+    plan = planner.plan_run(shape, psf, scales, dtype="float64", memory_available=budget)
     assert not plan.fits
     got = {r["kind"]: r for r in plan.remedies}
     assert set(got) >= {"scales", "dtype", "psf", "sub-region"}
 
     def again(sh=shape, ps=psf, sc=scales, dtype="float64"):
-        return cost.plan_run(sh, ps, sc, dtype=dtype, memory_available=budget)
+        return planner.plan_run(sh, ps, sc, dtype=dtype, memory_available=budget)
     r = got["scales"]
     assert r["fits"] and r["option"] == "--scales 0,4"
     assert again(sc=[0, 4]).fits and not again(sc=[0, 4, 8]).fits
@@ -402,16 +405,16 @@ def test_a_run_that_does_not_fit_says_what_would_with_figures():
     n = int(got["sub-region"]["text"].split("at most ")[1].split(" x ")[0])
     assert again(sh=(n, n), ps=(2 * n, 2 * n)).fits
     assert not again(sh=(n + 16, n + 16), ps=(2 * n + 32, 2 * n + 32)).fits
-    with pytest.raises(cost.InsufficientMemoryError) as err:
-        cost.check_fits_memory(plan)
+    with pytest.raises(planner.InsufficientMemoryError) as err:
+        planner.check_fits_memory(plan)
     assert "what would fit: fewer scales" in str(err.value) and "sub-region of at most" in \
         str(err.value)
-    assert cost.plan_run(shape, psf, scales, memory_available=1 << 40).remedies == []
+    assert planner.plan_run(shape, psf, scales, memory_available=1 << 40).remedies == []
 
 
 def _refusal(plan):
-    with pytest.raises(cost.InsufficientMemoryError) as err:
-        cost.check_fits_memory(plan)
+    with pytest.raises(planner.InsufficientMemoryError) as err:
+        planner.check_fits_memory(plan)
     return str(err.value)
 
 
@@ -421,11 +424,11 @@ def test_a_run_no_single_change_saves_is_offered_the_changes_together():
     shape, psf, scales = (1024, 1024), (2048, 2048), [0, 4, 8, 16]
 
     def peak(ps, sc, dtype):
-        return cost.plan_run(shape, ps, sc, dtype=dtype, memory_available=1 << 40).memory_bytes
+        return planner.plan_run(shape, ps, sc, dtype=dtype, memory_available=1 << 40).memory_bytes
     both, alone = peak(shape, [0], "float32"), peak(psf, [0], "float64")
     assert both < alone
     budget = int(both * cost.MEMORY_HEADROOM) + 1
-    plan = cost.plan_run(shape, psf, scales, dtype="float64", memory_available=budget)
+    plan = planner.plan_run(shape, psf, scales, dtype="float64", memory_available=budget)
     got = {r["kind"]: r for r in plan.remedies}
     assert not any(got[k]["fits"] for k in ("scales", "dtype", "psf"))
     assert got["together"]["fits"] and got["together"]["peak_bytes"] == both
@@ -436,9 +439,9 @@ def test_a_run_no_single_change_saves_is_offered_the_changes_together():
 
 def test_bench_advice_names_sizes_whose_sweep_fits(monkeypatch):
     from skyscale.cost.remedies import BENCH_SIZE_LADDER
-    from skyscale.cost.sweep import sweep_memory
+    from skyscale.cost.sweep_plan import sweep_memory
     avail = 16 * 2**30
-    plan = cost.plan_run((8192, 8192), (16384, 16384), [0, 4], memory_available=avail)
+    plan = planner.plan_run((8192, 8192), (16384, 16384), [0, 4], memory_available=avail)
     line = next(m for m in plan.messages if "larger than the calibrated sizes" in m)
     sizes = [int(v) for v in line.split("--sizes ")[1].split()[0].split(",")]
     assert sweep_memory(sizes)[0] * cost.MEMORY_HEADROOM <= avail
@@ -446,7 +449,7 @@ def test_bench_advice_names_sizes_whose_sweep_fits(monkeypatch):
     assert sweep_memory([bigger // 4, bigger // 2, bigger])[0] * cost.MEMORY_HEADROOM > avail
     for gib, words in ((3, "does not fit in the 3.0 GiB available (it reaches 2048 px)"),
                        (1, "does not fit in the 1.0 GiB available;")):
-        small = cost.plan_run((8192, 8192), (16384, 16384), [0, 4],
+        small = planner.plan_run((8192, 8192), (16384, 16384), [0, 4],
                               memory_available=gib * 2**30)
         line = next(m for m in small.messages if "larger than the calibrated sizes" in m)
         assert "--sizes" not in line and words in line
@@ -455,7 +458,7 @@ def test_bench_advice_names_sizes_whose_sweep_fits(monkeypatch):
 def test_bench_refuses_sizes_that_do_not_fit_and_names_those_that_do(tmp_path, monkeypatch,
                                                                     capsys):
     import skyscale.cost.sweep
-    from skyscale.cost.sweep import sweep_memory
+    from skyscale.cost.sweep_plan import sweep_memory
 
     def never(*a, **k):
         raise AssertionError("the sweep must not start")
@@ -480,7 +483,7 @@ def test_plan_bad_input_names_the_argument(kwargs, words):
     args = dict(image_shape=(128, 128), psf=(256, 256), scales=[0, 4, 8])
     args.update(kwargs)
     with pytest.raises(ValueError, match=words):
-        cost.plan_run(args.pop("image_shape"), args.pop("psf"), args.pop("scales"), **args)
+        planner.plan_run(args.pop("image_shape"), args.pop("psf"), args.pop("scales"), **args)
 
 
 # ---------------------------------------------------------------------- calibration
@@ -491,10 +494,10 @@ def test_calibration_file_is_preferred_and_linear(tmp_path, monkeypatch):
     path = tmp_path / "cal.json"
     cost.save_calibration(cal, str(path))
     monkeypatch.setenv(cost.CALIBRATION_ENV, str(path))
-    one = cost.plan_run((128, 128), (256, 256), [0, 4], threads=1)
+    one = planner.plan_run((128, 128), (256, 256), [0, 4], threads=1)
     cal["round"]["per_fft_second"] = 2.0
     cost.save_calibration(cal, str(path))
-    two = cost.plan_run((128, 128), (256, 256), [0, 4], threads=1)
+    two = planner.plan_run((128, 128), (256, 256), [0, 4], threads=1)
     assert two.round_seconds == pytest.approx(2 * one.round_seconds)
     assert str(path) in two.calibration
     # Written through skyscale.io.atomic: replaced in place, no temporary file left.
@@ -521,7 +524,7 @@ def test_loop_formula_has_one_home():
     assert cost.loop_features(4000, 300) == [1.2e6, 4000.0, 1.0]
     assert np.dot(cost.loop_features(4000, 300), [t[k] for k in cost.LOOP_TERMS]) == \
         pytest.approx(cost.loop_seconds(t, 300, 4000), rel=1e-12)
-    plan = cost.plan_run((256, 256), (512, 512), [0, 4, 8], threads=1,
+    plan = planner.plan_run((256, 256), (512, 512), [0, 4, 8], threads=1,
                          calibration=cost.DEFAULT_CALIBRATION)
     g = cost.run_geometry((256, 256), (512, 512), ScaleSet([0, 4, 8]).support_radii)
     c = plan.counts
@@ -667,7 +670,7 @@ def test_plan_of_a_cube_plans_one_plane_and_the_cube_path(tmp_path, capsys):
     line = next(m for m in plan["messages"] if m.startswith("a cube of 3 planes"))
     assert "runs 1 worker(s) x 1 thread(s)" in line and "(3 plane(s) per worker)" in line
     each = plan["total_seconds"] - plan["startup_seconds"]
-    from skyscale.cli.cost_commands import _t
+    from skyscale.cli.formats import time_text as _t
     assert f"about {_t(plan['startup_seconds'] + 3 * each)} for the cube" in line
 
 

@@ -19,7 +19,7 @@ from astropy.wcs import FITSFixedWarning
 from astropy.wcs import WCS as _WCS
 
 from skyscale.io.fits import read_image
-from skyscale.cli.job import run_files
+from skyscale.job.files import run_files
 from smallfits import CELL, N, small_field
 
 def WCS(header):

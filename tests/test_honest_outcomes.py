@@ -330,7 +330,7 @@ def test_fits_history_records_the_values_in_effect_and_the_inputs(files):
     assert f"skyscale parameter emission_mask_sigma = {sigma}" in text
     assert f"skyscale parameter threads = {rep['threads']['numba']}" in text
     assert "skyscale parameter input_dirty = dirty.fits" in text
-    assert "= None" not in text.replace("psf_patch = None", "").replace("beam = None", "") \
+    assert "= None" not in text.replace("beam = None", "") \
         .replace("mask = None", "").replace("mask_regions = None", "")
     assert rep["image"]["cell_arcsec"] == 2.0      # the grid's 2 arcsec (smallfits.CELL)
 

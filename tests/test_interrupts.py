@@ -30,7 +30,7 @@ ENGINE = os.path.join(os.path.dirname(os.path.dirname(os.path.abspath(__file__))
 DRIVER = textwrap.dedent("""
     import sys, time
     import skyscale.cli.console as console
-    import skyscale.cli.job as job
+    import skyscale.job.files as job
     hooks, argv = sys.argv[1].split(","), sys.argv[2:]
     def update(self, event, _done=[]):
         if "cycle" in hooks and event.get("stage") == "major" and event["cycle"] >= 1 \\

@@ -1,72 +1,98 @@
-"""The package layout: subpackages offer their names, and the paths and names of the
-flat layout (release 0.1) still work for one release with a DeprecationWarning that
-names the new place.  These guard the layout (common practice), not a published value.
+"""The package layout: each name a subpackage (or the top level) offers is the object of
+the module that defines and lists it, and nothing of the flat layout's module paths or
+names is left.  These guard the layout (common practice), not a published value.
 """
 
 import importlib
+import json
+import os
+import pkgutil
 import subprocess
 import sys
-import warnings
 
 import pytest
 
 import skyscale
-from skyscale import _moved
 
 SUBPACKAGES = ["core", "core.kernels", "io", "io.figures", "masks", "advisor", "cost",
-               "cube", "visibility", "cli"]
+               "job", "cube", "visibility", "wideband", "cli"]
+
+
+def _modules_of(package):
+    """The package and every module directly inside it."""
+    yield package
+    for info in pkgutil.iter_modules(package.__path__):
+        if info.name == "__main__":           # runs the command line when imported
+            continue
+        yield importlib.import_module(f"{package.__name__}.{info.name}")
+
+
+def _homes(package, name, obj):
+    """Modules of ``package`` (searched to its sub-packages) that list ``name`` in their
+    ``__all__`` and hold this very object under it."""
+    found = []
+    for module in _modules_of(package):
+        if module is package:
+            continue
+        if hasattr(module, "__path__"):
+            found += _homes(module, name, obj)
+        elif name in getattr(module, "__all__", ()) and getattr(module, name, None) is obj:
+            found.append(module.__name__)
+    return found
 
 
 @pytest.mark.parametrize("name", SUBPACKAGES)
-def test_every_name_a_subpackage_offers_resolves(name):
+def test_every_name_a_subpackage_offers_is_a_listed_name_of_one_of_its_modules(name):
     package = importlib.import_module(f"skyscale.{name}")
-    for attr in package.__all__:
-        assert getattr(package, attr) is not None, attr
+    assert package.__all__, f"skyscale.{name} offers nothing"
+    unhomed = [attr for attr in package.__all__
+               if not _homes(package, attr, getattr(package, attr))]
+    assert unhomed == [], f"skyscale.{name} offers names no module of it lists: {unhomed}"
 
 
 def test_the_top_level_is_the_algorithm_and_a_few_entry_points():
     assert len(skyscale.__all__) <= 30
-    for name in skyscale.__all__:
-        assert getattr(skyscale, name) is not None
+    unhomed = [name for name in skyscale.__all__ if name != "__version__"
+               and not _homes(skyscale, name, getattr(skyscale, name))]
+    assert unhomed == []
+    public = {n for n in set(vars(skyscale)) | set(dir(skyscale)) if not n.startswith("_")
+              and not hasattr(getattr(skyscale, n), "__path__")}     # subpackages aside
+    assert public == set(skyscale.__all__) - {"__version__"}
     assert skyscale.deconvolve.__module__ == "skyscale.core.driver"
 
 
-def test_old_module_paths_are_the_new_modules_with_a_warning():
-    # in a fresh interpreter, so that no old path has been imported yet
-    code = """
-import importlib, json, sys, warnings
-from skyscale._moved import MOVED_MODULES
-bad = []
-for old, new in sorted(MOVED_MODULES.items()):
-    with warnings.catch_warnings(record=True) as w:
-        warnings.simplefilter("always")
-        a = importlib.import_module("skyscale." + old)
-    b = importlib.import_module("skyscale." + new)
-    said = [str(x.message) for x in w if issubclass(x.category, DeprecationWarning)]
-    if a is not b or not any("skyscale." + new in s for s in said):
-        bad.append([old, new, said])
-print(json.dumps(bad))
-"""
-    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
+@pytest.mark.parametrize("old", ["fitsio", "cycles", "minor", "job_vis", "kernels.stamp",
+                                 "_moved"])
+def test_the_flat_layouts_module_paths_are_gone(old):
+    # in a fresh interpreter: nothing may serve an old path once skyscale is imported
+    code = f"import skyscale, importlib; importlib.import_module('skyscale.{old}')"
+    env = dict(os.environ, PYTHONPATH=os.pathsep.join(p for p in sys.path if p))
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          env=env)
+    assert done.returncode != 0
+    assert "ModuleNotFoundError" in done.stderr
+
+
+@pytest.mark.parametrize("name", ["fit_beam", "robust_noise", "Plan", "no_such_name"])
+def test_names_that_are_not_offered_are_attribute_errors(name):
+    with pytest.raises(AttributeError, match=f"no attribute '{name}'"):
+        getattr(skyscale, name)
+
+
+def test_import_skyscale_loads_nothing_yet_every_name_and_subpackage_resolves():
+    # in a fresh interpreter: what the import loads, and what a user reaches from it
+    code = ("import json, os, sys; import skyscale; "
+            "loaded = sorted(m for m in sys.modules if m.startswith('skyscale')); "
+            "spin = os.environ.get('GOMP_SPINCOUNT'); "
+            "heavy = [m for m in ('numba', 'rich', 'matplotlib', 'dask', 'astropy') "
+            "if m in sys.modules]; "
+            "skyscale.masks.regions_to_mask, skyscale.cost.plan_run, skyscale.Engine; "
+            "print(json.dumps([loaded, spin, heavy]))")
+    env = {k: v for k, v in os.environ.items() if k != "GOMP_SPINCOUNT"}
+    env["PYTHONPATH"] = os.pathsep.join(p for p in sys.path if p)
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          env=env)
     assert done.returncode == 0, done.stderr
-    assert done.stdout.strip() == "[]"
-
-
-@pytest.mark.parametrize("name, module", sorted(_moved.MOVED_NAMES.items()))
-def test_old_top_level_names_warn_and_are_the_same_object(name, module):
-    with pytest.warns(DeprecationWarning, match=f"skyscale.{module}.{name}"):
-        old = getattr(skyscale, name)
-    assert old is getattr(importlib.import_module(f"skyscale.{module}"), name)
-
-
-def test_an_unknown_name_is_still_an_attribute_error():
-    with pytest.raises(AttributeError, match="no attribute 'no_such_name'"):
-        skyscale.no_such_name   # noqa: B018
-
-
-def test_old_kernel_submodule_path_is_the_loaded_module():
-    import skyscale.core.kernels.stamp as new
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", DeprecationWarning)
-        old = importlib.import_module("skyscale.kernels.stamp")
-    assert old is new
+    loaded, spin, heavy = json.loads(done.stdout.strip().splitlines()[-1])
+    assert loaded == ["skyscale", "skyscale._exports"]
+    assert spin is None and heavy == []

@@ -318,7 +318,7 @@ def test_summary_labels_where_the_peak_is_measured_and_gives_arcsec(monkeypatch)
 def small_runs(tmp_path_factory):
     from smallfits import write_small_pair
 
-    from skyscale.cli.job import run_files
+    from skyscale.job.files import run_files
     folder = tmp_path_factory.mktemp("report_runs")
     dirty, psf = write_small_pair(str(folder))
     runs = {}

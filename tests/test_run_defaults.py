@@ -16,8 +16,8 @@ from astropy.io import fits
 
 from skyscale.cli.commands import main
 from skyscale.core.defaults import RUN_NOISE_THRESHOLD as DEFAULT_NOISE_THRESHOLD
-from skyscale.cli.job import RUN_DEFAULTS, merge_params, stop_rule
-from skyscale.cli.options import load_config
+from skyscale.job.files import RUN_DEFAULTS, merge_params, stop_rule
+from skyscale.job.options import load_config
 
 from smallfits import N, write_small_pair
 

@@ -16,10 +16,12 @@ from skyscale.core import threads as _threads
 
 from skyscale.cost import planner
 CHILD = ("import json, os, skyscale, skyscale.core.threads as t; "
-         "print(json.dumps([os.environ.get('GOMP_SPINCOUNT'), t.openmp_wait()]))")
+         "before = os.environ.get('GOMP_SPINCOUNT'); "
+         "t.thread_limit(1).__enter__(); "
+         "print(json.dumps([before, os.environ.get('GOMP_SPINCOUNT'), t.openmp_wait()]))")
 
 
-def _import_in_child(**env):
+def _run_in_child(**env):
     full = {k: v for k, v in os.environ.items() if k != "GOMP_SPINCOUNT"}
     full.update(env)
     full["PYTHONPATH"] = os.pathsep.join(p for p in sys.path if p)
@@ -28,12 +30,16 @@ def _import_in_child(**env):
     return json.loads(out.strip().splitlines()[-1])
 
 
-def test_import_sets_the_default_and_a_users_value_wins():
-    value, wait = _import_in_child()
+def test_the_import_leaves_the_environment_and_a_run_sets_the_default():
+    before, value, wait = _run_in_child()
+    assert before is None                     # import skyscale changed nothing
     assert value == str(_threads.DEFAULT_GOMP_SPINCOUNT)
     assert wait["set_by_skyscale"] and wait["short"]
-    value, wait = _import_in_child(GOMP_SPINCOUNT="infinite")
-    assert value == "infinite"
+
+
+def test_a_users_spin_count_wins():
+    before, value, wait = _run_in_child(GOMP_SPINCOUNT="infinite")
+    assert before == value == "infinite"
     assert not wait["set_by_skyscale"] and not wait["short"]
 
 

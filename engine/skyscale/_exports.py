@@ -19,7 +19,8 @@ def lazy_exports(package, exports):
     package : str
         The package's ``__name__``.
     exports : dict
-        Module name inside the package -> the names it exports.
+        Module name inside the package (dotted for one further down) -> the names it
+        exports.
     """
     where = {name: module for module, names in exports.items() for name in names}
 
@@ -30,6 +31,6 @@ def lazy_exports(package, exports):
         return getattr(importlib.import_module(f"{package}.{module}"), name)
 
     def __dir__():
-        return sorted(set(where) | set(exports))
+        return sorted(set(where) | {m for m in exports if "." not in m})
 
     return sorted(where), __getattr__, __dir__

@@ -1,6 +1,7 @@
-"""The command line: the commands (`commands.main`), the console output, and the file-level job
-runner (`job.run_files`) with its checks before any work (`preflight`) and the reader
-of options as users write them (`options`).
+"""The command line: the commands (`commands.main`) and the console output.
+
+It parses arguments and presents results; the work is the library's (the file-level
+job `skyscale.job.files.run_files`, the planner, the advisor).  Nothing imports it.
 """
 
 from skyscale._exports import lazy_exports

@@ -11,7 +11,7 @@ import os
 
 import numpy as np
 
-from skyscale.cli.cost_commands import _b, _console, _scales, _t
+from skyscale.cli.formats import memory_text, plain_console, scales_text, time_text
 
 __all__ = ["show_bench", "plot_bench", "BENCH_SIZE_PX"]
 
@@ -40,9 +40,9 @@ def show_bench(sweep, out=None, *, calibration_path=None, files=()):
     """
     from rich.table import Table
     from skyscale.cost import model as cost
-    from skyscale.cost.calibration import default_calibration_path, load_calibration
+    from skyscale.core.calibration import default_calibration_path, load_calibration
     from skyscale.core.scales import ScaleSet
-    out = out or _console()
+    out = out or plain_console()
     m, st, pts = sweep["machine"], sweep["settings"], sweep["points"]
     sizes = sorted({r["size"] for r in pts})
     threads = sorted({r.get("threads", 1) for r in sweep.get("fft_threads", [])})
@@ -68,9 +68,9 @@ def show_bench(sweep, out=None, *, calibration_path=None, files=()):
         sc = _typical_scales(n, pts)
         g = cost.run_geometry((n, n), (2 * n, 2 * n), ScaleSet(sc).support_radii)
         tm = cost.predict_times(g, cal)
-        t.add_row(f"{n} x {n}", _scales(sc), _t(tm["precompute"] + tm["beams"]),
-                  _t(tm["round"]), _t(tm["direct"]), _t(tm["major"] + tm["stats"]),
-                  _b(cost.predict_memory(g, cal)["peak"]))
+        t.add_row(f"{n} x {n}", scales_text(sc), time_text(tm["precompute"] + tm["beams"]),
+                  time_text(tm["round"]), time_text(tm["direct"]), time_text(tm["major"] + tm["stats"]),
+                  memory_text(cost.predict_memory(g, cal)["peak"]))
     out.print(t)
     out.print("A run takes about its precompute and beams, plus each sub-loop's update (an "
               "FFT update of the cycle's box, or a direct update of the mask's pixels when it "

@@ -57,7 +57,7 @@ def demo_data_dir():
 
 
 def _scales(text):
-    from skyscale.cli.options import parse_scales
+    from skyscale.job.options import parse_scales
     try:
         scales, unit = parse_scales(text, "--check")
         if unit == "arcsec":
@@ -67,27 +67,30 @@ def _scales(text):
         raise argparse.ArgumentTypeError(str(exc)) from None
 
 
-#: The demo's own settings, on top of `skyscale.cli.job.RUN_DEFAULTS` (its --help shows them;
+#: The demo's own settings, on top of `skyscale.job.options.RUN_DEFAULTS` (its --help shows them;
 #: a --config file and the command line override them).
 DEMO_SETTINGS = {"scales": [0, 4, 8, 16, 32], "emission_mask": True}
 
 
 def _shown(defaults):
-    """How the defaults of the run options read in --help, from the values themselves."""
-    nu, thr = defaults["noise_threshold"], float(defaults["threshold"])
-    scales = defaults["scales"]
-    return {"scales": scales if isinstance(scales, str) else
-            ",".join(f"{float(v):g}" for v in scales),
-            "scale_unit": defaults["scale_unit"], "scale_shape": defaults["scale_shape"],
-            "loop_gain": f"{defaults['loop_gain']:g}", "threshold": f"{thr:g}",
-            "noise_threshold": "off" if nu is None else f"{nu:g}",
-            "max_components": str(defaults["max_components"]),
-            "max_major_cycles": str(defaults["max_major_cycles"]),
-            "cycle_depth": f"{defaults['cycle_depth']:g}",
-            "size_penalty": f"{defaults['size_penalty']:g}",
-            "extended_depth": f"{defaults['extended_depth']:g}",
-            "emission_mask": "on" if defaults["emission_mask"] else "off",
-            "nonfinite": defaults["nonfinite"]}
+    """How the defaults of the run options read in --help, from the values themselves
+    and each option's kind (`skyscale.core.option_table`)."""
+    from skyscale.core.option_table import run_options
+    shown = {}
+    for o in run_options():
+        v = defaults[o.name]
+        if v is None:
+            text = "off" if o.kind == "sigma" else "none"
+        elif o.kind == "scales":
+            text = v if isinstance(v, str) else ",".join(f"{float(s):g}" for s in v)
+        elif o.kind in ("number", "flux", "sigma"):
+            text = f"{float(v):g}"
+        elif o.kind == "bool":
+            text = "on" if v else "off"
+        else:
+            text = str(v)
+        shown[o.name] = text
+    return shown
 
 
 #: What --threads means and defaults to for ``cube`` (README, "The local cluster").
@@ -97,38 +100,16 @@ CUBE_THREADS_HELP = ("threads per plane [1 on the local cluster, which then runs
 
 
 def _add_run_options(p, defaults=None, threads_help=None):
-    # Values are read by skyscale.cli.options (the same reader as the TOML file), so every
+    # Values are read by skyscale.job.options (the same reader as the TOML file), so every
     # option takes text here and a bad value gets one line naming it.  The bracketed
     # defaults come from the values the command uses (RUN_DEFAULTS, or the demo's).
-    from skyscale.cli.job import RUN_DEFAULTS
+    from skyscale.core.option_table import run_options
+    from skyscale.job.options import RUN_DEFAULTS
     d = _shown(defaults or RUN_DEFAULTS)
     g = p.add_argument_group("deconvolution")
-    g.add_argument("--scales", help="scale diameters, 0 = delta, separated by commas or "
-                   "spaces (0,4,16), in pixels or with a unit (0,8arcsec,16arcsec); 'auto' "
-                   f"asks the scale advisor [{d['scales']}]")
-    g.add_argument("--scale-unit", help="unit of --scales: pixel, or arcsec through the WCS "
-                   f"[{d['scale_unit']}]")
-    g.add_argument("--scale-shape", help="scale kernel shape: paraboloid or gaussian "
-                   f"[{d['scale_shape']}]")
-    g.add_argument("--loop-gain", help="fraction of a component taken per step, in (0, 1] "
-                   f"[{d['loop_gain']}]")
-    g.add_argument("--threshold", help="stop at this peak residual, Jy/beam; a unit may be "
-                   "written (0.1mJy).  Given without --noise-threshold it is a fixed level "
-                   "and the noise stop is off; given with it, each scale stops at the larger "
-                   f"of the two [{d['threshold']}]")
-    g.add_argument("--noise-threshold", help="stop each scale at this multiple of its own "
-                   "measured noise (robust, 1.4826 MAD, where there is no emission), e.g. 3 "
-                   f"or 3sigma; 'off' for no noise stop [{d['noise_threshold']}]")
-    g.add_argument("--max-components", help=f"component budget, >= 1 [{d['max_components']}]")
-    g.add_argument("--max-major-cycles", help=f"major-cycle budget, >= 1 [{d['max_major_cycles']}]")
-    g.add_argument("--cycle-depth",
-                   help=f"each minor cycle cleans to this fraction of its start peak [{d['cycle_depth']}]")
-    g.add_argument("--size-penalty", help="bias toward small scales, weight 1 - p s/s_max, "
-                   f"p in [0, 1) [{d['size_penalty']}]")
-    g.add_argument("--extended-depth", help="inside a mask, finite scales stop at this "
-                   f"fraction of the noise multiple, in (0, 1] [{d['extended_depth']}]")
-    g.add_argument("--psf-patch", help="no longer used (minor cycles subtract whole scale "
-                   "beams); accepted with a warning")
+    for o in run_options():      # the algorithm's options and the unit of the scales
+        if o.algorithm or o.name == "scale_unit":
+            g.add_argument("--" + o.name.replace("_", "-"), help=f"{o.help} [{d[o.name]}]")
     g.add_argument("--beam", help="restoring beam MAJOR,MINOR,PA: FWHMs in arcsec (or with "
                    "a unit: 0.0012deg) and degrees east of north [fitted to the PSF]")
     g.add_argument("--nonfinite", help="NaN/inf pixels in the dirty image: refuse, or mask "
@@ -218,7 +199,7 @@ def build_parser():
     _add_visibility_options(run)
     run.set_defaults(func=cmd_run)
 
-    from skyscale.cli.job import RUN_DEFAULTS
+    from skyscale.job.options import RUN_DEFAULTS
     demo = sub.add_parser("demo", help="run the whole job on the bundled demo observation",
                           description="Run the whole job on the bundled demo observation, "
                           "with the demo's own settings (shown in brackets); a --config "
@@ -274,9 +255,9 @@ def build_parser():
 def _params(args, base=None, base_source="the resumed run's report"):
     """Run options from ``base``, then --config, then the command line; and where each
     came from.  A threshold given (in the file or here) without a noise threshold drops
-    the base's noise threshold: it is a fixed level (`skyscale.cli.job.merge_params`)."""
-    from skyscale.cli.job import RUN_DEFAULTS
-    from skyscale.cli.options import load_config
+    the base's noise threshold: it is a fixed level (`skyscale.job.files.merge_params`)."""
+    from skyscale.job.options import RUN_DEFAULTS
+    from skyscale.job.options import load_config
     params, sources = dict(base or {}), {k: base_source for k in base or {}}
     later = {}
     if getattr(args, "config", None):
@@ -306,12 +287,12 @@ def _execute(args, dirty, psf, out, base=None, resume=None, visibilities=None,
     with console.RunProgress(enabled=not args.quiet) as progress:
         t0 = time.perf_counter()
         if visibilities is None:
-            from skyscale.cli.job import run_files
+            from skyscale.job.files import run_files
             result, written, report = run_files(dirty, psf, out, params,
                                                 callback=progress.update, sources=sources,
                                                 resume_from=resume)
         else:
-            from skyscale.cli.job_visibilities import run_visibilities
+            from skyscale.visibility.run import run_visibilities
             result, written, report = run_visibilities(
                 visibilities["path"], out, params, size=visibilities["size"],
                 cell_arcsec=visibilities["cell"], weighting=args.weighting or "natural",
@@ -360,7 +341,7 @@ def cmd_run(args):
         if args.visibilities is not None:
             raise InputError("--resume continues a run made from FITS images; it cannot be "
                              "combined with --visibilities")
-        from skyscale.cli.job import resume_inputs
+        from skyscale.job.files import resume_inputs
         rd, rp, base = resume_inputs(args.resume)
         dirty, psf = args.dirty or rd, args.psf or rp
         out = args.out or args.resume

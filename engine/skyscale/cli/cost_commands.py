@@ -12,6 +12,9 @@ import sys
 
 import numpy as np
 
+from skyscale.cli.formats import memory_text, plain_console, scales_text, time_text
+from skyscale.core.defaults import DEFAULTS, RUN_NOISE_THRESHOLD
+
 __all__ = ["register", "cmd_bench", "cmd_plan", "show_plan", "BENCH_FILES"]
 
 #: Files ``skyscale bench`` writes into ``--out``.
@@ -65,15 +68,18 @@ def register(subparsers):
     p.add_argument("psf", nargs="?", help="PSF, FITS (its shape is used)")
     p.add_argument("--size", type=_shape, help="image size N or NYxNX instead of FITS files")
     p.add_argument("--psf-size", type=_shape, help="PSF size with --size [twice the image]")
-    p.add_argument("--scales", default="0,4,8,16",
+    scales = scales_text(DEFAULTS.scales)          # the Python API's defaults
+    p.add_argument("--scales", default=scales,
                    help="scale diameters as for run: pixels, or with a unit (0,8arcsec,"
-                   "16arcsec) or 'auto' with FITS files [0,4,8,16]")
-    p.add_argument("--max-components", type=int, default=20000, help="component budget [20000]")
-    p.add_argument("--max-major-cycles", type=int, default=20, help="major-cycle budget [20]")
+                   f"16arcsec) or 'auto' with FITS files [{scales}]")
+    p.add_argument("--max-components", type=int, default=DEFAULTS.max_components,
+                   help=f"component budget [{DEFAULTS.max_components}]")
+    p.add_argument("--max-major-cycles", type=int, default=DEFAULTS.max_major_cycles,
+                   help=f"major-cycle budget [{DEFAULTS.max_major_cycles}]")
     p.add_argument("--noise-threshold", type=float, help="stop multiple of the noise, for the "
-                   "dynamic range of a FITS dirty image [3]")
-    p.add_argument("--threshold", default="0", help="stop level, Jy/beam; a unit may be "
-                   "written (0.1mJy) [0]")
+                   f"dynamic range of a FITS dirty image [{RUN_NOISE_THRESHOLD:g}]")
+    p.add_argument("--threshold", default=f"{DEFAULTS.threshold:g}", help="stop level, "
+                   f"Jy/beam; a unit may be written (0.1mJy) [{DEFAULTS.threshold:g}]")
     p.add_argument("--dynamic-range", type=float, help="peak over stop level [measured from the "
                    "dirty image, else 1000]")
     p.add_argument("--mask-fraction", type=float, default=1.0,
@@ -101,11 +107,6 @@ def register(subparsers):
                    help="exit 1 when the run would not fit in memory")
     p.set_defaults(func=cmd_plan)
     return subparsers
-
-
-def _console():
-    from rich.console import Console
-    return Console(highlight=False, width=None if sys.stdout.isatty() else 150)
 
 
 # ---------------------------------------------------------------------------- plan
@@ -146,7 +147,7 @@ def cmd_plan(args):
                 from skyscale.io.grid import cell_size_arcsec
                 cell = cell_size_arcsec(dirty_img.wcs)
     scales = _plan_scales(args.scales, dirty, psf_data, cell)
-    from skyscale.cli.options import parse_flux
+    from skyscale.job.options import parse_flux
     threshold = parse_flux(args.threshold, "--threshold")
     memory = None if args.memory is None else int(args.memory * 2**30)
     known = {k: (None if getattr(args, a) is None else
@@ -191,19 +192,9 @@ def _cube_words(plan, planes, threads):
     each = plan.total_seconds - plan.startup_seconds
     return (f"a cube of {planes} planes: this plan is one plane (its dynamic range from the "
             f"first); skyscale cube deconvolves the planes one per worker, and with "
-            f"{_b(plan.memory_bytes)} per plane the local cluster here runs {workers} "
-            f"worker(s) x {per} thread(s): about {_t(plan.startup_seconds + rounds * each)} for "
+            f"{memory_text(plan.memory_bytes)} per plane the local cluster here runs {workers} "
+            f"worker(s) x {per} thread(s): about {time_text(plan.startup_seconds + rounds * each)} for "
             f"the cube ({rounds} plane(s) per worker); --threads is per plane [1]")
-
-
-def _t(seconds):
-    from skyscale.cost.planner import seconds_text
-    return seconds_text(seconds)
-
-
-def _b(nbytes):
-    from skyscale.cost.planner import bytes_text
-    return bytes_text(nbytes)
 
 
 #: Words for where a plan's memory peaks (`skyscale.cost.predict_memory`'s phases).
@@ -214,7 +205,7 @@ _PHASES = {"beams": "while the first minor cycle makes the beams",
 def show_plan(plan):
     """Print a plan as a table."""
     from rich.table import Table
-    out = _console()
+    out = plain_console()
     t = Table(title="planned run", show_header=False)
     t.add_column("what")
     t.add_column("predicted")
@@ -227,19 +218,19 @@ def show_plan(plan):
               f"({c.get('fft_updates', c['rounds'])} by FFT update, the others direct), "
               f"{c['components']} components, {c['active_pixels']:.0f} active pixels per "
               "sub-loop")
-    t.add_row("start-up", _t(plan.startup_seconds) + (" (first run of the process)"
+    t.add_row("start-up", time_text(plan.startup_seconds) + (" (first run of the process)"
                                                       if plan.startup_seconds else ""))
-    t.add_row("precompute", _t(plan.precompute_seconds))
-    t.add_row("beams (first minor cycle)", _t(plan.beams_seconds))
-    t.add_row("each FFT update", _t(plan.round_seconds))
-    t.add_row("minor cycles", f"{_t(plan.minor_seconds)} (FFT updates "
-              f"{_t(plan.fft_update_seconds)}, direct updates {_t(plan.direct_seconds)}, "
-              f"sub-loop iterations {_t(plan.loop_seconds)})")
-    t.add_row("major cycles", f"{_t(plan.major_total_seconds)} ({_t(plan.major_seconds)} each, "
+    t.add_row("precompute", time_text(plan.precompute_seconds))
+    t.add_row("beams (first minor cycle)", time_text(plan.beams_seconds))
+    t.add_row("each FFT update", time_text(plan.round_seconds))
+    t.add_row("minor cycles", f"{time_text(plan.minor_seconds)} (FFT updates "
+              f"{time_text(plan.fft_update_seconds)}, direct updates {time_text(plan.direct_seconds)}, "
+              f"sub-loop iterations {time_text(plan.loop_seconds)})")
+    t.add_row("major cycles", f"{time_text(plan.major_total_seconds)} ({time_text(plan.major_seconds)} each, "
               "with the statistics)")
-    t.add_row("total", _t(plan.total_seconds))
-    t.add_row("peak memory", f"{_b(plan.memory_bytes)} ({_PHASES.get(plan.memory_phase, plan.memory_phase)})")
-    t.add_row("memory available", _b(plan.memory_available))
+    t.add_row("total", time_text(plan.total_seconds))
+    t.add_row("peak memory", f"{memory_text(plan.memory_bytes)} ({_PHASES.get(plan.memory_phase, plan.memory_phase)})")
+    t.add_row("memory available", memory_text(plan.memory_available))
     t.add_row("fits", "yes" if plan.fits else "[bold red]NO: will not fit[/] (what would: "
               "below)")
     out.print(t)
@@ -257,7 +248,8 @@ def show_plan(plan):
 def cmd_bench(args):
     """``skyscale bench``: run the sweep, print tables, write bench.json and bench.png."""
     from skyscale.io.atomic import atomic_write_bytes
-    from skyscale.cost.calibration import default_calibration_path, save_calibration
+    from skyscale.core.calibration import default_calibration_path
+    from skyscale.cost.calibration import save_calibration
     from skyscale.cli.bench_summary import plot_bench, show_bench
     from skyscale.cost.sweep import run_sweep
     if args.components < 1:
@@ -272,7 +264,7 @@ def cmd_bench(args):
         raise FileExistsError(f"{clash[0]} exists; choose another --out or pass --overwrite")
     os.makedirs(args.out, exist_ok=True)
     quiet = getattr(args, "quiet", False)
-    out = _console()
+    out = plain_console()
     status = out.status("measuring") if (not quiet and sys.stdout.isatty()) else None
 
     def progress(event):
@@ -308,7 +300,7 @@ def cmd_bench(args):
 
 def _plan_scales(text, dirty, psf, cell):
     """Scale diameters in pixels from ``--scales`` read as ``run`` reads them."""
-    from skyscale.cli.options import parse_scales
+    from skyscale.job.options import parse_scales
     from skyscale.core.validate import InputError
     scales, unit = parse_scales(text, "--scales")
     if scales == "auto":
@@ -331,7 +323,3 @@ def _jsonable(value):
     if hasattr(value, "tolist"):
         return value.tolist()
     return float(value)
-
-
-def _scales(values):
-    return ",".join(f"{s:g}" for s in values)

@@ -22,6 +22,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import ndimage, optimize, signal
 
+from skyscale.core.fft import convolve_centred
 from skyscale.core.validate import as_image
 
 __all__ = ["FWHM_PER_SIGMA", "FWHM_TO_SIGMA", "FIT_THRESHOLD", "KERNEL_SIGMAS", "Beam", "fit_beam",
@@ -475,7 +476,6 @@ def restore(model, residual, beam, *, fft=None):
         full = signal.fftconvolve(mod, kernel, mode="full")
         out = np.ascontiguousarray(full[hy:hy + ny, hx:hx + nx], dtype=dtype)
     else:
-        from skyscale.core.fft import convolve_centred  # the project's FFT backends
         out = np.ascontiguousarray(convolve_centred(mod, kernel, backend=fft), dtype=dtype)
     if residual is not None:
         out += res

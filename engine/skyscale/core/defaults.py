@@ -1,9 +1,10 @@
 """The algorithm's options and their defaults: one home for every default value.
 
-`CleanOptions` names every option of a deconvolution with its default; `DEFAULTS` is
-the instance the Python API (`skyscale.deconvolve`, `skyscale.Engine`, the planner),
-the command line and its TOML files (`skyscale.cli.job.RUN_DEFAULTS` is built from it) and
-the report all take their defaults from, so they cannot drift apart.  The command line
+`CleanOptions` names every option of a deconvolution with its default, made from the
+option table (`skyscale.core.option_table`); `DEFAULTS` is the instance the Python API
+(`skyscale.deconvolve`, `skyscale.Engine`, the planner) and the report take their
+defaults from, and the command line and its TOML files read the same table
+(`skyscale.job.options.RUN_DEFAULTS`), so they cannot drift apart.  The command line
 differs in two stated places: it stops at `RUN_NOISE_THRESHOLD` times the noise unless
 told otherwise, where the API's default is no noise stop, and it asks the scale advisor
 for the image's scales (`RUN_SCALES`) where the API's default is a fixed set.
@@ -20,56 +21,46 @@ Examples
 
 import dataclasses
 
+from skyscale.core.option_table import OPTION, algorithm_options
+
 __all__ = ["CleanOptions", "DEFAULTS", "RUN_NOISE_THRESHOLD", "RUN_SCALES"]
 
 
-@dataclasses.dataclass(frozen=True)
-class CleanOptions:
-    """Every option of a multi-scale CLEAN run, with its default.
+def _replace(self, **changes):
+    """A copy with ``changes`` (option names as keywords)."""
+    return dataclasses.replace(self, **changes)
 
-    Pass them on as keywords: ``skyscale.deconvolve(dirty, psf, **opts.as_dict())``.
-    """
 
-    #: Scale diameters in pixels (0 is the delta scale).
-    scales: tuple = (0.0, 4.0, 8.0, 16.0)
-    #: Scale kernel profile (`skyscale.core.scales.SCALE_SHAPES`).
-    scale_shape: str = "paraboloid"
-    #: Fraction of a component taken per step.
-    loop_gain: float = 0.1
-    #: Absolute stop level, Jy/beam.
-    threshold: float = 0.0
-    #: Stop at this multiple of each scale's own noise; None: no noise stop.
-    noise_threshold: float | None = None
-    #: Inside a mask, the largest scale stops at this fraction of the noise multiple.
-    extended_depth: float = 0.25
-    #: Component budget of the run.
-    max_components: int = 20000
-    #: Major-cycle budget of the run.
-    max_major_cycles: int = 20
-    #: Each minor cycle cleans to this fraction of its starting peak.
-    cycle_depth: float = 0.2
-    #: Bias toward small scales: weight ``1 - p s / s_max``.
-    size_penalty: float = 0.3
-    #: A sub-loop's active pixels are those above this fraction of its scale's peak.
-    scale_loop_depth: float = 0.5
+def _as_dict(self):
+    """``{option: value}``, JSON-ready (scales as a list)."""
+    d = dataclasses.asdict(self)
+    d["scales"] = [float(s) for s in self.scales]
+    return d
 
-    def replace(self, **changes):
-        """A copy with ``changes`` (option names as keywords)."""
-        return dataclasses.replace(self, **changes)
 
-    def as_dict(self):
-        """``{option: value}``, JSON-ready (scales as a list)."""
-        d = dataclasses.asdict(self)
-        d["scales"] = [float(s) for s in self.scales]
-        return d
+#: Every option of a multi-scale CLEAN run with its default: a frozen dataclass made
+#: from the algorithm's rows of `skyscale.core.option_table.OPTIONS`.  Pass them on as
+#: keywords: ``skyscale.deconvolve(dirty, psf, **opts.as_dict())``.
+CleanOptions = dataclasses.make_dataclass(
+    "CleanOptions",
+    [(o.name, type(o.default) if o.default is not None else object,
+      dataclasses.field(default=o.default, metadata={"help": o.help}))
+     for o in algorithm_options()],
+    namespace={"replace": _replace, "as_dict": _as_dict,
+               "__doc__": "Every option of a multi-scale CLEAN run, with its default.\n\n"
+                          "Fields (`skyscale.core.option_table.OPTIONS`): "
+                          + "; ".join(f"``{o.name}`` ({o.default!r}): {o.help}"
+                                      for o in algorithm_options()) + "."},
+    frozen=True)
+CleanOptions.__module__ = __name__
 
 
 #: The defaults everything takes.
 DEFAULTS = CleanOptions()
 
 #: The command line's (and TOML files', `run_files`', cubes') default noise stop.
-RUN_NOISE_THRESHOLD = 3.0
+RUN_NOISE_THRESHOLD = OPTION["noise_threshold"].default_in_run
 
 #: The command line's (and TOML files', `run_files`', cubes') default scales: the scale
 #: advisor's set for the image (a fixed set suits few images; CHANGELOG, issue 19).
-RUN_SCALES = "auto"
+RUN_SCALES = OPTION["scales"].default_in_run

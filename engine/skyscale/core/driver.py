@@ -463,7 +463,7 @@ def deconvolve(dirty, psf, *, scales=DEFAULTS.scales, loop_gain=DEFAULTS.loop_ga
               if k not in ("dirty", "psf", "mask", "model", "operator", "callback", "beam",
                            "emission_mask", "EmissionMask", "blank")}
     # --- input checks (issue 12): every option is checked in _validate.check_run_options ---
-    from skyscale.core.validate import check_run_options
+    from skyscale.core.run_checks import check_run_options
     early, psf = check_run_options(
         dirty, psf, scales=scales, loop_gain=loop_gain, threshold=threshold,
         noise_threshold=noise_threshold, extended_depth=extended_depth,

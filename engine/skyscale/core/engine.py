@@ -35,9 +35,10 @@ from skyscale.core.kernels.tracked import masked_peak
 from skyscale.core.cycle_work import CycleWork
 from skyscale.core.levels import allowed_peak, scale_levels
 from skyscale.core.noise import scale_noise
-from skyscale.cost.model import MEMORY_HEADROOM, engine_memory, fft_work, fits_memory
+from skyscale.core.grids import fft_work
+from skyscale.core.memory import MEMORY_HEADROOM, engine_memory, fits_memory
 from skyscale.core.precompute import BeamBank, beam_peaks
-from skyscale.core.psf import check_psf, describe_psf
+from skyscale.core.psf import check_psf
 from skyscale.core.result import COMPONENT_DTYPE
 from skyscale.core.scales import ScaleSet
 from skyscale.core.windows import measurement_window
@@ -270,7 +271,6 @@ class Engine:
                                                          px // 2 - k.shape[1] // 2:
                                                          px // 2 + k.shape[1] // 2 + 1]))
             for k in self.kernels])
-        self.amp_scale = 1.0 / self.beam_peaks
         self.response_scale = self.weights / np.sqrt(self.beam_peaks)
         self.precompute_seconds = time.perf_counter() - t0
         logger.info("engine ready: %d scales %s, %.1f MiB, %.2f s", len(self.scales),
@@ -281,13 +281,6 @@ class Engine:
     @property
     def n_scales(self):
         return len(self.scales)
-
-    @property
-    def psf_info(self):
-        """`skyscale.core.psf.describe_psf` of the engine's PSF (made on first use)."""
-        if getattr(self, "_psf_info", None) is None:
-            self._psf_info = describe_psf(self.psf, self.image_shape)
-        return self._psf_info
 
     @property
     def psf_convolver(self):

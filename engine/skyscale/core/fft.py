@@ -12,13 +12,13 @@ against each other.
 """
 
 import logging
-import os
 import threading
 
 import numpy as np
 import scipy.fft as _sfft
 from scipy.fft import next_fast_len
 
+from skyscale.core.threads import usable_cores
 from skyscale.core.validate import FFT_BACKENDS, check_choice
 
 __all__ = ["FFT_BACKENDS", "ScipyFFT", "NumpyFFT", "FFTWFFT", "get_backend", "fast_shape",
@@ -27,7 +27,7 @@ __all__ = ["FFT_BACKENDS", "ScipyFFT", "NumpyFFT", "FFTWFFT", "get_backend", "fa
 logger = logging.getLogger(__name__)
 
 def _workers(threads):
-    return max(int(threads or os.cpu_count() or 1), 1)
+    return max(int(threads or usable_cores()), 1)
 
 
 class ScipyFFT:

@@ -17,16 +17,6 @@ __all__ = ["LEVEL_ALLOWANCE", "scale_levels", "allowed_peak"]
 #: multiple of the delta scale's stop level (it is then cleaned again like any peak).
 LEVEL_ALLOWANCE = 1.1
 
-#: Inside a mask, the largest scale stops at this fraction of the noise multiple, and
-#: the finite scales between it and the delta scale at fractions in proportion to their
-#: size.  A broad plateau of one sigma per pixel over many beams is highly significant
-#: in total but only a few sigma of its own scale's noise; where a mask says emission
-#: is, the broad scales must be allowed below the delta scale's significance (common
-#: practice of cleaning deeper inside a mask).  Small scales keep nearly the delta
-#: scale's level: they have as many independent noise peaks as it does, and cleaning
-#: them deeper would only model noise.
-
-
 #: A scale whose smoothing lowers the noise by half (``sigma_k = sigma_0 / 2``) or more
 #: spans enough beams to go the full `extended_depth` deeper inside a mask; one that
 #: lowers it less goes deeper in proportion (``BREADTH_GAIN * (1 - sigma_k / sigma_0)``).

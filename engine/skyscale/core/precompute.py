@@ -106,7 +106,7 @@ def plan_memory(image_shape, psf_shape, radii, itemsize=4):
     predicted peak, about three times this function's old figure at 2048^2).
     """
     import warnings
-    from skyscale.cost.model import engine_memory
+    from skyscale.core.memory import engine_memory
     warnings.warn("skyscale.core.precompute.plan_memory is deprecated: the one memory account "
                   "is skyscale.cost.engine_memory (what Engine.memory holds)",
                   DeprecationWarning, stacklevel=2)

@@ -1,29 +1,14 @@
-"""PSF checks and normalisation, main-lobe and sidelobe measures, patch support.
+"""PSF checks and normalisation: shape, centre, sign and peak, each refused with its fix."""
 
-References
-----------
-.. [1] Clark, B. G. 1980, "An efficient implementation of the algorithm 'CLEAN'",
-   A&A 89, 377.
-"""
-
-import logging
 import warnings
 import weakref
-from dataclasses import dataclass
 
 import numpy as np
-from scipy import ndimage
 
 from skyscale.core.validate import InputError, as_image
 
-__all__ = ["PSFInfo", "check_psf", "describe_psf", "outside_level_profile", "PSF_PATCH_LEVEL",
-           "PSF_PEAK_TOLERANCE"]
+__all__ = ["check_psf", "PSF_PEAK_TOLERANCE"]
 
-logger = logging.getLogger(__name__)
-
-#: Default |PSF| level outside the minor-cycle patch: the patch is the smallest
-#: centred square beyond which the PSF never exceeds this fraction of its peak.
-PSF_PATCH_LEVEL = 0.1
 #: A PSF whose peak differs from 1 by up to this much is normalised (with a warning);
 #: beyond it the file is probably not a PSF and is refused.
 PSF_PEAK_TOLERANCE = 0.1
@@ -31,18 +16,6 @@ PSF_PEAK_TOLERANCE = 0.1
 #: The PSFs `check_psf` has returned (by id, weakly held): one handed back to it again
 #: is returned as it is instead of being analysed again.
 _CHECKED = weakref.WeakValueDictionary()
-
-
-@dataclass(frozen=True)
-class PSFInfo:
-    """Measures of a PSF used to plan minor cycles."""
-
-    shape: tuple            #: PSF shape (ny, nx)
-    centre: tuple           #: (ny // 2, nx // 2)
-    main_lobe_radius: int   #: radius in pixels that contains the main lobe
-    patch_half: int         #: half-width of the minor-cycle PSF patch, pixels
-    outside_level: float    #: peak |PSF| outside the patch (Clark's cycle floor factor)
-    exact_offsets: tuple    #: largest |dy|, |dx| offsets the PSF covers on both sides
 
 
 def check_psf(psf, image_shape, *, dtype=np.float32, name="psf"):
@@ -118,84 +91,3 @@ def _likely_cause(psf, peak):
                 "numpy.fft.fftshift(psf) so the peak is at (ny // 2, nx // 2)")
     return ("is this the dirty image? Check that the dirty image comes first and the PSF "
             "second; if it is the PSF, re-centre it so its maximum is at (ny // 2, nx // 2)")
-
-
-def outside_level_profile(psf):
-    """Peak |PSF| outside the centred square of each half-width.
-
-    Returns
-    -------
-    levels : (hmax + 1,) ndarray
-        ``levels[h]`` is the largest ``|psf|`` at Chebyshev distance ``> h`` from the
-        centre; ``hmax`` is the largest distance in the PSF.
-    """
-    py, px = psf.shape
-    cy, cx = py // 2, px // 2
-    yy = np.abs(np.arange(py) - cy)[:, None]
-    xx = np.abs(np.arange(px) - cx)[None, :]
-    dist = np.maximum(yy, xx)
-    hmax = int(dist.max())
-    ring_max = np.zeros(hmax + 2)
-    np.maximum.at(ring_max, dist.ravel(), np.abs(psf).ravel().astype(np.float64))
-    # levels[h] = max over rings d > h: reverse cumulative maximum
-    rev = np.maximum.accumulate(ring_max[::-1])[::-1]
-    return rev[1:hmax + 2]
-
-
-def describe_psf(psf, image_shape, *, patch_half=None, patch_level=PSF_PATCH_LEVEL):
-    """Measure main lobe, sidelobes and the minor-cycle patch of a normalised PSF.
-
-    Parameters
-    ----------
-    psf : (py, px) ndarray
-        Normalised PSF (see `check_psf`).
-    image_shape : (int, int)
-        Dirty image shape; patches need never be wider than the image.
-    patch_half : int, optional
-        Half-width of the minor-cycle PSF patch.  Default: the smallest half-width
-        beyond which ``|psf| <= patch_level``, and at least twice the main-lobe
-        radius, so that the first sidelobes are inside it.
-    patch_level : float
-        See above; default `PSF_PATCH_LEVEL`.
-
-    Returns
-    -------
-    PSFInfo
-
-    Notes
-    -----
-    The main lobe is the connected region around the centre where the PSF is
-    positive, limited to 2.5 times the half-power radius.  A minor cycle that uses
-    only the patch must stop at ``outside_level`` times its starting peak, where the
-    neglected sidelobes could start to matter ([1]_).
-
-    References
-    ----------
-    .. [1] Clark 1980, A&A 89, 377.
-    """
-    py, px = psf.shape
-    cy, cx = py // 2, px // 2
-    half = ndimage.label(psf > 0.5)[0]
-    r_half = np.sqrt(np.count_nonzero(half == half[cy, cx]) / np.pi)
-    positive, _ = ndimage.label(psf > 0)
-    yy, xx = np.ogrid[:py, :px]
-    r = np.hypot(yy - cy, xx - cx)
-    lobe = (positive == positive[cy, cx]) & (r <= max(2.5 * r_half, 1.5))
-    main_lobe_radius = int(np.ceil(r[lobe].max())) if lobe.any() else 1
-
-    levels = outside_level_profile(psf)
-    hcap = max(image_shape) - 1
-    if patch_half is None:
-        above = np.nonzero(levels > patch_level)[0]
-        h = int(above[-1] + 1) if above.size else 0
-        h = max(h, 2 * main_lobe_radius)   # main lobe and the first sidelobe ring
-    else:
-        h = int(patch_half)
-        if h < 0:
-            raise InputError(f"psf_patch is {patch_half}, expected a half-width >= 0 pixels")
-    h = int(min(h, hcap, len(levels) - 1))
-    outside_level = float(levels[h]) if h < len(levels) else 0.0
-    exact = (min(cy, py - 1 - cy), min(cx, px - 1 - cx))
-    info = PSFInfo(psf.shape, (cy, cx), main_lobe_radius, h, outside_level, exact)
-    logger.debug("PSF: %s", info)
-    return info

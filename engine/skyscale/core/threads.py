@@ -7,9 +7,10 @@ with ``OMP_WAIT_POLICY=active``.  On a small machine those spinning threads comp
 with the FFT threads, while a short spin keeps the minor cycle's back-to-back regions
 fast.  `set_openmp_spin_default` therefore sets ``GOMP_SPINCOUNT`` to
 `DEFAULT_GOMP_SPINCOUNT` unless the user has set it; libgomp reads it once, when Numba
-first loads it (the first parallel kernel or thread-count call), so it is called when
-skyscale is imported, before any kernel runs.  A value the user has set, in the
-environment before the import, wins.  `openmp_wait` says what is in effect.
+first loads it (the first parallel kernel or thread-count call), so `thread_limit`, which
+every run enters before its kernels, calls it first.  Importing skyscale changes nothing
+in the environment.  A value the user has set wins.  `openmp_wait` says what is in
+effect.
 """
 
 import contextlib
@@ -17,7 +18,7 @@ import os
 
 import numba
 
-__all__ = ["thread_limit", "resolve_threads", "DEFAULT_GOMP_SPINCOUNT", "SHORT_SPIN",
+__all__ = ["usable_cores", "thread_limit", "resolve_threads", "DEFAULT_GOMP_SPINCOUNT", "SHORT_SPIN",
            "set_openmp_spin_default", "openmp_wait", "threads_in_effect"]
 
 #: ``GOMP_SPINCOUNT`` skyscale sets when the user has not (spins before an idle OpenMP
@@ -33,8 +34,8 @@ _SET_BY_SKYSCALE = []      # [True] once set_openmp_spin_default has set the var
 def set_openmp_spin_default():
     """Set ``GOMP_SPINCOUNT`` to `DEFAULT_GOMP_SPINCOUNT` unless it is set already.
 
-    Must run before Numba first loads OpenMP (libgomp reads the variable then); the
-    package import does it.  Returns the value now in the environment.
+    Must run before Numba first loads OpenMP (libgomp reads the variable then);
+    `thread_limit` does it.  Returns the value now in the environment.
     """
     if "GOMP_SPINCOUNT" not in os.environ:
         os.environ["GOMP_SPINCOUNT"] = str(DEFAULT_GOMP_SPINCOUNT)
@@ -65,6 +66,14 @@ def openmp_wait():
             "short": short}
 
 
+def usable_cores():
+    """Cores this process may run on (its CPU affinity where the system tells it, else
+    every core the machine has): the one count of cores the rest uses."""
+    if hasattr(os, "sched_getaffinity"):
+        return max(len(os.sched_getaffinity(0)), 1)
+    return max(os.cpu_count() or 1, 1)
+
+
 def resolve_threads(threads):
     """Return the thread count to use: ``None`` means every core Numba may use."""
     if threads is None:
@@ -78,8 +87,13 @@ def resolve_threads(threads):
 @contextlib.contextmanager
 def thread_limit(threads):
     """Context manager: Numba kernels and ``scipy.fft`` calls inside use ``threads``
-    threads (scipy.fft's default workers; its results do not depend on them)."""
+    threads (scipy.fft's default workers; its results do not depend on them).
+
+    Sets OpenMP's idle spin first (`set_openmp_spin_default`), before Numba's first
+    thread-count call loads OpenMP.
+    """
     import scipy.fft
+    set_openmp_spin_default()
     n = resolve_threads(threads)
     previous = numba.get_num_threads()
     numba.set_num_threads(n)

@@ -49,21 +49,19 @@ operator and the cycle's convolvers.  How the counts are estimated is in
 `estimate_counts`: they depend on the field, and the planner says which it assumed.
 Times are those of one unshared core (the sweep measures CPU seconds).  Threads divide
 the parallel part (Amdahl's law, fractions measured with 1 and 2 threads).  Memory has
-one account, `predict_memory`: the planner's figure and `skyscale.Engine`'s ``memory``
+one account, `skyscale.core.memory.predict_memory`: the planner's figure and `skyscale.Engine`'s ``memory``
 (and its ``max_memory`` check, `fits_memory`) are the same number.
 """
 
 import math
-from dataclasses import dataclass
 
-from scipy.fft import next_fast_len
-
-from skyscale.cost.calibration import (CALIBRATION_ENV, DEFAULT_CALIBRATION,
-                                       default_calibration_path, fit_nonnegative,
-                                       fit_power_law, load_calibration, save_calibration)
+from skyscale.core.calibration import (CALIBRATION_ENV, DEFAULT_CALIBRATION,
+                                       default_calibration_path, load_calibration)
 from skyscale.core.defaults import DEFAULTS
-from skyscale.cost.memory import (MEMORY_HEADROOM, engine_memory, fits_memory,
-                                  predict_memory)
+from skyscale.core.grids import Geometry, fft_work, run_geometry
+from skyscale.core.memory import (MEMORY_HEADROOM, available_memory, engine_memory,
+                                  fits_memory, predict_memory)
+from skyscale.cost.calibration import fit_nonnegative, fit_power_law, save_calibration
 
 __all__ = ["DEFAULT_CALIBRATION", "CALIBRATION_ENV", "DEFAULT_DYNAMIC_RANGE",
            "MEMORY_HEADROOM", "LOOP_TERMS", "Geometry", "run_geometry", "fft_work",
@@ -77,107 +75,16 @@ __all__ = ["DEFAULT_CALIBRATION", "CALIBRATION_ENV", "DEFAULT_DYNAMIC_RANGE",
 DEFAULT_DYNAMIC_RANGE = 1000.0
 
 
-def fft_work(shape):
-    """``S log2 S`` for an FFT of ``shape``: the unit of FFT work."""
-    s = float(shape[0]) * float(shape[1])
-    return s * math.log2(max(s, 2.0))
-
-
 def _amdahl(fraction, threads):
     """Time factor of ``threads`` threads for a parallel fraction (Amdahl's law)."""
     f = min(max(float(fraction), 0.0), 1.0)
     return (1.0 - f) + f / max(int(threads), 1)
 
 
-def _grid(n, below, above):
-    """FFT length of a centred circular convolution without wrap-around on ``n`` pixels
-    (as `skyscale.core.fft.Convolver` chooses it)."""
-    return next_fast_len(int(n + max(min(below, n - 1), min(above, n - 1))), real=True)
-
-
 def direct_cost_ratio():
     """The engine's rule for direct updates (`skyscale.core.engine.DIRECT_COST_RATIO`)."""
     from skyscale.core.engine import DIRECT_COST_RATIO
     return float(DIRECT_COST_RATIO)
-
-
-@dataclass(frozen=True)
-class Geometry:
-    """Sizes a run's cost depends on, from shapes alone.
-
-    The cycle's box is taken as the whole image (its largest: a run without a mask, or
-    with one that spans the image), so the grids, the beams' extent and the tracked
-    pixels are upper bounds for a compact mask.
-    """
-
-    image_shape: tuple
-    psf_shape: tuple
-    radii: tuple                 #: support half-width of each scale kernel
-    itemsize: int
-    precompute_grid: tuple       #: FFT grid of the beams (`skyscale.core.precompute.pair_beams`)
-    smooth_grid: tuple           #: FFT grid of the smoothing (None: delta scales only)
-    major_grid: tuple            #: FFT grid of the PSF convolution
-
-    @property
-    def n_scales(self):
-        return len(self.radii)
-
-    @property
-    def n_finite(self):
-        return sum(1 for r in self.radii if r > 0)
-
-    @property
-    def pixels(self):
-        return self.image_shape[0] * self.image_shape[1]
-
-    @property
-    def n_pairs(self):
-        """Pair beams direct updates use (`skyscale.Engine._pair_keys`): every pair of
-        scales, and each scale's response in the unsmoothed residual unless a delta
-        scale (radius 0, the kernel ``[[1]]``) stands for it."""
-        n = self.n_scales
-        return n * (n - 1) // 2 + (0 if 0 in self.radii else n)
-
-    @property
-    def beam_pixels(self):
-        """Pixels of one beam at the image's extent: ``(2 ny - 1) (2 nx - 1)``."""
-        return (2 * self.image_shape[0] - 1) * (2 * self.image_shape[1] - 1)
-
-    def transforms(self):
-        """FFTs per step, as ``{step: [(grid, count), ...]}``: ``precompute`` (the
-        engine's smoothing kernels), ``beams`` (each making of beams transforms the PSF
-        and each finite kernel: once for the scales' beams, once per scale for its pair
-        beams at its first direct update; then one inverse per beam), ``setup`` (the residual operator's PSF and the cycle's
-        convolvers), ``round`` (one FFT update), ``major`` and ``stats``."""
-        nf = self.n_finite
-        smooth = [(self.smooth_grid, nf)] if nf else []
-        step_s = [(self.smooth_grid, 1 + nf)] if nf else []
-        beams = [(self.precompute_grid, (1 + self.n_scales) * (1 + nf) + self.n_scales
-                  + self.n_pairs)]
-        return {"precompute": smooth, "beams": beams,
-                "setup": [(self.major_grid, 2)] + smooth,
-                "round": [(self.major_grid, 2)] + step_s, "major": [(self.major_grid, 2)],
-                "stats": step_s}
-
-    def fft_update_work(self):
-        """Work units (``S log2 S``) of one FFT update: the engine's
-        ``Engine._fft_update_cost`` for a box of the image's shape."""
-        return sum(n * fft_work(g) for g, n in self.transforms()["round"])
-
-
-def run_geometry(image_shape, psf_shape, radii, *, itemsize=4):
-    """The `Geometry` of a run (no large array is made)."""
-    ny, nx = (int(v) for v in image_shape)
-    py, px = (int(v) for v in psf_shape)
-    r = tuple(int(v) for v in radii)
-    rmax = max(r) if r else 0
-    major = (_grid(ny, py // 2, py - 1 - py // 2), _grid(nx, px // 2, px - 1 - px // 2))
-    region = (2 * (ny - 1 + 2 * rmax) + 1, 2 * (nx - 1 + 2 * rmax) + 1)
-    pre = tuple(next_fast_len(int(v + 4 * rmax), real=True) for v in region)
-    smooth = None
-    if rmax > 0:
-        smooth = (_grid(ny, rmax, rmax), _grid(nx, rmax, rmax))
-    return Geometry((ny, nx), (py, px), r, int(itemsize), pre, smooth, major)
 
 
 def fft_seconds(pieces, calibration, threads=1):
@@ -400,33 +307,3 @@ def estimate_counts(geom, calibration=None, *, dynamic_range=None,
             "fft_updates": int(fft_updates), "components": int(components),
             "active_pixels": float(active_pixels),
             "tracked_pixels": float(mask_fraction) * geom.pixels, "how": how}
-
-
-def available_memory():
-    """Bytes of memory available now (psutil, else /proc/meminfo), or None if unknown."""
-    try:
-        import psutil
-        return int(psutil.virtual_memory().available)
-    except ImportError:
-        pass
-    try:
-        with open("/proc/meminfo") as fh:
-            for line in fh:
-                if line.startswith("MemAvailable:"):
-                    return int(line.split()[1]) * 1024
-    except OSError:
-        pass
-    return None
-
-
-
-
-_PLANNER = ("Plan", "plan_run", "check_fits_memory", "max_affordable_scales",
-            "AffordableScales", "InsufficientMemoryError")
-
-
-def __getattr__(name):   # the planner lives in skyscale.cost.planner; old import paths keep working
-    if name in _PLANNER:
-        from skyscale.cost import planner
-        return getattr(planner, name)
-    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")

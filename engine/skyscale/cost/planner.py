@@ -10,10 +10,13 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
+from skyscale.core.defaults import DEFAULTS, RUN_NOISE_THRESHOLD
+from skyscale.core.noise import robust_noise
+from skyscale.core.scales import ScaleSet
+from skyscale.core.threads import openmp_wait, resolve_threads
+from skyscale.core.validate import NUMBER_RULES, check_number, resolve_dtype
 from skyscale.cost import model as cost
-from skyscale.core.threads import openmp_wait
-from skyscale.core.validate import resolve_dtype
-from skyscale.core.defaults import DEFAULTS
+from skyscale.cost.remedies import bench_advice, memory_remedies
 
 __all__ = ["Plan", "plan_run", "check_fits_memory", "max_affordable_scales",
            "AffordableScales", "InsufficientMemoryError", "seconds_text", "bytes_text"]
@@ -119,13 +122,13 @@ def _dynamic_range(dirty, threshold, noise_threshold, messages):
     a field whose sidelobes stand above the noise this underestimates the dynamic range
     (and the major cycles); ``dynamic_range=`` gives it directly.
     """
-    from skyscale.core.noise import robust_noise
     data = np.asarray(dirty, dtype=np.float32)
     peak = float(np.nanmax(np.abs(data)))
-    nu = 3.0 if noise_threshold is None and not threshold else (noise_threshold or 0.0)
+    nu = RUN_NOISE_THRESHOLD if noise_threshold is None and not threshold \
+        else (noise_threshold or 0.0)
     if noise_threshold is None and not threshold:
-        messages.append("no stop level given: the dynamic range is counted to 3 x the "
-                        "dirty image's robust noise")
+        messages.append(f"no stop level given: the dynamic range is counted to "
+                        f"{RUN_NOISE_THRESHOLD:g} x the dirty image's robust noise")
     level = max(float(threshold), nu * robust_noise(data))
     messages.append("dynamic range measured on the dirty image, whose robust noise includes "
                     "the sidelobes of bright sources (an underestimate where they stand "
@@ -189,8 +192,6 @@ def plan_run(image_shape, psf, scales, *, max_components=DEFAULTS.max_components
     -------
     Plan
     """
-    from skyscale.core.threads import resolve_threads
-    from skyscale.core.scales import ScaleSet
     messages = []
     image_shape = _shape2(image_shape, "image_shape")
     psf_shape = np.shape(psf)[-2:] if np.ndim(psf) >= 2 else _shape2(psf, "psf")
@@ -200,9 +201,9 @@ def plan_run(image_shape, psf, scales, *, max_components=DEFAULTS.max_components
     dt = resolve_dtype(dtype)
     sset = ScaleSet(scales, shape=scale_shape, image_shape=image_shape)
     for name, value in (("max_components", max_components),
-                        ("max_major_cycles", max_major_cycles)):
-        if int(value) < 0:
-            raise ValueError(f"{name} is {value}, expected an integer >= 0")
+                        ("max_major_cycles", max_major_cycles), ("cycle_depth", cycle_depth),
+                        ("threshold", threshold), ("noise_threshold", noise_threshold)):
+        check_number(value, name, **NUMBER_RULES[name])      # as deconvolve checks them
     if not 0.0 < float(mask_fraction) <= 1.0:
         raise ValueError(f"mask_fraction is {mask_fraction}, expected a fraction in (0, 1]")
     cores = resolve_threads(None)
@@ -257,7 +258,6 @@ def plan_run(image_shape, psf, scales, *, max_components=DEFAULTS.max_components
     mem = cost.predict_memory(geom, cal)
     avail = memory_available if memory_available is not None else cost.available_memory()
     if big and image_shape[0] * image_shape[1] > 1.5 * big:
-        from skyscale.cost.remedies import bench_advice
         side = int(big ** 0.5)
         messages.append(f"the image is larger than the calibrated sizes (up to {side} x "
                         f"{side}); times are extrapolated: "
@@ -267,7 +267,6 @@ def plan_run(image_shape, psf, scales, *, max_components=DEFAULTS.max_components
     if avail is None:
         messages.append("the memory available is unknown; not checked")
     elif not fits:
-        from skyscale.cost.remedies import memory_remedies
         messages.append(f"will not fit: needs about {_gib(mem['peak'])} (peak at "
                         f"{mem['peak_phase']}), {_gib(avail)} available")
         remedies = memory_remedies(image_shape, psf_shape, sset.pixels,

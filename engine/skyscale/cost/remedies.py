@@ -5,12 +5,15 @@ and calibration as the planner (`skyscale.cost.predict_memory`), the peak memory
 change a user can make: fewer scales (the most of the smallest that fit), float32
 instead of float64, a PSF the image's size instead of larger, and the largest square
 sub-region that fits with everything else as given.  `bench_advice` picks the sizes of
-a ``skyscale bench`` that fit (`skyscale.cost.sweep.sweep_memory`) for a plan whose image is
+a ``skyscale bench`` that fit (`skyscale.cost.sweep_plan.sweep_memory`) for a plan whose image is
 larger than the calibrated sizes.  Nothing here prints.
 """
 
-from skyscale.cost import model as cost
 from skyscale.core.defaults import DEFAULTS
+from skyscale.core.scales import ScaleSet
+from skyscale.core.validate import InputError
+from skyscale.cost import model as cost
+from skyscale.cost.sweep_plan import sweep_memory
 
 __all__ = ["memory_remedies", "bench_sizes_that_fit", "bench_advice", "check_bench_fits",
            "BENCH_SIZE_LADDER"]
@@ -26,8 +29,6 @@ def _gib(nbytes):
 
 def _peak(image_shape, psf_shape, scales, itemsize, scale_shape, cal):
     """Predicted peak bytes, or None where the scales do not fit the image at all."""
-    from skyscale.core.validate import InputError
-    from skyscale.core.scales import ScaleSet
     try:
         radii = ScaleSet(scales, shape=scale_shape, image_shape=image_shape).support_radii
     except (InputError, ValueError):
@@ -157,7 +158,6 @@ def _largest_region(ny, nx, py, px, peak, available):
 def bench_sizes_that_fit(available, *, calibration=None, up_to=None, validate=True):
     """The largest sizes of `BENCH_SIZE_LADDER` (up to three, ending at ``up_to`` or
     below) whose ``skyscale bench`` fits in ``available`` bytes; [] if none does."""
-    from skyscale.cost.sweep import sweep_memory
     ladder = [n for n in BENCH_SIZE_LADDER if up_to is None or n <= up_to] or \
         [BENCH_SIZE_LADDER[0]]
     for top in reversed(range(len(ladder))):
@@ -179,7 +179,6 @@ def bench_advice(image_shape, calibrated_side, available, calibration=None):
                 "(memory available unknown: not checked)")
     sizes = bench_sizes_that_fit(available, calibration=calibration, up_to=side)
     if sizes and sizes[-1] > calibrated_side:
-        from skyscale.cost.sweep import sweep_memory
         peak, _ = sweep_memory(sizes, calibration=calibration)
         return (f"for a closer figure run skyscale bench --sizes {','.join(map(str, sizes))} "
                 f"(the largest sweep that fits here: about {_gib(peak)} of "
@@ -192,8 +191,6 @@ def bench_advice(image_shape, calibrated_side, available, calibration=None):
 
 def check_bench_fits(sizes, available, *, validate=True, calibration=None, label="--sizes"):
     """Refuse a ``skyscale bench`` whose largest step will not fit, naming sizes that do."""
-    from skyscale.core.validate import InputError
-    from skyscale.cost.sweep import sweep_memory
     if available is None:
         return
     peak, (n, scales) = sweep_memory(sizes, validate=validate, calibration=calibration)

@@ -27,38 +27,32 @@ import time
 import numpy as np
 
 from skyscale.cost import model as cost
+from skyscale.cost import planner
 from skyscale.cost.instruments import (RSS_INTERVAL, PeakMemory, SubLoopRecord,  # noqa: F401
                                        cpu_clock, fft_probe, kept_warnings,
                                        record_sub_loops)
 from skyscale.core.threads import resolve_threads, thread_limit
-from skyscale.core.driver import masked_stats
+from skyscale.core.cycle_work import CycleWork
+from skyscale.core.driver import deconvolve, masked_stats
 from skyscale.core.engine import Engine
+from skyscale.core.kernels import scale_loop
 from skyscale.core.operators import ImagePlaneOperator
+from skyscale.cost.sweepfit import calibrate, summarize
+from skyscale.cost.sweep_plan import (DEFAULT_SIZES, SCALE_SETS, VALIDATION_RUNS,
+                                      calibration_runs, scale_radii, sets_for)
 
-__all__ = ["SCALE_SETS", "DEFAULT_SIZES", "QUICK_SETTINGS", "synthetic_field", "PeakMemory",
+__all__ = ["QUICK_SETTINGS", "synthetic_field", "PeakMemory",
            "cpu_clock", "record_sub_loops", "SubLoopRecord", "direct_probe", "fft_probe",
-           "measure_point", "measure_run", "run_sweep", "VALIDATION_RUNS", "sweep_shapes",
-           "sweep_memory"]
+           "measure_point", "measure_run", "run_sweep"]
 
 logger = logging.getLogger(__name__)
 
-#: Scale sets swept at every size (the doubling ladder from the delta scale).
-SCALE_SETS = ((0,), (0, 4), (0, 4, 8, 16), (0, 4, 8, 16, 32, 64))
-#: Image sizes swept by default (square images, PSF twice the size).
-DEFAULT_SIZES = (512, 1024, 2048)
-#: Largest image area at which every scale set is swept; above it the first and the
-#: third only (memory and minutes on a shared machine).
-FULL_LADDER_PIXELS = 1024 * 1024
 #: Components of the minor cycle timed per point (after a shorter one that makes the
 #: cycle's FFT plans).
 POINT_COMPONENTS = 1500
 #: Settings of ``quick=True`` (a smoke run for tests: seconds, not minutes).
 QUICK_SETTINGS = {"sizes": (96, 128), "scale_sets": ((0,), (0, 4, 8)), "components": 60,
                   "run_components": 300, "validate_size": 112}
-#: Runs that check the planner on sizes and fields the sweep did not see:
-#: ``(size, scales, seed)``.
-VALIDATION_RUNS = ((768, (0, 4, 8, 16), 11), (1536, (0, 4, 8, 16, 32), 12),
-                   (640, (0, 4, 8, 16, 32), 14))
 
 
 # --------------------------------------------------------------------------- inputs
@@ -168,7 +162,6 @@ def measure_run(dirty, psf, scales, *, max_components, noise_threshold=3.0, thre
     their allowance the direct ones used) and peak memory."""
     if resolve_threads(threads) != 1:
         raise ValueError(f"threads is {threads}: measure_run times CPU seconds and needs 1")
-    from skyscale.core.driver import deconvolve
     with record_sub_loops() as loops, PeakMemory(RSS_INTERVAL) as mem, cpu_clock(), \
             kept_warnings() as said:
         t0, c0 = time.perf_counter(), time.process_time()
@@ -182,7 +175,7 @@ def measure_run(dirty, psf, scales, *, max_components, noise_threshold=3.0, thre
     weighted = sum(a * m for a, m, _ in loops) / took if took else 0.0
     sigma = res.scale_noise[0] if res.scale_noise else 0.0
     level = noise_threshold * sigma
-    g = cost.run_geometry(dirty.shape, psf.shape, _radii(scales))
+    g = cost.run_geometry(dirty.shape, psf.shape, scale_radii(scales))
     n1 = len(scales) + 1
     allowance = cost.direct_cost_ratio() * g.fft_update_work()
     used = [m * n_t * n1 / allowance for kind, m, n_t, _, ok in loops.updates
@@ -212,21 +205,16 @@ def predicted_for(run, calibration, *, a_priori):
     False: the model per step) or from its dynamic range and budget alone."""
     kw = {} if a_priori else {k: run[k] for k in ("components", "rounds", "major_cycles",
                                                   "active_pixels", "fft_updates")}
-    p = cost.plan_run(run["image_shape"], run["psf_shape"], run["scales"],
+    p = planner.plan_run(run["image_shape"], run["psf_shape"], run["scales"],
                       max_components=run["max_components"], threads=run["threads"],
                       calibration=calibration, memory_available=1 << 62, fresh_process=False,
                       dynamic_range=run["dynamic_range"], **kw)
     g = cost.run_geometry(run["image_shape"], run["psf_shape"],
-                          [int(r) for r in _radii(run["scales"])])
+                          [int(r) for r in scale_radii(run["scales"])])
     op = cost.predict_times(g, calibration, threads=run["threads"])["major"]
     return {"precompute": p.precompute_seconds, "minor": p.minor_seconds,
             "major": p.counts["major_cycles"] * op, "total": p.total_seconds,
             "memory": p.memory_bytes, "counts": p.counts}
-
-
-def _radii(scales):
-    from skyscale.core.scales import ScaleSet
-    return ScaleSet(scales).support_radii
 
 
 # ---------------------------------------------------------------------------- sweep
@@ -239,7 +227,6 @@ def _notify(callback, **event):
 def loop_threads_probe(n=512, iterations=40, thread_counts=(1, 2), repeats=3):
     """The sub-loop on a whole plane (``n * n`` active pixels, the parallel path) at
     each thread count, interleaved run by run: ``[{'threads', 'seconds'}]``."""
-    from skyscale.core.kernels import scale_loop
     dirty, psf = synthetic_field(n, seed=3)
     e = Engine(psf, [0, 4], image_shape=dirty.shape, threads=1)
     plane = e.smooth(dirty)[1]
@@ -262,7 +249,6 @@ def direct_probe(sizes, scales=(0, 4, 8, 16), components=(1, 8), repeats=3):
     ``[{'size', 'n_scales', 'tracked', 'components', 'seconds'}]`` (CPU seconds, best of
     ``repeats``).  Their cost per pixel and plane grows with the tracked set once it
     outgrows the caches, which the calibration runs at small sizes do not see."""
-    from skyscale.core.cycle_work import CycleWork
     out = []
     for n in sorted({int(v) for v in sizes}):
         sc = [s for s in scales if s <= n // 4]
@@ -321,49 +307,6 @@ def measure_cold_start(n, scales, components=500, seed=13):
     return out
 
 
-def _sets_for(n, scale_sets):
-    ok = [s for s in scale_sets if max(s) <= n // 4]
-    if n * n > FULL_LADDER_PIXELS:
-        ok = ok[::2]
-    return ok
-
-
-def _calibration_runs(sizes):
-    runs = [(sizes[0], (0, 4, 8)), (sizes[0], (0, 4, 8, 16)),
-            (sizes[-1 if len(sizes) < 2 else 1], (0, 4, 8, 16))]
-    return [(n, s) for n, s in runs if max(s) <= n // 4]
-
-
-def sweep_shapes(sizes, *, validate=True):
-    """Every ``(size, scales)`` the sweep of ``sizes`` runs (PSF twice the size, float32):
-    the points, the calibration runs and, with ``validate``, `VALIDATION_RUNS`."""
-    sizes = sorted({int(s) for s in sizes})
-    todo = [(n, tuple(s)) for n in sizes for s in _sets_for(n, SCALE_SETS)]
-    todo += [(n, tuple(s)) for n, s in _calibration_runs(sizes)]
-    if validate:
-        todo += [(n, tuple(s)) for n, s, _ in VALIDATION_RUNS]
-    return todo
-
-
-def sweep_memory(sizes, *, validate=True, calibration=None):
-    """Predicted peak memory of ``skyscale bench --sizes`` (bytes) and its largest step.
-
-    Returns
-    -------
-    peak : int
-        The largest `skyscale.cost.predict_memory` peak of the steps of `sweep_shapes`.
-    worst : (int, tuple)
-        Its ``(size, scales)``.
-    """
-    cal = calibration or cost.load_calibration()
-    best = (0, None)
-    for n, scales in sweep_shapes(sizes, validate=validate):
-        g = cost.run_geometry((n, n), (2 * n, 2 * n), _radii(scales))
-        best = max(best, (cost.predict_memory(g, cal)["peak"], (n, scales)),
-                   key=lambda b: b[0])
-    return best
-
-
 def run_sweep(sizes=DEFAULT_SIZES, *, scale_sets=SCALE_SETS, components=POINT_COMPONENTS,
               thread_counts=None, quick=False, validate=True, callback=None):
     """Measure the cost of scales, image size and threads; fit and check the model.
@@ -393,7 +336,6 @@ def run_sweep(sizes=DEFAULT_SIZES, *, scale_sets=SCALE_SETS, components=POINT_CO
         ``runs`` (calibration runs), ``cold_start``, ``calibration``, ``validation``,
         ``summary`` and ``seconds``.
     """
-    from skyscale.cost.sweepfit import calibrate, summarize
     t_start = time.perf_counter()
     q = QUICK_SETTINGS if quick else {}
     sizes = sorted({int(s) for s in (q.get("sizes") or sizes)})
@@ -411,7 +353,7 @@ def run_sweep(sizes=DEFAULT_SIZES, *, scale_sets=SCALE_SETS, components=POINT_CO
     wd, wp = synthetic_field(64, seed=1)                  # load the compiled kernels
     measure_point(wd, wp, [0, 4], components=20)
     out["points"] = []
-    todo = [(n, s) for n in sizes for s in _sets_for(n, scale_sets)]
+    todo = [(n, s) for n in sizes for s in sets_for(n, scale_sets)]
     for i, (n, scales) in enumerate(todo):
         _notify(callback, what="point", size=n, scales=list(scales), done=i, total=len(todo))
         dirty, psf = synthetic_field(n, seed=0)
@@ -431,7 +373,7 @@ def run_sweep(sizes=DEFAULT_SIZES, *, scale_sets=SCALE_SETS, components=POINT_CO
     out["direct_probe"] = direct_probe(sizes)
     out["runs"] = []
     budget = q.get("run_components", 20000)
-    cal_runs = _calibration_runs(sizes)
+    cal_runs = calibration_runs(sizes)
     for n, scales in cal_runs:
         _notify(callback, what="calibration run", size=n, scales=list(scales))
         dirty, psf = synthetic_field(n, seed=0)

@@ -11,7 +11,10 @@ import time
 import numpy as np
 
 from skyscale.cost import model as cost
-from skyscale.cost.calibration import DEFAULT_CALIBRATION, fit_nonnegative, fit_power_law
+from skyscale.cost import planner
+from skyscale.core.calibration import DEFAULT_CALIBRATION
+from skyscale.core.scales import ScaleSet
+from skyscale.cost.calibration import fit_nonnegative, fit_power_law
 
 __all__ = ["calibrate", "summarize", "step_ffts", "one_thread"]
 
@@ -27,7 +30,6 @@ def one_thread(cal):
 
 
 def _run_radii(run):
-    from skyscale.core.scales import ScaleSet
     return list(ScaleSet(run["scales"]).support_radii)
 
 
@@ -164,7 +166,7 @@ def calibrate(sweep):
     cold = sweep.get("cold_start", [])
     if cold:   # imports and the first run's extra, against the warm model of that run
         c = cold[0]
-        warm = cost.plan_run((c["size"],) * 2, (2 * c["size"],) * 2, c["scales"],
+        warm = planner.plan_run((c["size"],) * 2, (2 * c["size"],) * 2, c["scales"],
                              components=c["components"], rounds=c["rounds"],
                              major_cycles=c["cycles"], threads=1, calibration=cal,
                              fresh_process=False, memory_available=1 << 62).total_seconds

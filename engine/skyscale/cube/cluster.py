@@ -15,6 +15,9 @@ import os
 import warnings
 from dataclasses import dataclass
 
+from skyscale.core.threads import usable_cores
+from skyscale.core.warmup import warm_up
+
 __all__ = ["WORKER_MALLOC", "ClusterInfo", "size_local_cluster", "plane_threads",
            "cube_client"]
 
@@ -73,8 +76,7 @@ def size_local_cluster(threads=None, *, cores=None, plane_bytes=None, memory_byt
         ``workers * threads <= cores``, equal when memory allows.
     """
     if cores is None:
-        cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else None
-        cores = cores or os.cpu_count() or 1
+        cores = usable_cores()
     threads = 1 if threads is None else int(threads)
     if threads < 1:
         raise ValueError(f"threads is {threads}; pass a positive number of threads per plane")
@@ -177,7 +179,6 @@ def cube_client(client=None, scheduler=None, *, threads=None, workers=None, time
     ValueError
         If the scheduler at ``scheduler`` does not answer within ``timeout``.
     """
-    from skyscale.core.warmup import warm_up
     if client is not None:
         client.run(warm_up)          # each worker loads the kernels once, not per plane
         yield client, _info(client, "client", threads)

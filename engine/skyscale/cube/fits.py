@@ -31,7 +31,7 @@ from skyscale.io.grid import cell_size_arcsec, sky_position_angle
 from skyscale.io.fits_cards import is_axis_card, is_observation_card
 
 __all__ = ["PLANE_DTYPE", "SPECTRAL_TOLERANCE", "CubeFile", "open_cube", "check_psf_cube",
-           "CubeOutput", "plane_digest"]
+           "CubeOutput"]
 
 #: How output planes are stored: big-endian 32-bit IEEE floats (BITPIX = -32) [1]_.
 PLANE_DTYPE = np.dtype(">f4")
@@ -43,11 +43,6 @@ SPECTRAL_TOLERANCE = 1e-3
 _BLOCK = 2880
 #: Structural cards of the primary header, kept with the axis lengths.
 _STRUCTURE = ("SIMPLE", "BITPIX", "NAXIS", "EXTEND")
-
-
-def plane_digest(data):
-    """SHA-256 (hex) of a plane as stored in an output cube (big-endian float32)."""
-    return hashlib.sha256(np.ascontiguousarray(data, dtype=PLANE_DTYPE).tobytes()).hexdigest()
 
 
 @dataclass
@@ -315,7 +310,7 @@ class CubeOutput:
         return self._fh
 
     def write_plane(self, index, data):
-        """Write plane ``index`` (flushed to disk); return its `plane_digest`."""
+        """Write plane ``index`` (flushed to disk); return its SHA-256 (hex)."""
         arr = np.ascontiguousarray(data, dtype=PLANE_DTYPE)
         if arr.shape != self._shape:
             raise ValueError(f"plane {index} has shape {arr.shape}, expected {self._shape}")

@@ -1,7 +1,7 @@
 """Many-channel cubes, plane by plane, on Dask distributed: `deconvolve_cube`.
 
 Each plane is one task that deconvolves it with its own PSF plane exactly as
-``skyscale run`` deconvolves an image: the same options (`skyscale.cli.job.RUN_DEFAULTS`),
+``skyscale run`` deconvolves an image: the same options (`skyscale.job.options.RUN_DEFAULTS`),
 turned into `deconvolve` keywords by the same function.  What is decided once for
 the whole cube:
 
@@ -27,12 +27,13 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from skyscale.core.beam import fit_beam
+from skyscale.cost.planner import plan_run
 from skyscale.cube.cluster import cube_client
 from skyscale.cube.fits import CubeOutput, check_psf_cube, open_cube
 from skyscale.cube.record import RECORD_NAME, RunRecord
 from skyscale.cube.tasks import finite_reason, stream_planes
 from skyscale.io.fits import provenance_history
-from skyscale.cli.job import build_mask, merge_params, restoring_beam, scales_in_pixels
+from skyscale.job.files import build_mask, merge_params, restoring_beam, scales_in_pixels
 from skyscale.io.report import beam_record, machine_record, software_record, write_report
 
 __all__ = ["CUBE_OUTPUTS", "CubeResult", "deconvolve_cube"]
@@ -132,7 +133,6 @@ def _choose_scales(merged, cube, psf, cell):
 
 def _plane_memory(merged, cubef, psff, scales_px):
     """Predicted peak memory of one plane's run (the cost model) and the memory free."""
-    from skyscale.cost.planner import plan_run
     try:
         plan = plan_run(cubef.plane_shape, psff.plane_shape, scales_px,
                         max_components=merged["max_components"], threads=merged["threads"] or 1)
@@ -180,7 +180,7 @@ def deconvolve_cube(cube, psf, out_dir, params=None, *, client=None, scheduler=N
         Output folder: ``model.fits``, ``residual.fits``, ``restored.fits`` (cubes on the
         input's grid) and ``report.json``.
     params : dict, optional
-        Any of `skyscale.cli.job.RUN_DEFAULTS`, as for ``skyscale run``.  ``threads`` is
+        Any of `skyscale.job.options.RUN_DEFAULTS`, as for ``skyscale run``.  ``threads`` is
         the threads per plane.  ``scales='auto'`` asks the advisor once, on the
         brightest plane.  ``overwrite`` replaces earlier outputs (and an unfinished run).
     client : distributed.Client, optional

@@ -16,7 +16,10 @@ from collections import deque
 
 import numpy as np
 
+from skyscale.core.driver import deconvolve
 from skyscale.cube.cluster import plane_threads
+from skyscale.io.report import build_report
+from skyscale.job.files import deconvolve_options
 
 __all__ = ["plane_task", "stream_planes", "finite_reason"]
 
@@ -35,7 +38,7 @@ def plane_task(index, dirty, psf, params, cell, scales_px, mask, beam):
         The plane (for the summary).
     dirty, psf : (ny, nx), (py, px) float32 ndarray
     params : dict
-        Merged run parameters (`skyscale.cli.job.merge_params`).
+        Merged run parameters (`skyscale.job.files.merge_params`).
     cell : float or None
     scales_px : list of float
     mask : (ny, nx) bool ndarray or None
@@ -48,9 +51,6 @@ def plane_task(index, dirty, psf, params, cell, scales_px, mask, beam):
         ``model``, ``residual``, ``restored`` (float32 planes) and ``summary`` (the
         plane's stop reason, residual statistics, per-scale flux, timings, warnings).
     """
-    from skyscale.core.driver import deconvolve
-    from skyscale.cli.job import deconvolve_options
-    from skyscale.io.report import build_report
     t0 = time.perf_counter()
     threads = plane_threads(params["threads"])
     opts = deconvolve_options(dict(params, threads=threads), psf, cell, scales_px, mask, beam)

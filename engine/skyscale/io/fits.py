@@ -35,6 +35,7 @@ from astropy.io import fits
 from astropy.utils.exceptions import AstropyWarning
 from astropy.wcs import WCS
 
+from skyscale.core.memory import available_memory
 from skyscale.core.validate import InputError, MissingFileError, as_image
 from skyscale.io.atomic import atomic_output as _atomic_output
 from skyscale.core.beam import Beam
@@ -172,7 +173,6 @@ def _open_checked(path, label):
             header = hdul[0].header.copy()
             shape, nbytes = _declared_shape(header, label)
             need = nbytes + 4 * (nbytes // _BITPIX_BYTES[header["BITPIX"]])
-            from skyscale.cost.model import available_memory
             avail = available_memory()
             if avail is not None and need > avail:
                 raise InputError(

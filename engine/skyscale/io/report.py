@@ -33,6 +33,7 @@ import numpy as np
 
 from skyscale.io.atomic import atomic_write_bytes
 from skyscale.core.beam import gaussian_area
+from skyscale.core.noise import robust_noise
 from skyscale.io.components import merge_components
 from skyscale.io.report_records import (REPORT_UNITS, emission_mask_record, scales_record,
                                         timings_record)
@@ -223,8 +224,6 @@ def _per_scale(result, cell):
 
 def _residual_stats(result):
     """Peak |residual|, rms and robust noise of the final residual."""
-    from skyscale.core.noise import robust_noise
-
     residual = np.asarray(result.residual, dtype=np.float64)
     mask = getattr(result, "mask", None)
     region = "image"

@@ -17,7 +17,7 @@ from astropy import units as u
 from astropy.coordinates import Angle
 from astropy.wcs.utils import wcs_to_celestial_frame
 
-from skyscale.masks.regions import SHAPE_POSITIONS, region_wcs, pixel_window
+from skyscale.masks.region_grid import SHAPE_POSITIONS, pixel_window, region_wcs
 
 __all__ = ["degree_like"]
 

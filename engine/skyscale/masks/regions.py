@@ -59,14 +59,14 @@ from dataclasses import dataclass
 import numpy as np
 from astropy import units as u
 from astropy.coordinates import Angle, SkyCoord
-from astropy.io import fits
-from astropy.wcs import WCS
 from astropy.wcs.utils import proj_plane_pixel_scales, wcs_to_celestial_frame
 
 from skyscale.masks.loading import check_shape
+from skyscale.masks.region_grid import SHAPE_POSITIONS, pixel_window, region_wcs
+from skyscale.masks.region_units import degree_like
 
-__all__ = ["REGION_SHAPES", "ANGLE_UNITS", "REGION_EXAMPLE", "SHAPE_POSITIONS", "parse_regions",
-           "regions_to_mask", "region_wcs", "pixel_window"]
+__all__ = ["REGION_SHAPES", "ANGLE_UNITS", "REGION_EXAMPLE", "parse_regions",
+           "regions_to_mask"]
 
 logger = logging.getLogger(__name__)
 
@@ -84,9 +84,6 @@ _BARE_RE = re.compile(rf"^{_NUM}$")
 _UNIT_RE = re.compile(rf"^({_NUM})({'|'.join(ANGLE_UNITS)})$")
 _HMS_RE = re.compile(r"^\d+h\d+m(?:\d+\.?\d*|\.\d+)s$")
 _DMS_RE = re.compile(r"^[+-]?\d+d\d+m(?:\d+\.?\d*|\.\d+)s$")
-#: Where each shape's (x, y) position pairs start among its numbers.
-SHAPE_POSITIONS = {"circle": (0,), "box": (0, 2), "all": ()}
-_EDGE_TOL = 1e-6          # pixels: corners computed through a WCS may miss by rounding
 
 
 @dataclass(frozen=True)
@@ -176,23 +173,6 @@ def parse_regions(regions):
     return shapes
 
 
-def region_wcs(wcs, where):
-    """The celestial WCS of ``wcs`` (a WCS, a FITS header or an image carrying one), for
-    the region entry ``where`` that needs it; ValueError naming it when there is none."""
-    if wcs is None:
-        raise ValueError(f"{where} uses sky coordinates or angles but wcs is None; pass "
-                         "the image's WCS (astropy.wcs.WCS or its FITS header), or give "
-                         "the shape in pixels")
-    if isinstance(wcs, fits.Header):
-        wcs = WCS(wcs)
-    if not isinstance(wcs, WCS):
-        wcs = getattr(wcs, "wcs", wcs)            # an image object carrying its WCS
-    if not isinstance(wcs, WCS) or not wcs.has_celestial:
-        raise ValueError(f"wcs ({type(wcs).__name__}) has no celestial axes, needed by "
-                         f"{where}; pass a WCS with RA/Dec-like axes or use pixels")
-    return wcs.celestial
-
-
 def _pixel_scale_deg(cel):
     scales = proj_plane_pixel_scales(cel)
     return np.array([s * u.Unit(cu or "deg").to(u.deg) for s, cu in zip(scales, cel.wcs.cunit)])
@@ -202,19 +182,6 @@ def _to_pixel(cel, lon, lat):
     frame = wcs_to_celestial_frame(cel)
     x, y = cel.world_to_pixel(SkyCoord(lon, lat, frame=frame))
     return float(x), float(y)
-
-
-def pixel_window(lo_x, hi_x, lo_y, hi_y, shape):
-    """``(rows, columns)`` slices of the pixels whose centres lie in the given x and y
-    ranges, clipped to the image; None when no pixel does."""
-    ny, nx = shape
-    if not np.all(np.isfinite([lo_x, hi_x, lo_y, hi_y])):
-        return None                               # off the projection: no pixel
-    x0, x1 = max(int(np.ceil(lo_x - _EDGE_TOL)), 0), min(int(np.floor(hi_x + _EDGE_TOL)), nx - 1)
-    y0, y1 = max(int(np.ceil(lo_y - _EDGE_TOL)), 0), min(int(np.floor(hi_y + _EDGE_TOL)), ny - 1)
-    if x0 > x1 or y0 > y1:
-        return None
-    return slice(y0, y1 + 1), slice(x0, x1 + 1)
 
 
 def _rasterise(shape_, shape, wcs):
@@ -306,7 +273,6 @@ def regions_to_mask(regions, shape, wcs=None):
     >>> int(m.sum()), bool(m[10, 9]), bool(m[10, 10])
     (11, True, False)
     """
-    from skyscale.masks.region_units import degree_like
     shape = check_shape(shape)
     mask = np.zeros(shape, dtype=bool)
     for s in parse_regions(regions):

@@ -8,6 +8,7 @@ import logging
 import pathlib
 
 from skyscale.io.atomic import atomic_write_bytes
+from skyscale.io.grid import cell_size_arcsec
 
 __all__ = ["DPI", "require_matplotlib", "new_figure", "save_png", "refuse_existing",
            "check_result", "field_of", "fmt", "figure_cell_arcsec", "scale_label",
@@ -96,7 +97,6 @@ def figure_cell_arcsec(cell_arcsec=None, wcs=None, result=None):
                              "arcsec (> 0) or None")
         return cell
     if wcs is not None:
-        from skyscale.io.grid import cell_size_arcsec
         try:
             return float(cell_size_arcsec(wcs))
         except ValueError:                 # not a square grid: pixels only

@@ -20,6 +20,7 @@ import functools
 
 import numpy as np
 
+from skyscale.core.beam import Beam, restore
 from skyscale.core.validate import as_image
 from skyscale.io.figures.common import (DPI, check_result, figure_cell_arcsec, fmt,
                                         new_figure, refuse_existing, require_matplotlib,
@@ -193,7 +194,6 @@ def _model_view(model, beam):
     """The model as drawn: smoothed by the restoring beam (Jy/beam) when there is one."""
     if beam is None:
         return model, "Jy/pixel"
-    from skyscale.core.beam import Beam, restore
 
     smooth = restore(np.where(np.isfinite(model), model, 0.0).astype(np.float32), None,
                      Beam(float(beam.major), float(beam.minor), float(beam.pa)))

@@ -9,22 +9,26 @@ fluxes with units (``"0.1mJy"``), scales separated by spaces, angles with units.
 
 import re
 
+from skyscale.core.option_table import run_options
 from skyscale.core.validate import NUMBER_RULES, InputError, check_number
 
-__all__ = ["RUN_OPTION_KINDS", "OFF_WORDS", "parse_bool", "parse_number", "parse_flux", "parse_sigma",
+__all__ = ["RUN_OPTION_KINDS", "RUN_DEFAULTS", "OFF_WORDS", "parse_bool", "parse_number", "parse_flux", "parse_sigma",
            "parse_scales",
            "parse_beam", "coerce_option", "coerce_params", "option_label", "load_config"]
 
-#: How each run option is read.
-RUN_OPTION_KINDS = {
-    "scales": "scales", "scale_unit": ("pixel", "arcsec"),
-    "scale_shape": ("paraboloid", "gaussian"), "loop_gain": "number", "threshold": "flux",
-    "noise_threshold": "sigma", "max_components": "integer", "max_major_cycles": "integer",
-    "cycle_depth": "number", "size_penalty": "number", "extended_depth": "number", "psf_patch": "integer",
-    "mask": "text", "mask_regions": "text", "emission_mask": "bool", "emission_mask_sigma": "sigma",
-    "threads": "integer", "beam": "beam", "plots": "bool", "overwrite": "bool",
-    "nonfinite": ("refuse", "mask"),
-}
+#: How each run option is read (from the option table, `skyscale.core.option_table`).
+RUN_OPTION_KINDS = {o.name: o.kind for o in run_options()}
+
+#: Every run parameter with its default (the keys a configuration file may hold), from
+#: the option table (`skyscale.core.option_table`).  A run stops at
+#: `skyscale.core.defaults.RUN_NOISE_THRESHOLD` times the noise unless told otherwise: a
+#: ``threshold`` given without ``noise_threshold`` is a fixed level with no noise stop
+#: (`skyscale.job.files.merge_params`), and ``noise_threshold = "off"`` turns the noise
+#: stop off.  Scales are chosen for the image by the scale advisor (``"auto"``) and the
+#: automatic mask is on (kept inside a user's mask): what a careful user would choose
+#: (CHANGELOG, issue 19).
+RUN_DEFAULTS = {o.name: o.default_in_run for o in run_options()}
+
 
 #: Words that turn the noise stop off (``--noise-threshold off``, ``noise_threshold = "off"``).
 OFF_WORDS = ("off", "none", "no", "false")

@@ -11,63 +11,42 @@ import warnings
 
 import numpy as np
 
-from skyscale.io.atomic import incomplete_marker
-from skyscale.io.interrupts import finish_on_first_interrupt
-from skyscale.core.validate import InputError, mask_nonfinite
-from skyscale.io.components import component_fields, component_rows
-from skyscale.core.defaults import DEFAULTS, RUN_NOISE_THRESHOLD, RUN_SCALES
+from skyscale.advisor.suggest import check_scales, resolve_scales
+from skyscale.core.beam import fit_beam
 from skyscale.core.driver import deconvolve
+from skyscale.core.operators import exact_region
+from skyscale.core.option_table import algorithm_options
+from skyscale.core.psf import check_psf
+from skyscale.core.scales import ScaleSet
+from skyscale.core.validate import InputError, mask_nonfinite
+from skyscale.cost.planner import check_fits_memory, max_affordable_scales, plan_run
+from skyscale.io.atomic import incomplete_marker
+from skyscale.io.components import component_fields, component_rows
 from skyscale.io.fits import (check_same_grid, provenance_history, read_image, write_image,
                               write_table_csv)
 from skyscale.io.grid import cell_size_arcsec
-from skyscale.cli.options import coerce_params, option_label
-from skyscale.cli.preflight import (OUTPUT_NAMES, check_units, initial_model,
-                                    plan_from_headers, prepare_out, previous_outputs)
-from skyscale.cli.preflight import build_mask as _build_mask
-from skyscale.cli.preflight import restoring_beam as _restoring_beam
-from skyscale.cli.preflight import resume_inputs
+from skyscale.io.interrupts import finish_on_first_interrupt
+from skyscale.io.report import build_report, write_report
 from skyscale.io.report import file_sha256
+from skyscale.job.options import RUN_DEFAULTS, coerce_params, option_label
+from skyscale.job.preflight import (OUTPUT_NAMES, check_units, initial_model,
+                                    plan_from_headers, prepare_out, previous_outputs)
+from skyscale.job.preflight import build_mask as _build_mask
+from skyscale.job.preflight import restoring_beam as _restoring_beam
+from skyscale.job.preflight import resume_inputs
+from skyscale.masks.emission import EmissionMask
 
-__all__ = ["RUN_DEFAULTS", "OUTPUT_NAMES", "run_files", "run_images", "merge_params",
+__all__ = ["OUTPUT_NAMES", "run_files", "run_images", "merge_params",
            "stop_rule", "exact_residual_cards", "scales_in_pixels", "restoring_beam",
            "build_mask", "deconvolve_options", "resume_inputs"]
 
 logger = logging.getLogger(__name__)
 
-#: Every run parameter with its default (the keys a configuration file may hold).  A run
-#: stops at `RUN_NOISE_THRESHOLD` times the noise unless told otherwise: a
-#: ``threshold`` given without ``noise_threshold`` is a fixed level with no noise stop
-#: (`merge_params`), and ``noise_threshold = "off"`` turns the noise stop off.  Scales
-#: are chosen for the image by the scale advisor (``"auto"``) and the automatic mask is
-#: on (kept inside a user's mask): what a careful user would choose (CHANGELOG, issue 19).
-RUN_DEFAULTS = {
-    "scales": RUN_SCALES,
-    "scale_unit": "pixel",
-    "scale_shape": DEFAULTS.scale_shape,
-    "loop_gain": DEFAULTS.loop_gain,
-    "threshold": DEFAULTS.threshold,
-    "noise_threshold": RUN_NOISE_THRESHOLD,
-    "max_components": DEFAULTS.max_components,
-    "max_major_cycles": DEFAULTS.max_major_cycles,
-    "cycle_depth": DEFAULTS.cycle_depth,
-    "size_penalty": DEFAULTS.size_penalty,
-    "extended_depth": DEFAULTS.extended_depth,
-    "psf_patch": None,
-    "mask": None,
-    "mask_regions": None,
-    "emission_mask": True,
-    "emission_mask_sigma": None,
-    "threads": None,
-    "beam": None,
-    "plots": True,
-    "overwrite": False,
-    "nonfinite": "refuse",
-}
 
 
 def merge_params(params, sources=None):
     """`RUN_DEFAULTS` updated with ``params``, read as a user would write them
-    (`skyscale.cli.options.coerce_params`); unknown keys are refused.
+    (`skyscale.job.options.coerce_params`); unknown keys are refused.
 
     A ``threshold`` given without ``noise_threshold`` (None counts as not given) is a
     fixed level: the default noise stop is then off.  ``noise_threshold`` ``"off"``
@@ -104,7 +83,6 @@ def scales_in_pixels(params, cell, dirty, psf, reasons, label="scales", beam=Non
     ``reasons``; arcsec scales are divided by ``cell``)."""
     scales = params["scales"]
     if isinstance(scales, str):     # 'auto': the same advisor call as deconvolve's
-        from skyscale.advisor.suggest import resolve_scales
         options = {} if beam is None else {"beam": beam}
         pixels, why = resolve_scales(scales, dirty, psf, cell_arcsec=cell, **options)
         reasons.extend(why)
@@ -155,19 +133,12 @@ def deconvolve_options(params, psf, cell, scales_px, mask=None, beam=None):
     """
     auto = None
     if params["emission_mask"]:
-        from skyscale.core.beam import fit_beam
-        from skyscale.masks import EmissionMask
         kw = {} if params["emission_mask_sigma"] is None else {"sigma": params["emission_mask_sigma"]}
         auto = EmissionMask.for_beam(scales_px, beam if beam is not None else fit_beam(psf),
                                      **kw)
-    return dict(scales=scales_px, loop_gain=params["loop_gain"], threshold=params["threshold"],
-                noise_threshold=params["noise_threshold"],
-                max_components=params["max_components"],
-                max_major_cycles=params["max_major_cycles"], cycle_depth=params["cycle_depth"],
-                mask=mask, size_penalty=params["size_penalty"],
-                extended_depth=params["extended_depth"], scale_shape=params["scale_shape"],
-                psf_patch=params["psf_patch"], threads=params["threads"], cell_arcsec=cell,
-                beam=beam, emission_mask=auto)
+    algorithm = {o.name: params[o.name] for o in algorithm_options()}
+    return dict(algorithm, scales=scales_px, mask=mask, threads=params["threads"],
+                cell_arcsec=cell, beam=beam, emission_mask=auto)
 
 
 def run_files(dirty_path, psf_path, out_dir, params=None, *, callback=None, inputs_extra=None,
@@ -186,7 +157,7 @@ def run_files(dirty_path, psf_path, out_dir, params=None, *, callback=None, inpu
     params : dict, optional
         Any of `RUN_DEFAULTS`; missing keys take the defaults.  Values may be given as
         text as a user would write them (``"0.1"``, ``"false"``, ``"0 4 8"``,
-        ``"0.1mJy"``); see `skyscale.cli.options`.
+        ``"0.1mJy"``); see `skyscale.job.options`.
     callback : callable, optional
         Progress callback passed to `deconvolve`.
     sources : dict, optional
@@ -280,7 +251,6 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
     previous = previous_outputs(out_dir) if ow else []     # read before report.json is replaced
     notes = []
     check_units(dirty, notes)
-    from skyscale.core.psf import check_psf
     with warnings.catch_warnings():      # the one real error first, before any advice
         warnings.simplefilter("ignore")
         check_psf(np.nan_to_num(psf.data) if merged["nonfinite"] == "mask" else psf.data,
@@ -302,7 +272,6 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
             blank = None
     initial = initial_model(resume_from, dirty) if resume_from else None
     beam = restoring_beam(merged, cell, labels["beam"], dirty.wcs)
-    from skyscale.core.beam import fit_beam
     fitted = beam if beam is not None else fit_beam(psf.data)   # the run's one beam fit
     if beam is not None:
         notes.extend(beam_size_notes(beam, fit_beam(psf.data), cell, labels["beam"]))
@@ -311,15 +280,12 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
                                  beam=fitted)
     scale_warnings = []
     if not reasons:   # the user's own set: check it against the rules of thumb
-        from skyscale.advisor.suggest import check_scales
-        from skyscale.core.scales import ScaleSet
         try:                                            # refuse bad sets before the advice
             ScaleSet(scales_px, image_shape=data.shape)
         except InputError as exc:
             raise InputError(f"{labels['scales']}: {exc}") from None
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            from skyscale.cost.planner import max_affordable_scales
             afford = max_affordable_scales(data.shape, psf.data, scales_px,
                                            max_components=merged["max_components"],
                                            threads=merged["threads"])
@@ -327,7 +293,6 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
                                           beam=fitted,
                                           max_affordable_scales=len(afford.scales))
     mask = build_mask(merged, dirty, data.shape, labels)
-    from skyscale.cost.planner import check_fits_memory, plan_run
     plan = plan_run(data.shape, psf.data, scales_px,
                     max_components=merged["max_components"], threads=merged["threads"],
                     max_major_cycles=merged["max_major_cycles"], dirty=data,
@@ -349,8 +314,7 @@ def run_images(dirty, psf, out_dir, params, *, start=None, inputs=None, callback
             if img is not None:
                 img[blank] = np.nan
     end = _dt.datetime.now(_dt.timezone.utc)
-    record = dict(merged, scales=scales_px, psf_patch=result.parameters.get("psf_patch"),
-                  stop_rule=stop_rule(merged))
+    record = dict(merged, scales=scales_px, stop_rule=stop_rule(merged))
     inputs = dict(inputs or {})
     if resume_from:
         inputs["resumed_from"] = {"path": os.path.abspath(
@@ -405,7 +369,6 @@ def exact_residual_cards(result):
     history : list of str
     """
     import textwrap
-    from skyscale.core.operators import exact_region
     op = (getattr(result, "parameters", None) or {}).get("operator") or {}
     if "exact" not in op:
         return {}, []
@@ -498,7 +461,6 @@ def _write_outputs(result, dirty, psf, names, record, start, end, plan, reasons,
                                             mask=result.mask, overwrite=ow)
         except ImportError as exc:
             result.warnings.append(f"figures skipped: {exc}")
-    from skyscale.io.report import build_report, write_report
     out_dir = os.path.dirname(names["report"]) or "."
     removed = _remove_stale(stale[0], stale[1], dict(written, report=names["report"]), out_dir)
     extra = {"outputs": dict(written, report=names["report"]),

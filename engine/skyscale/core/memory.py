@@ -9,7 +9,11 @@ input, and for an inverse a complex work array).  pyfftw keeps plans with their
 buffers for the process, which this account leaves out.
 """
 
-__all__ = ["MEMORY_HEADROOM", "predict_memory", "engine_memory", "fits_memory"]
+from skyscale.core.calibration import load_calibration
+from skyscale.core.grids import run_geometry
+
+__all__ = ["MEMORY_HEADROOM", "predict_memory", "engine_memory", "fits_memory",
+           "available_memory"]
 
 #: A run fits when its predicted peak times this is at most the memory available.
 MEMORY_HEADROOM = 1.10
@@ -68,10 +72,10 @@ def predict_memory(geom, calibration=None):
 
     Parameters
     ----------
-    geom : `skyscale.cost.Geometry`
+    geom : `skyscale.core.grids.Geometry`
     calibration : dict, optional
         Its ``memory.scale`` multiplies the count (fitted by ``skyscale bench`` against
-        tracemalloc); default `skyscale.cost.load_calibration`.
+        tracemalloc); default `skyscale.core.calibration.load_calibration`.
 
     Returns
     -------
@@ -81,7 +85,6 @@ def predict_memory(geom, calibration=None):
         ``phases``, ``terms`` and ``engine`` (what `skyscale.Engine` keeps as
         ``memory``: the terms with ``total`` = ``peak`` and ``peak_phase``).
     """
-    from skyscale.cost.calibration import load_calibration
     cal = calibration or load_calibration()
     b = geom.itemsize
     ny, nx = geom.image_shape
@@ -137,7 +140,7 @@ def engine_memory(image_shape, psf_shape, radii, itemsize=4, calibration=None):
     itemsize : int
         4 for float32, 8 for float64.
     calibration : dict, optional
-        Default `skyscale.cost.load_calibration` (its ``memory.scale``), as the planner
+        Default `skyscale.core.calibration.load_calibration` (its ``memory.scale``), as the planner
         reads it.
 
     Returns
@@ -145,7 +148,6 @@ def engine_memory(image_shape, psf_shape, radii, itemsize=4, calibration=None):
     dict
         The terms of `predict_memory` (bytes), ``total`` (its ``peak``) and ``peak_phase``.
     """
-    from skyscale.cost.model import run_geometry
     geom = run_geometry(image_shape, psf_shape, radii, itemsize=itemsize)
     return predict_memory(geom, calibration)["engine"]
 
@@ -158,3 +160,20 @@ def fits_memory(peak, available):
     unknown ``available`` (None) fits.
     """
     return available is None or peak * MEMORY_HEADROOM <= available
+
+
+def available_memory():
+    """Bytes of memory available now (psutil, else /proc/meminfo), or None if unknown."""
+    try:
+        import psutil
+        return int(psutil.virtual_memory().available)
+    except ImportError:
+        pass
+    try:
+        with open("/proc/meminfo") as fh:
+            for line in fh:
+                if line.startswith("MemAvailable:"):
+                    return int(line.split()[1]) * 1024
+    except OSError:
+        pass
+    return None

@@ -14,7 +14,7 @@ from astropy.io import fits
 from astropy.wcs import WCS
 
 from skyscale.io.fits import FitsImage
-from skyscale.cli.job import merge_params, run_images
+from skyscale.job.files import merge_params, run_images
 from skyscale.io.report import file_sha256
 from skyscale.visibility.file import read_visibilities
 from skyscale.visibility.operator import VisibilityOperator

@@ -2,7 +2,7 @@
 restoring beam and the run to resume.
 
 Each refuses bad input with one `InputError` naming the option as the user wrote it
-(``labels`` maps a run parameter to that name), so `skyscale.cli.job.run_files` and the
+(``labels`` maps a run parameter to that name), so `skyscale.job.files.run_files` and the
 command line fail before anything is computed or written.
 """
 
@@ -11,12 +11,16 @@ import warnings
 
 import numpy as np
 
+from skyscale.core.scales import ScaleSet
+from skyscale.cost.planner import check_fits_memory, plan_run
+from skyscale.masks.loading import load_mask
+from skyscale.masks.regions import regions_to_mask
 from skyscale.io.atomic import INCOMPLETE_MARKER, check_output_dir, remove_stale_temps
 from skyscale.core.validate import InputError
 from skyscale.core.beam import Beam
 from skyscale.io.fits import check_same_grid, read_image, read_shape
 from skyscale.io.grid import pixel_position_angle
-from skyscale.cli.options import RUN_OPTION_KINDS
+from skyscale.job.options import RUN_OPTION_KINDS
 
 __all__ = ["BEAM_MIN_PIXELS", "OUTPUT_NAMES", "prepare_out", "previous_outputs",
            "plan_from_headers",
@@ -45,14 +49,12 @@ def build_mask(params, image, shape, labels):
     """
     mask = None
     if params.get("mask"):
-        from skyscale.masks import load_mask
         check_mask_grid(image, params["mask"], labels["mask"])
         mask = load_mask(params["mask"], shape)
         if not mask.any():
             raise InputError(f"{labels['mask']} {params['mask']} allows no pixel (it is all "
                              "0); give a mask that covers the emission")
     if params.get("mask_regions"):
-        from skyscale.masks import regions_to_mask
         text = params["mask_regions"]
         if isinstance(text, str) and not text.split()[1:] and os.path.isfile(text):
             import pathlib
@@ -194,8 +196,6 @@ def plan_from_headers(dirty_path, psf_path, params):
     shapes = read_shape(dirty_path, name="dirty"), read_shape(psf_path, name="psf")
     if None in shapes:
         return
-    from skyscale.cost.planner import check_fits_memory, plan_run
-    from skyscale.core.scales import ScaleSet
     try:
         ScaleSet(scales)
     except InputError:
