@@ -37,7 +37,7 @@ from skyscale.masks.profiles import (fit_profile, seen_point, subtract_point, tr
 
 __all__ = ["FWHM_PER_SIGMA", "LADDER_RATIO", "COMPACT_APART", "ELONGATED", "MASK_GAIN", "TRIM_SIGMA", "POINT_AREA", "DIAMETER_MEASURES",
            "Island", "Detection", "smoothing_ladder", "smoothed_images",
-           "point_island", "detect_emission"]
+           "point_island", "detect_emission", "negative_noise"]
 
 logger = logging.getLogger(__name__)
 
@@ -274,6 +274,12 @@ class Detection:
         below ``-sigma * noise`` at each rung, off the emission: as many positive ones
         are expected from noise and sidelobes alone, which are of either sign while
         emission is positive.  Empty without ``guard_negative``.
+    points : (ny, nx) ndarray of bool or None
+        With ``guard_negative``, the first rung's islands taken as unresolved sources,
+        cut to their cores (see `POINT_AREA`); None without.
+    found : tuple of (float, (ny, nx) ndarray of bool)
+        Each rung's smoothing FWHM and what it added to ``mask`` (their union is
+        ``mask``).
     """
 
     smoothing_px: tuple
@@ -283,6 +289,8 @@ class Detection:
     islands: list
     levels: tuple = ()
     spurious: tuple = ()
+    points: np.ndarray = None
+    found: tuple = ()
 
     @property
     def thresholds(self):
@@ -480,6 +488,8 @@ def detect_emission(image, beam_fwhm_px, smoothing_px=None, *, sigma=5.0, exclud
     noises, islands, levels, spurious = [], [], [], []
     finer = None
     previous = None
+    points = None
+    by_rung = []
     correction = 1.0
     for i, (width, sm) in enumerate(smoothed_images(image, ladder)):
         margin = 0.5 * math.hypot(beam_fwhm_px, width)
@@ -487,7 +497,10 @@ def detect_emission(image, beam_fwhm_px, smoothing_px=None, *, sigma=5.0, exclud
         if noise == 0:
             noise = float(np.std(sm))
         if i == 0 and reference_noise is not None and 0 < reference_noise < noise:
-            correction = float(reference_noise) / noise
+            # emission is positive and noise and sidelobes of either sign: the
+            # negative side's spread is a floor the reference cannot go under
+            floor = negative_noise(sm, exclude)
+            correction = min(1.0, max(float(reference_noise), floor) / noise)
         noise *= correction
         noises.append(noise)
         if noise == 0:
@@ -497,7 +510,9 @@ def detect_emission(image, beam_fwhm_px, smoothing_px=None, *, sigma=5.0, exclud
         level = sigma * noise
         rung_sigma = sigma
         if guard_negative:
-            off = _off_emission(sm, level, margin, exclude)
+            # off the emission as this rung's own noise sees it: a lower reference
+            # noise must not let sidelobes around the bright emission pass for it
+            off = _off_emission(sm, level / correction, margin, exclude)
             neg_labels, n_neg = ndimage.label((sm < -level) & off,
                                               structure=np.ones((3, 3), dtype=bool))
             if n_neg:
@@ -512,10 +527,11 @@ def detect_emission(image, beam_fwhm_px, smoothing_px=None, *, sigma=5.0, exclud
             found_here = _resolved_part(found_here, sm, noise, *finer,
                                         include_negative, mask)
         elif guard_negative:
-            found_here = _point_cores(found_here, sm, level,
-                                      math.hypot(beam_fwhm_px, width))
+            found_here, points = _point_cores(found_here, sm, level,
+                                              math.hypot(beam_fwhm_px, width))
         finer = (sm, noise)
         mask |= found_here
+        by_rung.append((width, found_here))
         if measure:
             islands.extend(_islands(sm, rung_sigma, noise, previous, width,
                                     (float(beam_fwhm_px), major), min_area, diameter,
@@ -524,7 +540,7 @@ def detect_emission(image, beam_fwhm_px, smoothing_px=None, *, sigma=5.0, exclud
     logger.debug("emission detected at %d rungs %s px; noise %s", len(ladder), ladder,
                  ", ".join(f"{n:.3g}" for n in noises))
     return Detection(ladder, tuple(noises), float(sigma), mask, islands, tuple(levels),
-                     tuple(spurious))
+                     tuple(spurious), points, tuple(by_rung))
 
 
 #: A wider rung adds an island to the mask only when its peak signal-to-noise rose by
@@ -551,8 +567,9 @@ POINT_AREA = 1.5
 def _point_cores(found, sm, level, spread):
     """Islands of unresolved sources cut to their cores (see `POINT_AREA`)."""
     labels, n = ndimage.label(found, structure=np.ones((3, 3), dtype=bool))
+    cores = np.zeros(found.shape, dtype=bool)
     if n == 0:
-        return found
+        return found, cores
     out = found.copy()
     for k, sl in enumerate(ndimage.find_objects(labels), start=1):
         if sl is None:
@@ -561,8 +578,10 @@ def _point_cores(found, sm, level, spread):
         peak = float(sm[sl][inside].max())
         point = point_island(spread, peak / level)
         if inside.sum() <= POINT_AREA * math.pi * point * point / 4.0:
-            out[sl] &= ~inside | (sm[sl] >= 0.25 * peak)
-    return out
+            core = inside & (sm[sl] >= 0.25 * peak)
+            out[sl] &= ~inside | core
+            cores[sl] |= core
+    return out, cores
 
 
 def _label_max(values, labels, n):
@@ -593,6 +612,30 @@ def _resolved_part(found, sm, noise, before, before_noise, signed, known):
     keep = np.zeros(n + 1, dtype=bool)
     keep[1:] = gain >= MASK_GAIN * np.maximum(base, 0.0)
     return keep[labels] & (then > TRIM_SIGMA * before_noise)
+
+
+#: `negative_noise` reads at most about this many pixels (an even subsample).
+NEGATIVE_SAMPLES = 1 << 18
+
+
+def negative_noise(image, exclude=None):
+    """Robust noise of an image's negative side: ``1.4826 * median(-x)`` over its
+    negative pixels ``x`` (not in ``exclude``), read from an even subsample.
+
+    For noise of deviation sigma around zero the median of ``|x|`` over the negative
+    half is the 0.75 quantile of the normal distribution, 0.6745 sigma (analytic;
+    1 / 0.6745 = 1.4826 as in the MAD of Rousseeuw & Croux 1993), so this reads sigma;
+    positive emission does not raise it, sidelobes of either sign do.  0 with no
+    negative pixel.
+    """
+    step = max(1, int(math.sqrt(image.size / NEGATIVE_SAMPLES)))
+    data = image[::step, ::step]
+    below = data < 0
+    if exclude is not None:
+        below &= ~np.asarray(exclude, dtype=bool)[::step, ::step]
+    if not below.any():
+        return 0.0
+    return 1.4826 * float(np.median(-data[below]))
 
 
 def _off_emission(sm, level, margin, exclude):

@@ -20,9 +20,10 @@ from scipy import ndimage
 from skyscale.core.validate import as_image
 from skyscale.core.beam import Beam, gaussian_area
 from skyscale.masks.detect import detect_emission
-from skyscale.masks.sky_view import sky_view
+from skyscale.core.noise import detection_noise
+from skyscale.masks.sky_view import VIEW_CYCLES, largest_sidelobe, sky_view
 
-__all__ = ["EmissionMask", "emission_mask"]
+__all__ = ["LATER_VIEW_CYCLES", "GROW_KEPT", "EmissionMask", "emission_mask", "bounding_box", "held_islands"]
 
 logger = logging.getLogger(__name__)
 
@@ -46,6 +47,62 @@ def _positive(value, name, *, allow_zero=False, cell_arcsec=None):
     return value
 
 
+#: Major cycles of the short clean (`skyscale.masks.sky_view.sky_view`) at an update
+#: after the first that needed one: the deconvolution has taken most of the bright
+#: emission out by then, and what is left needs a few.
+LATER_VIEW_CYCLES = 2
+
+
+#: An island found on a smoothed scale is grown by the growth radius less half the
+#: smoothing, but by at least this fraction of it: the faint wings of broad emission
+#: lie beyond what the smoothing spread above the level.
+GROW_KEPT = 0.5
+
+
+def bounding_box(mask):
+    """``(rows, cols)`` slices of the smallest box holding every True pixel, or None."""
+    rows = np.flatnonzero(mask.any(axis=1))
+    if rows.size == 0:
+        return None
+    cols = np.flatnonzero(mask.any(axis=0))
+    return slice(rows[0], rows[-1] + 1), slice(cols[0], cols[-1] + 1)
+
+
+def held_islands(mask, held):
+    """The islands of ``mask`` (8-connected, ``scipy.ndimage.label``) that hold a pixel
+    of ``held``; labelled within ``mask``'s bounding box only."""
+    out = np.zeros(mask.shape, dtype=bool)
+    box = bounding_box(mask)
+    if box is None:
+        return out
+    part = mask[box]
+    labels, n = ndimage.label(part, structure=np.ones((3, 3), dtype=bool))
+    if n:
+        keep = np.zeros(n + 1, dtype=bool)
+        keep[np.unique(labels[held[box] & part])] = True
+        keep[0] = False
+        out[box] = keep[labels]
+    return out
+
+
+def _alone(detected, points):
+    """The islands of ``detected`` made of ``points`` pixels only: unresolved sources'
+    cores, which are not grown (one delta component models each; the core already
+    holds its main lobe above a quarter of its peak)."""
+    if points is None or not (points & detected).any():
+        return np.zeros(detected.shape, dtype=bool)
+    box = bounding_box(detected)
+    part = detected[box]
+    labels, n = ndimage.label(part, structure=np.ones((3, 3), dtype=bool))
+    size = np.bincount(labels.ravel(), minlength=n + 1)
+    core = np.bincount(labels[points[box] & part], minlength=n + 1)
+    keep = core == size
+    keep[0] = False
+    out = np.zeros(detected.shape, dtype=bool)
+    out[box] = keep[labels]
+    return out
+
+
 class EmissionMask:
     """A mask that follows the significant emission in the residual, scale by scale.
 
@@ -59,7 +116,10 @@ class EmissionMask:
     sigma : float
         Detection threshold in units of the robust noise of each smoothed image.
     grow_beams : float
-        Islands are grown by this many beam FWHMs (dilation by a disk).
+        Islands are grown by this many beam FWHMs (dilation by a disk), less half the
+        smoothing of the scale that found them (which already spread them that far
+        beyond the emission) but at least `GROW_KEPT` of it; unresolved sources'
+        cores are not grown.
     min_island_beams : float
         Islands with fewer pixels than this many beam areas are dropped, unless they
         touch protected pixels.
@@ -76,8 +136,11 @@ class EmissionMask:
         The PSF (peak 1 at ``(py // 2, px // 2)``).  Given, the bright emission left
         in the residual is cleaned out and restored before detection
         (`skyscale.masks.sky_view.sky_view`), so that its sidelobes, positive shelves
-        near the main lobe included, are not taken for emission.  Default None: the
-        residual is looked at as given.
+        near the main lobe included, are not taken for emission; only when they can
+        reach the detection level (the residual's absolute peak times the PSF's
+        largest sidelobe, `skyscale.masks.sky_view.largest_sidelobe`, above ``sigma``
+        times the noise), so a residual already cleaned costs no clean.  Default None:
+        the residual is looked at as given (`skyscale.deconvolve` gives its PSF).
 
     Raises
     ------
@@ -102,8 +165,9 @@ class EmissionMask:
     residual's bright emission is first cleaned out and restored
     (`skyscale.masks.sky_view.sky_view`), so its sidelobes do not make islands.  The
     detections are united, small islands dropped (``scipy.ndimage.label``,
-    8-connected) and the rest grown.  Pixels holding model flux and pixels of the
-    previous mask are always kept, so the mask only grows over major cycles.
+    8-connected) and the rest grown.  Pixels holding model flux, and the islands of
+    the previous mask that hold any, are always kept: an island on which nothing was
+    cleaned (a sidelobe taken for emission early on) goes when it is not found again.
 
     Examples
     --------
@@ -155,9 +219,15 @@ class EmissionMask:
         self.include_negative = bool(include_negative)
         self.guard_negative = bool(guard_negative)
         self.psf = None if psf is None else as_image(psf, "psf")
+        self._sidelobe = None
+        self._view_cache = {}
         #: How the image detected at the last update was made, when ``psf`` is given
-        #: (`skyscale.masks.sky_view.SkyView.as_dict`).
+        #: and the residual's sidelobes could reach the detection level
+        #: (`skyscale.masks.sky_view.SkyView.as_dict`); None when it was looked at as
+        #: given.
         self.view = None
+        #: Updates since the last `reset` whose residual was cleaned first.
+        self.views = 0
         #: The level each scale was cut at, at the last update (``sigma`` times its
         #: noise, or the deepest negative off the emission when deeper).
         self.levels = {}
@@ -179,13 +249,28 @@ class EmissionMask:
         self.levels = {}
         self.spurious = {}
         self.view = None
+        self.views = 0
+        self._sidelobe = None
+        self._view_cache = {}
+
+    def _sidelobes_matter(self, residual, noise):
+        """Whether the PSF's sidelobes of the residual's brightest pixel can reach the
+        detection level: its absolute peak times the PSF's largest sidelobe
+        (`skyscale.masks.sky_view.largest_sidelobe`) above ``sigma`` times the noise
+        (the deconvolution's, or the residual's robust noise)."""
+        if self._sidelobe is None:
+            self._sidelobe = largest_sidelobe(self.psf, self.beam_fwhm_px, residual.shape)
+        if noise is None or not noise > 0:
+            noise = detection_noise(residual, self.sigma, margin_px=0.5 * self.beam_fwhm_px)
+        return float(np.abs(residual).max()) * self._sidelobe > self.sigma * noise
 
     def smoothing_px(self):
         """Smoothing FWHM in pixels for each scale (``smooth_fraction`` of it)."""
         return {s: self.smooth_fraction * s for s in self.scales}
 
-    def _grow(self, mask):
-        radius = self.grow_beams * self.beam_fwhm_px
+    def _grow(self, mask, spread=0.0):
+        full = self.grow_beams * self.beam_fwhm_px
+        radius = max(GROW_KEPT * full, full - spread)
         if radius < 1 or not mask.any():
             return mask
         r = int(np.floor(radius))
@@ -221,7 +306,9 @@ class EmissionMask:
         model : (ny, nx) array_like, optional
             Current model; its non-zero pixels are always in the mask.
         previous : (ny, nx) array_like of bool, optional
-            Pixels that must stay in the mask.  Default: the mask of the last update.
+            Pixels that must stay in the mask.  Default: the islands of the last
+            update's mask that hold model flux (the others stay only where they are
+            found again: the mask keeps no island on which nothing was cleaned).
         noise : float, optional
             The residual's noise from the deconvolution (see
             `skyscale.masks.detect.detect_emission`'s ``reference_noise``).
@@ -240,11 +327,12 @@ class EmissionMask:
         res = as_image(residual, "residual")
         shape = res.shape
         protected = np.zeros(shape, dtype=bool)
+        last = None
         if previous is None and self.mask is not None:
             if self.mask.shape != shape:
                 raise ValueError(f"residual has shape {shape} but the last update's was "
                                  f"{self.mask.shape}; call reset() before masking a new image")
-            previous = self.mask
+            last = self.mask
         for name, extra in (("previous", previous), ("model", model)):
             if extra is None:
                 continue
@@ -253,11 +341,17 @@ class EmissionMask:
                 raise ValueError(f"{name} has shape {extra.shape} but residual has {shape}; "
                                  f"pass a {name} on the residual's grid")
             protected |= np.nan_to_num(extra) != 0
+        if last is not None:
+            protected |= held_islands(last, protected)
         widths = self.smoothing_px()
         sky = res
-        if self.psf is not None:
-            seen = sky_view(res, self.psf, beam=Beam(self.beam_fwhm_px, self.beam_fwhm_px))
+        self.view = None
+        if self.psf is not None and self._sidelobes_matter(res, noise):
+            seen = sky_view(res, self.psf, beam=Beam(self.beam_fwhm_px, self.beam_fwhm_px),
+                            cache=self._view_cache,
+                            max_cycles=VIEW_CYCLES if not self.views else LATER_VIEW_CYCLES)
             sky, self.view = seen.image, seen.as_dict()
+            self.views += 1
         found = detect_emission(sky, self.beam_fwhm_px, [widths[s] for s in self.scales],
                                 sigma=self.sigma, exclude=protected,
                                 include_negative=self.include_negative,
@@ -274,7 +368,12 @@ class EmissionMask:
             keep[np.unique(labels[protected])] = True
             keep[0] = False
             detected = keep[labels]
-        mask = self._grow(detected) | protected
+        alone = _alone(detected, found.points)
+        mask = alone | protected
+        for width, part in found.found:
+            # a smoothed rung's islands already reach about half its smoothing beyond
+            # the emission: grown by the rest of the growth radius
+            mask |= self._grow(detected & part & ~alone, 0.5 * width)
         self.mask = mask
         logger.debug("auto mask: %d islands found, %d pixels (%.2f%%); noise by scale %s; "
                      "negative islands (false ones expected) by scale %s",
