@@ -21,7 +21,9 @@ from skyscale.core.validate import as_image
 from skyscale.core.beam import Beam, gaussian_area
 from skyscale.masks.detect import detect_emission
 from skyscale.core.noise import detection_noise
+from skyscale.masks.sidelobes import sidelobe_envelope, under_sidelobes
 from skyscale.masks.sky_view import VIEW_CYCLES, largest_sidelobe, sky_view
+
 
 __all__ = ["LATER_VIEW_CYCLES", "GROW_KEPT", "EmissionMask", "emission_mask", "bounding_box", "held_islands"]
 
@@ -133,14 +135,17 @@ class EmissionMask:
         Raise each scale's level to the deepest negative value off the emission where
         that is deeper (see Notes).  Default True.
     psf : (py, px) ndarray, optional
-        The PSF (peak 1 at ``(py // 2, px // 2)``).  Given, the bright emission left
-        in the residual is cleaned out and restored before detection
-        (`skyscale.masks.sky_view.sky_view`), so that its sidelobes, positive shelves
-        near the main lobe included, are not taken for emission; only when they can
-        reach the detection level (the residual's absolute peak times the PSF's
-        largest sidelobe, `skyscale.masks.sky_view.largest_sidelobe`, above ``sigma``
-        times the noise), so a residual already cleaned costs no clean.  Default None:
-        the residual is looked at as given (`skyscale.deconvolve` gives its PSF).
+        The PSF (peak 1 at ``(py // 2, px // 2)``).  Given, an island whose peak the
+        sidelobes of a brighter one could reach is left out until that one is cleaned
+        (`skyscale.masks.sidelobes.under_sidelobes`; counted in ``under_sidelobes``).
+        Default None (`skyscale.deconvolve` gives its PSF).
+    clean_first : bool
+        With ``psf``, clean the residual's bright emission out and restore it before
+        detection (`skyscale.masks.sky_view.sky_view`), when the PSF's sidelobes of
+        the residual's peak can reach the detection level (its absolute peak times
+        the PSF's largest sidelobe, `skyscale.masks.sky_view.largest_sidelobe`, above
+        ``sigma`` times the noise).  Default False: a short clean cannot model broad
+        emission the array samples sparsely, and what it leaves raises the level.
 
     Raises
     ------
@@ -192,7 +197,7 @@ class EmissionMask:
 
     def __init__(self, scales, beam_fwhm_px, *, sigma=5.0, grow_beams=1.0,
                  min_island_beams=1.0, smooth_fraction=0.5, include_negative=False,
-                 cell_arcsec=None, guard_negative=True, psf=None):
+                 cell_arcsec=None, guard_negative=True, psf=None, clean_first=False):
         if isinstance(scales, u.Quantity):
             scales = [_positive(s, "scales", allow_zero=True, cell_arcsec=cell_arcsec)
                       for s in np.atleast_1d(scales)]
@@ -219,7 +224,11 @@ class EmissionMask:
         self.include_negative = bool(include_negative)
         self.guard_negative = bool(guard_negative)
         self.psf = None if psf is None else as_image(psf, "psf")
+        self.clean_first = bool(clean_first)
+        #: Islands left out at the last update as a brighter island's sidelobes.
+        self.under_sidelobes = 0
         self._sidelobe = None
+        self._envelope = None
         self._view_cache = {}
         #: How the image detected at the last update was made, when ``psf`` is given
         #: and the residual's sidelobes could reach the detection level
@@ -251,6 +260,7 @@ class EmissionMask:
         self.view = None
         self.views = 0
         self._sidelobe = None
+        self._envelope = None
         self._view_cache = {}
 
     def _sidelobes_matter(self, residual, noise):
@@ -346,7 +356,7 @@ class EmissionMask:
         widths = self.smoothing_px()
         sky = res
         self.view = None
-        if self.psf is not None and self._sidelobes_matter(res, noise):
+        if self.psf is not None and self.clean_first and self._sidelobes_matter(res, noise):
             seen = sky_view(res, self.psf, beam=Beam(self.beam_fwhm_px, self.beam_fwhm_px),
                             cache=self._view_cache,
                             max_cycles=VIEW_CYCLES if not self.views else LATER_VIEW_CYCLES)
@@ -362,9 +372,17 @@ class EmissionMask:
         self.spurious = dict(zip(self.scales, found.spurious))
         detected = found.mask
         labels, n = ndimage.label(detected, structure=np.ones((3, 3), dtype=bool))
+        self.under_sidelobes = 0
         if n:
             island_pixels = np.bincount(labels.ravel())
             keep = island_pixels >= self.min_island_beams * self.beam_area_px
+            if self.psf is not None:
+                if self._envelope is None:
+                    self._envelope = sidelobe_envelope(self.psf, shape)
+                lobes = under_sidelobes(sky, labels, self._envelope,
+                                        margin_px=0.5 * self.beam_fwhm_px)
+                self.under_sidelobes = int(np.count_nonzero(lobes & keep))
+                keep &= ~lobes
             keep[np.unique(labels[protected])] = True
             keep[0] = False
             detected = keep[labels]
