@@ -31,15 +31,14 @@ from skyscale.core.beam import FWHM_PER_SIGMA, gaussian_area
 from skyscale.core.noise import detection_noise
 from skyscale.masks.islands import (COMPACT_APART, DIAMETER_MEASURES, ELONGATED, Island,
                                     measure_islands, point_island)
-from skyscale.masks.mask_guards import (MASK_GAIN, POINT_AREA, TRIM_SIGMA, negative_noise,
-                                        off_emission, point_cores, resolved_part)
+from skyscale.masks.mask_guards import (MASK_GAIN, POINT_AREA, TRIM_SIGMA, off_emission,
+                                        point_cores, resolved_part)
 from skyscale.masks.profiles import transfer_of_beam, transfer_of_psf
 from skyscale.masks.smoothing import LADDER_RATIO, smoothed_images, smoothing_ladder
 
 __all__ = ["FWHM_PER_SIGMA", "LADDER_RATIO", "COMPACT_APART", "ELONGATED", "MASK_GAIN",
            "TRIM_SIGMA", "POINT_AREA", "DIAMETER_MEASURES", "Island", "Detection",
-           "smoothing_ladder", "smoothed_images", "point_island", "detect_emission",
-           "negative_noise"]
+           "smoothing_ladder", "smoothed_images", "point_island", "detect_emission"]
 
 logger = logging.getLogger(__name__)
 
@@ -184,10 +183,7 @@ def detect_emission(image, beam_fwhm_px, smoothing_px=None, *, sigma=5.0, exclud
         if noise == 0:
             noise = float(np.std(sm))
         if i == 0 and reference_noise is not None and 0 < reference_noise < noise:
-            # emission is positive and noise and sidelobes of either sign: the
-            # negative side's spread is a floor the reference cannot go under
-            floor = negative_noise(sm, exclude)
-            correction = min(1.0, max(float(reference_noise), floor) / noise)
+            correction = float(reference_noise) / noise
         noise *= correction
         noises.append(noise)
         if noise == 0:

@@ -4,10 +4,6 @@ Noise and the PSF's sidelobes come with both signs, emission only positive; a wi
 rung blurs every island beyond its emission; an unresolved source's island is its
 main lobe.  These rules keep what `skyscale.masks.detect.detect_emission` adds to the
 mask (with ``guard_negative``) to what holds emission.
-
-References
-----------
-.. [1] Rousseeuw, P. J. & Croux, C. 1993, JASA 88, 1273 (robust noise).
 """
 
 import math
@@ -18,8 +14,8 @@ from scipy import ndimage
 from skyscale.core.noise import grow_mask
 from skyscale.masks.islands import label_max, point_island
 
-__all__ = ["MASK_GAIN", "TRIM_SIGMA", "POINT_AREA", "NEGATIVE_SAMPLES", "point_cores",
-           "resolved_part", "negative_noise", "off_emission"]
+__all__ = ["MASK_GAIN", "TRIM_SIGMA", "POINT_AREA", "point_cores", "resolved_part",
+           "off_emission"]
 
 
 #: A wider rung adds an island to the mask only when its peak signal-to-noise rose by
@@ -82,30 +78,6 @@ def resolved_part(found, sm, noise, before, before_noise, signed, known):
     keep = np.zeros(n + 1, dtype=bool)
     keep[1:] = gain >= MASK_GAIN * np.maximum(base, 0.0)
     return keep[labels] & (then > TRIM_SIGMA * before_noise)
-
-
-#: `negative_noise` reads at most about this many pixels (an even subsample).
-NEGATIVE_SAMPLES = 1 << 18
-
-
-def negative_noise(image, exclude=None):
-    """Robust noise of an image's negative side: ``1.4826 * median(-x)`` over its
-    negative pixels ``x`` (not in ``exclude``), read from an even subsample.
-
-    For noise of deviation sigma around zero the median of ``|x|`` over the negative
-    half is the 0.75 quantile of the normal distribution, 0.6745 sigma (analytic;
-    1 / 0.6745 = 1.4826 as in the MAD of Rousseeuw & Croux 1993), so this reads sigma;
-    positive emission does not raise it, sidelobes of either sign do.  0 with no
-    negative pixel.
-    """
-    step = max(1, int(math.sqrt(image.size / NEGATIVE_SAMPLES)))
-    data = image[::step, ::step]
-    below = data < 0
-    if exclude is not None:
-        below &= ~np.asarray(exclude, dtype=bool)[::step, ::step]
-    if not below.any():
-        return 0.0
-    return 1.4826 * float(np.median(-data[below]))
 
 
 def off_emission(sm, level, margin, exclude):
