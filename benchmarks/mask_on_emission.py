@@ -3,7 +3,8 @@
 Each field is invented (tests/advisor_fields.group_field: an ellipse, a Gaussian, an
 arc and eight points up to 1e4 times the noise, through the invented array's PSF; the
 sky scaled by ``k``).  A run with the given scales, the automatic mask by default
-(``emission_mask='auto'``) and a stop at 3 times the noise; then:
+(``emission_mask='auto'``; with ``--clean-first`` the mask that cleans the residual's
+bright emission out first) and a stop at 3 times the noise; then:
 
 - the share of the mask's final area on true emission: the sky above 1e-3 of the noise
   per pixel (the reading of tests/test_sky_as_seen.py), grown by a beam (a disk of the beam's geometric-mean FWHM,
@@ -14,6 +15,7 @@ sky scaled by ``k``).  A run with the given scales, the automatic mask by defaul
 Run from the repository root::
 
     PYTHONPATH=engine python benchmarks/mask_on_emission.py --fields 512:1 1024:1
+    PYTHONPATH=engine python benchmarks/mask_on_emission.py --fields 512:1 1024:1 --clean-first
 """
 
 import argparse
@@ -61,12 +63,14 @@ def timed_updates():
     return spent, plain
 
 
-def measure(n, k, scales):
+def measure(n, k, scales, clean_first=False):
     dirty, psf, sky, _ = group_field(n, k, sigma=SIGMA)
+    auto = EmissionMask.for_beam(scales, fit_beam(psf), psf=psf, clean_first=True) \
+        if clean_first else "auto"
     spent, plain = timed_updates()
     try:
         t0 = time.perf_counter()
-        r = deconvolve(dirty, psf, scales=scales, noise_threshold=3, emission_mask="auto",
+        r = deconvolve(dirty, psf, scales=scales, noise_threshold=3, emission_mask=auto,
                        restore=False)
         total = time.perf_counter() - t0
     finally:
@@ -87,6 +91,9 @@ def main(argv=None):
                         help="SIZE:K pairs (image side, sky scale)")
     parser.add_argument("--scales", default="0,4,14,46",
                         help="scale diameters in pixels, comma-separated")
+    parser.add_argument("--clean-first", action="store_true",
+                        help="the mask cleans the residual's bright emission out first "
+                             "(EmissionMask(clean_first=True))")
     args = parser.parse_args(argv)
     scales = [float(s) for s in args.scales.split(",")]
     print("| image | k | scales px | mask px | islands | on emission | spurious | updates | "
@@ -94,7 +101,7 @@ def main(argv=None):
     print("|---|---|---|---|---|---|---|---|---|---|---|")
     for field in args.fields:
         n, k = field.split(":")
-        print(measure(int(n), float(k), scales), flush=True)
+        print(measure(int(n), float(k), scales, args.clean_first), flush=True)
 
 
 if __name__ == "__main__":

@@ -224,7 +224,8 @@ def test_mask_area_is_four_fifths_on_emission(small_group):
 
 
 @pytest.mark.xfail(strict=True, reason="issue 20's 80 % on emission in a default run: "
-                   "about 17 to 25 % on these fields; the short clean that reaches it "
+                   "16 % (512 px), 35 % (1024 px) on the group fields of "
+                   "benchmarks/mask_on_emission.py; the short clean that reaches it "
                    "(clean_first=True) leaves broad emission out of the mask on the "
                    "depth benchmark's fields, so it is not the default")
 def test_the_default_run_s_mask_is_four_fifths_on_emission(small_group):

@@ -376,7 +376,7 @@ class EmissionMask:
         if n:
             island_pixels = np.bincount(labels.ravel())
             keep = island_pixels >= self.min_island_beams * self.beam_area_px
-            if self.psf is not None:
+            if self.psf is not None and self.view is None:   # (a view has no sidelobes)
                 if self._envelope is None:
                     self._envelope = sidelobe_envelope(self.psf, shape)
                 lobes = under_sidelobes(sky, labels, self._envelope,
