@@ -12,6 +12,7 @@ Run from the repository root::
     PYTHONPATH=engine python benchmarks/advisor_sizes.py            # the full table
     PYTHONPATH=engine python benchmarks/advisor_sizes.py --quick    # a few rows
     PYTHONPATH=engine python benchmarks/advisor_sizes.py --groups 512 1024 2048 4096
+    PYTHONPATH=engine python benchmarks/advisor_sizes.py --share 1024 2048 4096
 
 ``--groups`` measures issue 20's field (tests/advisor_fields.group_field: an ellipse of
 smaller extent 72 k px, a Gaussian of FWHM 46 k, an arc 12 k wide and eight points to
@@ -108,12 +109,54 @@ def groups(sizes):
                   f"{'ok' if 0.3 <= ratio <= 1.0 else 'MISS'} |", flush=True)
 
 
+def share(sizes, run_limit):
+    """Seconds of `suggest_scales` against the run it advises (issue 20: under 10 %).
+
+    The field is issue 20's sky scaled with the image (k = n / 512); the run is
+    ``deconvolve(dirty, psf, scales=suggested, emission_mask='auto',
+    noise_threshold=3)``, measured only up to ``run_limit`` image pixels (a longer run
+    makes the share smaller still: the table says "not run")."""
+    from skyscale import deconvolve
+    from tests.advisor_fields import group_field
+    print("| image | k | suggest s | suggested scales | largest / true | run s | "
+          "suggest / run |")
+    print("|---|---|---|---|---|---|---|")
+    for n in sizes:
+        k = n / 512.0
+        t0 = time.perf_counter()
+        dirty, psf, _, truth = group_field(n, k)
+        made = time.perf_counter() - t0
+        true = max(w for _, w, *_ in truth)
+        t0 = time.perf_counter()
+        s = suggest_scales(dirty, psf)
+        advise = time.perf_counter() - t0
+        run = "not run"
+        ratio = "-"
+        if n * n <= run_limit:
+            t0 = time.perf_counter()
+            deconvolve(dirty, psf, scales=list(s.pixels), emission_mask="auto",
+                       noise_threshold=3, restore=False)
+            seconds = time.perf_counter() - t0
+            run, ratio = f"{seconds:.1f}", f"{advise / seconds:.1%}"
+        print(f"| {n} | {k:g} | {advise:.1f} | {', '.join(map(str, s.pixels))} | "
+              f"{max(s.pixels) / true:.2f} | {run} | {ratio} |  (field made in "
+              f"{made:.0f} s)", flush=True)
+
+
 def main(argv=None):
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="a few rows only")
     parser.add_argument("--groups", type=int, nargs="+", metavar="N",
                         help="issue 20's separate-object field at these image sizes")
+    parser.add_argument("--share", type=int, nargs="+", metavar="N",
+                        help="seconds of suggest_scales against the run it advises")
+    parser.add_argument("--run-limit", type=int, default=2048 * 2048, metavar="PIXELS",
+                        help="with --share, run the advised deconvolution only up to "
+                             "this many image pixels (default 2048^2)")
     args = parser.parse_args(argv)
+    if args.share:
+        share(args.share, args.run_limit)
+        return
     if args.groups:
         groups(args.groups)
         return

@@ -156,7 +156,7 @@ def test_label_max_matches_scipy_ndimage_maximum():
     # Reference library: scipy.ndimage.maximum over labels 1..n.
     from scipy import ndimage
 
-    from skyscale.masks.detect import _label_max
+    from skyscale.masks.islands import label_max as _label_max
     rng = np.random.default_rng(11)
     image = rng.normal(size=(60, 70)).astype(np.float32)
     labels, n = ndimage.label(rng.random((60, 70)) < 0.3)

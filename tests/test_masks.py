@@ -1,5 +1,6 @@
 """User masks (FITS, region text) and the automatic mask, on synthetic fields of known truth."""
 
+import math
 import warnings
 
 import numpy as np
@@ -336,7 +337,9 @@ def test_small_islands_dropped_and_growth_is_a_disk_dilation():
     rng = np.random.default_rng(5)
     image = 0.1 * rng.standard_normal((N, N))
     image[20, 20] = 50.0                              # one hot pixel: not beam-shaped
-    image += 30 * fftconvolve(np.pad([[1.0]], ((90, 37), (90, 37))), beam_kernel(), "same")
+    yy, xx = np.mgrid[:N, :N]
+    blob = ((yy - 90) ** 2 + (xx - 90) ** 2 <= 8 ** 2).astype(float)   # a disk 16 px across
+    image += 3 * fftconvolve(blob, beam_kernel(), "same")
     bare = emission_mask(image, [0], FWHM, grow_beams=0.0)
     assert not bare[20, 20] and bare[90, 90]
     assert emission_mask(image, [0], FWHM, grow_beams=0.0, min_island_beams=0.0)[20, 20]
@@ -348,16 +351,34 @@ def test_small_islands_dropped_and_growth_is_a_disk_dilation():
     np.testing.assert_array_equal(grown, ndimage.binary_dilation(bare, disk))
 
 
-def test_model_and_previous_pixels_are_never_removed():
+def test_an_unresolved_source_is_masked_by_its_core_not_grown():
+    rng = np.random.default_rng(5)
+    image = 0.1 * rng.standard_normal((N, N))
+    image += 30 * fftconvolve(np.pad([[1.0]], ((90, 37), (90, 37))), beam_kernel(), "same")
+    grown = emission_mask(image, [0], FWHM, grow_beams=1.0)
+    # its core: the pixels above a quarter of its peak, a disk of radius
+    # FWHM / 2 * sqrt(log2(4)) = 0.71 FWHM for a Gaussian beam (analytic)
+    assert grown[90, 90]
+    assert grown.sum() <= math.pi * (0.71 * FWHM + 1) ** 2
+    assert not grown[90, 90 + int(math.ceil(0.71 * FWHM)) + 1]
+
+
+def test_model_pixels_and_their_islands_are_never_removed():
     _, _, image = synthetic_field(20, 30, n=256)
     am = EmissionMask([0, 8, 16], FWHM)
     first = am.update(image)
     assert first.any()
+    # islands of the first mask (scipy.ndimage.label, 8-connected)
+    labels, n = ndimage.label(first, structure=np.ones((3, 3)))
+    assert n >= 2
     noise = np.random.default_rng(6).standard_normal(image.shape)
     model = np.zeros(image.shape)
     model[5, 250] = 0.1
-    second = am.update(noise, model=model)            # previous defaults to the last mask
-    assert second[first].all() and second[5, 250]
+    y, x = np.argwhere(labels == 1)[0]
+    model[y, x] = 0.1                                 # model flux in the first island
+    second = am.update(noise, model=model)            # the last mask's islands that
+    assert second[labels == 1].all() and second[5, 250]   # hold model flux stay,
+    assert not second[labels == 2].any()              # the others go when not found again
     explicit = emission_mask(noise, [0, 8, 16], FWHM, previous=first)
     np.testing.assert_array_equal(explicit, first)
     am.reset()

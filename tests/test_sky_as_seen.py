@@ -191,7 +191,7 @@ def test_mask_islands_hold_emission_through_a_run(small_group):
     dirty, psf, sky, truth = small_group
     true = true_emission(sky, psf)
     scales = list(suggest_scales(dirty, psf).pixels)
-    em = EmissionMask.for_beam(scales, fit_beam(psf), psf=psf)
+    em = EmissionMask.for_beam(scales, fit_beam(psf), psf=psf, clean_first=True)
     r = deconvolve(dirty, psf, scales=scales, emission_mask=em, restore=False,
                    max_components=5000, max_major_cycles=4)
     m = r.mask
@@ -207,18 +207,35 @@ def test_mask_islands_hold_emission_through_a_run(small_group):
     # the spurious count is measured and reported for every scale
     assert set(em.spurious) == set(em.scales)
     assert all(isinstance(c, int) and c >= 0 for c in em.spurious.values())
-    assert em.view is not None and em.view["noise_after"] < em.view["noise_before"] \
+    # the dirty image's bright point has sidelobes above the level: it was cleaned
+    # first; the last residual is looked at as given when its sidelobes cannot reach
+    # the level (the largest sidelobe times its peak under 5 sigma)
+    assert em.views >= 1
+    assert em.view is None or em.view["noise_after"] < em.view["noise_before"] \
         or em.view["components"] == 0
 
 
-@pytest.mark.xfail(strict=True, reason="issue 20's 80 % on emission: 78 % here, the "
-                   "islands' edges a few pixels beyond the emission grown by a beam")
 def test_mask_area_is_four_fifths_on_emission(small_group):
     dirty, psf, sky, truth = small_group
     true = true_emission(sky, psf)
     scales = list(suggest_scales(dirty, psf).pixels)
-    m = EmissionMask.for_beam(scales, fit_beam(psf), psf=psf).update(dirty)
+    m = EmissionMask.for_beam(scales, fit_beam(psf), psf=psf, clean_first=True).update(dirty)
     assert (m & true).sum() >= 0.8 * m.sum()
+
+
+@pytest.mark.xfail(strict=True, reason="issue 20's 80 % on emission in a default run: "
+                   "16 % (512 px), 35 % (1024 px) on the group fields of "
+                   "benchmarks/mask_on_emission.py; the short clean that reaches it "
+                   "(clean_first=True) leaves broad emission out of the mask on the "
+                   "depth benchmark's fields, so it is not the default")
+def test_the_default_run_s_mask_is_four_fifths_on_emission(small_group):
+    # the automatic mask as a run makes it by default (no psf= given by the caller)
+    dirty, psf, sky, truth = small_group
+    true = true_emission(sky, psf)
+    r = deconvolve(dirty, psf, scales="auto", emission_mask="auto", noise_threshold=3,
+                   restore=False)
+    m = r.mask
+    assert m.any() and (m & true).sum() >= 0.8 * m.sum()
 
 
 def test_the_negative_guard_counts_and_refuses_symmetric_sidelobes():

@@ -536,7 +536,7 @@ def deconvolve(dirty, psf, *, scales=DEFAULTS.scales, loop_gain=DEFAULTS.loop_ga
         if isinstance(emission_mask, str):
             from skyscale.core.beam import fit_beam
             b = beam if beam is not None else fit_beam(engine.psf)
-            emission_mask = EmissionMask.for_beam(engine.scales.pixels, b)
+            emission_mask = EmissionMask.for_beam(engine.scales.pixels, b, psf=engine.psf)
         updater = _emission_mask_updater(emission_mask, user_mask, box)
     result = run_cycles(engine, operator, dirty=dirty_arr, model=model, mask=mask,
                         threshold=threshold, noise_threshold=noise_threshold,

@@ -20,9 +20,12 @@ from scipy import ndimage
 from skyscale.core.validate import as_image
 from skyscale.core.beam import Beam, gaussian_area
 from skyscale.masks.detect import detect_emission
-from skyscale.masks.sky_view import sky_view
+from skyscale.core.noise import detection_noise
+from skyscale.masks.sidelobes import sidelobe_envelope, under_sidelobes
+from skyscale.masks.sky_view import VIEW_CYCLES, largest_sidelobe, sky_view
 
-__all__ = ["EmissionMask", "emission_mask"]
+
+__all__ = ["LATER_VIEW_CYCLES", "GROW_KEPT", "EmissionMask", "emission_mask", "bounding_box", "held_islands"]
 
 logger = logging.getLogger(__name__)
 
@@ -46,6 +49,62 @@ def _positive(value, name, *, allow_zero=False, cell_arcsec=None):
     return value
 
 
+#: Major cycles of the short clean (`skyscale.masks.sky_view.sky_view`) at an update
+#: after the first that needed one: the deconvolution has taken most of the bright
+#: emission out by then, and what is left needs a few.
+LATER_VIEW_CYCLES = 2
+
+
+#: An island found on a smoothed scale is grown by the growth radius less half the
+#: smoothing, but by at least this fraction of it: the faint wings of broad emission
+#: lie beyond what the smoothing spread above the level.
+GROW_KEPT = 0.5
+
+
+def bounding_box(mask):
+    """``(rows, cols)`` slices of the smallest box holding every True pixel, or None."""
+    rows = np.flatnonzero(mask.any(axis=1))
+    if rows.size == 0:
+        return None
+    cols = np.flatnonzero(mask.any(axis=0))
+    return slice(rows[0], rows[-1] + 1), slice(cols[0], cols[-1] + 1)
+
+
+def held_islands(mask, held):
+    """The islands of ``mask`` (8-connected, ``scipy.ndimage.label``) that hold a pixel
+    of ``held``; labelled within ``mask``'s bounding box only."""
+    out = np.zeros(mask.shape, dtype=bool)
+    box = bounding_box(mask)
+    if box is None:
+        return out
+    part = mask[box]
+    labels, n = ndimage.label(part, structure=np.ones((3, 3), dtype=bool))
+    if n:
+        keep = np.zeros(n + 1, dtype=bool)
+        keep[np.unique(labels[held[box] & part])] = True
+        keep[0] = False
+        out[box] = keep[labels]
+    return out
+
+
+def _alone(detected, points):
+    """The islands of ``detected`` made of ``points`` pixels only: unresolved sources'
+    cores, which are not grown (one delta component models each; the core already
+    holds its main lobe above a quarter of its peak)."""
+    if points is None or not (points & detected).any():
+        return np.zeros(detected.shape, dtype=bool)
+    box = bounding_box(detected)
+    part = detected[box]
+    labels, n = ndimage.label(part, structure=np.ones((3, 3), dtype=bool))
+    size = np.bincount(labels.ravel(), minlength=n + 1)
+    core = np.bincount(labels[points[box] & part], minlength=n + 1)
+    keep = core == size
+    keep[0] = False
+    out = np.zeros(detected.shape, dtype=bool)
+    out[box] = keep[labels]
+    return out
+
+
 class EmissionMask:
     """A mask that follows the significant emission in the residual, scale by scale.
 
@@ -59,7 +118,10 @@ class EmissionMask:
     sigma : float
         Detection threshold in units of the robust noise of each smoothed image.
     grow_beams : float
-        Islands are grown by this many beam FWHMs (dilation by a disk).
+        Islands are grown by this many beam FWHMs (dilation by a disk), less half the
+        smoothing of the scale that found them (which already spread them that far
+        beyond the emission) but at least `GROW_KEPT` of it; unresolved sources'
+        cores are not grown.
     min_island_beams : float
         Islands with fewer pixels than this many beam areas are dropped, unless they
         touch protected pixels.
@@ -73,11 +135,17 @@ class EmissionMask:
         Raise each scale's level to the deepest negative value off the emission where
         that is deeper (see Notes).  Default True.
     psf : (py, px) ndarray, optional
-        The PSF (peak 1 at ``(py // 2, px // 2)``).  Given, the bright emission left
-        in the residual is cleaned out and restored before detection
-        (`skyscale.masks.sky_view.sky_view`), so that its sidelobes, positive shelves
-        near the main lobe included, are not taken for emission.  Default None: the
-        residual is looked at as given.
+        The PSF (peak 1 at ``(py // 2, px // 2)``).  Given, an island whose peak the
+        sidelobes of a brighter one could reach is left out until that one is cleaned
+        (`skyscale.masks.sidelobes.under_sidelobes`; counted in ``under_sidelobes``).
+        Default None (`skyscale.deconvolve` gives its PSF).
+    clean_first : bool
+        With ``psf``, clean the residual's bright emission out and restore it before
+        detection (`skyscale.masks.sky_view.sky_view`), when the PSF's sidelobes of
+        the residual's peak can reach the detection level (its absolute peak times
+        the PSF's largest sidelobe, `skyscale.masks.sky_view.largest_sidelobe`, above
+        ``sigma`` times the noise).  Default False: a short clean cannot model broad
+        emission the array samples sparsely, and what it leaves raises the level.
 
     Raises
     ------
@@ -102,8 +170,9 @@ class EmissionMask:
     residual's bright emission is first cleaned out and restored
     (`skyscale.masks.sky_view.sky_view`), so its sidelobes do not make islands.  The
     detections are united, small islands dropped (``scipy.ndimage.label``,
-    8-connected) and the rest grown.  Pixels holding model flux and pixels of the
-    previous mask are always kept, so the mask only grows over major cycles.
+    8-connected) and the rest grown.  Pixels holding model flux, and the islands of
+    the previous mask that hold any, are always kept: an island on which nothing was
+    cleaned (a sidelobe taken for emission early on) goes when it is not found again.
 
     Examples
     --------
@@ -128,7 +197,7 @@ class EmissionMask:
 
     def __init__(self, scales, beam_fwhm_px, *, sigma=5.0, grow_beams=1.0,
                  min_island_beams=1.0, smooth_fraction=0.5, include_negative=False,
-                 cell_arcsec=None, guard_negative=True, psf=None):
+                 cell_arcsec=None, guard_negative=True, psf=None, clean_first=False):
         if isinstance(scales, u.Quantity):
             scales = [_positive(s, "scales", allow_zero=True, cell_arcsec=cell_arcsec)
                       for s in np.atleast_1d(scales)]
@@ -155,9 +224,19 @@ class EmissionMask:
         self.include_negative = bool(include_negative)
         self.guard_negative = bool(guard_negative)
         self.psf = None if psf is None else as_image(psf, "psf")
+        self.clean_first = bool(clean_first)
+        #: Islands left out at the last update as a brighter island's sidelobes.
+        self.under_sidelobes = 0
+        self._sidelobe = None
+        self._envelope = None
+        self._view_cache = {}
         #: How the image detected at the last update was made, when ``psf`` is given
-        #: (`skyscale.masks.sky_view.SkyView.as_dict`).
+        #: and the residual's sidelobes could reach the detection level
+        #: (`skyscale.masks.sky_view.SkyView.as_dict`); None when it was looked at as
+        #: given.
         self.view = None
+        #: Updates since the last `reset` whose residual was cleaned first.
+        self.views = 0
         #: The level each scale was cut at, at the last update (``sigma`` times its
         #: noise, or the deepest negative off the emission when deeper).
         self.levels = {}
@@ -179,13 +258,29 @@ class EmissionMask:
         self.levels = {}
         self.spurious = {}
         self.view = None
+        self.views = 0
+        self._sidelobe = None
+        self._envelope = None
+        self._view_cache = {}
+
+    def _sidelobes_matter(self, residual, noise):
+        """Whether the PSF's sidelobes of the residual's brightest pixel can reach the
+        detection level: its absolute peak times the PSF's largest sidelobe
+        (`skyscale.masks.sky_view.largest_sidelobe`) above ``sigma`` times the noise
+        (the deconvolution's, or the residual's robust noise)."""
+        if self._sidelobe is None:
+            self._sidelobe = largest_sidelobe(self.psf, self.beam_fwhm_px, residual.shape)
+        if noise is None or not noise > 0:
+            noise = detection_noise(residual, self.sigma, margin_px=0.5 * self.beam_fwhm_px)
+        return float(np.abs(residual).max()) * self._sidelobe > self.sigma * noise
 
     def smoothing_px(self):
         """Smoothing FWHM in pixels for each scale (``smooth_fraction`` of it)."""
         return {s: self.smooth_fraction * s for s in self.scales}
 
-    def _grow(self, mask):
-        radius = self.grow_beams * self.beam_fwhm_px
+    def _grow(self, mask, spread=0.0):
+        full = self.grow_beams * self.beam_fwhm_px
+        radius = max(GROW_KEPT * full, full - spread)
         if radius < 1 or not mask.any():
             return mask
         r = int(np.floor(radius))
@@ -221,7 +316,9 @@ class EmissionMask:
         model : (ny, nx) array_like, optional
             Current model; its non-zero pixels are always in the mask.
         previous : (ny, nx) array_like of bool, optional
-            Pixels that must stay in the mask.  Default: the mask of the last update.
+            Pixels that must stay in the mask.  Default: the islands of the last
+            update's mask that hold model flux (the others stay only where they are
+            found again: the mask keeps no island on which nothing was cleaned).
         noise : float, optional
             The residual's noise from the deconvolution (see
             `skyscale.masks.detect.detect_emission`'s ``reference_noise``).
@@ -240,11 +337,12 @@ class EmissionMask:
         res = as_image(residual, "residual")
         shape = res.shape
         protected = np.zeros(shape, dtype=bool)
+        last = None
         if previous is None and self.mask is not None:
             if self.mask.shape != shape:
                 raise ValueError(f"residual has shape {shape} but the last update's was "
                                  f"{self.mask.shape}; call reset() before masking a new image")
-            previous = self.mask
+            last = self.mask
         for name, extra in (("previous", previous), ("model", model)):
             if extra is None:
                 continue
@@ -253,11 +351,17 @@ class EmissionMask:
                 raise ValueError(f"{name} has shape {extra.shape} but residual has {shape}; "
                                  f"pass a {name} on the residual's grid")
             protected |= np.nan_to_num(extra) != 0
+        if last is not None:
+            protected |= held_islands(last, protected)
         widths = self.smoothing_px()
         sky = res
-        if self.psf is not None:
-            seen = sky_view(res, self.psf, beam=Beam(self.beam_fwhm_px, self.beam_fwhm_px))
+        self.view = None
+        if self.psf is not None and self.clean_first and self._sidelobes_matter(res, noise):
+            seen = sky_view(res, self.psf, beam=Beam(self.beam_fwhm_px, self.beam_fwhm_px),
+                            cache=self._view_cache,
+                            max_cycles=VIEW_CYCLES if not self.views else LATER_VIEW_CYCLES)
             sky, self.view = seen.image, seen.as_dict()
+            self.views += 1
         found = detect_emission(sky, self.beam_fwhm_px, [widths[s] for s in self.scales],
                                 sigma=self.sigma, exclude=protected,
                                 include_negative=self.include_negative,
@@ -268,13 +372,26 @@ class EmissionMask:
         self.spurious = dict(zip(self.scales, found.spurious))
         detected = found.mask
         labels, n = ndimage.label(detected, structure=np.ones((3, 3), dtype=bool))
+        self.under_sidelobes = 0
         if n:
             island_pixels = np.bincount(labels.ravel())
             keep = island_pixels >= self.min_island_beams * self.beam_area_px
+            if self.psf is not None and self.view is None:   # (a view has no sidelobes)
+                if self._envelope is None:
+                    self._envelope = sidelobe_envelope(self.psf, shape)
+                lobes = under_sidelobes(sky, labels, self._envelope,
+                                        margin_px=0.5 * self.beam_fwhm_px)
+                self.under_sidelobes = int(np.count_nonzero(lobes & keep))
+                keep &= ~lobes
             keep[np.unique(labels[protected])] = True
             keep[0] = False
             detected = keep[labels]
-        mask = self._grow(detected) | protected
+        alone = _alone(detected, found.points)
+        mask = alone | protected
+        for width, part in found.found:
+            # a smoothed rung's islands already reach about half its smoothing beyond
+            # the emission: grown by the rest of the growth radius
+            mask |= self._grow(detected & part & ~alone, 0.5 * width)
         self.mask = mask
         logger.debug("auto mask: %d islands found, %d pixels (%.2f%%); noise by scale %s; "
                      "negative islands (false ones expected) by scale %s",

@@ -39,6 +39,7 @@ from scipy.optimize import minimize_scalar, nnls
 from scipy.special import j0, j1, ndtr
 
 from skyscale.core.beam import gaussian_area
+from skyscale.masks.smoothing import smoothed_images
 
 __all__ = ["SHAPES", "SHAPE_TIE", "MIN_EXTENDED", "Transfer", "ProfileFit",
            "transfer_of_psf", "transfer_of_beam", "seen_profile", "seen_point",
@@ -250,7 +251,6 @@ def seen_point(psf, width_px, beam_px):
     """An unresolved source of flux 1 seen through the PSF (or, for ``psf`` None, the
     round Gaussian beam of ``beam_px``) and the rung's smoothing: an image with its
     peak at ``(ny // 2, nx // 2)``, sampled on the pixel grid as the island is."""
-    from skyscale.masks.detect import smoothed_images            # detect imports this module
     if psf is None:
         spread = math.hypot(beam_px, width_px)
         half = int(math.ceil(3.0 * spread)) + 1

@@ -37,7 +37,8 @@ from skyscale.masks.view_loop import view_loop
 
 __all__ = ["VIEW_GAIN", "VIEW_DEPTH", "VIEW_SCALE_BEAMS", "VIEW_SIZE_PENALTY", "VIEW_COMPONENTS",
            "VIEW_CYCLES", "CYCLE_FRACTION", "PIXELS_PER_COMPONENT", "PATCH_PX",
-           "MAX_CANDIDATES", "TILE_PX", "TILE_QUANTILE", "SkyView", "quiet_noise", "sky_view"]
+           "MAX_CANDIDATES", "CANDIDATE_STEP", "TILE_PX", "TILE_QUANTILE", "MAIN_LOBE_BEAMS", "SkyView", "quiet_noise",
+           "largest_sidelobe", "sky_view"]
 
 logger = logging.getLogger(__name__)
 
@@ -195,6 +196,32 @@ def quiet_noise(image):
     return float(np.quantile(tiles, TILE_QUANTILE)) if tiles else 0.0
 
 
+#: The PSF's main lobe, for `largest_sidelobe`, reaches this many beam FWHMs from its
+#: peak: a Gaussian main lobe is down to 2^-9 = 0.002 of its peak there (analytic,
+#: exp(-4 ln 2 r^2 / FWHM^2)).
+MAIN_LOBE_BEAMS = 1.5
+
+
+def largest_sidelobe(psf, beam_fwhm_px, shape):
+    """The PSF's largest absolute value beyond its main lobe (farther than
+    `MAIN_LOBE_BEAMS` beam FWHMs from the peak at ``(py // 2, px // 2)``), over the
+    offsets between two pixels of an image of ``shape``; relative to the peak."""
+    py, px = psf.shape
+    cy, cx = py // 2, px // 2
+    ny, nx = shape
+    cut = np.abs(psf[max(0, cy - ny + 1):cy + ny, max(0, cx - nx + 1):cx + nx])
+    oy, ox = cy - max(0, cy - ny + 1), cx - max(0, cx - nx + 1)
+    r = int(math.ceil(MAIN_LOBE_BEAMS * beam_fwhm_px))
+    yy, xx = np.ogrid[-min(r, oy):min(r, cut.shape[0] - oy - 1) + 1,
+                      -min(r, ox):min(r, cut.shape[1] - ox - 1) + 1]
+    near = cut[oy + yy.min():oy + yy.max() + 1, ox + xx.min():ox + xx.max() + 1].copy()
+    near[yy * yy + xx * xx <= (MAIN_LOBE_BEAMS * beam_fwhm_px) ** 2] = 0.0
+    far = cut.copy()
+    far[oy + yy.min():oy + yy.max() + 1, ox + xx.min():ox + xx.max() + 1] = near
+    peak = float(abs(psf[cy, cx]))
+    return float(far.max()) / peak if peak > 0 else 0.0
+
+
 class _Grid:
     """The PSF and its smoothings on a periodic grid where image offsets never wrap.
 
@@ -253,16 +280,31 @@ class _Grid:
                 seen = seen + sfft.rfft2(model, s=self.grid) * self.transfer(var)
         if not isinstance(seen, int):
             total = image_spectrum - seen * self.spectrum
+        # the residual outside the image is not zero on the grid: each smoothing is
+        # of the residual cut to the image, as `smooth` makes it
         residual = sfft.irfft2(total, s=self.grid)[:ny, :nx].astype(np.float32)
-        return [residual] + [self.smooth(residual, v) for v in variances[1:]]
+        if len(variances) < 2:
+            return [residual]
+        cut = sfft.rfft2(residual, s=self.grid)
+        return [residual] + [sfft.irfft2(cut * self.transfer(v), s=self.grid)[:ny, :nx]
+                             .astype(np.float32) for v in variances[1:]]
 
 
-def _candidates(planes, levels):
+#: A scale's candidates lie on a grid of this fraction of its FWHM (at least every
+#: pixel): neighbours closer than that see nearly the same smoothed value, and the
+#: minor cycle's cost grows with the candidates it scans at every step.
+CANDIDATE_STEP = 0.25
+
+
+def _candidates(planes, levels, widths):
     """The brightest pixels of every plane above its level (at most `MAX_CANDIDATES`
-    each): ``(values, ys, xs, scale)``."""
+    each), on a grid of `CANDIDATE_STEP` times its scale's width:
+    ``(values, ys, xs, scale)``."""
     out = [], [], [], []
-    for j, (plane, level) in enumerate(zip(planes, levels)):
-        ys, xs = np.nonzero(plane > level)
+    for j, (plane, level, width) in enumerate(zip(planes, levels, widths)):
+        step = max(1, int(CANDIDATE_STEP * width))
+        ys, xs = np.nonzero(plane[::step, ::step] > level)
+        ys, xs = ys * step, xs * step
         values = plane[ys, xs].astype(np.float64)
         if values.size > MAX_CANDIDATES:
             keep = np.sort(np.argpartition(values, -MAX_CANDIDATES)[-MAX_CANDIDATES:])
@@ -300,7 +342,7 @@ def _outside(shape, half):
 
 
 def sky_view(image, psf, *, beam=None, scales=None, gain=VIEW_GAIN, depth=VIEW_DEPTH,
-             max_components=None, max_cycles=VIEW_CYCLES):
+             max_components=None, max_cycles=VIEW_CYCLES, cache=None):
     """The image with its bright emission cleaned out and restored: the sky as seen.
 
     Parameters
@@ -325,6 +367,10 @@ def sky_view(image, psf, *, beam=None, scales=None, gain=VIEW_GAIN, depth=VIEW_D
         `PIXELS_PER_COMPONENT` pixels when that is more.
     max_cycles : int
         At most this many major cycles.  Default `VIEW_CYCLES`.
+    cache : dict, optional
+        Keeps the PSF's transform and its smoothed patches between calls with the same
+        PSF, image shape and scales (a caller that views each major cycle's residual
+        passes the same dict); default none kept.
 
     Returns
     -------
@@ -381,9 +427,17 @@ def sky_view(image, psf, *, beam=None, scales=None, gain=VIEW_GAIN, depth=VIEW_D
                         for w in widths])
     margin = 0.5 * beam_px
     before = detection_noise(img, 5.0, margin_px=margin)
-    grid = _Grid(psf32, img.shape)
+    cache = {} if cache is None else cache
+    key = (img.shape, widths)
+    if cache.get("key") != key:
+        cache.clear()
+        cache.update(key=key, grid=_Grid(psf32, img.shape), patches=None)
+    grid = cache["grid"]
     models = [np.zeros(img.shape, dtype=np.float32) for _ in widths]
-    patches = None
+    patches = cache["patches"]
+    if patches is not None:
+        patches, beyond = patches
+        fraction = max(CYCLE_FRACTION, 1.5 * beyond)
     spectrum = sfft.rfft2(img, s=grid.grid)
     planes = grid.planes(spectrum, models, variances)
     n_comp, cycles, stop = 0, 0, "nothing above the level"
@@ -405,11 +459,12 @@ def sky_view(image, psf, *, beam=None, scales=None, gain=VIEW_GAIN, depth=VIEW_D
             break
         if patches is None:
             patches, beyond = _patches(grid, variances, min(PATCH_PX, min(img.shape) - 1))
+            cache["patches"] = (patches, beyond)
             fraction = max(CYCLE_FRACTION, 1.5 * beyond)
         # each scale down to a fraction of its own peak: at least what the sidelobes
         # beyond the patch could raise elsewhere (Clark 1980)
         cycle = np.array([lv * max(1.0, fraction * p) for lv, p in zip(levels, peaks)])
-        values, ys, xs, which = _candidates(planes, cycle)
+        values, ys, xs, which = _candidates(planes, cycle, widths)
         index, fluxes = view_loop(values, ys, xs, which, cycle, *patches, gain=gain,
                                   budget=max_components - n_comp, weights=weights)
         if not index.size:
