@@ -38,6 +38,11 @@ def add_wideband_parser(sub):
     p.add_argument("--threshold", type=float, default=0.0,
                    help="absolute stop level of the term-0 residual, Jy/beam [0]")
     p.add_argument("--mask", help="FITS mask on the image's grid (non-zero: may clean)")
+    p.add_argument("--emission-mask", action="store_true", default=True,
+                   help="clean inside the automatic mask, found on the band (term-0) "
+                   "residual and renewed every major cycle; kept inside --mask [on]")
+    p.add_argument("--no-emission-mask", dest="emission_mask", action="store_false",
+                   help="clean everywhere (or everywhere in --mask)")
     p.add_argument("--freqs", help="channel frequencies in Hz, comma-separated [the cube's "
                    "spectral axis]")
     p.add_argument("--channel-weights", default="equal",
@@ -104,7 +109,8 @@ def cmd_wideband(args):
         mask = np.asarray(read_image(args.mask, name="mask").data) != 0
     result = deconvolve_wideband(
         dirty, psf, freqs, terms=args.terms, scales=_floats(args.scales, "--scales"),
-        mask=mask, threshold=args.threshold, noise_threshold=noise,
+        mask=mask, emission_mask="auto" if args.emission_mask else None,
+        threshold=args.threshold, noise_threshold=noise,
         channel_weights=weights, reference_frequency=args.reference_frequency,
         loop_gain=args.loop_gain, max_components=args.max_components,
         max_major_cycles=args.max_major_cycles, index_snr=args.index_snr,

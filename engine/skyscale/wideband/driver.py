@@ -25,6 +25,8 @@ from skyscale.core.scales import ScaleSet
 from skyscale.core.threads import thread_limit
 from skyscale.core.validate import InputError, as_image, check_number, resolve_dtype
 from skyscale.core.validate import NUMBER_RULES, check_choice
+from skyscale.masks import EmissionMask
+from skyscale.wideband.band_mask import band_mask_updater, resolve_masks
 from skyscale.wideband.hessian import invert_hessian
 from skyscale.wideband.joint_cycle import WIDEBAND_COMPONENT_DTYPE, WidebandEngine
 from skyscale.wideband.result import WidebandResult
@@ -73,7 +75,7 @@ def _inputs(dirty, psf, freqs, terms):
 
 
 def deconvolve_wideband(dirty, psf, freqs, *, terms=2, scales=DEFAULTS.scales,
-                        mask=None, threshold=0.0, noise_threshold=None,
+                        mask=None, emission_mask=None, threshold=0.0, noise_threshold=None,
                         channel_weights=None, reference_frequency=None,
                         loop_gain=DEFAULTS.loop_gain, size_penalty=DEFAULTS.size_penalty,
                         scale_loop_depth=DEFAULTS.scale_loop_depth,
@@ -99,8 +101,13 @@ def deconvolve_wideband(dirty, psf, freqs, *, terms=2, scales=DEFAULTS.scales,
         `skyscale.deconvolve` of the weighted mean image with the weighted mean PSF.
     scales : sequence of float
         Scale diameters in pixels; default ``[0, 4, 8, 16]``.
-    mask : (ny, nx) bool ndarray, optional
-        Where components may go; default everywhere.
+    mask : (ny, nx) bool ndarray, 'auto', EmissionMask or None
+        Where components may go; default everywhere.  ``'auto'`` (the way to run an
+        extended field) selects the automatic mask (`skyscale.masks.EmissionMask`, as in
+        `skyscale.deconvolve`) on the term-0 residual, renewed after every major cycle;
+        an `EmissionMask` instance gives its options.
+    emission_mask : 'auto' or EmissionMask, optional
+        The automatic mask kept inside an array ``mask`` (their intersection).
     threshold : float
         Stop when every scale's equivalent term-0 peak in the mask is at or below this,
         Jy/beam; default 0.
@@ -196,18 +203,7 @@ def deconvolve_wideband(dirty, psf, freqs, *, terms=2, scales=DEFAULTS.scales,
         raise InputError(f"reference_frequency is {reference_frequency}; give a "
                          "positive frequency in Hz")
     offsets = taylor_offsets(freqs, nu0)
-    if isinstance(mask, str) or (mask is not None and not hasattr(mask, "shape")
-                                 and not isinstance(mask, (list, tuple))):
-        raise InputError(f"mask is {mask!r}; deconvolve_wideband takes a boolean array (the "
-                         "automatic mask is not available for wideband runs yet) or None")
-    if mask is not None:
-        mask = np.asarray(mask, dtype=bool)
-        if mask.shape != shape:
-            raise InputError(f"mask has shape {mask.shape}, expected the image's {shape}; "
-                             "regrid or rebuild the mask")
-        if not mask.any():
-            raise InputError("mask selects no pixel; give a mask with True where "
-                             "components may go, or none")
+    mask, emission_mask = resolve_masks(mask, emission_mask, shape)
     params = dict(terms=terms, scales=[float(s) for s in np.atleast_1d(scales)],
                   threshold=threshold, noise_threshold=noise_threshold, loop_gain=loop_gain,
                   size_penalty=size_penalty, scale_loop_depth=scale_loop_depth,
@@ -221,8 +217,8 @@ def deconvolve_wideband(dirty, psf, freqs, *, terms=2, scales=DEFAULTS.scales,
         if isinstance(beam, str):
             beam = fit_beam(moments[0] if beam == "band" else beams[int(np.argmin(freqs))])
         single = deconvolve(dirty_terms[0].astype(dt), moments[0].astype(dt), scales=scales,
-                            mask=mask, threshold=threshold, noise_threshold=noise_threshold,
-                            loop_gain=loop_gain, size_penalty=size_penalty,
+                            mask=mask, emission_mask=emission_mask, threshold=threshold,
+                            noise_threshold=noise_threshold, loop_gain=loop_gain, size_penalty=size_penalty,
                             scale_loop_depth=scale_loop_depth, extended_depth=extended_depth,
                             cycle_depth=cycle_depth, max_components=max_components,
                             max_major_cycles=max_major_cycles, scale_shape=scale_shape,
@@ -233,12 +229,19 @@ def deconvolve_wideband(dirty, psf, freqs, *, terms=2, scales=DEFAULTS.scales,
     engine = WidebandEngine(moments, scale_set, shape, size_penalty=size_penalty,
                             loop_gain=loop_gain, scale_loop_depth=scale_loop_depth, dtype=dt,
                             threads=threads, fft=fft)
+    updater = None
+    if emission_mask is not None:
+        if isinstance(emission_mask, str):
+            emission_mask = EmissionMask.for_beam(
+                engine.scales.pixels, beam if hasattr(beam, "major") else fit_beam(moments[0]))
+        updater = band_mask_updater(emission_mask, mask)
     with thread_limit(threads):
         backend = get_backend(fft, threads=threads)
         result = _run(engine, cube, beams, backend, weights, offsets, dirty_terms, mask,
                       float(threshold), noise_threshold, float(extended_depth),
                       float(cycle_depth), int(max_components), int(max_major_cycles),
-                      callback)
+                      callback, updater)
+    result.emission_mask = emission_mask
     result.parameters = params
     result.warnings = notes + result.warnings
     result.reference_frequency = nu0
@@ -271,13 +274,16 @@ def equivalent_multiple(noise_threshold, n):
 
 def _run(engine, cube, beams, backend, weights, offsets, dirty_terms, mask, threshold,
          noise_threshold, extended_depth, cycle_depth, max_components, max_major_cycles,
-         callback):
+         callback, mask_updater=None):
     """Major cycles: joint minor cycles, then every term's residual from scratch.
 
     Each major cycle recomputes ``R_t = I^D_t - sum_q B_{t+q} (*) I_q`` with the spectral
     PSFs, which is ``sum_c w_c x_c^t (dirty_c - PSF_c (*) model_c)`` exactly (the sums
     are linear) at ``2 n`` transforms instead of two per channel; every channel's own
-    residual is computed from its PSF at the end."""
+    residual is computed from its PSF at the end.  ``mask_updater`` (the automatic
+    mask, `skyscale.wideband.band_mask.band_mask_updater`) renews the mask from the
+    term-0 residual before the first minor cycle and after every major cycle; a major
+    cycle is judged in the mask it was cleaned in, before the mask grows."""
     n = engine.n_terms
     terms = np.zeros((n,) + engine.image_shape)
     residuals = dirty_terms.copy()
@@ -285,8 +291,8 @@ def _run(engine, cube, beams, backend, weights, offsets, dirty_terms, mask, thre
 
     multiple = equivalent_multiple(noise_threshold, n)
 
-    def measure(residuals):
-        planes = engine.smooth(residuals)
+    def measure(residuals, planes=None):
+        planes = engine.smooth(residuals) if planes is None else planes
         noise, _ = engine.noise(planes, mask)
         levels = scale_levels(noise, threshold=threshold, noise_threshold=multiple,
                               extended_depth=extended_depth, masked=mask is not None,
@@ -296,6 +302,10 @@ def _run(engine, cube, beams, backend, weights, offsets, dirty_terms, mask, thre
         return planes, noise, levels, peaks, peak, rms
 
     planes, noise, levels, peaks, peak, rms = measure(residuals)
+    centres = np.zeros(engine.image_shape, dtype=np.uint8)
+    if mask_updater is not None:
+        mask = mask_updater(residuals[0], centres, float(noise[0]))
+        planes, noise, levels, peaks, peak, rms = measure(residuals, planes)
     history = [CycleRecord(0, 0, peak, rms, 0.0, scale_peaks=peaks.tolist())]
     if callback is not None:
         callback({"stage": "major", "cycle": 0, "components": 0, "peak": peak, "rms": rms})
@@ -306,6 +316,9 @@ def _run(engine, cube, beams, backend, weights, offsets, dirty_terms, mask, thre
         else "threshold"
     try:
         for cycle in range(1, max_major_cycles + 1):
+            if mask is not None and not mask.any():
+                stop = "empty_mask"
+                break
             if np.all(peaks <= levels):
                 stop = level_stop
                 break
@@ -339,6 +352,10 @@ def _run(engine, cube, beams, backend, weights, offsets, dirty_terms, mask, thre
             planes, noise, levels, peaks, new_peak, rms = new
             tables.append(mc.components)
             n_comp += mc.components.size
+            if mask_updater is not None:
+                centres[mc.components["y"], mc.components["x"]] = 1
+                mask = mask_updater(residuals[0], centres, float(noise[0]))
+                planes, noise, levels, peaks, new_peak, rms = measure(residuals, planes)
             fell = new_peak < 0.99 * peak
             peak = new_peak
             flux = float(terms[0].sum())
@@ -430,7 +447,8 @@ def _single_result(single, cube, beams, freqs, weights, nu0, params, notes):
         channel_residuals=channel_res, components=table, stop_reason=single.stop_reason,
         reference_frequency=nu0, frequencies=freqs, channel_weights=weights,
         restored=None if single.restored is None else single.restored[None],
-        beam=single.beam, scales=single.scales, mask=single.mask, history=single.history,
+        beam=single.beam, scales=single.scales, mask=single.mask,
+        emission_mask=getattr(single, "emission_mask", None), history=single.history,
         parameters=params, timings=single.timings, warnings=notes + list(single.warnings),
         scale_noise=single.scale_noise, scale_levels=single.scale_levels,
         scale_peaks=single.scale_peaks, sub_loops=single.sub_loops,
