@@ -75,7 +75,7 @@ def _inputs(dirty, psf, freqs, terms):
 
 
 def deconvolve_wideband(dirty, psf, freqs, *, terms=2, scales=DEFAULTS.scales,
-                        mask=None, emission_mask=None, threshold=0.0, noise_threshold=None,
+                        mask=None, emission_mask=None, operators=None, threshold=0.0, noise_threshold=None,
                         channel_weights=None, reference_frequency=None,
                         loop_gain=DEFAULTS.loop_gain, size_penalty=DEFAULTS.size_penalty,
                         scale_loop_depth=DEFAULTS.scale_loop_depth,
@@ -108,6 +108,13 @@ def deconvolve_wideband(dirty, psf, freqs, *, terms=2, scales=DEFAULTS.scales,
         an `EmissionMask` instance gives its options.
     emission_mask : 'auto' or EmissionMask, optional
         The automatic mask kept inside an array ``mask`` (their intersection).
+    operators : sequence of callable, optional
+        One residual operator per channel, ``operators[c](model) -> residual`` (Jy/beam,
+        the image's shape), e.g. `skyscale.visibility.channel_operators` (one
+        `VisibilityOperator` per channel, `skyscale.visibility.wideband_inputs` makes
+        ``dirty``, ``psf``, ``freqs`` and the channel weights from them).  Given, every
+        major cycle computes each channel's residual from its data and the Taylor
+        residuals from those; default: from the PSFs in the image plane.
     threshold : float
         Stop when every scale's equivalent term-0 peak in the mask is at or below this,
         Jy/beam; default 0.
@@ -204,6 +211,12 @@ def deconvolve_wideband(dirty, psf, freqs, *, terms=2, scales=DEFAULTS.scales,
                          "positive frequency in Hz")
     offsets = taylor_offsets(freqs, nu0)
     mask, emission_mask = resolve_masks(mask, emission_mask, shape)
+    if operators is not None:
+        operators = list(operators)
+        if len(operators) != cube.shape[0] or not all(callable(op) for op in operators):
+            raise InputError(f"operators holds {len(operators)} items, expected "
+                             f"{cube.shape[0]} callables, one residual operator per "
+                             "channel of dirty (skyscale.visibility.channel_operators)")
     params = dict(terms=terms, scales=[float(s) for s in np.atleast_1d(scales)],
                   threshold=threshold, noise_threshold=noise_threshold, loop_gain=loop_gain,
                   size_penalty=size_penalty, scale_loop_depth=scale_loop_depth,
@@ -214,6 +227,8 @@ def deconvolve_wideband(dirty, psf, freqs, *, terms=2, scales=DEFAULTS.scales,
     moments = taylor_sums(beams, weights, offsets, 2 * terms - 1)
     dirty_terms = taylor_sums(cube, weights, offsets, terms)
     if terms == 1:
+        band_operator = None if operators is None else \
+            _band_operator(operators, weights, offsets, shape, dt)
         if isinstance(beam, str):
             beam = fit_beam(moments[0] if beam == "band" else beams[int(np.argmin(freqs))])
         single = deconvolve(dirty_terms[0].astype(dt), moments[0].astype(dt), scales=scales,
@@ -223,8 +238,10 @@ def deconvolve_wideband(dirty, psf, freqs, *, terms=2, scales=DEFAULTS.scales,
                             cycle_depth=cycle_depth, max_components=max_components,
                             max_major_cycles=max_major_cycles, scale_shape=scale_shape,
                             threads=threads, fft=fft, dtype=dt, beam=beam,
-                            restore=restore_images, callback=callback)
-        return _single_result(single, cube, beams, freqs, weights, nu0, params, notes)
+                            operator=band_operator, restore=restore_images,
+                            callback=callback)
+        return _single_result(single, cube, beams, freqs, weights, nu0, params, notes,
+                              operators)
     scale_set = ScaleSet(scales, shape=scale_shape, image_shape=shape)
     engine = WidebandEngine(moments, scale_set, shape, size_penalty=size_penalty,
                             loop_gain=loop_gain, scale_loop_depth=scale_loop_depth, dtype=dt,
@@ -240,7 +257,7 @@ def deconvolve_wideband(dirty, psf, freqs, *, terms=2, scales=DEFAULTS.scales,
         result = _run(engine, cube, beams, backend, weights, offsets, dirty_terms, mask,
                       float(threshold), noise_threshold, float(extended_depth),
                       float(cycle_depth), int(max_components), int(max_major_cycles),
-                      callback, updater)
+                      callback, updater, operators)
     result.emission_mask = emission_mask
     result.parameters = params
     result.warnings = notes + result.warnings
@@ -274,7 +291,7 @@ def equivalent_multiple(noise_threshold, n):
 
 def _run(engine, cube, beams, backend, weights, offsets, dirty_terms, mask, threshold,
          noise_threshold, extended_depth, cycle_depth, max_components, max_major_cycles,
-         callback, mask_updater=None):
+         callback, mask_updater=None, operators=None):
     """Major cycles: joint minor cycles, then every term's residual from scratch.
 
     Each major cycle recomputes ``R_t = I^D_t - sum_q B_{t+q} (*) I_q`` with the spectral
@@ -310,6 +327,7 @@ def _run(engine, cube, beams, backend, weights, offsets, dirty_terms, mask, thre
     if callback is not None:
         callback({"stage": "major", "cycle": 0, "components": 0, "peak": peak, "rms": rms})
     tables, notes = [], []
+    channel_res = None        # with operators: the channels' residuals of the last cycle
     n_comp = rounds = rejected = stagnant = 0
     stop = "max_major_cycles"
     level_stop = "noise" if noise_threshold is not None and np.any(levels > threshold) \
@@ -337,7 +355,12 @@ def _run(engine, cube, beams, backend, weights, offsets, dirty_terms, mask, thre
                 stop = {"empty": "empty_mask", "max_components": "max_components",
                         "threshold": level_stop}.get(mc.stop_reason, "no_progress")
                 break
-            new_residuals = engine.subtract(dirty_terms.copy(), mc.terms, full_precision=True)
+            if operators is None:
+                new_residuals = engine.subtract(dirty_terms.copy(), mc.terms,
+                                                full_precision=True)
+            else:
+                new_channels = _channel_residuals(operators, mc.terms, offsets)
+                new_residuals = taylor_sums(new_channels, weights, offsets, n)
             t_major += time.perf_counter() - t2
             new = measure(new_residuals)
             highest = allowed_peak(peak, levels, engine.scales.has_delta)
@@ -349,6 +372,8 @@ def _run(engine, cube, beams, backend, weights, offsets, dirty_terms, mask, thre
                 stop = "diverging"
                 break
             terms, residuals = mc.terms, new_residuals
+            if operators is not None:
+                channel_res = new_channels
             planes, noise, levels, peaks, new_peak, rms = new
             tables.append(mc.components)
             n_comp += mc.components.size
@@ -379,11 +404,15 @@ def _run(engine, cube, beams, backend, weights, offsets, dirty_terms, mask, thre
     except KeyboardInterrupt:
         stop = "interrupted"
     t2 = time.perf_counter()
-    channel_res = np.empty(cube.shape, dtype=np.float64)
-    for c, psf in enumerate(beams):       # one channel's convolver at a time
-        conv = Convolver(psf, engine.image_shape, backend=backend)
-        channel_res[c] = cube[c] - conv(channel_model(terms, offsets[c]), out_dtype=np.float64)
-        del conv
+    if operators is None:
+        channel_res = np.empty(cube.shape, dtype=np.float64)
+        for c, psf in enumerate(beams):       # one channel's convolver at a time
+            conv = Convolver(psf, engine.image_shape, backend=backend)
+            channel_res[c] = cube[c] - conv(channel_model(terms, offsets[c]),
+                                            out_dtype=np.float64)
+            del conv
+    elif channel_res is None:
+        channel_res = cube.astype(np.float64)
     t_major += time.perf_counter() - t2
     components = np.concatenate(tables) if tables else np.zeros(0, WIDEBAND_COMPONENT_DTYPE)
     return WidebandResult(
@@ -394,6 +423,24 @@ def _run(engine, cube, beams, backend, weights, offsets, dirty_terms, mask, thre
         timings={"minor": t_minor, "major": t_major}, warnings=notes,
         scale_noise=noise.tolist(), scale_levels=levels.tolist(), scale_peaks=peaks.tolist(),
         sub_loops=rounds, rejected_sub_loops=rejected)
+
+
+def _channel_residuals(operators, terms, offsets):
+    """``(nchan, ny, nx)`` float64: each channel's residual of its model from its operator."""
+    return np.stack([np.asarray(op(channel_model(terms, x)), dtype=np.float64)
+                     for op, x in zip(operators, offsets)])
+
+
+def _band_operator(operators, weights, offsets, shape, dtype):
+    """One term's operator: the weighted mean of the channels' residuals of one model
+    (the term-0 Taylor sum, ``sum_c w_c R_c``)."""
+    from skyscale.core.operators import FunctionOperator
+
+    def band(model):
+        terms = np.asarray(model, dtype=np.float64)[None]
+        return taylor_sums(_channel_residuals(operators, terms, offsets), weights, offsets,
+                           1)[0].astype(dtype)
+    return FunctionOperator(band, shape=shape, dtype=dtype)
 
 
 def coefficient_residuals(residuals, moments):
@@ -434,14 +481,18 @@ def _restore(result, moments, beams, beam, index_snr, index_method):
     result.blank_level = maps["blank_level"]
 
 
-def _single_result(single, cube, beams, freqs, weights, nu0, params, notes):
+def _single_result(single, cube, beams, freqs, weights, nu0, params, notes, operators=None):
     """A `WidebandResult` holding the single-term run of `skyscale.deconvolve`."""
     table = np.zeros(single.components.size, WIDEBAND_COMPONENT_DTYPE)
     for name in ("y", "x", "scale", "flux"):
         table[name] = single.components[name]
-    channel_res = np.stack([c - Convolver(b, cube.shape[1:])(single.model.astype(np.float64),
-                                                                  out_dtype=np.float64)
-                            for c, b in zip(cube, beams)]).astype(np.float32)
+    if operators is not None:
+        channel_res = _channel_residuals(operators, single.model[None], np.zeros(len(cube))
+                                         ).astype(np.float32)
+    else:
+        channel_res = np.stack([c - Convolver(b, cube.shape[1:])(
+            single.model.astype(np.float64), out_dtype=np.float64)
+            for c, b in zip(cube, beams)]).astype(np.float32)
     return WidebandResult(
         terms=single.model[None], residuals=single.residual[None],
         channel_residuals=channel_res, components=table, stop_reason=single.stop_reason,
