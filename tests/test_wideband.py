@@ -171,16 +171,19 @@ def test_residuals_are_exact_channel_residuals(freqs, psfs):
 
 
 # ----------------------------------------------------------------- one term
-def test_one_term_is_todays_deconvolve(freqs, psfs):
+@pytest.mark.parametrize("mask", [None, "auto"])
+def test_one_term_is_todays_deconvolve(freqs, psfs, mask):
     sky = np.zeros((len(freqs),) + SHAPE)
     sky[:, 64, 60] = power_law(freqs, 1.0, -0.7, NU0)
     sky += 0.3 * disk(SHAPE, 40, 80, 8)[None]
     dirty = observe(sky, psfs, 1e-3, freqs)
     r = skyscale.deconvolve_wideband(dirty, psfs, freqs, terms=1, scales=[0, 4, 8],
-                                     noise_threshold=3)
+                                     noise_threshold=3, mask=mask)
     one = skyscale.deconvolve(dirty.astype(np.float64).mean(axis=0).astype(np.float32),
                               psfs.mean(axis=0).astype(np.float32), scales=[0, 4, 8],
-                              noise_threshold=3)
+                              noise_threshold=3, mask=mask)
+    if mask is not None:
+        np.testing.assert_array_equal(r.mask, one.mask)
     assert r.components.size == one.components.size > 0
     for name in ("y", "x", "scale", "flux"):
         np.testing.assert_array_equal(r.components[name], one.components[name])
@@ -321,21 +324,6 @@ def test_automatic_mask_kept_inside_a_given_mask(freqs, psfs):
     assert not (r.mask & ~half).any()
     assert r.mask[64, 60] and not r.mask[30, 30]
     assert np.all(r.components["y"] >= 48)
-
-
-def test_one_term_automatic_mask_is_todays_deconvolve(freqs, psfs):
-    sky = np.zeros((len(freqs),) + SHAPE)
-    sky[:, 64, 60] = power_law(freqs, 1.0, -0.7, NU0)
-    sky += 0.3 * disk(SHAPE, 40, 80, 8)[None]
-    dirty = observe(sky, psfs, 1e-3, freqs)
-    r = skyscale.deconvolve_wideband(dirty, psfs, freqs, terms=1, scales=[0, 4, 8],
-                                     noise_threshold=3, mask="auto")
-    one = skyscale.deconvolve(dirty.astype(np.float64).mean(axis=0).astype(np.float32),
-                              psfs.mean(axis=0).astype(np.float32), scales=[0, 4, 8],
-                              noise_threshold=3, mask="auto")
-    assert r.components.size == one.components.size > 0
-    np.testing.assert_array_equal(r.terms[0], one.model)
-    np.testing.assert_array_equal(r.mask, one.mask)
 
 
 # ----------------------------------------------------------------- bad input
