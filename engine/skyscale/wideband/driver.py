@@ -75,7 +75,8 @@ def _inputs(dirty, psf, freqs, terms):
 
 
 def deconvolve_wideband(dirty, psf, freqs, *, terms=2, scales=DEFAULTS.scales,
-                        mask=None, emission_mask=None, operators=None, threshold=0.0, noise_threshold=None,
+                        mask=None, emission_mask=None, operators=None, threshold=0.0,
+                        noise_threshold=None,
                         channel_weights=None, reference_frequency=None,
                         loop_gain=DEFAULTS.loop_gain, size_penalty=DEFAULTS.size_penalty,
                         scale_loop_depth=DEFAULTS.scale_loop_depth,
@@ -83,7 +84,8 @@ def deconvolve_wideband(dirty, psf, freqs, *, terms=2, scales=DEFAULTS.scales,
                         cycle_depth=DEFAULTS.cycle_depth,
                         max_components=DEFAULTS.max_components,
                         max_major_cycles=DEFAULTS.max_major_cycles,
-                        scale_shape=DEFAULTS.scale_shape, index_snr=DEFAULT_INDEX_SNR, index_method="band", beam=None, restore_images=True,
+                        scale_shape=DEFAULTS.scale_shape, index_snr=DEFAULT_INDEX_SNR,
+                        index_method="band", beam=None, restore_images=True,
                         threads=None, fft="auto", dtype=None, callback=None):
     """Multi-term (Taylor) multi-scale CLEAN of per-channel dirty images.
 
