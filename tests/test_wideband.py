@@ -15,6 +15,7 @@ import skyscale
 from skyscale import InputError
 from skyscale.core.beam import restore
 from skyscale.core.scales import ScaleSet
+from skyscale.masks import EmissionMask
 from skyscale.wideband.hessian import invert_hessian, invert_hessians, scale_hessians
 from skyscale.wideband.kernels import joint_loop, joint_response
 from skyscale.wideband.taylor import taylor_offsets, taylor_sums
@@ -170,16 +171,19 @@ def test_residuals_are_exact_channel_residuals(freqs, psfs):
 
 
 # ----------------------------------------------------------------- one term
-def test_one_term_is_todays_deconvolve(freqs, psfs):
+@pytest.mark.parametrize("mask", [None, "auto"])
+def test_one_term_is_todays_deconvolve(freqs, psfs, mask):
     sky = np.zeros((len(freqs),) + SHAPE)
     sky[:, 64, 60] = power_law(freqs, 1.0, -0.7, NU0)
     sky += 0.3 * disk(SHAPE, 40, 80, 8)[None]
     dirty = observe(sky, psfs, 1e-3, freqs)
     r = skyscale.deconvolve_wideband(dirty, psfs, freqs, terms=1, scales=[0, 4, 8],
-                                     noise_threshold=3)
+                                     noise_threshold=3, mask=mask)
     one = skyscale.deconvolve(dirty.astype(np.float64).mean(axis=0).astype(np.float32),
                               psfs.mean(axis=0).astype(np.float32), scales=[0, 4, 8],
-                              noise_threshold=3)
+                              noise_threshold=3, mask=mask)
+    if mask is not None:
+        np.testing.assert_array_equal(r.mask, one.mask)
     assert r.components.size == one.components.size > 0
     for name in ("y", "x", "scale", "flux"):
         np.testing.assert_array_equal(r.components[name], one.components[name])
@@ -270,6 +274,58 @@ def test_plane_by_plane_route_agrees(freqs, psfs, extended):
     assert np.percentile(err, 90) < 0.15
 
 
+# ----------------------------------------------------------------- automatic mask
+@pytest.fixture(scope="module")
+def extended_auto(freqs, psfs):
+    sky = _extended_field(freqs)
+    sigma = 2e-3
+    dirty = observe(sky, psfs, sigma, freqs)
+    r = skyscale.deconvolve_wideband(dirty, psfs, freqs, terms=3, scales=[0, 4, 8, 16],
+                                     noise_threshold=3, reference_frequency=NU0,
+                                     beam="lowest", mask="auto")
+    return sky, sigma, r
+
+
+def test_automatic_mask_finds_the_emission_and_cleans_it(freqs, extended_auto):
+    sky, sigma, r = extended_auto
+    assert r.stop_reason == "noise"
+    assert isinstance(r.emission_mask, EmissionMask)
+    # the mask holds every pixel where the band's sky, seen with an 8 px beam, is above
+    # 20 sigma, and leaves most of the empty field out
+    seen = restore(sky[8], None, skyscale.Beam(8.0, 8.0))
+    assert r.mask[seen > 20 * sigma].all()
+    assert r.mask.mean() < 0.5
+    # the same checks as with a hand-made mask (test_extended_*): channel residuals at
+    # the noise, no plateau, the index map against the per-pixel power-law fit
+    # (numpy.linalg.lstsq on logs of the smoothed sky)
+    rms = r.channel_residuals.std(axis=(1, 2))
+    assert np.all(rms < 1.2 * sigma), rms / sigma
+    emission = r.restored[0] > 10 * r.term_noise[0]
+    means = r.channel_residuals[:, emission].mean(axis=1)
+    assert np.all(np.abs(means) < 0.5 * sigma), means / sigma
+    truth = _loglog_alpha(np.stack([restore(c, None, r.beam) for c in sky]), freqs)
+    bright = r.restored[0] > 50 * sigma
+    assert bright.sum() > 1000
+    err = np.abs(r.spectral_index - truth)[bright]
+    assert np.percentile(err, 95) < 0.1 and np.median(err) < 0.03
+    assert err.max() < 0.15         # measured 0.12
+
+
+def test_automatic_mask_kept_inside_a_given_mask(freqs, psfs):
+    sky = np.zeros((len(freqs),) + SHAPE)
+    sky[:, 64, 60] = power_law(freqs, 1.0, -0.7, NU0)
+    sky[:, 30, 30] = power_law(freqs, 0.5, -0.7, NU0)
+    dirty = observe(sky, psfs, 1e-3, freqs)
+    half = np.zeros(SHAPE, bool)
+    half[48:, :] = True             # holds the first source only
+    r = skyscale.deconvolve_wideband(dirty, psfs, freqs, terms=2, scales=[0, 4],
+                                     noise_threshold=3, mask=half, emission_mask="auto",
+                                     restore_images=False)
+    assert not (r.mask & ~half).any()
+    assert r.mask[64, 60] and not r.mask[30, 30]
+    assert np.all(r.components["y"] >= 48)
+
+
 # ----------------------------------------------------------------- bad input
 def test_bad_input_is_refused(freqs, psfs):
     dirty = np.zeros((16,) + SHAPE, np.float32)
@@ -282,7 +338,9 @@ def test_bad_input_is_refused(freqs, psfs):
     with pytest.raises(InputError, match="channel_weights"):
         skyscale.deconvolve_wideband(dirty, psfs, freqs, channel_weights=np.ones(3))
     with pytest.raises(InputError, match="mask"):
-        skyscale.deconvolve_wideband(dirty, psfs, freqs, mask="auto")
+        skyscale.deconvolve_wideband(dirty, psfs, freqs, mask="everywhere")
+    with pytest.raises(InputError, match="emission_mask"):
+        skyscale.deconvolve_wideband(dirty, psfs, freqs, emission_mask=np.ones(SHAPE, bool))
     with pytest.raises(InputError, match="distinct"):
         skyscale.deconvolve_wideband(dirty[:2], psfs[:2], [1e9, 1e9], terms=2)
 

@@ -51,6 +51,8 @@ def test_wideband_command_writes_every_output(tmp_path):
     assert table.colnames == ["y", "x", "scale_px", "flux_jy", "term1_jy"]
     report = json.loads((out / "wideband-report.json").read_text())
     assert report["terms"] == 2 and report["spectral_maps"]["blanked_below_jy_per_beam"] > 0
+    # the automatic mask is on by default: it holds the source and little else
+    assert report["mask"]["automatic"] and 0 < report["mask"]["fraction"] < 0.5
     # a second run without --overwrite is refused (exit 2 for bad input, or 1)
     again = main(["--quiet", "wideband", str(tmp_path / "cube.fits"),
                   str(tmp_path / "psf.fits"), "--out", str(out)])

@@ -105,6 +105,8 @@ def register(subparsers):
     p.add_argument("--json", action="store_true", help="print the plan as JSON")
     p.add_argument("--require-fit", action="store_true",
                    help="exit 1 when the run would not fit in memory")
+    from skyscale.cli.wideband_plan_command import add_wideband_plan_options
+    add_wideband_plan_options(p)
     p.set_defaults(func=cmd_plan)
     return subparsers
 
@@ -155,6 +157,9 @@ def cmd_plan(args):
              for k, a in (("components", "components"), ("rounds", "sub_loops"),
                           ("major_cycles", "major_cycles"), ("active_pixels", "active_pixels"),
                           ("fft_updates", "fft_updates"))}
+    if getattr(args, "terms", 1) > 1:
+        from skyscale.cli.wideband_plan_command import print_wideband_plan
+        return print_wideband_plan(args, tuple(shape), tuple(psf), scales, planes, known)
     threads = args.threads if planes == 1 else (args.threads or 1)   # cube: 1 a plane
     plan = plan_run(shape, psf, scales, max_components=args.max_components,
                     max_major_cycles=args.max_major_cycles, threads=threads,

@@ -28,8 +28,17 @@ def add_wideband_parser(sub):
         "frequency (Rau & Cornwell 2011). Writes each term's model, residual and restored "
         "image, the spectral index (and curvature) with an error map, the component table "
         "and a report.")
-    p.add_argument("cube", help="FITS cube of dirty images, Jy/beam, one plane per channel")
-    p.add_argument("psf", help="FITS cube of PSFs, one per channel, the image's size or larger")
+    p.add_argument("cube", nargs="?", help="FITS cube of dirty images, Jy/beam, one plane "
+                   "per channel (or give --visibilities)")
+    p.add_argument("psf", nargs="?", help="FITS cube of PSFs, one per channel, the image's "
+                   "size or larger")
+    p.add_argument("--visibilities", metavar="FILE", help="skyscale visibility file (.npz): "
+                   "image every channel and run the major cycles against each channel's "
+                   "data, instead of CUBE and PSF")
+    p.add_argument("--size", type=int, help="image size N (N x N pixels) with --visibilities")
+    p.add_argument("--cell", type=float, help="cell size in arcsec with --visibilities")
+    p.add_argument("--weighting", default="natural", choices=("natural", "uniform", "briggs"),
+                   help="visibility weighting of each channel [natural]")
     p.add_argument("--out", required=True, help="output folder")
     p.add_argument("--terms", type=int, default=2, help="Taylor terms, 1 to 3 [2]")
     p.add_argument("--scales", default="0,4,8,16", help="scale diameters, pixels [0,4,8,16]")
@@ -38,11 +47,17 @@ def add_wideband_parser(sub):
     p.add_argument("--threshold", type=float, default=0.0,
                    help="absolute stop level of the term-0 residual, Jy/beam [0]")
     p.add_argument("--mask", help="FITS mask on the image's grid (non-zero: may clean)")
+    p.add_argument("--emission-mask", action="store_true", default=True,
+                   help="clean inside the automatic mask, found on the band (term-0) "
+                   "residual and renewed every major cycle; kept inside --mask [on]")
+    p.add_argument("--no-emission-mask", dest="emission_mask", action="store_false",
+                   help="clean everywhere (or everywhere in --mask)")
     p.add_argument("--freqs", help="channel frequencies in Hz, comma-separated [the cube's "
                    "spectral axis]")
-    p.add_argument("--channel-weights", default="equal",
+    p.add_argument("--channel-weights",
                    help="'equal', 'noise' (inverse variance of each dirty plane) or one "
-                   "number per channel [equal]")
+                   "number per channel [equal; with --visibilities each channel's sum of "
+                   "imaging weights]")
     p.add_argument("--reference-frequency", type=float,
                    help="Taylor reference frequency, Hz [the weighted mean]")
     p.add_argument("--index-snr", type=float, default=10.0,
@@ -86,16 +101,42 @@ def _frequencies(cube, text):
     return np.asarray(cube.spectral, dtype=np.float64) * scale
 
 
+def _from_visibilities(args):
+    """Per-channel operators of a visibility file and the inputs they make."""
+    from skyscale.cli.job_visibilities import image_header
+    from skyscale.visibility.channels import channel_operators, wideband_inputs
+    from skyscale.visibility.file import read_visibilities
+    if args.size is None or args.cell is None:
+        raise InputError("--visibilities needs the image's --size N and --cell ARCSEC")
+    data = read_visibilities(args.visibilities)
+    ops = channel_operators(data.uvw, data.freqs, data.vis, data.weights, flags=data.flags,
+                            npix=args.size, cell_arcsec=args.cell, weighting=args.weighting)
+    dirty, psf, freqs, weights = wideband_inputs(ops)
+    like = image_header((args.size, args.size), args.cell, data.phase_centre_deg)
+    return ops, dirty, psf, freqs, like, weights
+
+
 def cmd_wideband(args):
     """Run ``skyscale wideband``; return the exit code."""
     from skyscale.io.fits import read_image
     from skyscale.wideband.driver import deconvolve_wideband
     from skyscale.wideband.outputs import write_wideband
-    cube, dirty = _read(args.cube, "cube")
-    _, psf = _read(args.psf, "psf")
-    freqs = _frequencies(cube, args.freqs)
+    operators = None
     weights = args.channel_weights
-    if weights not in ("equal", "noise"):
+    if args.visibilities:
+        operators, dirty, psf, freqs, like, data_weights = _from_visibilities(args)
+        if weights is None:
+            weights = data_weights
+    elif args.cube and args.psf:
+        cube, dirty = _read(args.cube, "cube")
+        _, psf = _read(args.psf, "psf")
+        freqs = _frequencies(cube, args.freqs)
+        like = cube.wcs
+    else:
+        raise InputError("give the dirty cube and the PSF cube (FITS), or --visibilities "
+                         "FILE with --size and --cell")
+    weights = "equal" if weights is None else weights
+    if isinstance(weights, str) and weights not in ("equal", "noise"):
         weights = _floats(weights, "--channel-weights")
     noise = None if str(args.noise_threshold).lower() == "off" else \
         _floats(args.noise_threshold, "--noise-threshold")[0]
@@ -104,12 +145,13 @@ def cmd_wideband(args):
         mask = np.asarray(read_image(args.mask, name="mask").data) != 0
     result = deconvolve_wideband(
         dirty, psf, freqs, terms=args.terms, scales=_floats(args.scales, "--scales"),
-        mask=mask, threshold=args.threshold, noise_threshold=noise,
+        mask=mask, emission_mask="auto" if args.emission_mask else None, operators=operators,
+        threshold=args.threshold, noise_threshold=noise,
         channel_weights=weights, reference_frequency=args.reference_frequency,
         loop_gain=args.loop_gain, max_components=args.max_components,
         max_major_cycles=args.max_major_cycles, index_snr=args.index_snr,
         index_method=args.index_method, beam=args.restoring_beam, threads=args.threads)
-    written = write_wideband(result, args.out, like=cube.wcs, overwrite=args.overwrite,
+    written = write_wideband(result, args.out, like=like, overwrite=args.overwrite,
                              figure=not args.no_figure)
     if not args.quiet:
         print(f"{result.n_terms} Taylor terms about {result.reference_frequency / 1e9:.6g} GHz: "

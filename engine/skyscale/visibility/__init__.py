@@ -2,7 +2,8 @@
 
 `operator.VisibilityOperator` computes the residual image from the data with a
 gridding library; `weights` makes the imaging weights, `file` reads and writes
-skyscale's visibility file; `run` is the file-level job from a visibility file.
+skyscale's visibility file; `run` is the file-level job from a visibility file;
+`channels` makes one operator per channel for wideband runs.
 """
 
 from skyscale._exports import lazy_exports
@@ -13,4 +14,5 @@ __all__, __getattr__, __dir__ = lazy_exports(__name__, {
     "weights": ["WEIGHTINGS", "imaging_weights"],
     "file": ["VisibilityData", "read_visibilities", "write_visibilities"],
     "run": ["run_visibilities"],
+    "channels": ["channel_operators", "channel_operators_from_file", "wideband_inputs"],
 })

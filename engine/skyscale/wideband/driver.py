@@ -25,6 +25,8 @@ from skyscale.core.scales import ScaleSet
 from skyscale.core.threads import thread_limit
 from skyscale.core.validate import InputError, as_image, check_number, resolve_dtype
 from skyscale.core.validate import NUMBER_RULES, check_choice
+from skyscale.masks import EmissionMask
+from skyscale.wideband.band_mask import band_mask_updater, resolve_masks
 from skyscale.wideband.hessian import invert_hessian
 from skyscale.wideband.joint_cycle import WIDEBAND_COMPONENT_DTYPE, WidebandEngine
 from skyscale.wideband.result import WidebandResult
@@ -73,7 +75,8 @@ def _inputs(dirty, psf, freqs, terms):
 
 
 def deconvolve_wideband(dirty, psf, freqs, *, terms=2, scales=DEFAULTS.scales,
-                        mask=None, threshold=0.0, noise_threshold=None,
+                        mask=None, emission_mask=None, operators=None, threshold=0.0,
+                        noise_threshold=None,
                         channel_weights=None, reference_frequency=None,
                         loop_gain=DEFAULTS.loop_gain, size_penalty=DEFAULTS.size_penalty,
                         scale_loop_depth=DEFAULTS.scale_loop_depth,
@@ -81,7 +84,8 @@ def deconvolve_wideband(dirty, psf, freqs, *, terms=2, scales=DEFAULTS.scales,
                         cycle_depth=DEFAULTS.cycle_depth,
                         max_components=DEFAULTS.max_components,
                         max_major_cycles=DEFAULTS.max_major_cycles,
-                        scale_shape=DEFAULTS.scale_shape, index_snr=DEFAULT_INDEX_SNR, index_method="band", beam=None, restore_images=True,
+                        scale_shape=DEFAULTS.scale_shape, index_snr=DEFAULT_INDEX_SNR,
+                        index_method="band", beam=None, restore_images=True,
                         threads=None, fft="auto", dtype=None, callback=None):
     """Multi-term (Taylor) multi-scale CLEAN of per-channel dirty images.
 
@@ -99,8 +103,20 @@ def deconvolve_wideband(dirty, psf, freqs, *, terms=2, scales=DEFAULTS.scales,
         `skyscale.deconvolve` of the weighted mean image with the weighted mean PSF.
     scales : sequence of float
         Scale diameters in pixels; default ``[0, 4, 8, 16]``.
-    mask : (ny, nx) bool ndarray, optional
-        Where components may go; default everywhere.
+    mask : (ny, nx) bool ndarray, 'auto', EmissionMask or None
+        Where components may go; default everywhere.  ``'auto'`` (the way to run an
+        extended field) selects the automatic mask (`skyscale.masks.EmissionMask`, as in
+        `skyscale.deconvolve`) on the term-0 residual, renewed after every major cycle;
+        an `EmissionMask` instance gives its options.
+    emission_mask : 'auto' or EmissionMask, optional
+        The automatic mask kept inside an array ``mask`` (their intersection).
+    operators : sequence of callable, optional
+        One residual operator per channel, ``operators[c](model) -> residual`` (Jy/beam,
+        the image's shape), e.g. `skyscale.visibility.channel_operators` (one
+        `VisibilityOperator` per channel, `skyscale.visibility.wideband_inputs` makes
+        ``dirty``, ``psf``, ``freqs`` and the channel weights from them).  Given, every
+        major cycle computes each channel's residual from its data and the Taylor
+        residuals from those; default: from the PSFs in the image plane.
     threshold : float
         Stop when every scale's equivalent term-0 peak in the mask is at or below this,
         Jy/beam; default 0.
@@ -196,18 +212,13 @@ def deconvolve_wideband(dirty, psf, freqs, *, terms=2, scales=DEFAULTS.scales,
         raise InputError(f"reference_frequency is {reference_frequency}; give a "
                          "positive frequency in Hz")
     offsets = taylor_offsets(freqs, nu0)
-    if isinstance(mask, str) or (mask is not None and not hasattr(mask, "shape")
-                                 and not isinstance(mask, (list, tuple))):
-        raise InputError(f"mask is {mask!r}; deconvolve_wideband takes a boolean array (the "
-                         "automatic mask is not available for wideband runs yet) or None")
-    if mask is not None:
-        mask = np.asarray(mask, dtype=bool)
-        if mask.shape != shape:
-            raise InputError(f"mask has shape {mask.shape}, expected the image's {shape}; "
-                             "regrid or rebuild the mask")
-        if not mask.any():
-            raise InputError("mask selects no pixel; give a mask with True where "
-                             "components may go, or none")
+    mask, emission_mask = resolve_masks(mask, emission_mask, shape)
+    if operators is not None:
+        operators = list(operators)
+        if len(operators) != cube.shape[0] or not all(callable(op) for op in operators):
+            raise InputError(f"operators holds {len(operators)} items, expected "
+                             f"{cube.shape[0]} callables, one residual operator per "
+                             "channel of dirty (skyscale.visibility.channel_operators)")
     params = dict(terms=terms, scales=[float(s) for s in np.atleast_1d(scales)],
                   threshold=threshold, noise_threshold=noise_threshold, loop_gain=loop_gain,
                   size_penalty=size_penalty, scale_loop_depth=scale_loop_depth,
@@ -218,27 +229,39 @@ def deconvolve_wideband(dirty, psf, freqs, *, terms=2, scales=DEFAULTS.scales,
     moments = taylor_sums(beams, weights, offsets, 2 * terms - 1)
     dirty_terms = taylor_sums(cube, weights, offsets, terms)
     if terms == 1:
+        band_operator = None if operators is None else \
+            _band_operator(operators, weights, offsets, shape, dt)
         if isinstance(beam, str):
             beam = fit_beam(moments[0] if beam == "band" else beams[int(np.argmin(freqs))])
         single = deconvolve(dirty_terms[0].astype(dt), moments[0].astype(dt), scales=scales,
-                            mask=mask, threshold=threshold, noise_threshold=noise_threshold,
-                            loop_gain=loop_gain, size_penalty=size_penalty,
+                            mask=mask, emission_mask=emission_mask, threshold=threshold,
+                            noise_threshold=noise_threshold, loop_gain=loop_gain,
+                            size_penalty=size_penalty,
                             scale_loop_depth=scale_loop_depth, extended_depth=extended_depth,
                             cycle_depth=cycle_depth, max_components=max_components,
                             max_major_cycles=max_major_cycles, scale_shape=scale_shape,
                             threads=threads, fft=fft, dtype=dt, beam=beam,
-                            restore=restore_images, callback=callback)
-        return _single_result(single, cube, beams, freqs, weights, nu0, params, notes)
+                            operator=band_operator, restore=restore_images,
+                            callback=callback)
+        return _single_result(single, cube, beams, freqs, weights, nu0, params, notes,
+                              operators)
     scale_set = ScaleSet(scales, shape=scale_shape, image_shape=shape)
     engine = WidebandEngine(moments, scale_set, shape, size_penalty=size_penalty,
                             loop_gain=loop_gain, scale_loop_depth=scale_loop_depth, dtype=dt,
                             threads=threads, fft=fft)
+    updater = None
+    if emission_mask is not None:
+        if isinstance(emission_mask, str):
+            emission_mask = EmissionMask.for_beam(
+                engine.scales.pixels, beam if hasattr(beam, "major") else fit_beam(moments[0]))
+        updater = band_mask_updater(emission_mask, mask)
     with thread_limit(threads):
         backend = get_backend(fft, threads=threads)
         result = _run(engine, cube, beams, backend, weights, offsets, dirty_terms, mask,
                       float(threshold), noise_threshold, float(extended_depth),
                       float(cycle_depth), int(max_components), int(max_major_cycles),
-                      callback)
+                      callback, updater, operators)
+    result.emission_mask = emission_mask
     result.parameters = params
     result.warnings = notes + result.warnings
     result.reference_frequency = nu0
@@ -271,13 +294,16 @@ def equivalent_multiple(noise_threshold, n):
 
 def _run(engine, cube, beams, backend, weights, offsets, dirty_terms, mask, threshold,
          noise_threshold, extended_depth, cycle_depth, max_components, max_major_cycles,
-         callback):
+         callback, mask_updater=None, operators=None):
     """Major cycles: joint minor cycles, then every term's residual from scratch.
 
     Each major cycle recomputes ``R_t = I^D_t - sum_q B_{t+q} (*) I_q`` with the spectral
     PSFs, which is ``sum_c w_c x_c^t (dirty_c - PSF_c (*) model_c)`` exactly (the sums
     are linear) at ``2 n`` transforms instead of two per channel; every channel's own
-    residual is computed from its PSF at the end."""
+    residual is computed from its PSF at the end.  ``mask_updater`` (the automatic
+    mask, `skyscale.wideband.band_mask.band_mask_updater`) renews the mask from the
+    term-0 residual before the first minor cycle and after every major cycle; a major
+    cycle is judged in the mask it was cleaned in, before the mask grows."""
     n = engine.n_terms
     terms = np.zeros((n,) + engine.image_shape)
     residuals = dirty_terms.copy()
@@ -285,8 +311,8 @@ def _run(engine, cube, beams, backend, weights, offsets, dirty_terms, mask, thre
 
     multiple = equivalent_multiple(noise_threshold, n)
 
-    def measure(residuals):
-        planes = engine.smooth(residuals)
+    def measure(residuals, planes=None):
+        planes = engine.smooth(residuals) if planes is None else planes
         noise, _ = engine.noise(planes, mask)
         levels = scale_levels(noise, threshold=threshold, noise_threshold=multiple,
                               extended_depth=extended_depth, masked=mask is not None,
@@ -296,16 +322,24 @@ def _run(engine, cube, beams, backend, weights, offsets, dirty_terms, mask, thre
         return planes, noise, levels, peaks, peak, rms
 
     planes, noise, levels, peaks, peak, rms = measure(residuals)
+    centres = np.zeros(engine.image_shape, dtype=np.uint8)
+    if mask_updater is not None:
+        mask = mask_updater(residuals[0], centres, float(noise[0]))
+        planes, noise, levels, peaks, peak, rms = measure(residuals, planes)
     history = [CycleRecord(0, 0, peak, rms, 0.0, scale_peaks=peaks.tolist())]
     if callback is not None:
         callback({"stage": "major", "cycle": 0, "components": 0, "peak": peak, "rms": rms})
     tables, notes = [], []
+    channel_res = None        # with operators: the channels' residuals of the last cycle
     n_comp = rounds = rejected = stagnant = 0
     stop = "max_major_cycles"
     level_stop = "noise" if noise_threshold is not None and np.any(levels > threshold) \
         else "threshold"
     try:
         for cycle in range(1, max_major_cycles + 1):
+            if mask is not None and not mask.any():
+                stop = "empty_mask"
+                break
             if np.all(peaks <= levels):
                 stop = level_stop
                 break
@@ -324,7 +358,12 @@ def _run(engine, cube, beams, backend, weights, offsets, dirty_terms, mask, thre
                 stop = {"empty": "empty_mask", "max_components": "max_components",
                         "threshold": level_stop}.get(mc.stop_reason, "no_progress")
                 break
-            new_residuals = engine.subtract(dirty_terms.copy(), mc.terms, full_precision=True)
+            if operators is None:
+                new_residuals = engine.subtract(dirty_terms.copy(), mc.terms,
+                                                full_precision=True)
+            else:
+                new_channels = _channel_residuals(operators, mc.terms, offsets)
+                new_residuals = taylor_sums(new_channels, weights, offsets, n)
             t_major += time.perf_counter() - t2
             new = measure(new_residuals)
             highest = allowed_peak(peak, levels, engine.scales.has_delta)
@@ -336,9 +375,15 @@ def _run(engine, cube, beams, backend, weights, offsets, dirty_terms, mask, thre
                 stop = "diverging"
                 break
             terms, residuals = mc.terms, new_residuals
+            if operators is not None:
+                channel_res = new_channels
             planes, noise, levels, peaks, new_peak, rms = new
             tables.append(mc.components)
             n_comp += mc.components.size
+            if mask_updater is not None:
+                centres[mc.components["y"], mc.components["x"]] = 1
+                mask = mask_updater(residuals[0], centres, float(noise[0]))
+                planes, noise, levels, peaks, new_peak, rms = measure(residuals, planes)
             fell = new_peak < 0.99 * peak
             peak = new_peak
             flux = float(terms[0].sum())
@@ -362,11 +407,15 @@ def _run(engine, cube, beams, backend, weights, offsets, dirty_terms, mask, thre
     except KeyboardInterrupt:
         stop = "interrupted"
     t2 = time.perf_counter()
-    channel_res = np.empty(cube.shape, dtype=np.float64)
-    for c, psf in enumerate(beams):       # one channel's convolver at a time
-        conv = Convolver(psf, engine.image_shape, backend=backend)
-        channel_res[c] = cube[c] - conv(channel_model(terms, offsets[c]), out_dtype=np.float64)
-        del conv
+    if operators is None:
+        channel_res = np.empty(cube.shape, dtype=np.float64)
+        for c, psf in enumerate(beams):       # one channel's convolver at a time
+            conv = Convolver(psf, engine.image_shape, backend=backend)
+            channel_res[c] = cube[c] - conv(channel_model(terms, offsets[c]),
+                                            out_dtype=np.float64)
+            del conv
+    elif channel_res is None:
+        channel_res = cube.astype(np.float64)
     t_major += time.perf_counter() - t2
     components = np.concatenate(tables) if tables else np.zeros(0, WIDEBAND_COMPONENT_DTYPE)
     return WidebandResult(
@@ -377,6 +426,24 @@ def _run(engine, cube, beams, backend, weights, offsets, dirty_terms, mask, thre
         timings={"minor": t_minor, "major": t_major}, warnings=notes,
         scale_noise=noise.tolist(), scale_levels=levels.tolist(), scale_peaks=peaks.tolist(),
         sub_loops=rounds, rejected_sub_loops=rejected)
+
+
+def _channel_residuals(operators, terms, offsets):
+    """``(nchan, ny, nx)`` float64: each channel's residual of its model from its operator."""
+    return np.stack([np.asarray(op(channel_model(terms, x)), dtype=np.float64)
+                     for op, x in zip(operators, offsets)])
+
+
+def _band_operator(operators, weights, offsets, shape, dtype):
+    """One term's operator: the weighted mean of the channels' residuals of one model
+    (the term-0 Taylor sum, ``sum_c w_c R_c``)."""
+    from skyscale.core.operators import FunctionOperator
+
+    def band(model):
+        terms = np.asarray(model, dtype=np.float64)[None]
+        return taylor_sums(_channel_residuals(operators, terms, offsets), weights, offsets,
+                           1)[0].astype(dtype)
+    return FunctionOperator(band, shape=shape, dtype=dtype)
 
 
 def coefficient_residuals(residuals, moments):
@@ -417,20 +484,25 @@ def _restore(result, moments, beams, beam, index_snr, index_method):
     result.blank_level = maps["blank_level"]
 
 
-def _single_result(single, cube, beams, freqs, weights, nu0, params, notes):
+def _single_result(single, cube, beams, freqs, weights, nu0, params, notes, operators=None):
     """A `WidebandResult` holding the single-term run of `skyscale.deconvolve`."""
     table = np.zeros(single.components.size, WIDEBAND_COMPONENT_DTYPE)
     for name in ("y", "x", "scale", "flux"):
         table[name] = single.components[name]
-    channel_res = np.stack([c - Convolver(b, cube.shape[1:])(single.model.astype(np.float64),
-                                                                  out_dtype=np.float64)
-                            for c, b in zip(cube, beams)]).astype(np.float32)
+    if operators is not None:
+        channel_res = _channel_residuals(operators, single.model[None], np.zeros(len(cube))
+                                         ).astype(np.float32)
+    else:
+        channel_res = np.stack([c - Convolver(b, cube.shape[1:])(
+            single.model.astype(np.float64), out_dtype=np.float64)
+            for c, b in zip(cube, beams)]).astype(np.float32)
     return WidebandResult(
         terms=single.model[None], residuals=single.residual[None],
         channel_residuals=channel_res, components=table, stop_reason=single.stop_reason,
         reference_frequency=nu0, frequencies=freqs, channel_weights=weights,
         restored=None if single.restored is None else single.restored[None],
-        beam=single.beam, scales=single.scales, mask=single.mask, history=single.history,
+        beam=single.beam, scales=single.scales, mask=single.mask,
+        emission_mask=getattr(single, "emission_mask", None), history=single.history,
         parameters=params, timings=single.timings, warnings=notes + list(single.warnings),
         scale_noise=single.scale_noise, scale_levels=single.scale_levels,
         scale_peaks=single.scale_peaks, sub_loops=single.sub_loops,

@@ -58,6 +58,9 @@ def wideband_report(result):
         "beam_px": None if result.beam is None else result.beam.as_dict(),
         "hessians": None if result.hessians is None else np.asarray(result.hessians).tolist(),
         "scales_px": [float(s) for s in result.scales],
+        "mask": None if result.mask is None else {
+            "automatic": result.emission_mask is not None,
+            "fraction": float(np.mean(result.mask))},
         "scale_noise": result.scale_noise, "scale_levels": result.scale_levels,
         "channel_residual_rms": [float(np.sqrt(np.mean(np.square(r, dtype=np.float64))))
                                  for r in result.channel_residuals],

@@ -47,6 +47,10 @@ class WidebandResult:
         component, with each term's amplitude).
     hessians : (n_scales, n, n) ndarray
         Each scale's Hessian.
+    mask : (ny, nx) bool ndarray or None
+        The mask of the last major cycle (the automatic mask as it ended, when used).
+    emission_mask : EmissionMask or None
+        The automatic mask's state, when ``mask='auto'`` or an `EmissionMask` was given.
     single : DeconvolutionResult or None
         The single-term run, when ``terms=1`` went through `skyscale.deconvolve`.
     """
@@ -73,6 +77,7 @@ class WidebandResult:
     hessians: np.ndarray = None
     scales: tuple = ()
     mask: np.ndarray = None
+    emission_mask: object = None
     history: list = field(default_factory=list)
     parameters: dict = field(default_factory=dict)
     timings: dict = field(default_factory=dict)
