@@ -1,4 +1,4 @@
-"""`skyscale.cost.wideband_plan.plan_wideband` and ``skyscale plan --terms``.
+"""`skyscale.wideband.plan.plan_wideband` and ``skyscale plan --terms``.
 
 The memory check is against tracemalloc's peak of a real run (Python standard library);
 times are measured in benchmarks/wideband_terms.py, never asserted here.
@@ -12,7 +12,7 @@ import pytest
 
 import skyscale
 from skyscale.cli import main
-from skyscale.cost.wideband_plan import plan_wideband
+from skyscale.wideband.plan import plan_wideband
 from wideband_fields import band, observe, power_law, psf_cube
 
 SHAPE = (64, 64)

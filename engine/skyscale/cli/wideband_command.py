@@ -103,7 +103,7 @@ def _frequencies(cube, text):
 
 def _from_visibilities(args):
     """Per-channel operators of a visibility file and the inputs they make."""
-    from skyscale.cli.job_visibilities import image_header
+    from skyscale.visibility.run import image_header
     from skyscale.visibility.channels import channel_operators, wideband_inputs
     from skyscale.visibility.file import read_visibilities
     if args.size is None or args.cell is None:

@@ -1,4 +1,4 @@
-"""``skyscale plan --terms N``: the plan of a wideband run (`skyscale.cost.wideband_plan`)."""
+"""``skyscale plan --terms N``: the plan of a wideband run (`skyscale.wideband.plan`)."""
 
 import json
 
@@ -16,7 +16,7 @@ def add_wideband_plan_options(p):
 def print_wideband_plan(args, shape, psf_shape, scales, planes, known):
     """Plan the wideband run and print it (JSON with ``--json``); returns the exit code."""
     from skyscale.cost.planner import bytes_text, seconds_text
-    from skyscale.cost.wideband_plan import plan_wideband
+    from skyscale.wideband.plan import plan_wideband
     nchan = args.channels or (planes if planes > 1 else None)
     if nchan is None:
         raise ValueError("--terms needs the number of channels: give a FITS cube or "
