@@ -14,7 +14,8 @@ References
 """
 
 from skyscale.core.scales import ScaleSet
-from skyscale.cost.model import _grid, fft_seconds
+from skyscale.core.grids import fft_grid as _grid
+from skyscale.cost.model import fft_seconds
 from skyscale.cost.planner import plan_run
 from skyscale.wideband.memory import wideband_memory
 
@@ -58,7 +59,7 @@ def plan_wideband(image_shape, psf_shape, nchan, terms, scales, *, threads=1, dt
         return {"seconds": {"total": single.total_seconds},
                 "memory": {"total": single.memory_bytes}, "counts": single.counts,
                 "assumptions": list(single.messages), "single": single}
-    from skyscale.cost.calibration import load_calibration
+    from skyscale.core.calibration import load_calibration
     cal = calibration if isinstance(calibration, dict) else load_calibration(calibration)
     radii = ScaleSet(scales, image_shape=tuple(image_shape)).support_radii
     n, moments = int(terms), 2 * int(terms) - 1
