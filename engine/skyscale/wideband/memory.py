@@ -9,9 +9,8 @@ channels' residuals at the end.  The FFT grids are those of `skyscale.core.fft` 
 that tracemalloc measures.
 """
 
-from scipy.fft import next_fast_len
 
-from skyscale.core.fft import fast_shape
+from skyscale.core.fft import convolution_grid, fast_shape
 
 __all__ = ["wideband_memory"]
 
@@ -23,12 +22,7 @@ def _half_spectrum(shape):
 
 def _convolver_grid(image_shape, kernel_shape):
     """The grid `skyscale.core.fft.Convolver` uses for a kernel of ``kernel_shape``."""
-    out = []
-    for n, k in zip(image_shape, kernel_shape):
-        c = k // 2
-        out.append(next_fast_len(int(n + max(min(c, n - 1), min(k - 1 - c, n - 1))),
-                                 real=True))
-    return tuple(out)
+    return convolution_grid(kernel_shape, image_shape)
 
 
 def wideband_memory(image_shape, psf_shape, nchan, terms, radii, *, box_shape=None,
