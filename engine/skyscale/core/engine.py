@@ -40,6 +40,7 @@ from skyscale.core.memory import MEMORY_HEADROOM, engine_memory, fits_memory
 from skyscale.core.precompute import BeamBank, beam_peaks
 from skyscale.core.psf import check_psf
 from skyscale.core.result import COMPONENT_DTYPE
+from skyscale.core.scale_choice import REENTRY, ScaleChoice  # noqa: F401 (REENTRY offered here too)
 from skyscale.core.scales import ScaleSet
 from skyscale.core.windows import measurement_window
 from skyscale.core.defaults import DEFAULTS
@@ -59,11 +60,6 @@ PEAK_RISE_TOLERANCE = 1e-5
 #: times before its scale is given up for the rest of the cycle.
 MAX_HALVINGS = 3
 
-#: Within a minor cycle, a scale cleaned down to a floor above its stop level is chosen
-#: again only when its peak is back above this multiple of the floor: scales that
-#: alternate just above their floors would otherwise each pay an update for a component
-#: or two.  A floor that is the stop level itself is kept exactly.
-REENTRY = 1.05
 
 #: A sub-loop is applied directly to the tracked pixels (exact, see
 #: `skyscale.core.kernels.tracked`) when its multiply-adds (components x tracked pixels x
@@ -548,23 +544,12 @@ class Engine:
         pieces = []
         added = rounds = rejected = 0
         blocked = np.zeros(self.n_scales, dtype=bool)
-        entry = floors.copy()          # a scale cleaned to its floor re-enters above this
-        reentry = np.where(floors > levels, REENTRY * floors, floors)   # not at the stop
-        reason = "depth"
+        choice = ScaleChoice(floors, levels, self.response_scale, self.scale_loop_depth)
         t_loop = 0.0
         while True:
-            entry = np.where(peaks <= floors, np.maximum(entry, reentry), entry)
-            live = (peaks > entry) & ~blocked
-            if not live.any():
-                reason = ("peak_rose" if ((peaks > entry) & blocked).any() else
-                          "threshold" if np.all(peaks <= levels) else "depth")
+            k, level, reason = choice.next(peaks, blocked, added, budget)
+            if k is None:
                 break
-            if added >= budget:
-                reason = "max_components"
-                break
-            response = np.where(live, self.response_scale * peaks, -1.0)
-            k = int(np.argmax(response))
-            level = max(floors[k], self.scale_loop_depth * peaks[k])
             ta = time.perf_counter()
             active = work.active(k, level, floors, blocked)
             values = work.planes_t[k][active]

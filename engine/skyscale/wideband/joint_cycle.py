@@ -33,7 +33,9 @@ from skyscale.core.fft import Convolver, MultiConvolver, get_backend
 from skyscale.core.kernels import stamp_components
 from skyscale.core.levels import allowed_peak
 from skyscale.core.noise import scale_noise
+from skyscale.core.engine import MAX_HALVINGS, PEAK_RISE_TOLERANCE
 from skyscale.core.precompute import BeamBank
+from skyscale.core.scale_choice import ScaleChoice
 from skyscale.core.scales import ScaleSet
 from skyscale.core.threads import thread_limit
 from skyscale.wideband.hessian import invert_hessians, scale_hessians
@@ -49,13 +51,6 @@ WIDEBAND_COMPONENT_DTYPE = np.dtype([("y", np.int32), ("x", np.int32),
                                      ("scale", np.float32), ("flux", np.float64),
                                      ("term1", np.float64), ("term2", np.float64)])
 
-#: Rounding allowed on the term-0 peak before a sub-loop counts as raising it.
-PEAK_RISE_TOLERANCE = 1e-5
-#: A scale cleaned to a floor above its stop level is chosen again only when its peak
-#: is back above this multiple of the floor (as `skyscale.core.engine.REENTRY`).
-REENTRY = 1.05
-#: Halvings of a sub-loop that raised the peak before its scale is given up this cycle.
-MAX_HALVINGS = 3
 
 
 @dataclass
@@ -267,20 +262,11 @@ class WidebandEngine:
         rows = np.nonzero(allowed.any(axis=(0, 2)))[0]
         cols = np.nonzero(allowed.any(axis=(0, 1)))[0]
         extent = (int(rows[-1] - rows[0] + 1), int(cols[-1] - cols[0] + 1))
-        entry = floors.copy()          # a scale cleaned to its floor re-enters above this
-        reentry = np.where(floors > levels, REENTRY * floors, floors)
+        choice = ScaleChoice(floors, levels, self.response_scale, self.scale_loop_depth)
         while True:
-            entry = np.where(peaks <= floors, np.maximum(entry, reentry), entry)
-            live = (peaks > entry) & ~blocked
-            if not live.any():
-                reason = ("peak_rose" if ((peaks > entry) & blocked).any() else
-                          "threshold" if np.all(peaks <= levels) else "depth")
+            k, level, reason = choice.next(peaks, blocked, added, budget)
+            if k is None:
                 break
-            if added >= budget:
-                reason = "max_components"
-                break
-            k = int(np.argmax(np.where(live, self.response_scale * peaks, -1.0)))
-            level = max(floors[k], self.scale_loop_depth * peaks[k])
             ta = time.perf_counter()
             ys, xs = np.nonzero(allowed[k] & (responses[k] > level))
             values = np.ascontiguousarray(planes[k][:, ys, xs])
